@@ -1,0 +1,30 @@
+# `make demo` and `make test` bootstrap .venv themselves on a fresh machine.
+PYTHON ?= python3
+VENV   ?= .venv
+PY     := $(VENV)/bin/python
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test lint bench clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install -q --upgrade pip
+	$(PY) -m pip install -q -e '.[test,bench]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/fogwatch demo
+
+test: $(STAMP)
+	$(PY) -m ruff check notifier tests bench
+	$(PY) -m pytest -q -p no:cacheprovider
+
+lint: $(STAMP)
+	$(PY) -m ruff check notifier tests bench
+	$(PY) -m ruff format --check notifier tests bench
+
+bench: $(STAMP)
+	$(PY) bench/run.py
+
+clean:
+	rm -rf $(VENV) fogwatch-demo .pytest_cache

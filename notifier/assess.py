@@ -1,0 +1,223 @@
+"""Rule results → hazards, levels and reasons per site (pure: no I/O, no clock).
+
+For each site and hazard the level is the highest level among the rules that fired.
+``sustain`` is the highest level whose rules still hold once their clearing margins are
+applied; the lifecycle keeps an active alert at that level instead of dropping it the
+moment a value touches its threshold.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from notifier.features import FEATURES, FeatureSettings, FeatureTable, compute_features
+from notifier.rules import LEVELS, RuleResult, RuleSet, evaluate_rule
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from notifier.config import Site
+
+__all__ = ["HazardAssessment", "SiteAssessment", "assess", "level_rank", "to_json"]
+
+HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
+STALE_AFTER_MIN = 90.0
+
+
+def level_rank(level: str) -> int:
+    return LEVELS.index(level)
+
+
+@dataclass
+class HazardAssessment:
+    hazard: str
+    level: str  # watch | warning
+    kind: str
+    eta: datetime | None
+    rules: list[str]
+    reasons: list[str]
+    explanations: list[str]
+    safety_refs: list[str]
+
+
+@dataclass
+class SiteAssessment:
+    site: Site
+    time: datetime
+    features: dict[str, float]
+    projection_method: str
+    last_time: datetime | None
+    results: list[RuleResult]
+    hazards: dict[str, HazardAssessment] = field(default_factory=dict)
+    sustain: dict[str, str] = field(default_factory=dict)  # hazard → level with margins
+    stale_after_min: float = STALE_AFTER_MIN
+
+    @property
+    def level(self) -> str:
+        ranks = [level_rank(h.level) for h in self.hazards.values()]
+        return LEVELS[max(ranks)] if ranks else "none"
+
+    @property
+    def age_min(self) -> float:
+        return self.features["data_age_min"]
+
+    @property
+    def stale(self) -> bool:
+        return not (self.age_min <= self.stale_after_min)
+
+
+def assess(
+    rules: RuleSet,
+    sites: Sequence[Site],
+    obs: pd.DataFrame,
+    at: datetime,
+    settings: FeatureSettings | None = None,
+    stale_after_min: float = STALE_AFTER_MIN,
+) -> list[SiteAssessment]:
+    """Evaluate every rule for every site at ``at``."""
+    if at.tzinfo is None:
+        raise ValueError("evaluation time must be timezone-aware")
+    at = at.astimezone(UTC)
+    tables: dict[int, FeatureTable] = {}
+
+    def table(steps_back: int) -> FeatureTable:
+        if steps_back not in tables:
+            tables[steps_back] = compute_features(
+                obs, sites, at - timedelta(seconds=steps_back * HOLD_STEP_S), settings
+            )
+        return tables[steps_back]
+
+    now = table(0)
+    per_rule: list[list[RuleResult]] = []
+    for rule in rules.rules:
+        steps = math.ceil(rule.hold_s / HOLD_STEP_S)
+        feats_at = [table(k).values for k in range(steps + 1)]
+        per_rule.append(evaluate_rule(rule, sites, feats_at))
+
+    out = []
+    for i, site in enumerate(sites):
+        results = [rr[i] for rr in per_rule]
+        features = now.row(i)
+        last = now.last_time[i]
+        sa = SiteAssessment(
+            site=site,
+            time=at,
+            features=features,
+            projection_method=str(now.projection_method[i] or ""),
+            last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
+            results=results,
+            stale_after_min=stale_after_min,
+        )
+        _aggregate(sa, at)
+        out.append(sa)
+    return out
+
+
+def _aggregate(sa: SiteAssessment, at: datetime) -> None:
+    by_hazard: dict[str, list[RuleResult]] = {}
+    for r in sa.results:
+        if r.applies and r.fires:
+            by_hazard.setdefault(r.rule.hazard, []).append(r)
+        if r.applies and r.sustains:
+            cur = sa.sustain.get(r.rule.hazard, "none")
+            if level_rank(r.rule.level) > level_rank(cur):
+                sa.sustain[r.rule.hazard] = r.rule.level
+    for hazard, fired in by_hazard.items():
+        top = max(level_rank(r.rule.level) for r in fired)
+        level = LEVELS[top]
+        # the rules at the top level explain the alert; lower ones add context
+        fired.sort(key=lambda r: -level_rank(r.rule.level))
+        lead = fired[0]
+        reasons: list[str] = []
+        for r in fired:
+            for text in r.reasons():
+                if text not in reasons:
+                    reasons.append(text)
+        explanations = [r.explanation(sa.features) for r in fired if r.rule.explain]
+        refs: list[str] = []
+        for r in fired:
+            refs.extend(x for x in r.rule.safety if x not in refs)
+        sa.hazards[hazard] = HazardAssessment(
+            hazard=hazard,
+            level=level,
+            kind=lead.rule.kind,
+            eta=_eta(hazard, lead, sa.features, at),
+            rules=[r.rule.id for r in fired],
+            reasons=reasons,
+            explanations=explanations,
+            safety_refs=refs,
+        )
+        if level_rank(sa.sustain.get(hazard, "none")) < top:
+            sa.sustain[hazard] = level
+
+
+def _eta(
+    hazard: str, lead: RuleResult, features: dict[str, float], at: datetime
+) -> datetime | None:
+    """When the hazard is expected: now if observed, else the projected time of fog."""
+    if hazard == "data_gap":
+        return None
+    if lead.rule.kind == "observed" or features.get("observed_fog") == 1.0:
+        return at
+    hours = features.get("hours_to_fog", float("nan"))
+    if hours is None or not np.isfinite(hours):
+        return None
+    return at + timedelta(hours=float(hours))
+
+
+def _iso(t: datetime | None) -> str | None:
+    return None if t is None else t.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _json_number(v: float) -> Any:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return None
+    if isinstance(v, float) and math.isinf(v):
+        return None
+    return round(float(v), 3)
+
+
+def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
+    """DESIGN.md's ``assess --json`` shape."""
+    out = []
+    for sa in assessments:
+        feats: dict[str, Any] = {}
+        for name, value in sa.features.items():
+            if FEATURES[name].kind == "bool":
+                feats[name] = None if math.isnan(value) else bool(value)
+            else:
+                feats[name] = _json_number(value)
+        feats["projection_method"] = sa.projection_method or None
+        hazards = [
+            {
+                "hazard": h.hazard,
+                "level": h.level,
+                "kind": h.kind,
+                "eta": _iso(h.eta),
+                "rules": h.rules,
+                "reasons": h.reasons,
+            }
+            for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
+        ]
+        age = sa.age_min
+        out.append(
+            {
+                "site": sa.site.id,
+                "time": _iso(sa.time),
+                "level": sa.level,
+                "hazards": hazards,
+                "features": feats,
+                "data": {
+                    "last_time": _iso(sa.last_time),
+                    "age_min": None if not np.isfinite(age) else round(age, 1),
+                    "stale": sa.stale,
+                },
+            }
+        )
+    return out

@@ -1,0 +1,285 @@
+"""Features against outside references (SciPy, NumPy, MetPy, astral, published values)."""
+
+from __future__ import annotations
+
+import datetime as dt
+from datetime import timedelta
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from notifier.features import FEATURES, compute_features
+from tests.engine.scenes import site, steady, utc
+
+
+def one(obs, s, at):
+    table = compute_features(obs, [s], at)
+    return table.row(0), table
+
+
+def test_every_feature_has_a_label_and_unit_kind():
+    for name, spec in FEATURES.items():
+        assert spec.label and spec.kind in ("number", "bool"), name
+
+
+def test_trend_matches_scipy_theil_sen():
+    # SciPy's theilslopes is the reference implementation of Sen's (1968) estimator.
+    from scipy.stats import theilslopes
+
+    s = site("trend-site")
+    at = utc(2026, 10, 14, 22, 0)
+    rng = np.random.default_rng(7)
+    depression = np.linspace(3.0, 1.0, 19) + rng.normal(0, 0.15, 19)
+    obs = steady(s.id, at, temp_c=8.0, dewpoint_c=8.0 - depression, wind_ms=1.0)
+    row, _ = one(obs, s, at)
+    hours = np.linspace(-3, 0, 19)
+    expected = theilslopes(8.0 - obs["dewpoint_c"].to_numpy(), hours)[0]
+    assert row["depression_trend_c_per_h"] == pytest.approx(expected, abs=1e-9)
+    # time to saturation = depression / closing rate
+    assert row["hours_to_saturation"] == pytest.approx(
+        row["dewpoint_depression_c"] / -expected, rel=1e-9
+    )
+
+
+def test_cooling_fit_matches_numpy_least_squares():
+    # Brunt's law T = T0 − k√t fitted by ordinary least squares; numpy.polyfit on √t is
+    # the reference.
+    from notifier import physics
+
+    s = site("fit-site")
+    sunset, _ = physics.night_bounds_utc(
+        np.array([s.lat]), np.array([s.lon]), np.array([utc(2026, 10, 14, 21).timestamp()])
+    )[:2]
+    sunset_t = dt.datetime.fromtimestamp(float(sunset[0]), dt.UTC)
+    at = sunset_t + timedelta(hours=3, minutes=5)
+    times = [sunset_t + timedelta(minutes=10 * i + 5) for i in range(19)]
+    hours = np.array([(t - sunset_t).total_seconds() / 3600 for t in times])
+    rng = np.random.default_rng(3)
+    temp = 9.0 - 1.7 * np.sqrt(hours) + rng.normal(0, 0.05, hours.size)
+    obs = pd.DataFrame(
+        {
+            "site": s.id,
+            "time": pd.to_datetime(times, utc=True),
+            "kind": "obs",
+            "temp_c": temp,
+            "dewpoint_c": 4.0,
+            "wind_ms": 1.0,
+            "cloud_pct": 0.0,
+        }
+    )
+    row, table = one(obs, s, at)
+    slope, intercept = np.polyfit(np.sqrt(hours), temp, 1)
+    _, next_sunrise, _ = physics.night_bounds_utc(
+        np.array([s.lat]), np.array([s.lon]), np.array([at.timestamp()])
+    )
+    night_h = (float(next_sunrise[0]) - sunset_t.timestamp()) / 3600
+    assert table.projection_method[0] == "cooling-fit"
+    assert row["projected_min_temp_c"] == pytest.approx(
+        intercept + slope * np.sqrt(night_h), abs=1e-6
+    )
+    # the curve reaches the 4 °C dew point at ((T0 − Td)/k)² hours after sunset
+    cross = ((intercept - 4.0) / -slope) ** 2 - (at - sunset_t).total_seconds() / 3600
+    assert row["hours_to_crossing"] == pytest.approx(cross, abs=1e-6)
+
+
+def test_net_longwave_matches_the_worked_value():
+    # REFERENCES [computed]: 10 °C, e = 10 hPa, clear sky, Brutsaert, ε_s 0.98 → 82.5 W/m².
+    from notifier.physics import dewpoint_c, saturation_vapor_pressure_hpa
+
+    td = float(dewpoint_c(10.0, 100 * 10.0 / saturation_vapor_pressure_hpa(10.0)))
+    s = site("lw-site")
+    at = utc(2026, 10, 14, 22)
+    row, _ = one(steady(s.id, at, temp_c=10.0, dewpoint_c=td, cloud_pct=0.0, wind_ms=1.0), s, at)
+    assert row["net_longwave_wm2"] == pytest.approx(82.5, abs=0.3)
+    # overcast: Unsworth & Monteith ε = 0.963 at c = 1 → loss about an order smaller
+    row, _ = one(steady(s.id, at, temp_c=10.0, dewpoint_c=td, cloud_pct=100.0, wind_ms=1.0), s, at)
+    assert row["net_longwave_wm2"] < 15
+
+
+def test_rh_matches_metpy():
+    from metpy.calc import relative_humidity_from_dewpoint
+    from metpy.units import units
+
+    s = site("rh-site")
+    at = utc(2026, 10, 14, 22)
+    row, _ = one(steady(s.id, at, temp_c=12.0, dewpoint_c=9.0, wind_ms=1.0), s, at)
+    ref = relative_humidity_from_dewpoint(12.0 * units.degC, 9.0 * units.degC).to("percent")
+    assert row["rh_pct"] == pytest.approx(ref.magnitude, abs=0.3)
+
+
+def test_frost_point_from_published_check():
+    # REFERENCES [computed]: Td(0 °C, 80 %) = −3.04 °C, frost point −2.68 °C.
+    s = site("frost-site")
+    at = utc(2026, 12, 1, 5)
+    row, _ = one(steady(s.id, at, temp_c=0.0, dewpoint_c=-3.04, surface_temp_c=-4.0), s, at)
+    assert row["frost_point_c"] == pytest.approx(-2.68, abs=0.02)
+    assert row["surface_minus_frost_point_c"] == pytest.approx(-4.0 - row["frost_point_c"])
+
+
+def test_sun_features_match_astral():
+    # astral 3 with the NOAA zenith of 90.833° (REFERENCES: Sun).
+    from astral import Observer
+    from astral.sun import SunDirection, time_of_transit
+
+    s = site("sun-site", lat=51.4769, lon=0.0)
+    at = utc(2024, 12, 21, 22, 0)
+    obs = steady(s.id, at, temp_c=3.0, dewpoint_c=1.0)
+    row, _ = one(obs, s, at)
+    rise = time_of_transit(
+        Observer(51.4769, 0.0),
+        dt.date(2024, 12, 22),
+        90.833,
+        SunDirection.RISING,
+        with_refraction=False,
+    )
+    assert row["is_night"] == 1.0
+    assert row["hours_to_sunrise"] == pytest.approx((rise - at).total_seconds() / 3600, abs=2 / 60)
+
+
+@pytest.mark.parametrize(
+    ("sector", "direction", "speed", "expected"),
+    [
+        ((200, 320), 250, 3.0, 1.0),
+        ((200, 320), 90, 3.0, 0.0),
+        ((300, 60), 10, 3.0, 1.0),
+        ((300, 60), 180, 3.0, 0.0),
+        ((200, 320), 250, 0.2, 0.0),
+    ],
+    ids=["inside", "outside", "wraps-north-inside", "wraps-north-outside", "calm"],
+)
+def test_onshore_sector(sector, direction, speed, expected):
+    s = site("quay", exposure="coast", onshore_from_deg=sector[0], onshore_to_deg=sector[1])
+    at = utc(2026, 5, 1, 3)
+    row, _ = one(
+        steady(s.id, at, temp_c=10.0, dewpoint_c=9.0, wind_ms=speed, wind_dir_deg=direction), s, at
+    )
+    assert row["onshore"] == expected
+
+
+def test_onshore_unknown_without_a_sector():
+    s = site("field")
+    at = utc(2026, 5, 1, 3)
+    row, _ = one(
+        steady(s.id, at, temp_c=10.0, dewpoint_c=9.0, wind_ms=3.0, wind_dir_deg=250.0), s, at
+    )
+    assert np.isnan(row["onshore"])
+
+
+@pytest.mark.parametrize(
+    ("visibility", "weather", "temp", "fog", "mist", "freezing"),
+    [
+        (800.0, "", 3.0, 1, 0, 0),
+        (3000.0, "BR", 3.0, 0, 1, 0),
+        (200.0, "FZFG", -2.0, 1, 0, 1),
+        (900.0, "", -1.0, 1, 0, 1),
+        (9999.0, "", 3.0, 0, 0, 0),
+        (np.nan, "BCFG", 3.0, 1, 0, 0),
+    ],
+    ids=["vis-800-fog", "BR-mist", "FZFG", "fog-below-zero", "clear", "patches-BCFG"],
+)
+def test_observed_flags_follow_wmo_definitions(visibility, weather, temp, fog, mist, freezing):
+    # WMO-No. 8: fog below 1000 m; WMO-No. 306 FM 15: BR, FG, FZFG (fog below 0 °C).
+    s = site("obs-site")
+    at = utc(2026, 11, 3, 4)
+    row, _ = one(
+        steady(
+            s.id,
+            at,
+            hours=0.5,
+            temp_c=temp,
+            dewpoint_c=temp - 0.3,
+            visibility_m=visibility,
+            weather=weather,
+        ),
+        s,
+        at,
+    )
+    assert (row["observed_fog"], row["observed_mist"], row["observed_freezing_fog"]) == (
+        fog,
+        mist,
+        freezing,
+    )
+
+
+def test_no_data_is_infinitely_old_and_everything_else_unknown():
+    s = site("silent")
+    row, _ = one(pd.DataFrame(), s, utc(2026, 11, 3, 4))
+    assert row["data_age_min"] == np.inf
+    assert np.isnan(row["temp_c"]) and np.isnan(row["dewpoint_depression_c"])
+
+
+def test_old_readings_are_not_current():
+    s = site("old")
+    at = utc(2026, 11, 3, 4)
+    obs = steady(s.id, at - timedelta(hours=5), temp_c=3.0, dewpoint_c=2.0)
+    row, _ = one(obs, s, at)
+    assert row["data_age_min"] == pytest.approx(300.0)
+    assert np.isnan(row["temp_c"])
+
+
+def test_forecast_rows_give_the_projected_minimum():
+    s = site("fc-site")
+    at = utc(2026, 10, 14, 15)
+    obs = steady(s.id, at, temp_c=12.0, dewpoint_c=6.0, wind_ms=2.0, cloud_pct=10.0)
+    times = pd.date_range(at, periods=18, freq="1h", tz="UTC")
+    fc = pd.DataFrame(
+        {
+            "site": s.id,
+            "time": times,
+            "kind": "forecast",
+            "temp_c": np.r_[np.linspace(12, 4.5, 12), np.linspace(5, 9, 6)],
+            "dewpoint_c": 5.0,
+        }
+    )
+    row, table = one(pd.concat([obs, fc]), s, at)
+    assert table.projection_method[0] == "forecast"
+    assert row["projected_min_temp_c"] == pytest.approx(4.5)  # open site: no offset
+    assert row["min_margin_c"] == pytest.approx(-0.5)
+
+
+def test_crossover_is_the_lowest_afternoon_dewpoint():
+    s = site("xo-site")
+    at = utc(2026, 10, 14, 20)
+    obs = steady(s.id, at, hours=10, step_min=30, temp_c=10.0, dewpoint_c=(6.0, 7.0), wind_ms=1.0)
+    row, _ = one(obs, s, at)
+    local = obs["time"].dt.tz_convert("Europe/London")
+    afternoon = obs.loc[(local.dt.hour >= 12) & (local.dt.hour < 18), "dewpoint_c"]
+    assert row["crossover_temp_c"] == pytest.approx(afternoon.min())
+
+
+def test_vectorised_over_sites_equals_site_by_site():
+    sites = [
+        site("a"),
+        site("b", exposure="valley"),
+        site("c", exposure="forest"),
+        site("d", exposure="coast", onshore_from_deg=180, onshore_to_deg=300),
+        site("e", exposure="urban"),
+    ]
+    at = utc(2026, 10, 14, 23)
+    frames = [
+        steady(
+            s.id,
+            at,
+            hours=12,
+            temp_c=(14.0 - i, 5.0 - i / 2),
+            dewpoint_c=(6.0, 4.0 + i / 3),
+            wind_ms=1.0 + i,
+            cloud_pct=10.0 * i,
+            wind_dir_deg=200.0,
+            water_temp_c=9.0,
+            visibility_m=5000.0 - 900 * i,
+        )
+        for i, s in enumerate(sites)
+    ]
+    together = compute_features(pd.concat(frames), sites, at)
+    for i, s in enumerate(sites):
+        alone = compute_features(frames[i], [s], at)
+        for name in FEATURES:
+            np.testing.assert_allclose(
+                together.values[name][i],
+                alone.values[name][0],
+                rtol=0,
+                atol=1e-12,
+                err_msg=f"{s.id} {name}",
+            )

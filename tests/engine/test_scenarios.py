@@ -1,0 +1,265 @@
+"""Scenario nights for every default rule, each with a near-miss that must not fire.
+
+The scenarios are invented; what each one must trigger follows from published
+definitions (named beside each case) or is marked common practice.
+"""
+
+from __future__ import annotations
+
+from datetime import timedelta
+
+import pandas as pd
+import pytest
+
+from notifier.assess import assess
+from notifier.demo_data import NightSpec, simulate_night
+from tests.engine.scenes import EVENING, RULES, site, steady, utc
+
+
+def fired(sites, obs, at):
+    return {
+        a.site.id: {r.rule.id for r in a.results if r.fires} for a in assess(RULES, sites, obs, at)
+    }
+
+
+def levels(sites, obs, at):
+    return {
+        a.site.id: {h: x.level for h, x in a.hazards.items()} for a in assess(RULES, sites, obs, at)
+    }
+
+
+# -- radiation fog ---------------------------------------------------------------------
+
+
+def _night(s, **kw):
+    return simulate_night(
+        NightSpec(site=s.id, evening=EVENING, timezone=s.timezone, lat=s.lat, lon=s.lon, **kw)
+    )
+
+
+def test_clear_calm_night_that_saturates_gives_watch_then_warning():
+    # Clear sky, light wind, moist air: the textbook radiation-fog night (EUMETrain
+    # conceptual model of radiation fog).
+    s = site("clear-field")
+    obs = _night(s)
+    evening = fired([s], obs, utc(2026, 10, 14, 17, 0))["clear-field"]
+    assert "radiation-fog-watch" in evening
+    assert "radiation-fog-warning" not in evening
+    late = fired([s], obs, utc(2026, 10, 14, 21, 0))["clear-field"]
+    assert "radiation-fog-warning" in late
+    night = levels([s], obs, utc(2026, 10, 15, 1, 0))["clear-field"]
+    assert night["fog"] == "warning"
+
+
+def test_same_night_overcast_and_windy_stays_quiet():
+    # Overcast sky returns long-wave and 6 m/s mixes the layer: no radiation fog
+    # (common practice: radiation fog needs wind below ~3 m/s and little low cloud).
+    s = site("cloudy-field")
+    obs = _night(s, cloud_pct=95.0, wind_ms=6.0, cooling_k_per_sqrt_h=0.4, dewpoint_c=4.0)
+    for at in (utc(2026, 10, 14, 17), utc(2026, 10, 14, 22), utc(2026, 10, 15, 3)):
+        assert not levels([s], obs, at)["cloudy-field"].get("fog"), at
+
+
+def test_forest_site_beside_open_site_cools_less():
+    # The same evening air over an open field and under a canopy: the canopy hides the
+    # sky (sky-view factor), so the net long-wave loss and the cooling potential are
+    # lower and the projected minimum higher (Oke, Boundary Layer Climates, from memory).
+    open_site = site("open-field", exposure="open")
+    forest = site("wood-edge", exposure="forest")
+    at = utc(2026, 10, 14, 16, 0)
+    frames = []
+    for s in (open_site, forest):
+        frames.append(_night(s, dewpoint_c=4.0, sunset_temp_c=9.5))
+    obs = pd.concat(frames)
+    result = {a.site.id: a for a in assess(RULES, [open_site, forest], obs, at)}
+    f_open, f_forest = result["open-field"].features, result["wood-edge"].features
+    assert f_forest["net_longwave_wm2"] < 0.6 * f_open["net_longwave_wm2"]
+    assert f_forest["cooling_potential"] < f_open["cooling_potential"]
+    assert f_forest["projected_min_temp_c"] > f_open["projected_min_temp_c"]
+    assert "radiation-fog-watch" in {r.rule.id for r in result["open-field"].results if r.fires}
+    assert "radiation-fog-watch" not in {r.rule.id for r in result["wood-edge"].results if r.fires}
+
+
+def test_valley_site_gets_the_valley_watch_on_a_calm_clear_night():
+    valley = site("low-orchard", exposure="valley")
+    obs = _night(valley, dewpoint_c=5.5)
+    assert "valley-fog-watch" in fired([valley], obs, utc(2026, 10, 14, 19, 30))["low-orchard"]
+    windy = _night(valley, dewpoint_c=5.5, wind_ms=6.5, cloud_pct=90.0, cooling_k_per_sqrt_h=0.5)
+    assert (
+        "valley-fog-watch" not in fired([valley], windy, utc(2026, 10, 14, 19, 30))["low-orchard"]
+    )
+
+
+# -- sea and advection fog ---------------------------------------------------------------
+
+HARBOUR = dict(exposure="coast", use="port", onshore_from_deg=200, onshore_to_deg=320)
+
+
+@pytest.mark.parametrize(
+    ("wind_dir", "expected"),
+    [(250.0, "warning"), (90.0, None)],
+    ids=["onshore-over-cold-water", "offshore-same-air"],
+)
+def test_harbour_with_cold_water(wind_dir, expected):
+    # Cho et al. 2000: sea fog is frequent where the dew point exceeds the water
+    # temperature by more than 2 °C; it needs the air to come off the water.
+    s = site("quay-two", **HARBOUR)
+    at = utc(2026, 5, 20, 4, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=12.6,
+        dewpoint_c=11.8,
+        water_temp_c=8.5,
+        wind_ms=4.0,
+        wind_dir_deg=wind_dir,
+        cloud_pct=100.0,
+        visibility_m=8000.0,
+    )
+    got = levels([s], obs, at)[s.id].get("fog")
+    assert got == expected
+    if expected:
+        assert {"sea-fog-watch", "sea-fog-warning"} <= fired([s], obs, at)[s.id]
+
+
+def test_sea_fog_rule_does_not_apply_inland():
+    s = site("inland", exposure="open")
+    at = utc(2026, 5, 20, 4, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=12.6,
+        dewpoint_c=11.8,
+        water_temp_c=8.5,
+        wind_ms=4.0,
+        wind_dir_deg=250.0,
+        cloud_pct=100.0,
+    )
+    assert not {"sea-fog-watch", "sea-fog-warning"} & fired([s], obs, at)[s.id]
+
+
+def test_steam_fog_over_much_warmer_water():
+    # Saunders 1964: steam fog needs the water 5–15 °C warmer than the air.
+    s = site("river-wharf", exposure="waterside", use="port")
+    at = utc(2026, 1, 20, 7, 0)
+    cold = steady(
+        s.id, at, temp_c=-9.0, dewpoint_c=-11.0, water_temp_c=4.0, wind_ms=2.0, cloud_pct=20.0
+    )
+    assert "steam-fog-watch" in fired([s], cold, at)[s.id]
+    mild = steady(
+        s.id, at, temp_c=1.0, dewpoint_c=-1.0, water_temp_c=4.0, wind_ms=2.0, cloud_pct=20.0
+    )
+    assert "steam-fog-watch" not in fired([s], mild, at)[s.id]
+
+
+# -- observed fog --------------------------------------------------------------------------
+
+
+def test_observed_dense_fog():
+    # WMO: fog is visibility below 1000 m; 200 m is "thick" fog in UK practice.
+    s = site("gate-field")
+    at = utc(2026, 11, 3, 6, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=4.0,
+        dewpoint_c=3.9,
+        wind_ms=0.5,
+        cloud_pct=100.0,
+        visibility_m=150.0,
+        weather="FG",
+    )
+    got = fired([s], obs, at)[s.id]
+    assert {"observed-fog", "dense-fog"} <= got
+    a = assess(RULES, [s], obs, at)[0]
+    assert a.hazards["fog"].eta == at  # observed: it is here now
+
+
+def test_mist_is_not_fog():
+    # 1500 m with BR is mist (WMO-No. 306 FM 15: BR 1000–5000 m), not fog.
+    s = site("gate-field")
+    at = utc(2026, 11, 3, 1, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=4.0,
+        dewpoint_c=3.4,
+        wind_ms=3.0,
+        cloud_pct=100.0,
+        visibility_m=1500.0,
+        weather="BR",
+    )
+    got = fired([s], obs, at)[s.id]
+    assert "observed-mist" in got
+    assert not {"observed-fog", "dense-fog"} & got
+
+
+# -- icing -----------------------------------------------------------------------------------
+
+
+def test_freezing_night_gives_freezing_fog():
+    # FZFG: fog at temperatures below 0 °C (WMO-No. 306 FM 15).
+    s = site("north-paddock")
+    obs = _night(s, day_max_c=3.0, sunset_temp_c=0.5, dewpoint_c=-1.0, dewpoint_drift_c_per_h=0.0)
+    watch_at = utc(2026, 10, 14, 18, 30)
+    assert "freezing-fog-watch" in fired([s], obs, watch_at)[s.id]
+    late = utc(2026, 10, 15, 2, 0)
+    got = fired([s], obs, late)[s.id]
+    assert "freezing-fog-observed" in got
+    assert levels([s], obs, late)[s.id]["icing"] == "warning"
+
+
+def test_mild_fog_night_has_no_icing():
+    s = site("south-paddock")
+    obs = _night(s)
+    assert "icing" not in levels([s], obs, utc(2026, 10, 15, 2, 0))[s.id]
+
+
+@pytest.mark.parametrize(
+    ("dewpoint", "expect_frost"),
+    [(-2.5, True), (-9.0, False)],
+    ids=["moist-air-deposits-frost", "dry-air-frost-point-below-surface"],
+)
+def test_hoar_frost_needs_the_surface_below_the_frost_point(dewpoint, expect_frost):
+    # Hoar frost deposits where the surface is at or below the frost point and below
+    # 0 °C (Karlsson 2001). Surface −3 °C: with dew point −2.5 the frost point is about
+    # −2.2 °C (above the surface); with dew point −9 it is about −8 °C (below it).
+    s = site("deck-a", use="port")
+    at = utc(2026, 12, 10, 5, 0)
+    obs = steady(
+        s.id, at, temp_c=-0.5, dewpoint_c=dewpoint, surface_temp_c=-3.0, wind_ms=1.0, cloud_pct=0.0
+    )
+    got = fired([s], obs, at)[s.id]
+    assert ("hoar-frost" in got) == expect_frost
+
+
+# -- data health ---------------------------------------------------------------------------
+
+
+def test_feed_that_stopped_is_reported_and_fog_rules_stay_unknown():
+    s = site("far-field")
+    stop = utc(2026, 10, 14, 20, 0)
+    obs = _night(s).pipe(lambda f: f[f["time"] <= pd.Timestamp(stop)])
+    at = stop + timedelta(hours=4)
+    a = assess(RULES, [s], obs, at)[0]
+    assert a.hazards["data_gap"].level == "watch"
+    assert a.stale
+    # silence is not safety: the fog rules say they cannot judge, not that all is well
+    fog_warning = next(r for r in a.results if r.rule.id == "radiation-fog-warning")
+    assert not fog_warning.fires
+    assert "dewpoint_depression_c" in fog_warning.missing
+
+
+def test_fresh_feed_has_no_data_gap():
+    s = site("near-field")
+    at = utc(2026, 10, 14, 21, 0)
+    obs = _night(s)
+    assert "data-gap" not in fired([s], obs, at)[s.id]
+
+
+def test_site_that_never_reported_is_a_data_gap():
+    s = site("silent")
+    at = utc(2026, 10, 14, 21, 0)
+    a = assess(RULES, [s], pd.DataFrame(), at)[0]
+    assert a.hazards["data_gap"].level == "watch"
+    assert a.level == "watch"
