@@ -1,0 +1,163 @@
+"""Theil–Sen slope and hours-to-zero."""
+
+from __future__ import annotations
+
+import time
+import warnings
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra import numpy as hnp
+
+from notifier.physics import hours_to_zero, robust_slope_per_h
+
+finite = st.floats(-50.0, 50.0)
+
+
+def test_exact_line() -> None:
+    hours = np.arange(10.0)
+    assert robust_slope_per_h(hours, 3.0 - 0.4 * hours) == pytest.approx(-0.4, abs=1e-12)
+
+
+def test_single_outlier_does_not_move_the_slope() -> None:
+    hours = np.arange(12.0)
+    values = 5.0 - 0.5 * hours
+    values[7] = 40.0
+    assert robust_slope_per_h(hours, values) == pytest.approx(-0.5, abs=1e-12)
+    # Ordinary least squares, for contrast, is pulled well off.
+    assert abs(np.polyfit(hours, values, 1)[0] + 0.5) > 0.3
+
+
+def test_against_scipy_theilslopes() -> None:
+    # scipy.stats.theilslopes implements Sen (1968): median over pairs with distinct x.
+    stats = pytest.importorskip("scipy.stats")
+    rng = np.random.default_rng(1968)
+    for _ in range(20):
+        n = int(rng.integers(2, 40))
+        hours = np.round(rng.uniform(0.0, 12.0, n), 1)  # rounding makes some ties
+        values = rng.normal(0.0, 2.0, n)
+        if np.ptp(hours) == 0:
+            continue
+        expected = stats.theilslopes(values, hours).slope
+        assert robust_slope_per_h(hours, values) == pytest.approx(expected, rel=1e-12, abs=1e-12)
+
+
+def test_nan_points_are_skipped_and_too_few_give_nan() -> None:
+    hours = np.array([0.0, 1.0, 2.0, 3.0])
+    assert robust_slope_per_h(hours, [1.0, np.nan, 3.0, np.nan]) == pytest.approx(1.0)
+    assert np.isnan(robust_slope_per_h(hours, [1.0, np.nan, np.nan, np.nan]))
+    assert np.isnan(robust_slope_per_h([1.0, 1.0, 1.0], [1.0, 2.0, 3.0]))  # all tied times
+    assert np.isnan(robust_slope_per_h([1.0], [1.0]))
+    assert np.isnan(robust_slope_per_h(1.0, 1.0))
+    assert robust_slope_per_h(np.full((4, 0), 1.0), np.full((4, 0), 1.0)).shape == (4,)
+
+
+def test_tied_times_are_skipped() -> None:
+    # Sen (1968) excludes pairs with equal x; the remaining slopes are all 2.
+    assert robust_slope_per_h([0.0, 0.0, 1.0, 2.0], [0.0, 0.0, 2.0, 4.0]) == pytest.approx(2.0)
+
+
+def test_shared_time_axis_broadcasts() -> None:
+    hours = np.arange(5.0)
+    values = np.stack([hours * 1.0, hours * -2.0, np.full(5, 3.0)])
+    np.testing.assert_allclose(robust_slope_per_h(hours, values), [1.0, -2.0, 0.0])
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    intercept=finite,
+    slope=st.floats(-5.0, 5.0),
+    n=st.integers(3, 40),
+    outlier_index=st.integers(0, 39),
+    outlier=st.floats(-1e3, 1e3),
+)
+def test_recovers_exact_line_and_resists_one_outlier(
+    intercept: float, slope: float, n: int, outlier_index: int, outlier: float
+) -> None:
+    hours = np.arange(n) * 0.25
+    values = intercept + slope * hours
+    assert robust_slope_per_h(hours, values) == pytest.approx(slope, abs=1e-9)
+    if n >= 5:
+        values[outlier_index % n] = outlier
+        # With n >= 5 one point spoils at most n-1 of n(n-1)/2 pairs, fewer than half,
+        # and the unspoilt pairs all give the true slope, so the median is unchanged.
+        assert robust_slope_per_h(hours, values) == pytest.approx(slope, abs=1e-9)
+
+
+@st.composite
+def gappy_rows(draw: st.DrawFn) -> tuple[np.ndarray, np.ndarray]:
+    rows = draw(st.integers(1, 6))
+    n = draw(st.integers(0, 25))
+    hours = draw(hnp.arrays(float, (rows, n), elements=st.floats(0.0, 12.0)))
+    values = draw(hnp.arrays(float, (rows, n), elements=finite))
+    missing = draw(hnp.arrays(bool, (rows, n)))
+    return hours, np.where(missing, np.nan, values)
+
+
+@settings(max_examples=100, deadline=None)
+@given(data=gappy_rows())
+def test_2d_equals_row_by_row(data: tuple[np.ndarray, np.ndarray]) -> None:
+    hours, values = data
+    together = robust_slope_per_h(hours, values)
+    one_by_one = [robust_slope_per_h(hours[i], values[i]) for i in range(hours.shape[0])]
+    np.testing.assert_array_equal(together, one_by_one)
+
+
+def test_expected_size_is_quick() -> None:
+    # 10,000 sites x 40 points (the expected size) in well under the budget; chunking keeps
+    # the pairwise arrays to ~8 MB each.
+    rng = np.random.default_rng(0)
+    hours = np.arange(40) * 0.25
+    values = rng.normal(size=(10_000, 40))
+    values[rng.random(values.shape) < 0.1] = np.nan
+    start = time.perf_counter()
+    slopes = robust_slope_per_h(hours, values)
+    assert time.perf_counter() - start < 5.0
+    assert slopes.shape == (10_000,) and np.isfinite(slopes).all()
+
+
+# --- hours_to_zero -------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("value", "slope", "expected"),
+    [
+        (3.0, -1.5, 2.0),
+        (3.0, 0.0, np.nan),
+        (3.0, 0.5, np.nan),
+        (0.0, 0.5, 0.0),
+        (-1.0, np.nan, 0.0),
+        (3.0, np.nan, np.nan),
+        (np.nan, -1.0, np.nan),
+        (np.inf, -1.0, np.nan),
+    ],
+    ids=[
+        "closing",
+        "steady",
+        "opening",
+        "closed",
+        "closed-unknown-rate",
+        "unknown-rate",
+        "unknown-value",
+        "infinite-value",
+    ],
+)
+def test_hours_to_zero(value: float, slope: float, expected: float) -> None:
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        result = hours_to_zero(value, slope)
+    if np.isnan(expected):
+        assert np.isnan(result)
+    else:
+        assert result == pytest.approx(expected)
+
+
+def test_no_warning_for_bad_input() -> None:
+    bad = np.array([np.nan, -1e300, 1e300, 0.0, -np.inf, np.inf, 2.0])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        robust_slope_per_h(bad, bad)
+        robust_slope_per_h(np.zeros(7), bad)
+        hours_to_zero(bad, bad)
