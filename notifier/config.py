@@ -292,7 +292,7 @@ class BotSettings(_Model):
 
 class Config(_Model):
     version: int = CONFIG_VERSION
-    sites: tuple[Site, ...] = Field(min_length=1)
+    sites: tuple[Site, ...]
     sources: tuple[Source, ...] = ()
     rules: tuple[Path, ...] = ()
     channels: tuple[Channel, ...] = ()
@@ -474,6 +474,8 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
     def add(loc: tuple[Any, ...], msg: str) -> None:
         problems.append(ConfigProblem(path, line_of(raw, loc), f"{_loc_text(loc)}: {msg}"))
 
+    if not config.sites:
+        add(("sites",), "at least one site is needed")
     site_ids = [s.id for s in config.sites]
     tags = {t for s in config.sites for t in s.tags}
     for kind, items in (
