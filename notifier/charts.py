@@ -1,0 +1,175 @@
+"""A small PNG for email: the last 12 h of air, dew point and surface temperature, with the
+night's projected cooling curve and where it meets the dew point.
+
+matplotlib is imported inside :func:`chart_png` with the Agg backend, and the figure is
+built with the object API (no pyplot state), so charts can be drawn from any thread of
+a headless service.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Sequence
+from datetime import UTC, datetime, timedelta
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+__all__ = ["Projection", "chart_png", "projection_points"]
+
+# (temperature at sunset °C, cooling coefficient K h^-1/2, sunset time) — Brunt's
+# square-root law, see notifier.physics.cooling — or explicit (time, temp °C) points.
+Projection = tuple[float, float, datetime] | Sequence[tuple[datetime, float]]
+
+WINDOW = timedelta(hours=12)
+AHEAD = timedelta(hours=10)
+SIZE_IN = (8.0, 4.5)
+DPI = 100  # 800 × 450 px
+
+
+def projection_points(
+    projection: Projection, now: datetime, ahead: timedelta = AHEAD, step_min: int = 10
+) -> list[tuple[datetime, float]]:
+    """The projected curve as (time, temp) points from ``now`` up to ``ahead`` later."""
+    if (
+        isinstance(projection, tuple)
+        and len(projection) == 3
+        and isinstance(projection[2], datetime)
+    ):
+        from notifier.physics import project_sqrt_cooling_c
+
+        t0_c, k, sunset = projection  # type: ignore[misc]
+        start = max(now, sunset)
+        n = int(ahead.total_seconds() // (step_min * 60)) + 1
+        times = [start + timedelta(minutes=step_min * i) for i in range(n)]
+        hours = np.array([(t - sunset).total_seconds() / 3600.0 for t in times])
+        temps = project_sqrt_cooling_c(t0_c, k, hours)
+        return [
+            (t, float(v))
+            for t, v in zip(times, np.atleast_1d(temps), strict=True)
+            if np.isfinite(v)
+        ]
+    return [(t, float(v)) for t, v in projection]  # type: ignore[misc]
+
+
+def _crossing(
+    points: Sequence[tuple[datetime, float]], dewpoint_c: float
+) -> tuple[datetime, float] | None:
+    """First point where the projected curve reaches the dew point (linear between)."""
+    for (t1, v1), (t2, v2) in zip(points, points[1:], strict=False):
+        if v1 <= dewpoint_c:
+            return t1, v1
+        if v2 <= dewpoint_c < v1:
+            frac = (v1 - dewpoint_c) / (v1 - v2)
+            return t1 + (t2 - t1) * frac, dewpoint_c
+    return None
+
+
+def chart_png(
+    frame: pd.DataFrame,
+    now: datetime,
+    projection: Projection | None = None,
+    dewpoint: float | None = None,
+    title: str = "",
+    tz_name: str = "UTC",
+) -> bytes:
+    """PNG bytes (800 × 450) of one site's canonical observations around ``now``.
+
+    ``frame`` has the canonical columns (``time``, ``temp_c``, ``dewpoint_c``,
+    ``surface_temp_c``; missing columns are skipped). ``dewpoint`` is the level the
+    projection is compared with (default: the newest dew point in the frame).
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from zoneinfo import ZoneInfo
+
+    import pandas as pd
+    from matplotlib import dates as mdates
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    if now.tzinfo is None:
+        raise ValueError("now must be timezone-aware")
+    now = now.astimezone(UTC)
+    zone = ZoneInfo(tz_name)
+    data = frame
+    if "kind" in data.columns:
+        data = data[data["kind"].fillna("obs") == "obs"]
+    times = pd.to_datetime(data["time"], utc=True) if "time" in data.columns else None
+    if times is not None:
+        keep = (times > pd.Timestamp(now - WINDOW)) & (times <= pd.Timestamp(now))
+        data = data[keep.to_numpy()].assign(_t=times[keep.to_numpy()]).sort_values("_t")
+    x = [t.to_pydatetime() for t in data["_t"]] if times is not None else []
+
+    fig = Figure(figsize=SIZE_IN, dpi=DPI)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot(1, 1, 1)
+    series = (
+        ("temp_c", "air", "#c0392b", "-"),
+        ("dewpoint_c", "dew point", "#2471a3", "-"),
+        ("surface_temp_c", "surface", "#7d3c98", ":"),
+    )
+    for column, label, colour, style in series:
+        if column in data.columns and x:
+            y = data[column].to_numpy(dtype=float)
+            if np.isfinite(y).any():
+                ax.plot(mdates.date2num(x), y, style, color=colour, label=label, linewidth=1.8)
+
+    if dewpoint is None and "dewpoint_c" in data.columns and len(data):
+        finite = data["dewpoint_c"].to_numpy(dtype=float)
+        finite = finite[np.isfinite(finite)]
+        dewpoint = float(finite[-1]) if finite.size else None
+    if projection is not None:
+        points = projection_points(projection, now)
+        if points:
+            px = mdates.date2num([t for t, _ in points])
+            ax.plot(
+                px,
+                [v for _, v in points],
+                "--",
+                color="#c0392b",
+                alpha=0.7,
+                label="projected air",
+                linewidth=1.5,
+            )
+            if dewpoint is not None:
+                ax.axhline(dewpoint, color="#2471a3", alpha=0.3, linewidth=1)
+                cross = _crossing(points, dewpoint)
+                if cross is not None:
+                    cx = mdates.date2num(cross[0])
+                    ax.axvline(cx, color="#555555", linestyle="--", linewidth=1)
+                    ax.plot([cx], [cross[1]], "o", color="#2471a3", markersize=7)
+                    ax.annotate(
+                        f"meets dew point ~{cross[0].astimezone(zone):%H:%M}",
+                        (cx, cross[1]),
+                        textcoords="offset points",
+                        xytext=(6, 8),
+                        fontsize=9,
+                    )
+    ax.axvline(mdates.date2num(now), color="#999999", linewidth=1)
+    right = now + (AHEAD if projection is not None else timedelta(hours=1))
+    ax.set_xlim(mdates.date2num(now - WINDOW), mdates.date2num(right))
+    ax.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=zone))
+    ax.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=zone))
+    ax.annotate(
+        "now",
+        (mdates.date2num(now), 1.0),
+        xycoords=("data", "axes fraction"),
+        xytext=(3, -12),
+        textcoords="offset points",
+        fontsize=8,
+        color="#777777",
+    )
+    ax.set_ylabel("°C")
+    ax.set_title(title or "Temperature, dew point and surface", fontsize=11)
+    ax.grid(True, alpha=0.3)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="upper right", fontsize=9, frameon=False)
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.1)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
