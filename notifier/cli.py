@@ -54,21 +54,21 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
 
 def _cmd_assess(args: argparse.Namespace) -> int:
-    from notifier import service
+    from notifier import commands
 
-    return service.cli_assess(args)
+    return commands.cli_assess(args)
 
 
 def _cmd_explain(args: argparse.Namespace) -> int:
-    from notifier import service
+    from notifier import commands
 
-    return service.cli_explain(args)
+    return commands.cli_explain(args)
 
 
 def _cmd_sources(args: argparse.Namespace) -> int:
-    from notifier import service
+    from notifier import commands
 
-    return service.cli_sources(args)
+    return commands.cli_sources(args)
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
