@@ -1,0 +1,141 @@
+"""Shared fixtures: a loopback JSON HTTP server, a config factory, invented sites.
+
+Every site, station and place here is invented; station ids use the unassigned ``ZZ``
+prefix so that they can never be mistaken for a real aerodrome.
+"""
+
+from __future__ import annotations
+
+import json
+import threading
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from notifier.config import Config, load_config
+
+SITES: list[dict[str, Any]] = [
+    {
+        "id": "zz-vale",
+        "name": "Lower Vale Orchard",
+        "lat": 52.41,
+        "lon": -2.37,
+        "timezone": "Europe/London",
+        "exposure": "valley",
+        "use": "farm",
+    },
+    {
+        "id": "zz-quay",
+        "name": "North Quay Basin",
+        "lat": 53.02,
+        "lon": -3.11,
+        "timezone": "Europe/London",
+        "exposure": "waterside",
+        "use": "port",
+    },
+]
+
+Responder = Callable[["Request"], tuple[int, dict[str, str], bytes]]
+
+
+@dataclass
+class Request:
+    path: str
+    headers: dict[str, str]
+
+
+@dataclass
+class LoopbackJson:
+    """A real HTTP server on 127.0.0.1 (ephemeral port) whose answers tests set."""
+
+    base_url: str
+    routes: dict[str, Responder] = field(default_factory=dict)
+    requests: list[Request] = field(default_factory=list)
+
+    def url(self, path: str) -> str:
+        return self.base_url + path
+
+    def json(self, path: str, doc: Any, status: int = 200) -> None:
+        body = json.dumps(doc).encode()
+        self.routes[path] = lambda _req: (status, {"Content-Type": "application/json"}, body)
+
+    def respond(self, path: str, responder: Responder) -> None:
+        self.routes[path] = responder
+
+    def sequence(self, path: str, answers: list[tuple[int, Any]]) -> None:
+        """Answer successive requests in turn; the last answer repeats."""
+        remaining = list(answers)
+
+        def responder(_req: Request) -> tuple[int, dict[str, str], bytes]:
+            status, doc = remaining.pop(0) if len(remaining) > 1 else remaining[0]
+            return status, {"Content-Type": "application/json"}, json.dumps(doc).encode()
+
+        self.routes[path] = responder
+
+
+@pytest.fixture
+def loopback_json() -> Iterator[LoopbackJson]:
+    state: dict[str, LoopbackJson] = {}
+
+    class Handler(BaseHTTPRequestHandler):
+        protocol_version = "HTTP/1.1"
+
+        def do_GET(self) -> None:  # noqa: N802 - the name http.server calls
+            server = state["server"]
+            request = Request(self.path, {k.lower(): v for k, v in self.headers.items()})
+            server.requests.append(request)
+            path = self.path.split("?", 1)[0]
+            responder = server.routes.get(path)
+            if responder is None:
+                status, headers, body = 404, {"Content-Type": "text/plain"}, b"no such route"
+            else:
+                status, headers, body = responder(request)
+            self.send_response(status)
+            for name, value in headers.items():
+                self.send_header(name, value)
+            self.send_header("Content-Length", str(len(body)))
+            self.end_headers()
+            self.wfile.write(body)
+
+        def log_message(self, format: str, *args: Any) -> None:  # noqa: A002
+            pass  # keep test output clean
+
+    httpd = ThreadingHTTPServer(("127.0.0.1", 0), Handler)
+    httpd.daemon_threads = True
+    host, port = httpd.server_address[:2]
+    state["server"] = LoopbackJson(base_url=f"http://{host}:{port}")
+    thread = threading.Thread(target=httpd.serve_forever, kwargs={"poll_interval": 0.05})
+    thread.start()
+    try:
+        yield state["server"]
+    finally:
+        httpd.shutdown()
+        httpd.server_close()
+        thread.join(timeout=5)
+
+
+@pytest.fixture
+def make_config(tmp_path: Path) -> Callable[..., Config]:
+    """Write a config file in ``tmp_path`` and load it (so paths and ${ENV} resolve)."""
+    counter = {"n": 0}
+
+    def make(
+        sources: list[dict[str, Any]] | None = None,
+        sites: list[dict[str, Any]] | None = None,
+        **extra: Any,
+    ) -> Config:
+        counter["n"] += 1
+        doc: dict[str, Any] = {"version": 1, "sites": sites if sites is not None else SITES}
+        if sources:
+            doc["sources"] = sources
+        doc.update(extra)
+        path = tmp_path / f"fogwatch-{counter['n']}.yaml"
+        path.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
+        return load_config(path)
+
+    return make
