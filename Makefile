@@ -16,12 +16,12 @@ demo: $(STAMP)
 	$(VENV)/bin/fogwatch demo
 
 test: $(STAMP)
-	$(PY) -m ruff check notifier tests bench
+	$(PY) -m ruff check notifier tests $(wildcard bench)
 	$(PY) -m pytest -q -p no:cacheprovider
 
 lint: $(STAMP)
-	$(PY) -m ruff check notifier tests bench
-	$(PY) -m ruff format --check notifier tests bench
+	$(PY) -m ruff check notifier tests $(wildcard bench)
+	$(PY) -m ruff format --check notifier tests $(wildcard bench)
 
 bench: $(STAMP)
 	$(PY) bench/run.py

@@ -160,7 +160,8 @@ class WebhookSender(BaseChannel):
         self.open()
         assert self._session is not None
         key = safe_key(idempotency_key)
-        body = encode_body({**message.json, "delivery": key})
+        # the recipient lets one endpoint fan messages out (e.g. a chat bridge)
+        body = encode_body({**message.json, "delivery": key, "recipient": delivery.address})
         timestamp = int(self._clock())
         headers = {clean_header(k): clean_header(v) for k, v in self.config.headers.items()}
         headers.update(
