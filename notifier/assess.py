@@ -57,6 +57,8 @@ class SiteAssessment:
     hazards: dict[str, HazardAssessment] = field(default_factory=dict)
     sustain: dict[str, str] = field(default_factory=dict)  # hazard → level with margins
     stale_after_min: float = STALE_AFTER_MIN
+    # tonight's cooling curve (T0 °C, k K/h^½, sunset) when fitted, for charts
+    projection: tuple[float, float, datetime] | None = None
 
     @property
     def level(self) -> str:
@@ -113,10 +115,18 @@ def assess(
             last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
             results=results,
             stale_after_min=stale_after_min,
+            projection=_projection(now, i),
         )
         _aggregate(sa, at)
         out.append(sa)
     return out
+
+
+def _projection(table: FeatureTable, i: int) -> tuple[float, float, datetime] | None:
+    t0, k, sunset = table.fit_t0_c[i], table.fit_k_per_sqrt_h[i], table.last_sunset[i]
+    if np.isnan(t0) or np.isnan(k) or np.isnan(sunset):
+        return None
+    return float(t0), float(k), datetime.fromtimestamp(float(sunset), UTC)
 
 
 def _aggregate(sa: SiteAssessment, at: datetime) -> None:

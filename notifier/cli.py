@@ -71,6 +71,15 @@ def _cmd_sources(args: argparse.Namespace) -> int:
     return commands.cli_sources(args)
 
 
+def _cmd(name: str) -> Handler:
+    def run(args: argparse.Namespace) -> int:
+        from notifier import commands
+
+        return int(getattr(commands, name)(args))
+
+    return run
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from notifier import demo
 
@@ -115,6 +124,36 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("sources", help="poll health of each configured source")
     _add_common(p)
     p.set_defaults(handler=_cmd_sources)
+
+    p = sub.add_parser("once", help="one full cycle: poll, assess, alert, deliver")
+    _add_common(p)
+    p.add_argument("--at", metavar="TIME", help="cycle time (ISO 8601; default now)")
+    p.set_defaults(handler=_cmd("cli_once"))
+
+    p = sub.add_parser("run", help="run unattended on a schedule (stop with Ctrl-C/SIGTERM)")
+    _add_common(p)
+    p.set_defaults(handler=_cmd("cli_run"))
+
+    p = sub.add_parser("status", help="current levels, source health, outbox backlog")
+    _add_common(p)
+    p.set_defaults(handler=_cmd("cli_status"))
+
+    p = sub.add_parser("ask", help="send one bot command from the shell")
+    _add_common(p)
+    p.add_argument("text", help="the command, e.g. 'status' or 'hush SITE for 2h'")
+    p.add_argument(
+        "--as", dest="sender", required=True, metavar="SENDER", help="the sender id to act as"
+    )
+    p.add_argument("--at", metavar="TIME", help=argparse.SUPPRESS)
+    p.set_defaults(handler=_cmd("cli_ask"))
+
+    p = sub.add_parser("bot", help="the messaging bot")
+    bot_sub = p.add_subparsers(dest="bot_command", metavar="ACTION", parser_class=_Parser)
+    q = bot_sub.add_parser("serve", help="serve the signed bot endpoint over HTTP")
+    _add_common(q)
+    q.add_argument("--host", default="127.0.0.1")
+    q.add_argument("--port", type=int, default=8750)
+    q.set_defaults(handler=_cmd("cli_bot_serve"))
 
     p = sub.add_parser("demo", help="one invented night at three invented sites")
     p.set_defaults(handler=_cmd_demo)

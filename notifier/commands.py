@@ -106,3 +106,122 @@ def cli_sources(args: argparse.Namespace) -> int:
     with open_store(config) as store:
         print(health_report(store, config))
     return 0
+
+
+def cli_once(args: argparse.Namespace) -> int:
+    """One full cycle; exit 3 if a source failed, 4 if a delivery failed for good."""
+    from notifier.service import Service
+
+    service = Service(args.config)
+    try:
+        now = parse_time(args.at)
+        report, sent = service.cycle(now)
+    finally:
+        service.close()
+    print(
+        f"{len(report.assessments)} site(s) assessed, {len(report.events)} event(s), "
+        f"{report.deliveries_added} delivery(ies) queued; sent {sent.sent}, "
+        f"retrying {sent.retried}, failed {sent.failed}, expired {sent.expired}"
+    )
+    for poll in report.polls:
+        if not poll.ok:
+            print(f"source {poll.source_id}: {poll.error}")
+    if any(not p.ok for p in report.polls):
+        return 3
+    return 4 if sent.failed or sent.expired else 0
+
+
+def cli_run(args: argparse.Namespace) -> int:
+    from notifier.scheduler import run_forever
+    from notifier.service import Service
+
+    return run_forever(Service(args.config))
+
+
+def cli_status(args: argparse.Namespace) -> int:
+    from notifier.outbox import Outbox
+    from notifier.sources import health_report
+    from notifier.views import local_time
+
+    config = load_config(args.config)
+    with open_store(config) as store:
+        outbox = Outbox(store)
+        snaps = outbox.snapshots()
+        print("Sites")
+        for site in config.sites:
+            snap = snaps.get(site.id)
+            if snap is None:
+                print(f"  {site.id:<24} not assessed yet")
+                continue
+            when, level, payload = snap
+            hazards = ", ".join(f"{h['hazard']} {h['level']}" for h in payload["hazards"])
+            stale = " DATA STALE" if payload["data"]["stale"] else ""
+            print(
+                f"  {site.id:<24} {level.upper():<8} {hazards or '-'}{stale} "
+                f"(at {local_time(when, site.timezone)})"
+            )
+        print()
+        print(health_report(store, config))
+        print()
+        backlog = outbox.backlog()
+        print("Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty"))
+        for row in outbox.deliveries(["failed", "expired"])[-10:]:
+            print(f"  {row.status}: {row.subscriber} via {row.channel}: {row.last_error}")
+        pending = [r for r in outbox.deliveries(["pending"]) if r.attempts]
+        for row in pending[-10:]:
+            print(
+                f"  retrying ({row.attempts} tries): {row.subscriber} via {row.channel}: "
+                f"{row.last_error}"
+            )
+    return 0
+
+
+def cli_ask(args: argparse.Namespace) -> int:
+    from notifier.bot import handle
+    from notifier.botbackend import ServiceBackend
+    from notifier.service import Service
+
+    service = Service(args.config)
+    try:
+        now = parse_time(args.at)
+        print(handle(ServiceBackend(service, now), args.sender, args.text, now))
+    finally:
+        service.close()
+    return 0
+
+
+def cli_bot_serve(args: argparse.Namespace) -> int:
+    import logging
+
+    from notifier.bot import handle
+    from notifier.botbackend import ServiceBackend
+    from notifier.botserver import BotHTTPServer
+    from notifier.service import Service
+
+    service = Service(args.config)
+    secret = service.config.bot.secret
+    if not secret:
+        service.close()
+        raise UsageError("bot serve needs bot.secret in the config (e.g. ${FOGWATCH_BOT_SECRET})")
+
+    def answer(sender: str, text: str, now: datetime) -> str:
+        return handle(ServiceBackend(service, now), sender, text, now)
+
+    server = BotHTTPServer(
+        (args.host, args.port), secret, answer, rate_per_minute=service.config.bot.rate_per_minute
+    )
+    logging.getLogger(__name__).warning(
+        "bot listening on http://%s:%d/message", *server.server_address[:2]
+    )
+    print(
+        f"listening on http://{server.server_address[0]}:{server.server_address[1]}/message",
+        flush=True,
+    )
+    try:
+        server.serve_forever()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.server_close()
+        service.close()
+    return 0

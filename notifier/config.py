@@ -288,6 +288,7 @@ class BotSettings(_Model):
     allow: tuple[str, ...] = ()  # sender ids allowed without a join code
     join_codes: dict[str, str] = {}  # code → site id
     rate_per_minute: int = Field(default=20, gt=0)
+    channel: str = "stdout"  # where alerts for people who follow a site through the bot go
 
 
 class Config(_Model):

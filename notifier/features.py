@@ -178,6 +178,9 @@ class FeatureTable:
     values: dict[str, np.ndarray]
     projection_method: np.ndarray  # str per site: forecast | cooling-fit | midday-estimate
     last_time: np.ndarray  # POSIX seconds of the newest observation, NaN if none
+    fit_t0_c: np.ndarray  # tonight's square-root cooling fit (NaN where none)
+    fit_k_per_sqrt_h: np.ndarray
+    last_sunset: np.ndarray  # POSIX seconds
 
     def row(self, i: int) -> dict[str, float]:
         return {name: float(arr[i]) for name, arr in self.values.items()}
@@ -397,6 +400,8 @@ def compute_features(
     proj = np.full(n, np.nan)
     proj_dew = dewpoint_c.copy()
     hours_to_crossing = np.full(n, np.nan)
+    fit_t0 = np.full(n, np.nan)
+    fit_k = np.full(n, np.nan)
 
     # (1) forecast rows for the coming or current night
     if fsidx.size:
@@ -435,6 +440,8 @@ def compute_features(
             cross_ok = fit_ok & (cross_from_now >= 0) & (cross_h <= night_len)
         proj = np.where(fit_ok, fitted, proj)
         method[fit_ok] = "cooling-fit"
+        fit_t0 = np.where(fit_ok, t0, np.nan)
+        fit_k = np.where(fit_ok, k, np.nan)
         hours_to_crossing = np.where(cross_ok, cross_from_now, np.nan)
 
     # (3) Craddock & Pritchard (1951) from the readings nearest local midday
@@ -532,7 +539,14 @@ def compute_features(
     }
     values = {k: np.asarray(v, dtype=float) for k, v in values.items()}
     return FeatureTable(
-        at=at, site_ids=ids, values=values, projection_method=method, last_time=last_time
+        at=at,
+        site_ids=ids,
+        values=values,
+        projection_method=method,
+        last_time=last_time,
+        fit_t0_c=fit_t0,
+        fit_k_per_sqrt_h=fit_k,
+        last_sunset=last_sunset,
     )
 
 

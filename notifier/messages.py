@@ -122,6 +122,7 @@ def headline(event: Event, site: Site, tz_name: str | None = None) -> str:
         "cleared": f"All clear: {haz.lower()}",
         "data_gap": "No fresh data",
         "data_back": "Data back",
+        "outlook": "Tonight's outlook",
     }.get(event.type, f"{haz} {event.type}")
     return f"{lead} · {name} · {when}"
 
@@ -136,6 +137,7 @@ def _status_line(event: Event, zone: str) -> str:
         "cleared": f"{event.hazard} {event.previous_level} has ended",
         "data_gap": "site cannot be judged",
         "data_back": "site can be judged again",
+        "outlook": f"now {event.previous_level}",
     }.get(event.type, event.type)
     return f"{stamp} · {note}"
 
@@ -197,7 +199,7 @@ def _data_block(event: Event) -> list[str]:
     if age is None or not math.isfinite(age):
         paras = ["No readings have been received from this site."]
     else:
-        paras = [f"Newest reading {max(age, 0.0):.0f} min old."]
+        paras = [f"Newest reading {round(max(age, 0.0)):d} min old."]
     if event.projection_method and event.hazard != "data_gap" and event.level != "none":
         method = PROJECTIONS.get(event.projection_method, event.projection_method)
         paras.append(f"Projection: {method}.")
@@ -219,6 +221,11 @@ def _notes(event: Event, site: Site, rules: RuleSet) -> list[str]:
 
 def _body(event: Event, site: Site, rules: RuleSet, zone: str) -> list[str]:
     lines = [*_wrap(headline(event, site, zone)), *_wrap(_status_line(event, zone))]
+    if event.type == "outlook":
+        lines += _block("TONIGHT", list(event.explanations))
+        lines += _data_block(event)
+        lines += _block("NOTE", [CAUTION])
+        return lines
     lines += _when_block(event, zone)
     if event.type in ("downgraded", "cleared", "data_back"):
         since = f" since {_hhmm(event.eased_since, zone)}" if event.eased_since else ""

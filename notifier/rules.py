@@ -349,6 +349,8 @@ def _reason(o: Outcome) -> str:
     spec = FEATURES[o.test.feature]
     if o.test.op == "is":
         return f"{spec.label}: {format_value(o.test.feature, o.value)}"
+    if np.isinf(o.value):
+        return f"{spec.label}: no readings at all"
     return f"{spec.label} {format_value(o.test.feature, o.value)} {o.test.describe_threshold()}"
 
 
@@ -643,7 +645,7 @@ def _parse_safety(node: Any, line: int | None, probs: _FileProblems) -> dict[str
     return out
 
 
-def _rule_files(paths: Iterable[Path]) -> list[Path]:
+def rule_files(paths: Iterable[Path]) -> list[Path]:
     files: list[Path] = []
     for p in paths:
         p = Path(p)
@@ -663,7 +665,7 @@ def load_rule_set(paths: Iterable[Path]) -> RuleSet:
     problems: list[ConfigProblem] = []
     rules: list[Rule] = []
     safety: dict[str, SafetyNote] = {}
-    files = _rule_files(paths)
+    files = rule_files(paths)
     if not files:
         raise ConfigError(ConfigProblem(", ".join(map(str, paths)), None, "no rule files found"))
     for path in files:

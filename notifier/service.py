@@ -6,23 +6,32 @@
 
 from __future__ import annotations
 
+import hashlib
 import logging
-from dataclasses import dataclass
+import random
+import threading
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
-from notifier.config import Config, load_config
-from notifier.errors import UsageError
+from notifier.config import Config, Subscriber, load_config
+from notifier.errors import FogwatchError, UsageError
+from notifier.outbox import Outbox
 from notifier.rules import RuleSet, load_rule_set
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.assess import SiteAssessment
+    from notifier.dispatch import DispatchReport
+    from notifier.lifecycle import Event
+    from notifier.routing import Delivery
+    from notifier.sources.base import ObservationSource, PollResult
     from notifier.store import Store
 
-__all__ = ["Loaded", "evaluate", "load", "observations_for", "parse_time"]
+__all__ = ["CycleReport", "Loaded", "Service", "evaluate", "load", "observations_for", "parse_time"]
 
 log = logging.getLogger(__name__)
 
@@ -77,3 +86,299 @@ def evaluate(loaded: Loaded, obs: pd.DataFrame, at: datetime) -> list[SiteAssess
         at,
         stale_after_min=loaded.config.alerts.stale_after / 60.0,
     )
+
+
+# ---------------------------------------------------------------------------------------
+# the running service
+
+
+@dataclass
+class CycleReport:
+    """What one poll-and-assess cycle did."""
+
+    at: datetime
+    assessments: list[SiteAssessment]
+    events: list[Event]
+    deliveries_added: int
+    polls: list[PollResult] = field(default_factory=list)
+
+
+class Service:
+    """The service's state between cycles: config, rules, store and injected edges.
+
+    ``clock`` is only used by callers that do not pass ``now``; every method takes the
+    time explicitly so that the demo and replay can drive it with a simulated clock.
+    """
+
+    def __init__(
+        self,
+        config_path: str | Path,
+        *,
+        store: Store | None = None,
+        session: Any = None,
+        channel_kwargs: Mapping[str, Mapping[str, Any]] | None = None,
+        sources: Sequence[ObservationSource] | None = None,
+        rng: random.Random | None = None,
+    ):
+        self.config_path = Path(config_path)
+        self.loaded = load(self.config_path)
+        self.store = store or open_store(self.loaded.config)
+        self.outbox = Outbox(self.store)
+        self.session = session
+        self.channel_kwargs = dict(channel_kwargs or {})
+        self._fixed_sources = sources
+        self.rng = rng or random.Random()
+        self._mtimes = self._file_mtimes()
+        self._stop = threading.Event()
+        self._lock = threading.Lock()  # one cycle or delivery at a time
+
+    @property
+    def config(self) -> Config:
+        return self.loaded.config
+
+    @property
+    def rules(self) -> RuleSet:
+        return self.loaded.rules
+
+    # -- files and reload --------------------------------------------------------------
+
+    def _watched_files(self) -> list[Path]:
+        from notifier.rules import rule_files
+
+        return [self.config_path, *rule_files(self.loaded.config.rule_paths())]
+
+    def _file_mtimes(self) -> dict[Path, float]:
+        out = {}
+        for path in self._watched_files():
+            try:
+                out[path] = path.stat().st_mtime
+            except OSError:
+                out[path] = -1.0
+        return out
+
+    def files_changed(self) -> bool:
+        return self._file_mtimes() != self._mtimes
+
+    def reload(self) -> tuple[bool, str]:
+        """Load config and rules again; on any error keep the running ones."""
+        try:
+            loaded = load(self.config_path)
+        except FogwatchError as exc:
+            self._mtimes = self._file_mtimes()  # do not retry the same broken files
+            return False, str(exc)
+        with self._lock:
+            self.loaded = loaded
+            self._mtimes = self._file_mtimes()
+        return True, "reloaded"
+
+    # -- the cycle ---------------------------------------------------------------------
+
+    def poll(self, now: datetime, source_ids: Sequence[str] | None = None) -> list[PollResult]:
+        from notifier.sources import build_sources, poll_sources
+
+        sources = self._fixed_sources
+        if sources is None:
+            sources = build_sources(self.config, self.store, session=self.session)
+        if source_ids is not None:
+            sources = [s for s in sources if s.id in source_ids]
+        return poll_sources(sources, self.store, now)
+
+    def poll_and_assess(
+        self, now: datetime, source_ids: Sequence[str] | None = None
+    ) -> CycleReport:
+        """Poll (all sources, or the given ones), assess, run the lifecycle, queue."""
+        with self._lock:
+            polls = self.poll(now, source_ids)
+            obs = observations_for(self.config, self.store, now)
+            assessments = evaluate(self.loaded, obs, now)
+            return self._advance(now, assessments, obs, polls)
+
+    def _advance(
+        self,
+        now: datetime,
+        assessments: list[SiteAssessment],
+        obs: pd.DataFrame,
+        polls: list[PollResult],
+    ) -> CycleReport:
+        from notifier.lifecycle import step
+        from notifier.routing import route
+
+        previous = self.outbox.states()
+        states, events = step(previous, assessments, now, self.config.alerts)
+        deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
+        charts = self._charts(events, deliveries, assessments, obs, now)
+        snapshots = {sa.site.id: (sa.level, _snapshot(sa)) for sa in assessments}
+        added = self.outbox.commit_cycle(
+            previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
+        )
+        for ev in events:
+            log.info("%s %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
+        return CycleReport(now, assessments, events, added, polls)
+
+    def _charts(
+        self,
+        events: Sequence[Event],
+        deliveries: Sequence[Delivery],
+        assessments: Sequence[SiteAssessment],
+        obs: pd.DataFrame,
+        now: datetime,
+    ) -> dict[str, bytes]:
+        """A chart for each event that goes to an email channel with charts on."""
+        from notifier.charts import chart_png
+        from notifier.config import EmailChannel, FolderChannel
+
+        wanted = set()
+        for d in deliveries:
+            ch = next((c for c in self.config.channels if c.id == d.channel_id), None)
+            if isinstance(ch, FolderChannel) or (isinstance(ch, EmailChannel) and ch.chart):
+                wanted.add(d.event_id)
+        by_site = {sa.site.id: sa for sa in assessments}
+        out = {}
+        for ev in events:
+            if ev.id not in wanted or ev.hazard == "data_gap":
+                continue
+            sa = by_site[ev.site_id]
+            frame = obs[obs["site"] == ev.site_id] if len(obs) else obs
+            try:
+                out[ev.id] = chart_png(
+                    frame,
+                    now,
+                    projection=sa.projection,
+                    dewpoint=sa.features.get("dewpoint_c"),
+                    title=sa.site.name,
+                    tz_name=sa.site.timezone,
+                )
+            except Exception:  # a chart is a nicety; the alert must go without it
+                log.exception("chart for %s failed", ev.site_id)
+        return out
+
+    def deliver(self, now: datetime) -> DispatchReport:
+        from notifier.dispatch import dispatch
+
+        with self._lock:
+            return dispatch(
+                self.outbox,
+                self.config,
+                self.rules,
+                now,
+                channel_kwargs=self.channel_kwargs,
+                rng=self.rng,
+                should_stop=self._stop.is_set,
+            )
+
+    def cycle(self, now: datetime) -> tuple[CycleReport, DispatchReport]:
+        """One full cycle: poll → assess → lifecycle → outbox → dispatch (``once``)."""
+        report = self.poll_and_assess(now)
+        return report, self.deliver(now)
+
+    # -- subscribers and mutes -----------------------------------------------------------
+
+    def subscribers(self) -> tuple[Subscriber, ...]:
+        """Configured subscribers plus everyone following a site through the bot."""
+        from notifier.routing import default_subscribers
+
+        subs = list(default_subscribers(self.config))
+        channel = self.config.bot.channel
+        for sender, site, level in self.outbox.follows():
+            subs.append(
+                Subscriber(
+                    id=bot_subscriber_id(sender, site),
+                    name=sender,
+                    channel=channel,
+                    address=sender,
+                    sites=(site,),
+                    min_level=level,
+                )
+            )  # type: ignore[arg-type]
+        return tuple(subs)
+
+    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
+        """Stored mutes, with a sender's mute applied to every subscriber they speak for."""
+        out: list[tuple[str, str, datetime]] = []
+        for who, site, until in self.outbox.mutes(now):
+            if who == "*":
+                out.append(("*", site, until))
+                continue
+            for sub in self.config.subscribers:
+                if who in sub.senders:
+                    out.append((sub.id, site, until))
+            for sender, followed, _ in self.outbox.follows(who):
+                out.append((bot_subscriber_id(sender, followed), site, until))
+        return out
+
+    # -- outlook, health, housekeeping -----------------------------------------------------
+
+    def outlook(self, now: datetime, site_ids: Sequence[str]) -> int:
+        """The evening outlook for these sites, queued like any other message."""
+        from notifier.lifecycle import outlook_event
+        from notifier.routing import route
+
+        with self._lock:
+            obs = observations_for(self.config, self.store, now)
+            wanted = set(site_ids)
+            sites = [a for a in evaluate(self.loaded, obs, now) if a.site.id in wanted]
+            events = [outlook_event(sa, now) for sa in sites]
+            deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
+            states = self.outbox.states()
+            return self.outbox.commit_cycle(states, states, events, deliveries, now)
+
+    def health(self, now: datetime) -> list[str]:
+        """Problems worth a log line: failing sources and an outbox that does not drain."""
+        problems = []
+        for h in self.store.source_health():
+            if h["last_error_at"] and (
+                not h["last_success"] or h["last_error_at"] > h["last_success"]
+            ):
+                problems.append(f"source {h['source_id']} failing: {h['last_error']}")
+        backlog = self.outbox.backlog()
+        if backlog.get("expired"):
+            problems.append(f"{backlog['expired']} delivery(ies) expired undelivered")
+        for p in problems:
+            log.warning("health: %s", p)
+        return problems
+
+    def housekeeping(self, now: datetime) -> tuple[int, int]:
+        """Trim the rolling window and old finished deliveries."""
+        trimmed = self.store.trim_observations(now - timedelta(seconds=self.config.store.window))
+        forgotten = self.outbox.trim(now - timedelta(seconds=self.config.store.keep_deliveries))
+        return trimmed, forgotten
+
+    def stop(self) -> None:
+        self._stop.set()
+
+    def close(self) -> None:
+        self._stop.set()
+        with self._lock:
+            self.store.close()
+
+
+def bot_subscriber_id(sender: str, site: str) -> str:
+    digest = hashlib.sha256(f"{sender}|{site}".encode()).hexdigest()[:12]
+    return f"bot-{digest}"
+
+
+def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
+    """What the bot and ``status`` show without recomputing."""
+    import math
+
+    from notifier.assess import to_json
+
+    (data,) = to_json([sa])
+    data["features"] = {
+        k: v
+        for k, v in data["features"].items()
+        if k
+        in (
+            "temp_c",
+            "dewpoint_c",
+            "dewpoint_depression_c",
+            "projected_min_temp_c",
+            "visibility_m",
+            "wind_ms",
+            "cloud_pct",
+            "hours_to_fog",
+        )
+    }
+    age = sa.age_min
+    data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
+    return data

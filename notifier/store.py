@@ -103,9 +103,42 @@ def _m0001_initial(conn: Connection) -> None:
     )
 
 
+def _m0002_alerts(conn: Connection) -> None:
+    """Alert states, events, the delivery outbox, site snapshots, and the bot's tables."""
+    for ddl in (
+        """CREATE TABLE alert_states (
+            site TEXT NOT NULL, hazard TEXT NOT NULL, state TEXT NOT NULL,
+            updated_at TEXT NOT NULL, PRIMARY KEY (site, hazard))""",
+        """CREATE TABLE events (
+            id TEXT PRIMARY KEY, site TEXT NOT NULL, hazard TEXT NOT NULL,
+            type TEXT NOT NULL, level TEXT NOT NULL, time TEXT NOT NULL,
+            payload TEXT NOT NULL, chart BLOB, created_at TEXT NOT NULL)""",
+        """CREATE TABLE deliveries (
+            key TEXT PRIMARY KEY, event_id TEXT NOT NULL, subscriber TEXT NOT NULL,
+            channel TEXT NOT NULL, address TEXT, status TEXT NOT NULL,
+            attempts INTEGER NOT NULL DEFAULT 0, next_attempt_at TEXT NOT NULL,
+            not_before TEXT, summary INTEGER NOT NULL DEFAULT 0, created_at TEXT NOT NULL,
+            sent_at TEXT, last_error TEXT)""",
+        "CREATE INDEX deliveries_due ON deliveries (status, next_attempt_at)",
+        """CREATE TABLE site_status (
+            site TEXT PRIMARY KEY, time TEXT NOT NULL, level TEXT NOT NULL,
+            payload TEXT NOT NULL)""",
+        """CREATE TABLE follows (
+            sender TEXT NOT NULL, site TEXT NOT NULL, min_level TEXT NOT NULL,
+            created_at TEXT NOT NULL, PRIMARY KEY (sender, site))""",
+        """CREATE TABLE mutes (
+            who TEXT NOT NULL, site TEXT NOT NULL, until TEXT NOT NULL,
+            created_at TEXT NOT NULL, PRIMARY KEY (who, site))""",
+        """CREATE TABLE members (
+            sender TEXT PRIMARY KEY, joined_at TEXT NOT NULL, via TEXT)""",
+    ):
+        conn.exec_driver_sql(ddl)
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
+    Migration("0002_alerts", _m0002_alerts),
 ]
 
 metadata = sa.MetaData()

@@ -1,10 +1,12 @@
 """File drop: a watched folder of CSV, JSON, NDJSON or METAR files.
 
 A file is read once it is complete: its modification time is at least ``settle``
-seconds before the injected ``now``. Names ending ``.part`` or ``.tmp``, and hidden
-names (``.obs.csv.x3F2``, as rsync writes), are in-progress uploads and are left alone
-until renamed. Each file is taken once: the SHA-256 of its content is recorded in the
-store in the same transaction as its rows. Then it is moved, never deleted:
+seconds before the injected ``now`` (or before the wall clock, when ``now`` is a
+simulated time earlier than the file itself, as in the demo and replays). Names
+ending ``.part`` or ``.tmp``, and hidden names (``.obs.csv.x3F2``, as rsync writes),
+are in-progress uploads and are left alone until renamed. Each file is taken once:
+the SHA-256 of its content is recorded in the store in the same transaction as its
+rows. Then it is moved, never deleted:
 
 - ``processed/NAME`` — every row taken;
 - ``processed/NAME`` and ``processed/NAME.why.txt`` — a half-bad file: the good rows
@@ -33,8 +35,9 @@ import json
 import logging
 import os
 import re
+import time
 import warnings
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -395,10 +398,18 @@ def _move(path: Path, folder: Path) -> Path:
 class FileDrop:
     """An :class:`~notifier.sources.base.ObservationSource` over a watched folder."""
 
-    def __init__(self, source: FileDropSource, *, sites: Mapping[str, Site], store: Store):
+    def __init__(
+        self,
+        source: FileDropSource,
+        *,
+        sites: Mapping[str, Site],
+        store: Store,
+        wall_clock: Callable[[], float] = time.time,
+    ):
         self.source = source
         self.sites = sites
         self.store = store
+        self.wall_clock = wall_clock
 
     @property
     def id(self) -> str:
@@ -417,9 +428,12 @@ class FileDrop:
             try:
                 if not path.is_file():
                     continue
-                age_s = now.timestamp() - path.stat().st_mtime
+                mtime = path.stat().st_mtime
             except OSError:
                 continue  # gone or unreadable since the listing; next poll will tell
+            age_s = now.timestamp() - mtime
+            if age_s < 0:  # a simulated clock behind the file: judge by the wall clock
+                age_s = self.wall_clock() - mtime
             if age_s >= self.source.settle:
                 ready.append(path)
         return ready

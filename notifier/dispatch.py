@@ -1,0 +1,173 @@
+"""The outbox worker: deliver what is due, retry what may succeed later, record the rest.
+
+At-least-once: a delivery is marked sent only after its channel accepted it, in its own
+small transaction, so a crash between the two costs at most one duplicate — and every
+channel carries the delivery's idempotency key (email Message-ID, webhook header,
+folder file name) so receivers can drop it.
+
+Retries use exponential backoff with jitter: 1 min, 2, 4, … capped at 30 min, ±20 %,
+or the far side's Retry-After when it gives one. A delivery still pending after the
+maximum age (12 h by default) is given up and recorded as expired: an alert that old
+is no longer news.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import random
+from collections import defaultdict
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta
+from typing import Any
+
+from notifier.channels import build_channel, channel_config_for
+from notifier.channels.base import RetryLater
+from notifier.config import Config
+from notifier.errors import PermanentDeliveryError, TransientDeliveryError
+from notifier.messages import Message, render, render_summary
+from notifier.outbox import DeliveryRow, Outbox
+from notifier.rules import RuleSet
+
+__all__ = ["DispatchReport", "backoff_s", "dispatch"]
+
+log = logging.getLogger(__name__)
+
+BASE_BACKOFF_S = 60.0
+MAX_BACKOFF_S = 1800.0
+
+
+def backoff_s(attempts: int, rng: random.Random) -> float:
+    """Delay before retry number ``attempts + 1``: 60·2^attempts s, capped, ±20 % jitter."""
+    base = min(MAX_BACKOFF_S, BASE_BACKOFF_S * 2 ** max(attempts, 0))
+    return base * rng.uniform(0.8, 1.2)
+
+
+@dataclass
+class DispatchReport:
+    sent: int = 0
+    retried: int = 0
+    failed: int = 0
+    expired: int = 0
+    errors: list[str] = field(default_factory=list)
+
+
+def _subscriber_zone(config: Config, subscriber_id: str) -> str | None:
+    for sub in config.subscribers:
+        if sub.id == subscriber_id:
+            return sub.timezone
+    return None
+
+
+def dispatch(
+    outbox: Outbox,
+    config: Config,
+    rules: RuleSet,
+    now: datetime,
+    *,
+    channel_kwargs: Mapping[str, Mapping[str, Any]] | None = None,
+    rng: random.Random | None = None,
+    should_stop: Callable[[], bool] = lambda: False,
+) -> DispatchReport:
+    """Deliver every due delivery once; ``channel_kwargs[channel_id]`` is injected."""
+    rng = rng or random.Random()
+    report = DispatchReport()
+    max_age = timedelta(seconds=config.alerts.max_delivery_age)
+    hours = config.alerts.max_delivery_age / 3600
+    report.expired = len(
+        outbox.expire(now - max_age, now, f"gave up: still undelivered after {hours:g} h")
+    )
+    due = outbox.due(now)
+    by_channel: dict[str, list[DeliveryRow]] = defaultdict(list)
+    for row in due:
+        by_channel[row.channel].append(row)
+    for channel_id, rows in by_channel.items():
+        try:
+            cfg = channel_config_for(config, channel_id)
+        except KeyError:
+            outbox.mark(
+                [r.key for r in rows],
+                "failed",
+                now,
+                error=f"channel {channel_id!r} is no longer configured",
+            )
+            report.failed += len(rows)
+            continue
+        channel = build_channel(cfg, **dict((channel_kwargs or {}).get(channel_id, {})))
+        try:
+            for batch in _batches(rows):
+                if should_stop():
+                    return report
+                _deliver(outbox, config, rules, channel, batch, now, rng, report)
+        finally:
+            channel.close()
+    return report
+
+
+def _batches(rows: list[DeliveryRow]) -> list[list[DeliveryRow]]:
+    """Single deliveries one by one; held summary rows grouped per subscriber."""
+    singles = [[r] for r in rows if not r.summary]
+    held: dict[tuple[str, str | None], list[DeliveryRow]] = defaultdict(list)
+    for r in rows:
+        if r.summary:
+            held[(r.subscriber, r.address)].append(r)
+    return singles + list(held.values())
+
+
+def _deliver(
+    outbox: Outbox,
+    config: Config,
+    rules: RuleSet,
+    channel: Any,
+    batch: list[DeliveryRow],
+    now: datetime,
+    rng: random.Random,
+    report: DispatchReport,
+) -> None:
+    keys = [r.key for r in batch]
+    first = batch[0]
+    try:
+        message, chart, key = _compose(outbox, config, rules, batch)
+    except KeyError as exc:
+        outbox.mark(keys, "failed", now, error=f"cannot compose: missing {exc}")
+        report.failed += len(batch)
+        return
+    try:
+        channel.send(message, first.as_delivery(), key, chart)
+    except PermanentDeliveryError as exc:
+        log.error("delivery %s to %s failed for good: %s", key, first.subscriber, exc)
+        outbox.mark(keys, "failed", now, error=str(exc))
+        report.failed += len(batch)
+        report.errors.append(str(exc))
+    except TransientDeliveryError as exc:
+        delay = backoff_s(first.attempts, rng)
+        if isinstance(exc, RetryLater) and exc.retry_after_s:
+            delay = max(delay, exc.retry_after_s)
+        log.warning(
+            "delivery %s to %s will be retried in %.0f s: %s", key, first.subscriber, delay, exc
+        )
+        outbox.mark(
+            keys, "pending", now, error=str(exc), next_attempt_at=now + timedelta(seconds=delay)
+        )
+        report.retried += len(batch)
+        report.errors.append(str(exc))
+    else:
+        outbox.mark(keys, "sent", now)
+        report.sent += len(batch)
+
+
+def _compose(
+    outbox: Outbox, config: Config, rules: RuleSet, batch: list[DeliveryRow]
+) -> tuple[Message, bytes | None, str]:
+    zone = _subscriber_zone(config, batch[0].subscriber)
+    if len(batch) == 1 and not batch[0].summary:
+        event, chart = outbox.event(batch[0].event_id)
+        return render(event, config.site(event.site_id), rules, zone), chart, batch[0].key
+    items = []
+    for row in batch:
+        event, _ = outbox.event(row.event_id)
+        items.append((event, config.site(event.site_id)))
+    # one summary per set of held deliveries: the same set gives the same key
+    digest = hashlib.sha256("|".join(sorted(r.key for r in batch)).encode()).hexdigest()[:32]
+    return render_summary(items, rules, zone), None, f"fw-sum-{digest}"

@@ -1,0 +1,168 @@
+"""APScheduler wiring for ``fogwatch run``: the jobs only call the service.
+
+Jobs: one poll per source at its interval (each poll is followed by an assessment and
+the lifecycle), delivery of the outbox, the evening outlook per time zone at the
+configured local time, a data-health check, housekeeping, and a watch on the config and
+rule files that reloads them when they change. Every job coalesces missed runs, runs
+one instance at a time, and has a misfire grace time. Local times go through each
+site's zone (zoneinfo), so they stay right across daylight-saving changes.
+"""
+
+from __future__ import annotations
+
+import logging
+import signal
+import threading
+from collections.abc import Callable
+from datetime import UTC, datetime
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # pragma: no cover
+    from apscheduler.schedulers.base import BaseScheduler
+
+    from notifier.service import Service
+
+__all__ = ["build_scheduler", "run_forever"]
+
+log = logging.getLogger(__name__)
+
+CONFIG_WATCH_S = 5.0
+
+
+def _now() -> datetime:
+    return datetime.now(UTC)
+
+
+def _guarded(name: str, fn: Callable[[], Any]) -> Callable[[], None]:
+    """A job that fails logs why and lets the next run go on."""
+
+    def job() -> None:
+        try:
+            fn()
+        except Exception:
+            log.exception("job %s failed; it will run again at its next time", name)
+
+    job.__name__ = f"job_{name}"
+    return job
+
+
+def build_scheduler(
+    service: Service, scheduler: BaseScheduler | None = None, clock: Callable[[], datetime] = _now
+) -> BaseScheduler:
+    """Add every job for ``service`` to ``scheduler`` (a BlockingScheduler by default)."""
+    from apscheduler.schedulers.blocking import BlockingScheduler
+    from apscheduler.triggers.cron import CronTrigger
+    from apscheduler.triggers.interval import IntervalTrigger
+
+    config = service.config
+    sched = scheduler or BlockingScheduler(timezone=UTC)
+    defaults = {
+        "coalesce": True,
+        "max_instances": 1,
+        "misfire_grace_time": int(config.schedule.misfire_grace),
+    }
+
+    for source in config.sources:
+        sid = source.id
+        sched.add_job(
+            _guarded(
+                f"poll:{sid}", lambda sid=sid: service.poll_and_assess(clock(), source_ids=[sid])
+            ),
+            IntervalTrigger(seconds=source.interval),
+            id=f"poll:{sid}",
+            next_run_time=clock(),
+            **defaults,
+        )
+    # sites without any source still need assessing (their data gap must be reported)
+    sched.add_job(
+        _guarded("assess", lambda: service.poll_and_assess(clock(), source_ids=[])),
+        IntervalTrigger(seconds=config.schedule.evaluate_every),
+        id="assess",
+        **defaults,
+    )
+    sched.add_job(
+        _guarded("deliver", lambda: service.deliver(clock())),
+        IntervalTrigger(seconds=config.schedule.deliver_every),
+        id="deliver",
+        **defaults,
+    )
+    if config.schedule.outlook_local_time:
+        hour, minute = (int(x) for x in config.schedule.outlook_local_time.split(":"))
+        for zone in sorted({s.timezone for s in config.sites}):
+            ids = [s.id for s in config.sites if s.timezone == zone]
+            sched.add_job(
+                _guarded(f"outlook:{zone}", lambda ids=ids: service.outlook(clock(), ids)),
+                CronTrigger(hour=hour, minute=minute, timezone=zone),
+                id=f"outlook:{zone}",
+                **defaults,
+            )
+    sched.add_job(
+        _guarded("health", lambda: service.health(clock())),
+        IntervalTrigger(seconds=config.schedule.health_every),
+        id="health",
+        **defaults,
+    )
+    sched.add_job(
+        _guarded("housekeeping", lambda: service.housekeeping(clock())),
+        IntervalTrigger(seconds=config.schedule.housekeeping_every),
+        id="housekeeping",
+        **defaults,
+    )
+    sched.add_job(
+        _guarded("watch-config", lambda: _reload_if_changed(service, sched, clock)),
+        IntervalTrigger(seconds=CONFIG_WATCH_S),
+        id="watch-config",
+        **defaults,
+    )
+    return sched
+
+
+def _reload_if_changed(
+    service: Service, sched: BaseScheduler, clock: Callable[[], datetime]
+) -> None:
+    if service.files_changed():
+        reload(service, sched, clock)
+
+
+def reload(service: Service, sched: BaseScheduler, clock: Callable[[], datetime]) -> bool:
+    """Reload config and rules; on failure keep the running ones and say why."""
+    ok, message = service.reload()
+    if not ok:
+        log.error("reload failed, keeping the running config: %s", message)
+        return False
+    for job in list(sched.get_jobs()):
+        job.remove()
+    build_scheduler(service, sched, clock)
+    log.warning("reloaded %s", service.config.path)
+    return True
+
+
+def run_forever(service: Service) -> int:
+    """Run until SIGTERM or SIGINT; SIGHUP reloads. Finishes the job in flight."""
+    sched = build_scheduler(service)
+    stopping = threading.Event()
+
+    def stop(signum: int, _frame: Any) -> None:
+        if not stopping.is_set():
+            stopping.set()
+            log.warning("signal %s: finishing the job in flight, then stopping", signum)
+            threading.Thread(target=sched.shutdown, kwargs={"wait": True}, daemon=True).start()
+
+    def hup(_signum: int, _frame: Any) -> None:
+        threading.Thread(target=reload, args=(service, sched, _now), daemon=True).start()
+
+    signal.signal(signal.SIGTERM, stop)
+    signal.signal(signal.SIGINT, stop)
+    if hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, hup)
+    log.warning(
+        "fogwatch running: %d site(s), %d source(s)",
+        len(service.config.sites),
+        len(service.config.sources),
+    )
+    try:
+        sched.start()
+    finally:
+        service.close()
+        log.warning("fogwatch stopped")
+    return 0
