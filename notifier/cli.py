@@ -83,7 +83,7 @@ def _cmd(name: str) -> Handler:
 def _cmd_demo(args: argparse.Namespace) -> int:
     from notifier import demo
 
-    return demo.run_interim_timeline()
+    return demo.main()
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:

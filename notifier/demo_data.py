@@ -45,6 +45,8 @@ class NightSpec:
     end_local: time = time(9, 0)
     step_min: int = 10
     stop_after_local: datetime | None = None  # the feed stops here (a data gap)
+    lift_local: time | None = None  # a breeze mixes the fog out from this local time
+    lift_warming_c_per_h: float = 0.4
     changes: tuple[tuple[time, dict[str, float]], ...] = field(default_factory=tuple)
 
     def with_(self, **kw: object) -> NightSpec:
@@ -80,9 +82,13 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
             k[after] = values["cooling_k_per_sqrt_h"]
         if "wind_dir_deg" in values:
             wind_dir[after] = values["wind_dir_deg"]
-        if "dewpoint_rise_c" in values:  # moister air arriving (advection)
+        if "dewpoint_shift_c" in values:  # moister (or drier) air arriving over 90 min
             ramp = np.clip((t - at.timestamp()) / 5400.0, 0.0, 1.0)
-            dew_step = np.maximum(dew_step, ramp * values["dewpoint_rise_c"])
+            dew_step = dew_step + ramp * values["dewpoint_shift_c"]
+    lift = np.inf
+    if spec.lift_local is not None:
+        day = spec.evening + timedelta(days=spec.lift_local < spec.start_local)
+        lift = datetime.combine(day, spec.lift_local, zone).timestamp()
 
     temp = np.empty(n)
     dew = spec.dewpoint_c + spec.dewpoint_drift_c_per_h * (t - t[0]) / 3600.0 + dew_step
@@ -95,6 +101,9 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
         elif t[i] <= sunset:
             frac = (t[i] - t_max) / (sunset - t_max)
             temp[i] = spec.day_max_c + (spec.sunset_temp_c - spec.day_max_c) * frac
+        elif t[i] > lift:
+            # milder air mixed down from aloft
+            temp[i] = temp[i - 1] + spec.lift_warming_c_per_h * spec.step_min / 60.0
         elif t[i] <= sunrise:
             step = k[i] * (np.sqrt(h_after[i]) - np.sqrt(max(h_after[i - 1], 0.0)))
             temp[i] = temp[i - 1] - step
@@ -104,6 +113,8 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
     # more slowly (latent heat), which the 0.5 factor stands in for
     saturated_since = np.full(n, np.nan)
     for i in range(1, n):
+        if t[i] > lift:
+            continue  # mixed out: no fog from here on
         if temp[i] < dew[i] + 0.2 and t[i] <= sunrise + 1800:
             if np.isnan(saturated_since[i - 1]):
                 saturated_since[i] = t[i]
@@ -123,6 +134,8 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
     vis = np.where(fogged, np.maximum(120.0, 4000.0 * np.exp(-minutes / 35.0)), vis)
     lifting = t > sunrise + 1.5 * 3600
     vis = np.where(lifting, np.maximum(vis, 3000.0 + (t - sunrise - 5400) / 3600 * 8000), vis)
+    mixed = t > lift
+    vis = np.where(mixed, np.maximum(vis, 2500.0 + (t - lift) / 3600 * 9000), vis)
     vis = np.clip(vis, 50.0, 30000.0)
     weather = np.where(vis < 1000, np.where(temp < 0, "FZFG", "FG"), np.where(vis < 5000, "BR", ""))
 

@@ -157,6 +157,7 @@ class FeatureSettings:
     trend_window_h: float = 3.0
     trend_min_span_h: float = 0.75
     fit_min_span_h: float = 0.75
+    evening_transition_h: float = 1.5
     water_max_age_h: float = 24.0  # water temperature changes slowly
     block_hours: float = 24.0
     # Radiation fog needs light wind: calm to ~3 m/s is typical, stronger wind mixes the
@@ -501,8 +502,18 @@ def compute_features(
     fog, mist, fzfg = _observed(obs, is_obs, pos, n, t_at, settings, cur["temp_c"], rh_pct)
 
     with np.errstate(invalid="ignore"):
-        hours_to_fog = np.fmin(hours_to_saturation, hours_to_crossing)
-        data_age = np.where(np.isnan(last_any), np.inf, -last_any * 60.0)
+        # Once tonight's cooling curve is fitted it says when the air meets the dew point
+        # (NaN: not before sunrise); a straight-line trend over the first hours after
+        # sunset would overshoot, as cooling is fastest then (Brunt's law), so the trend
+        # is used only before sunset or once the evening transition is over.
+        has_fit = ~np.isnan(fit_k)
+        transition = night & (hours_since_sunset < settings.evening_transition_h)
+        hours_to_fog = np.where(
+            has_fit, hours_to_crossing, np.where(transition, np.nan, hours_to_saturation)
+        )
+        # a closed depression is saturation now, whatever the curve says
+        hours_to_fog = np.where(hours_to_saturation == 0.0, 0.0, hours_to_fog)
+        data_age = np.where(np.isnan(last_any), np.inf, 0.0 - last_any * 60.0)
 
     values = {
         "temp_c": temp_c,

@@ -310,7 +310,7 @@ class Service:
 
     def outlook(self, now: datetime, site_ids: Sequence[str]) -> int:
         """The evening outlook for these sites, queued like any other message."""
-        from notifier.lifecycle import outlook_event
+        from notifier.outlook import outlook_event
         from notifier.routing import route
 
         with self._lock:

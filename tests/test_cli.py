@@ -18,6 +18,13 @@ ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "demo_sites.yaml"
 
 
+@pytest.fixture(autouse=True)
+def demo_secrets(monkeypatch):
+    # the demo config reads its (demo-only) secrets from the environment, as real ones do
+    monkeypatch.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", "test-webhook-secret")
+    monkeypatch.setenv("FOGWATCH_DEMO_BOT_SECRET", "test-bot-secret")
+
+
 def run(capsys, *argv: str) -> tuple[int, str, str]:
     code = main(list(argv))
     out, err = capsys.readouterr()
