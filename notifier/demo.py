@@ -25,7 +25,6 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.config import Config
-    from notifier.service import Service
 
 __all__ = ["DEMO_CONFIG", "DEMO_EVENING", "demo_nights", "demo_observations", "run_demo"]
 
