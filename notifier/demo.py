@@ -146,13 +146,14 @@ class _FolderTransport:
                 import requests
 
                 key = request.headers.get("X-Fogwatch-Delivery", "delivery")
-                body = json.loads(request.body)
+                raw = request.body if isinstance(request.body, bytes) else request.body.encode()
+                headers = {k: v for k, v in request.headers.items() if k.startswith("X-Fogwatch")}
+                # the exact bytes signed, so a reader can check the signature
                 record = {
                     "url": request.url,
-                    "headers": {
-                        k: v for k, v in request.headers.items() if k.startswith("X-Fogwatch")
-                    },
-                    "body": body,
+                    "headers": headers,
+                    "body": json.loads(raw),
+                    "raw_body": raw.decode(),
                 }
                 path = outer.folder / f"{key}.json"
                 path.write_text(json.dumps(record, indent=2, ensure_ascii=False))
