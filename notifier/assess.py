@@ -9,7 +9,7 @@ moment a value touches its threshold.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from notifier.features import FEATURES, FeatureSettings, FeatureTable, compute_features
-from notifier.rules import LEVELS, RuleResult, RuleSet, evaluate_rule
+from notifier.rules import LEVELS, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -46,14 +46,55 @@ class HazardAssessment:
     safety_refs: list[str]
 
 
+class FeatureRow(Mapping[str, float]):
+    """One site's features, read from the table's arrays on demand."""
+
+    __slots__ = ("_table", "_i")
+
+    def __init__(self, table: FeatureTable, i: int):
+        self._table = table
+        self._i = i
+
+    def __getitem__(self, name: str) -> float:
+        return float(self._table.values[name][self._i])
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._table.values)
+
+    def __len__(self) -> int:
+        return len(self._table.values)
+
+
+class SiteResults(Sequence[RuleResult]):
+    """One site's result for every rule, built from the rule evaluations on demand."""
+
+    __slots__ = ("_evals", "_i", "_cache")
+
+    def __init__(self, evals: Sequence[RuleEvaluation], i: int):
+        self._evals = evals
+        self._i = i
+        self._cache: list[RuleResult] | None = None
+
+    def _all(self) -> list[RuleResult]:
+        if self._cache is None:
+            self._cache = [ev[self._i] for ev in self._evals]
+        return self._cache
+
+    def __getitem__(self, k: int) -> RuleResult:  # type: ignore[override]
+        return self._all()[k]
+
+    def __len__(self) -> int:
+        return len(self._evals)
+
+
 @dataclass
 class SiteAssessment:
     site: Site
     time: datetime
-    features: dict[str, float]
+    features: Mapping[str, float]
     projection_method: str
     last_time: datetime | None
-    results: list[RuleResult]
+    results: Sequence[RuleResult]
     hazards: dict[str, HazardAssessment] = field(default_factory=dict)
     sustain: dict[str, str] = field(default_factory=dict)  # hazard → level with margins
     stale_after_min: float = STALE_AFTER_MIN
@@ -96,28 +137,32 @@ def assess(
         return tables[steps_back]
 
     now = table(0)
-    per_rule: list[list[RuleResult]] = []
+    evals: list[RuleEvaluation] = []
     for rule in rules.rules:
         steps = math.ceil(rule.hold_s / HOLD_STEP_S)
         feats_at = [table(k).values for k in range(steps + 1)]
-        per_rule.append(evaluate_rule(rule, sites, feats_at))
+        evals.append(evaluate_rule(rule, sites, feats_at))
 
+    # only sites where some rule fires or holds with its margins need a closer look
+    n = len(sites)
+    busy = np.zeros(n, dtype=bool)
+    for ev in evals:
+        busy |= ev.fires | ev.sustains
     out = []
     for i, site in enumerate(sites):
-        results = [rr[i] for rr in per_rule]
-        features = now.row(i)
         last = now.last_time[i]
         sa = SiteAssessment(
             site=site,
             time=at,
-            features=features,
+            features=FeatureRow(now, i),
             projection_method=str(now.projection_method[i] or ""),
             last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
-            results=results,
+            results=SiteResults(evals, i),
             stale_after_min=stale_after_min,
             projection=_projection(now, i),
         )
-        _aggregate(sa, at)
+        if busy[i]:
+            _aggregate(sa, at, evals, i)
         out.append(sa)
     return out
 
@@ -129,15 +174,16 @@ def _projection(table: FeatureTable, i: int) -> tuple[float, float, datetime] | 
     return float(t0), float(k), datetime.fromtimestamp(float(sunset), UTC)
 
 
-def _aggregate(sa: SiteAssessment, at: datetime) -> None:
+def _aggregate(sa: SiteAssessment, at: datetime, evals: Sequence[RuleEvaluation], i: int) -> None:
     by_hazard: dict[str, list[RuleResult]] = {}
-    for r in sa.results:
-        if r.applies and r.fires:
-            by_hazard.setdefault(r.rule.hazard, []).append(r)
-        if r.applies and r.sustains:
-            cur = sa.sustain.get(r.rule.hazard, "none")
-            if level_rank(r.rule.level) > level_rank(cur):
-                sa.sustain[r.rule.hazard] = r.rule.level
+    for ev in evals:
+        rule = ev.rule
+        if ev.fires[i]:
+            by_hazard.setdefault(rule.hazard, []).append(ev[i])
+        if ev.sustains[i]:
+            cur = sa.sustain.get(rule.hazard, "none")
+            if level_rank(rule.level) > level_rank(cur):
+                sa.sustain[rule.hazard] = rule.level
     for hazard, fired in by_hazard.items():
         top = max(level_rank(r.rule.level) for r in fired)
         level = LEVELS[top]

@@ -538,10 +538,14 @@ def step(
     now = now.astimezone(UTC)
     states: dict[StateKey, AlertState] = dict(previous)
     events: list[Event] = []
+    by_site: dict[str, set[str]] = {}
+    for s, h in previous:
+        by_site.setdefault(s, set()).add(h)
     for sa in assessments:
         site_id = sa.site.id
-        hazards = {h for (s, h) in previous if s == site_id}
-        hazards |= set(sa.hazards) | set(sa.sustain)
+        hazards = by_site.get(site_id, set()) | set(sa.hazards) | set(sa.sustain)
+        if not hazards:
+            continue  # nothing active, nothing remembered: nothing can happen here
         for hazard in sorted(hazards, key=_hazard_order):
             key = (site_id, hazard)
             state = previous.get(key) or AlertState(site_id=site_id, hazard=hazard)

@@ -51,6 +51,7 @@ __all__ = [
     "Condition",
     "Group",
     "Rule",
+    "RuleEvaluation",
     "RuleResult",
     "RuleSet",
     "SafetyNote",
@@ -173,6 +174,20 @@ class SiteFilter:
     tags: tuple[str, ...] = ()
     ids: tuple[str, ...] = ()
 
+    def mask(self, sites: Sequence[Any]) -> np.ndarray:
+        """``matches`` for every site at once."""
+        n = len(sites)
+        if not (self.exposure or self.use or self.tags or self.ids):
+            return np.ones(n, dtype=bool)
+        if self.tags or self.ids:
+            return np.fromiter((self.matches(s) for s in sites), dtype=bool, count=n)
+        out = np.ones(n, dtype=bool)
+        if self.exposure:
+            out &= np.isin(np.array([s.exposure for s in sites]), self.exposure)
+        if self.use:
+            out &= np.isin(np.array([s.use for s in sites]), self.use)
+        return out
+
     def matches(self, site: Any) -> bool:
         return (
             (not self.exposure or site.exposure in self.exposure)
@@ -269,18 +284,71 @@ class RuleResult:
         return render_template(self.rule.explain, values)
 
 
+class RuleEvaluation(Sequence[RuleResult]):
+    """One rule over many sites, as arrays; ``evaluation[i]`` is site i's RuleResult.
+
+    The per-site results are built only when asked for, so assessing thousands of
+    sites creates Python objects just for the few that something is happening at.
+    """
+
+    def __init__(
+        self,
+        rule: Rule,
+        applies: np.ndarray,
+        fires: np.ndarray,
+        sustains: np.ndarray,
+        held_now: np.ndarray,
+        hold_met: np.ndarray,
+        tests: list[Comparison],
+        held: list[np.ndarray],
+        known: list[np.ndarray],
+        values: list[np.ndarray],
+    ):
+        self.rule = rule
+        self.applies = applies
+        self.fires = fires
+        self.sustains = sustains
+        self.held_now = held_now
+        self.hold_met = hold_met
+        self.tests = tests
+        self.held = held
+        self.known = known
+        self.values = values
+
+    def __len__(self) -> int:
+        return int(self.applies.size)
+
+    def __getitem__(self, i: int) -> RuleResult:  # type: ignore[override]
+        if not -len(self) <= i < len(self):
+            raise IndexError(i)
+        outcomes = [
+            Outcome(t, _as_float(v[i]), bool(h[i]), bool(k[i]))
+            for t, v, h, k in zip(self.tests, self.values, self.held, self.known, strict=True)
+        ]
+        return RuleResult(
+            rule=self.rule,
+            applies=bool(self.applies[i]),
+            fires=bool(self.fires[i]),
+            sustains=bool(self.sustains[i]),
+            held_now=bool(self.held_now[i]),
+            hold_met=bool(self.hold_met[i]),
+            missing=sorted({o.test.feature for o in outcomes if not o.known}),
+            outcomes=outcomes,
+        )
+
+
 def evaluate_rule(
     rule: Rule,
     sites: Sequence[Any],
     feats_at: Sequence[Mapping[str, np.ndarray]],
-) -> list[RuleResult]:
+) -> RuleEvaluation:
     """Evaluate ``rule`` for every site at once.
 
     ``feats_at[0]`` holds each feature as an array over ``sites`` at the evaluation
     time; further entries are the same features at earlier times inside the rule's hold
     window (oldest last). The rule fires where its conditions held at every one of them.
     """
-    applies = np.array([rule.sites.matches(s) for s in sites], dtype=bool)
+    applies = rule.sites.mask(sites)
     held_now, _ = evaluate_condition(rule.when, feats_at[0], relaxed=False)
     sustain, _ = evaluate_condition(rule.when, feats_at[0], relaxed=True)
     hold_met = np.ones(len(sites), dtype=bool)
@@ -289,26 +357,16 @@ def evaluate_rule(
         hold_met &= held_then
     fires = applies & held_now & hold_met
     tests = list(iter_comparisons(rule.when))
-    per_test = [(t, t.evaluate(feats_at[0][t.feature], relaxed=False)) for t in tests]
-    out = []
-    for i in range(len(sites)):
-        outcomes = [
-            Outcome(t, _as_float(feats_at[0][t.feature][i]), bool(h[i]), bool(k[i]))
-            for t, (h, k) in per_test
-        ]
-        out.append(
-            RuleResult(
-                rule=rule,
-                applies=bool(applies[i]),
-                fires=bool(fires[i]),
-                sustains=bool(applies[i] and sustain[i]),
-                held_now=bool(held_now[i]),
-                hold_met=bool(hold_met[i]),
-                missing=sorted({o.test.feature for o in outcomes if not o.known}),
-                outcomes=outcomes,
-            )
-        )
-    return out
+    held, known, values = [], [], []
+    for t in tests:
+        v = np.asarray(feats_at[0][t.feature])
+        h, k = t.evaluate(v, relaxed=False)
+        held.append(h)
+        known.append(k)
+        values.append(v)
+    return RuleEvaluation(
+        rule, applies, fires, applies & sustain, held_now, hold_met, tests, held, known, values
+    )
 
 
 def _as_float(v: Any) -> float:
