@@ -9,6 +9,12 @@ Retries use exponential backoff with jitter: 1 min, 2, 4, … capped at 30 min, 
 or the far side's Retry-After when it gives one. A delivery still pending after the
 maximum age (12 h by default) is given up and recorded as expired: an alert that old
 is no longer news.
+
+A channel that fails :data:`MAX_TRANSIENT_IN_A_ROW` times running is left alone for the
+rest of the run: a mail server that is down would otherwise cost a connect timeout per
+pending delivery while the service waits (the rest stay due and go next run). An
+unexpected exception from a channel is logged and retried like a transient failure, so
+one bad row or adapter bug never stops the others.
 """
 
 from __future__ import annotations
@@ -36,6 +42,7 @@ log = logging.getLogger(__name__)
 
 BASE_BACKOFF_S = 60.0
 MAX_BACKOFF_S = 1800.0
+MAX_TRANSIENT_IN_A_ROW = 3
 
 
 def backoff_s(attempts: int, rng: random.Random) -> float:
@@ -96,12 +103,24 @@ def dispatch(
             continue
         channel = build_channel(cfg, **dict((channel_kwargs or {}).get(channel_id, {})))
         try:
+            failing = 0
             for batch in _batches(rows):
                 if should_stop():
                     return report
-                _deliver(outbox, config, rules, channel, batch, now, rng, report)
+                ok = _deliver(outbox, config, rules, channel, batch, now, rng, report)
+                failing = 0 if ok else failing + 1
+                if failing >= MAX_TRANSIENT_IN_A_ROW:
+                    log.warning(
+                        "channel %s failed %d times running; the rest wait for the next run",
+                        channel_id,
+                        failing,
+                    )
+                    break
         finally:
-            channel.close()
+            try:
+                channel.close()
+            except Exception:  # closing must not lose the other channels' deliveries
+                log.exception("closing channel %s failed", channel_id)
     return report
 
 
@@ -124,7 +143,8 @@ def _deliver(
     now: datetime,
     rng: random.Random,
     report: DispatchReport,
-) -> None:
+) -> bool:
+    """Send one batch and record the outcome; False on a transient failure."""
     keys = [r.key for r in batch]
     first = batch[0]
     try:
@@ -132,7 +152,14 @@ def _deliver(
     except KeyError as exc:
         outbox.mark(keys, "failed", now, error=f"cannot compose: missing {exc}")
         report.failed += len(batch)
-        return
+        return True
+    except Exception as exc:  # a row that cannot be rendered must not block the rest
+        log.exception("cannot compose delivery %s", first.key)
+        error = f"cannot compose: {type(exc).__name__}: {exc}"
+        outbox.mark(keys, "failed", now, error=error)
+        report.failed += len(batch)
+        report.errors.append(error)
+        return True
     try:
         channel.send(message, first.as_delivery(), key, chart)
     except PermanentDeliveryError as exc:
@@ -140,21 +167,28 @@ def _deliver(
         outbox.mark(keys, "failed", now, error=str(exc))
         report.failed += len(batch)
         report.errors.append(str(exc))
-    except TransientDeliveryError as exc:
+        return True
+    except Exception as exc:
+        if isinstance(exc, TransientDeliveryError):
+            error = str(exc)
+        else:  # a bug in an adapter: retried, and visible in `fogwatch status`
+            log.exception("delivery %s: unexpected error from channel %s", key, first.channel)
+            error = f"internal error: {type(exc).__name__}: {exc}"
         delay = backoff_s(first.attempts, rng)
         if isinstance(exc, RetryLater) and exc.retry_after_s:
             delay = max(delay, exc.retry_after_s)
         log.warning(
-            "delivery %s to %s will be retried in %.0f s: %s", key, first.subscriber, delay, exc
+            "delivery %s to %s will be retried in %.0f s: %s", key, first.subscriber, delay, error
         )
         outbox.mark(
-            keys, "pending", now, error=str(exc), next_attempt_at=now + timedelta(seconds=delay)
+            keys, "pending", now, error=error, next_attempt_at=now + timedelta(seconds=delay)
         )
         report.retried += len(batch)
-        report.errors.append(str(exc))
-    else:
-        outbox.mark(keys, "sent", now)
-        report.sent += len(batch)
+        report.errors.append(error)
+        return False
+    outbox.mark(keys, "sent", now)
+    report.sent += len(batch)
+    return True
 
 
 def _compose(
@@ -168,6 +202,8 @@ def _compose(
     for row in batch:
         event, _ = outbox.event(row.event_id)
         items.append((event, config.site(event.site_id)))
-    # one summary per set of held deliveries: the same set gives the same key
+    # one summary per set of held deliveries: the same set gives the same key, and the
+    # same text on a retry — it is dated when the quiet hours ended, not by the clock
     digest = hashlib.sha256("|".join(sorted(r.key for r in batch)).encode()).hexdigest()[:32]
-    return render_summary(items, rules, zone), None, f"fw-sum-{digest}"
+    released = max((r.not_before for r in batch if r.not_before), default=None)
+    return render_summary(items, rules, zone, at=released), None, f"fw-sum-{digest}"

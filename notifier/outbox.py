@@ -311,13 +311,19 @@ class Outbox:
             c.execute(deliveries.update().where(deliveries.c.key.in_(keys)).values(**values))
 
     def expire(self, older_than: datetime, now: datetime, reason: str) -> list[str]:
-        """Give up pending deliveries created before ``older_than``; their keys."""
+        """Give up pending deliveries due since before ``older_than``; their keys.
+
+        A delivery is due from its creation, or, when held for quiet hours, from the end
+        of the hold: held news is late on purpose, and a long quiet window must not use
+        up its time to be delivered before the morning summary is even sent.
+        """
         d = deliveries.c
+        due_since = sa.func.coalesce(d.not_before, d.created_at)
         with self.store.atomic() as conn:
             keys = list(
                 conn.execute(
                     sa.select(d.key).where(
-                        (d.status == "pending") & (d.created_at < iso_utc(older_than))
+                        (d.status == "pending") & (due_since < iso_utc(older_than))
                     )
                 ).scalars()
             )

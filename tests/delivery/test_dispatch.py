@@ -1,0 +1,362 @@
+"""The outbox worker against real servers on 127.0.0.1: an aiosmtpd server with login that
+refuses for a while and recovers, and signed webhook receivers that answer 500 or 400.
+Retries, backoff, permanent failures, expiry, one connection per batch, morning summaries,
+and what `fogwatch status` shows of it all."""
+
+from __future__ import annotations
+
+import email
+import random
+from datetime import timedelta
+from email import policy
+from email.message import EmailMessage
+from pathlib import Path
+
+import pytest
+
+from notifier import cli
+from notifier.channels.webhook import DELIVERY_HEADER
+from notifier.dispatch import MAX_TRANSIENT_IN_A_ROW, backoff_s
+from notifier.messages import CAUTION
+from notifier.outbox import DeliveryRow
+from notifier.service import Service
+from tests.delivery.outbox_kit import (
+    SITES,
+    email_channel,
+    queue,
+    secrets_env,
+    signed_receiver,
+    webhook_channel,
+    write_config,
+)
+from tests.delivery.scenes import event, utc
+
+T0 = utc(2026, 1, 10, 20, 0)  # January: Europe/London is on UTC
+OPS = {"id": "harbour-ops", "channel": "mail", "address": "harbour-ops@example.test"}
+BOT = {"id": "ops-bridge", "channel": "hook", "address": "ops-room"}
+
+
+@pytest.fixture(autouse=True)
+def _secrets(monkeypatch):
+    secrets_env(monkeypatch)
+
+
+@pytest.fixture
+def make_service(tmp_path: Path):
+    made: list[Service] = []
+
+    def make(channels, subscribers, **extra) -> Service:
+        path = write_config(tmp_path, channels, subscribers, **extra)
+        service = Service(path, rng=random.Random(5))
+        made.append(service)
+        return service
+
+    yield make
+    for service in made:
+        service.close()
+
+
+def parse(data: bytes) -> EmailMessage:
+    return email.message_from_bytes(data, policy=policy.default)  # type: ignore[return-value]
+
+
+def rows(service: Service) -> dict[str, DeliveryRow]:
+    return {r.subscriber: r for r in service.outbox.deliveries()}
+
+
+def status_text(service: Service, capsys) -> str:
+    capsys.readouterr()
+    assert cli.main(["status", str(service.config_path)]) == 0
+    return capsys.readouterr().out
+
+
+def test_backoff_doubles_with_jitter_and_is_capped():
+    rng = random.Random(1)
+    for attempts, base in [(0, 60), (1, 120), (2, 240), (4, 960), (5, 1800), (12, 1800)]:
+        delays = [backoff_s(attempts, rng) for _ in range(200)]
+        assert base * 0.8 <= min(delays) and max(delays) <= base * 1.2
+        assert max(delays) - min(delays) > base * 0.2  # jitter spreads retries out
+
+
+def test_smtp_refusing_for_a_while_is_retried_with_backoff_then_sent_once(
+    smtp_server, make_service
+):
+    inbox = smtp_server.inbox
+    inbox.fail_data = 10**6  # 451 to every DATA until it recovers
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    ev = event("escalated", "warning", "watch", at=T0)
+    (d,) = queue(service, [ev], T0)
+
+    report = service.deliver(T0)
+    assert (report.sent, report.retried, report.failed) == (0, 1, 0)
+    row = rows(service)["harbour-ops"]
+    assert row.status == "pending" and row.attempts == 1
+    assert "451" in (row.last_error or "")
+    wait = (row.next_attempt_at - T0).total_seconds()
+    assert 60 * 0.8 <= wait <= 60 * 1.2  # ≈ 60 s ± 20 % (stored to the second)
+
+    # before the backoff has passed nothing is attempted
+    tried = 10**6 - inbox.fail_data
+    report = service.deliver(T0 + timedelta(seconds=30))
+    assert (report.sent, report.retried) == (0, 0)
+    assert 10**6 - inbox.fail_data == tried
+
+    # the second failure backs off about twice as long
+    second = row.next_attempt_at
+    service.deliver(second)
+    row = rows(service)["harbour-ops"]
+    assert row.attempts == 2
+    assert 120 * 0.8 <= (row.next_attempt_at - second).total_seconds() <= 120 * 1.2
+
+    inbox.fail_data = 0  # the server recovers
+    report = service.deliver(row.next_attempt_at)
+    assert (report.sent, report.retried) == (1, 0)
+    row = rows(service)["harbour-ops"]
+    assert row.status == "sent" and row.attempts == 3 and row.sent_at is not None
+    assert service.deliver(row.next_attempt_at + timedelta(hours=1)).sent == 0
+
+    (got,) = inbox.messages
+    assert got.rcpt_tos == ["harbour-ops@example.test"]
+    msg = parse(got.data)
+    assert msg["Message-ID"] == f"<{d.key}@example.test>"
+    assert msg["X-Fogwatch-Delivery"] == d.key
+    assert msg["X-Fogwatch-Event"] == ev.id
+    assert msg["Subject"] == "Fog WARNING · Quay Two · 20:00 GMT"
+    body = msg.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
+    assert " ".join(CAUTION.split()) in " ".join(body.split())
+
+
+def test_a_550_fails_for_good_and_status_shows_it(smtp_server, make_service, capsys):
+    smtp_server.inbox.refuse = {"gone@example.test"}
+    gone = {"id": "old-desk", "channel": "mail", "address": "gone@example.test"}
+    service = make_service([email_channel(smtp_server.port)], [OPS, gone])
+    queue(service, [event(at=T0)], T0)
+
+    report = service.deliver(T0)
+    assert (report.sent, report.failed, report.retried) == (1, 1, 0)
+    failed = rows(service)["old-desk"]
+    assert failed.status == "failed" and failed.attempts == 1
+    assert "550" in (failed.last_error or "")
+    assert service.deliver(T0 + timedelta(hours=2)).failed == 0  # never retried
+    assert [m.rcpt_tos for m in smtp_server.inbox.messages] == [["harbour-ops@example.test"]]
+
+    out = status_text(service, capsys)
+    assert "Outbox: 1 failed, 1 sent" in out
+    (line,) = [x for x in out.splitlines() if x.strip().startswith("failed:")]
+    assert "old-desk via mail" in line and "550" in line
+
+
+def test_a_delivery_past_the_maximum_age_is_expired_and_shown(smtp_server, make_service, capsys):
+    smtp_server.inbox.fail_data = 10**6  # down all night
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    queue(service, [event(at=T0)], T0)
+    now = T0
+    while now < T0 + timedelta(hours=12):
+        report = service.deliver(now)
+        assert report.expired == 0 and report.sent == 0
+        now += timedelta(minutes=20)
+    row = rows(service)["harbour-ops"]
+    assert row.status == "pending" and row.attempts >= 8
+    assert (row.next_attempt_at - T0) <= timedelta(hours=12, minutes=36)  # capped at 30 min
+
+    out = status_text(service, capsys)
+    assert f"retrying ({row.attempts} tries): harbour-ops via mail" in out
+
+    smtp_server.inbox.fail_data = 0  # back, but too late: an alert that old is not news
+    report = service.deliver(T0 + timedelta(hours=12, minutes=1))
+    assert (report.expired, report.sent) == (1, 0)
+    assert rows(service)["harbour-ops"].status == "expired"
+    assert smtp_server.inbox.messages == []
+    out = status_text(service, capsys)
+    assert "Outbox: 1 expired" in out
+    assert "expired: harbour-ops via mail: gave up: still undelivered after 12 h" in out
+    assert any("expired undelivered" in p for p in service.health(T0 + timedelta(hours=13)))
+
+
+def test_one_smtp_connection_for_a_batch(smtp_server, make_service):
+    subs = [
+        {"id": f"desk-{n}", "channel": "mail", "address": f"desk-{n}@example.test"}
+        for n in range(4)
+    ]
+    service = make_service([email_channel(smtp_server.port)], subs)
+    events = [event(at=T0 + timedelta(minutes=m)) for m in range(5)]
+    queued = queue(service, events, T0)
+    assert len(queued) == 20
+
+    report = service.deliver(T0)
+    assert report.sent == 20
+    assert smtp_server.inbox.connections == 1
+    ids = [parse(m.data)["Message-ID"] for m in smtp_server.inbox.messages]
+    assert sorted(ids) == sorted(f"<{d.key}@example.test>" for d in queued)
+
+
+def test_a_down_channel_is_left_alone_for_the_rest_of_the_run(smtp_server, make_service):
+    smtp_server.inbox.fail_data = 10**6
+    subs = [
+        {"id": f"desk-{n}", "channel": "mail", "address": f"desk-{n}@example.test"}
+        for n in range(10)
+    ]
+    service = make_service([email_channel(smtp_server.port)], subs)
+    queue(service, [event(at=T0)], T0)
+    report = service.deliver(T0)
+    assert report.retried == MAX_TRANSIENT_IN_A_ROW
+    assert 10**6 - smtp_server.inbox.fail_data == MAX_TRANSIENT_IN_A_ROW
+    untried = [r for r in service.outbox.deliveries() if r.attempts == 0]
+    assert len(untried) == 10 - MAX_TRANSIENT_IN_A_ROW
+    assert len(service.outbox.due(T0 + timedelta(seconds=1))) == len(untried)  # next run
+    smtp_server.inbox.fail_data = 0
+    later = T0 + timedelta(minutes=5)
+    assert service.deliver(later).sent == 10
+    assert len(smtp_server.inbox.messages) == 10
+
+
+def test_webhook_500s_are_retried_then_delivered_once(webhook_server, make_service):
+    hook = webhook_server.hook
+    hook.fail_first_attempt = True  # 500 to the first attempt of each delivery
+    service = make_service([webhook_channel(webhook_server.url)], [BOT])
+    events = [event(at=T0 + timedelta(minutes=m)) for m in range(5)]
+    queued = queue(service, events, T0)
+
+    now = T0
+    for _ in range(20):
+        service.deliver(now)
+        if not service.outbox.deliveries(["pending"]):
+            break
+        now += timedelta(minutes=1)
+    assert now <= T0 + timedelta(minutes=5)
+    assert hook.rejected_signatures == 0  # every request was signed correctly
+    got = [a["headers"][DELIVERY_HEADER] for a in hook.accepted]
+    assert sorted(got) == sorted(d.key for d in queued)  # each exactly once
+    assert len(hook.attempts) == 10
+    assert all(r.status == "sent" and r.attempts == 2 for r in service.outbox.deliveries())
+    body = hook.accepted[0]["body"]
+    assert body["recipient"] == "ops-room" and body["delivery"] == got[0]
+    assert body["headline"].startswith("Fog WATCH · Quay Two")
+    assert body["caution"] == CAUTION
+
+
+def test_a_webhook_400_is_permanent(make_service, capsys):
+    with signed_receiver(answer=lambda _d, _n: 400) as receiver:
+        service = make_service([webhook_channel(receiver.url)], [BOT])
+        queue(service, [event(at=T0)], T0)
+        report = service.deliver(T0)
+        assert (report.failed, report.retried) == (1, 0)
+        service.deliver(T0 + timedelta(hours=1))
+        assert len(receiver.ids()) == 1 and receiver.bad_signatures == 0
+    row = rows(service)["ops-bridge"]
+    assert row.status == "failed" and "HTTP 400" in (row.last_error or "")
+    assert "failed: ops-bridge via hook: webhook hook: HTTP 400" in status_text(service, capsys)
+
+
+@pytest.mark.parametrize("status", [408, 429, 503], ids=["timeout", "too-many", "unavailable"])
+def test_webhook_statuses_worth_retrying(make_service, status):
+    answers = {1: status}
+    with signed_receiver(answer=lambda _d, n: answers.get(n, 204)) as receiver:
+        service = make_service([webhook_channel(receiver.url)], [BOT])
+        queue(service, [event(at=T0)], T0)
+        assert service.deliver(T0).retried == 1
+        assert service.deliver(T0 + timedelta(minutes=2)).sent == 1
+        assert [s for _, s in receiver.attempts] == [status, 204]
+
+
+def test_held_watch_news_goes_as_one_morning_summary_per_subscriber(
+    smtp_server, webhook_server, make_service
+):
+    night_desk = {
+        "id": "night-desk",
+        "channel": "mail",
+        "address": "night-desk@example.test",
+        "quiet_hours": "22:00-06:30",
+        "timezone": "Europe/London",
+    }
+    yard = {**BOT, "id": "yard-lead", "quiet_hours": "23:00-06:00"}
+    service = make_service(
+        [email_channel(smtp_server.port), webhook_channel(webhook_server.url)],
+        [night_desk, yard],
+    )
+    inbox, hook = smtp_server.inbox, webhook_server.hook
+    watch_quay = event(at=utc(2026, 1, 10, 22, 40))
+    watch_field = event(site_id="north-field", at=utc(2026, 1, 10, 23, 30))
+    warning = event("escalated", "warning", "watch", at=utc(2026, 1, 11, 2, 0))
+    for ev in (watch_quay, watch_field, warning):
+        queue(service, [ev], ev.time)
+        service.deliver(ev.time)
+    # inside quiet hours only the warning went to night-desk; yard-lead's quiet
+    # hours began at 23:00, so it had the first watch at once
+    assert [parse(m.data)["Subject"] for m in inbox.messages] == [
+        "Fog WARNING · Quay Two · 02:00 GMT"
+    ]
+    assert [a["body"]["id"] for a in hook.accepted] == [watch_quay.id, warning.id]
+
+    assert service.deliver(utc(2026, 1, 11, 5, 59)).sent == 0
+    assert service.deliver(utc(2026, 1, 11, 6, 0)).sent == 1  # yard-lead's morning
+    assert service.deliver(utc(2026, 1, 11, 6, 29)).sent == 0
+    assert service.deliver(utc(2026, 1, 11, 6, 30)).sent == 2  # two rows, one message
+    assert service.deliver(utc(2026, 1, 11, 9, 0)).sent == 0
+
+    assert len(inbox.messages) == 2
+    summary = parse(inbox.messages[1].data)
+    assert summary["Subject"] == "Overnight: 2 updates for 2 sites · 06:30 GMT"
+    assert summary["Message-ID"].startswith("<fw-sum-")
+    text = summary.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
+    assert "Quay Two" in text and "North Field" in text and "held for quiet hours" in text
+    assert "Fog watch raised" in text
+    (posted,) = [a["body"] for a in hook.accepted if a["body"].get("type") == "summary"]
+    assert [e["id"] for e in posted["events"]] == [watch_field.id]
+    assert posted["headline"] == "Overnight: 1 update for 1 site · 06:00 GMT"
+    assert posted["caution"] == CAUTION
+    assert all(r.status == "sent" for r in service.outbox.deliveries())
+    held = [r for r in service.outbox.deliveries() if r.summary]
+    assert {r.subscriber for r in held} == {"night-desk", "yard-lead"} and len(held) == 3
+
+
+def test_a_row_that_cannot_be_composed_fails_and_the_rest_go(smtp_server, make_service, tmp_path):
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    queue(service, [event(at=T0), event(site_id="north-field", at=T0)], T0)
+    # the site is removed from the config before the dispatcher runs
+    path = write_config(
+        tmp_path,
+        [email_channel(smtp_server.port)],
+        [OPS],
+        sites=[s for s in SITES if s["id"] == "quay-two"],
+    )
+    assert path == service.config_path
+    assert service.reload() == (True, "reloaded")
+    report = service.deliver(T0)
+    assert (report.sent, report.failed) == (1, 1)
+    (bad,) = service.outbox.deliveries(["failed"])
+    assert bad.last_error == "cannot compose: missing 'north-field'"
+
+
+def test_an_adapter_bug_on_one_channel_does_not_stop_another(
+    smtp_server, webhook_server, make_service
+):
+    def broken_connect(_config):
+        raise RuntimeError("adapter bug")
+
+    service = make_service(
+        [email_channel(smtp_server.port), webhook_channel(webhook_server.url)],
+        [OPS, BOT],
+    )
+    service.channel_kwargs = {"mail": {"connect": broken_connect}}
+    queue(service, [event(at=T0)], T0)
+    report = service.deliver(T0)
+    assert (report.sent, report.retried) == (1, 1)
+    assert len(webhook_server.hook.accepted) == 1
+    mail = rows(service)["harbour-ops"]
+    assert mail.status == "pending" and mail.attempts == 1
+    assert mail.last_error == "internal error: RuntimeError: adapter bug"
+    service.channel_kwargs = {}
+    assert service.deliver(mail.next_attempt_at).sent == 1
+    assert len(smtp_server.inbox.messages) == 1
+
+
+def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_service, tmp_path):
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    queue(service, [event(at=T0)], T0)
+    write_config(tmp_path, [], [])
+    assert service.reload()[0]
+    report = service.deliver(T0)
+    assert report.failed == 1
+    (row,) = service.outbox.deliveries(["failed"])
+    assert row.last_error == "channel 'mail' is no longer configured"
