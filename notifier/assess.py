@@ -122,19 +122,25 @@ def assess(
     at: datetime,
     settings: FeatureSettings | None = None,
     stale_after_min: float = STALE_AFTER_MIN,
+    cache: dict[float, FeatureTable] | None = None,
 ) -> list[SiteAssessment]:
-    """Evaluate every rule for every site at ``at``."""
+    """Evaluate every rule for every site at ``at``.
+
+    ``cache`` (keyed by POSIX seconds) lets a caller stepping through time reuse the
+    feature tables of earlier evaluation times for the hold windows; it must only be
+    shared between calls over the same sites and the same observations.
+    """
     if at.tzinfo is None:
         raise ValueError("evaluation time must be timezone-aware")
     at = at.astimezone(UTC)
-    tables: dict[int, FeatureTable] = {}
+    tables: dict[float, FeatureTable] = {} if cache is None else cache
 
     def table(steps_back: int) -> FeatureTable:
-        if steps_back not in tables:
-            tables[steps_back] = compute_features(
-                obs, sites, at - timedelta(seconds=steps_back * HOLD_STEP_S), settings
-            )
-        return tables[steps_back]
+        when = at - timedelta(seconds=steps_back * HOLD_STEP_S)
+        key = when.timestamp()
+        if key not in tables:
+            tables[key] = compute_features(obs, sites, when, settings)
+        return tables[key]
 
     now = table(0)
     evals: list[RuleEvaluation] = []

@@ -155,6 +155,20 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--port", type=int, default=8750)
     q.set_defaults(handler=_cmd("cli_bot_serve"))
 
+    p = sub.add_parser("replay", help="run the rules over history and score them")
+    _add_common(p)
+    p.add_argument("--data", nargs="+", metavar="FILE", required=True,
+                   help="observation files (CSV, JSON, NDJSON, METAR)")
+    p.add_argument("--from", dest="start", required=True, metavar="TIME")
+    p.add_argument("--to", dest="end", required=True, metavar="TIME")
+    p.add_argument("--step", default="10min", help="clock step (default 10min)")
+    p.add_argument("--rules-b", metavar="DIR", help="a second rule set to score beside")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.add_argument("--csv", metavar="FILE", help="write the events as CSV")
+    p.add_argument("--png", metavar="FILE", help="write a timeline chart")
+    p.add_argument("--deliver-to", metavar="DIR", help="write the messages as .eml files")
+    p.set_defaults(handler=_cmd("cli_replay"))
+
     p = sub.add_parser("demo", help="one invented night at three invented sites")
     p.set_defaults(handler=_cmd_demo)
 

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from notifier.config import load_config
-from notifier.errors import UsageError
+from notifier.errors import FogwatchError, UsageError
 from notifier.service import Loaded, evaluate, load, observations_for, open_store, parse_time
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -191,37 +191,104 @@ def cli_ask(args: argparse.Namespace) -> int:
 
 
 def cli_bot_serve(args: argparse.Namespace) -> int:
+    """Serve the signed bot endpoint until SIGTERM or SIGINT; answers in flight finish."""
     import logging
+    import signal
+    import threading
 
     from notifier.bot import handle
     from notifier.botbackend import ServiceBackend
     from notifier.botserver import BotHTTPServer
     from notifier.service import Service
 
+    log = logging.getLogger(__name__)
     service = Service(args.config)
-    secret = service.config.bot.secret
-    if not secret:
-        service.close()
-        raise UsageError("bot serve needs bot.secret in the config (e.g. ${FOGWATCH_BOT_SECRET})")
-
-    def answer(sender: str, text: str, now: datetime) -> str:
-        return handle(ServiceBackend(service, now), sender, text, now)
-
-    server = BotHTTPServer(
-        (args.host, args.port), secret, answer, rate_per_minute=service.config.bot.rate_per_minute
-    )
-    logging.getLogger(__name__).warning(
-        "bot listening on http://%s:%d/message", *server.server_address[:2]
-    )
-    print(
-        f"listening on http://{server.server_address[0]}:{server.server_address[1]}/message",
-        flush=True,
-    )
     try:
-        server.serve_forever()
-    except KeyboardInterrupt:
-        pass
+        secret = service.config.bot.secret
+        if not secret:
+            raise UsageError(
+                "bot serve needs bot.secret in the config (e.g. ${FOGWATCH_BOT_SECRET})"
+            )
+
+        def answer(sender: str, text: str, now: datetime) -> str:
+            return handle(ServiceBackend(service, now), sender, text, now)
+
+        try:
+            server = BotHTTPServer(
+                (args.host, args.port),
+                secret,
+                answer,
+                rate_per_minute=service.config.bot.rate_per_minute,
+            )
+        except OSError as exc:  # the port is taken or the address is not ours: exit 1
+            raise FogwatchError(
+                f"bot serve: cannot listen on {args.host}:{args.port}: {exc.strerror or exc}"
+            ) from exc
+    except BaseException:
+        service.close()
+        raise
+
+    def stop(signum: int, _frame: object) -> None:
+        log.warning("signal %s: stopping the bot endpoint", signum)
+        # shutdown() waits for serve_forever, which runs in this (the main) thread
+        threading.Thread(target=server.shutdown, daemon=True).start()
+
+    previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGINT)}
+    host, port = server.server_address[:2]
+    log.warning("bot listening on http://%s:%d/message", host, port)
+    print(f"listening on http://{host}:{port}/message", flush=True)
+    try:
+        server.serve_forever(poll_interval=0.2)
     finally:
         server.server_close()
+        server.wait_idle(timeout_s=10.0)  # answers in flight finish before the store closes
         service.close()
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+        log.warning("bot stopped")
+    return 0
+
+
+def cli_replay(args: argparse.Namespace) -> int:
+    """Run the rules over history and score them; optionally a second rule set too."""
+    from notifier import replay as rp
+    from notifier.config import parse_duration_s
+    from notifier.rules import load_rule_set
+    from notifier.sources import read_files
+
+    loaded = load(args.config)
+    start, end = parse_time(args.start), parse_time(args.end)
+    if end <= start:
+        raise UsageError("--to must be after --from")
+    try:
+        step_s = parse_duration_s(args.step)
+    except ValueError as exc:
+        raise UsageError(f"--step: {exc}") from exc
+    if step_s <= 0:
+        raise UsageError("--step must be positive")
+    frame, rejections, warnings = read_files([Path(p) for p in args.data], loaded.config,
+                                             datetime.now(UTC))
+    _report_input(ObservationBatch(frame, rejections, warnings), None)
+    sets = [(loaded, "rules")]
+    if args.rules_b:
+        other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]))
+        sets.append((other, "rules-b"))
+    import sys
+
+    n_steps = int((end - start).total_seconds() // step_s) + 1
+    results = []
+    for which, label in sets:
+        bar = rp.progress_bar() if (n_steps > 300 and not args.json
+                                    and sys.stderr.isatty()) else None
+        deliver = Path(args.deliver_to) / label if args.deliver_to else None
+        results.append(rp.replay(which, frame, start, end, step_s, label=label,
+                                 deliver_to=deliver, progress=bar))
+    if args.json:
+        print(json.dumps(rp.to_json(results), indent=2, ensure_ascii=False))
+    else:
+        print(rp.report_text(results))
+    if args.csv:
+        rp.write_csv(results, Path(args.csv))
+    if args.png:
+        rp.write_png(results[0], frame, Path(args.png))
     return 0
