@@ -23,6 +23,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Protocol
+from zoneinfo import ZoneInfo
 
 from notifier.config import parse_duration_s
 
@@ -30,6 +31,7 @@ __all__ = ["BotBackend", "SiteStatus", "handle"]
 
 CAUTION = "Automated estimate, not an official forecast."
 MAX_MUTE = timedelta(days=14)
+HOW_LONG = "Say how long, e.g. 'hush SITE for 3h' or 'for 45min'."
 
 
 @dataclass(frozen=True)
@@ -45,6 +47,7 @@ class BotBackend(Protocol):
     """What the bot needs from the running service."""
 
     def site_names(self) -> dict[str, str]: ...
+    def site_timezone(self, site_id: str) -> str: ...
     def is_known(self, sender: str) -> bool: ...
     def is_operator(self, sender: str) -> bool: ...
     def join(self, sender: str, code: str) -> str | None: ...  # the site joined, or None
@@ -136,12 +139,14 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
         reasons = backend.reasons(sid)
         body = [f"- {r}" for r in reasons[:8]] or ["- no rule is firing"]
         return "\n".join([f"{st.name}: {st.level.upper()}", *body, CAUTION])
-    m = re.fullmatch(r"follow\s+(.+?)(?:\s+from\s+(watch|warning))?", lower)
+    m = re.fullmatch(r"follow\s+(.+?)(?:\s+from\s+(\S+))?", lower)
     if m:
+        level = m.group(2) or "watch"
+        if level not in ("watch", "warning"):
+            return "Levels are 'watch' and 'warning', e.g. 'follow SITE from warning'."
         sid = _site(backend, m.group(1))
         if sid is None:
             return _unknown_site(backend, m.group(1))
-        level = m.group(2) or "watch"
         backend.follow(sender, sid, level)
         return f"You will get {backend.site_names()[sid]} alerts from {level} level up."
     m = re.fullmatch(r"unfollow\s+(.+)", lower)
@@ -152,7 +157,7 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
         if backend.unfollow(sender, sid):
             return f"You no longer get {backend.site_names()[sid]} alerts."
         return f"You were not following {backend.site_names()[sid]}."
-    m = re.fullmatch(r"hush\s+(.+?)\s+for\s+(\S+)(\s+for\s+everyone)?", lower)
+    m = re.fullmatch(r"hush\s+(.+?)\s+for\s+(.+?)(\s+for\s+everyone)?", lower)
     if m:
         sid = _site(backend, m.group(1))
         if sid is None:
@@ -160,8 +165,8 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
         try:
             seconds = parse_duration_s(m.group(2))
         except ValueError:
-            return "Say how long, e.g. 'hush SITE for 3h' or 'for 45min'."
-        if seconds <= 0 or timedelta(seconds=seconds) > MAX_MUTE:
+            return HOW_LONG
+        if seconds < 60 or timedelta(seconds=seconds) > MAX_MUTE:
             return "A hush lasts between a minute and 14 days."
         who = sender
         if m.group(3):
@@ -171,10 +176,13 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
         until = now + timedelta(seconds=seconds)
         backend.mute(who, sid, until)
         scope = "for everyone" if who == "*" else "for you"
+        local = until.astimezone(ZoneInfo(backend.site_timezone(sid)))
         return (
             f"{backend.site_names()[sid]} hushed {scope} until "
-            f"{until:%H:%M %Z} ({until:%d %b}). Warnings then resume."
+            f"{local:%H:%M %Z} ({local:%d %b}). Warnings then resume."
         )
+    if re.fullmatch(r"hush\s+.+", lower):
+        return HOW_LONG
     m = re.fullmatch(r"unhush\s+(.+?)(\s+for\s+everyone)?", lower)
     if m:
         sid = _site(backend, m.group(1))
@@ -188,4 +196,7 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
         if backend.unmute(who, sid):
             return f"{backend.site_names()[sid]} alerts are back on."
         return f"{backend.site_names()[sid]} was not hushed."
+    if lower in ("why", "follow", "unfollow", "hush", "unhush"):
+        example = next(iter(backend.site_names()), "SITE")
+        return f"Say which site, e.g. '{lower} {example}'. Say 'sites' for the list."
     return "I didn't understand that. Say 'help'."

@@ -25,6 +25,9 @@ class ServiceBackend:
     def site_names(self) -> dict[str, str]:
         return {s.id: s.name for s in self.config.sites}
 
+    def site_timezone(self, site_id: str) -> str:
+        return self.config.site(site_id).timezone
+
     def _config_senders(self) -> set[str]:
         senders = set(self.config.bot.allow)
         for sub in self.config.subscribers:
@@ -46,6 +49,8 @@ class ServiceBackend:
         return site
 
     def status(self, site_ids: Sequence[str]) -> list[SiteStatus]:
+        from notifier.views import local_time
+
         snaps = self.service.outbox.snapshots()
         names = self.site_names()
         out = []
@@ -60,8 +65,6 @@ class ServiceBackend:
                 eta = h.get("eta")
                 text = f"{h['hazard']} {h['level']} ({h['kind']})"
                 if eta:
-                    from notifier.views import local_time
-
                     t = datetime.fromisoformat(eta.replace("Z", "+00:00"))
                     text += f" from {local_time(t, self.config.site(sid).timezone)}"
                 parts.append(text)
@@ -71,6 +74,9 @@ class ServiceBackend:
             if payload.get("data", {}).get("stale"):
                 parts.append("DATA STALE")
             age = payload.get("data", {}).get("age_min")
+            if age is not None:
+                # the age was taken when the snapshot was stored; show it as of now
+                age = max(0.0, age + (self.now - when).total_seconds() / 60.0)
             summary = "; ".join(parts) or "nothing expected"
             out.append(SiteStatus(sid, names[sid], level, summary, age))
         return out
@@ -89,7 +95,8 @@ class ServiceBackend:
         for sub in self.config.subscribers:
             if sender in sub.senders:
                 ids.extend(s.id for s in self.config.sites_matching(sub.sites))
-        return list(dict.fromkeys(ids))
+        known = self.site_names()  # a follow of a site since removed from the config
+        return [sid for sid in dict.fromkeys(ids) if sid in known]
 
     def follow(self, sender: str, site_id: str, min_level: str) -> None:
         self.service.outbox.follow(sender, site_id, min_level, self.now)

@@ -8,8 +8,11 @@
   over ``"{timestamp}.{body}"``.
 
 Refused: no or bad signature (401), a timestamp more than 5 minutes off (401), the same
-signature seen before (409, a replay), a body over 8 KiB (413), bad JSON (400), and more
-than the configured messages per minute from one sender (429).
+signature seen before (409, a replay), a body over 8 KiB (413), no Content-Length (411),
+bad JSON (400), and more than the configured messages per minute from one sender (429).
+
+Extra keys in the body are ignored, so a client that may send the same text twice in
+one second (the same timestamp, hence the same signature) adds a unique ``"id"``.
 """
 
 from __future__ import annotations
@@ -31,6 +34,7 @@ __all__ = ["MAX_BODY", "BotHTTPServer", "sign_request", "verify_request"]
 log = logging.getLogger(__name__)
 
 MAX_BODY = 8 * 1024
+DRAIN_LIMIT = 256 * 1024  # a larger body is not read at all: the connection is closed
 TOLERANCE_S = 300
 TS_HEADER = "X-Fogwatch-Timestamp"
 SIG_HEADER = "X-Fogwatch-Signature"
@@ -48,14 +52,15 @@ def verify_request(secret: str, headers: Any, body: bytes, now_s: float) -> str 
     sig = headers.get(SIG_HEADER)
     if not ts or not sig:
         return "unsigned request"
-    try:
-        ts_i = int(ts)
-    except ValueError:
+    ts = ts.strip()
+    if not ts.isascii() or not ts.isdigit() or len(ts) > 12:
         return "bad timestamp"
+    ts_i = int(ts)
     if abs(now_s - ts_i) > TOLERANCE_S:
         return "stale timestamp"
     expected = sign_request(secret, body, ts_i)[SIG_HEADER]
-    if not hmac.compare_digest(expected, sig.strip()):
+    # compare bytes: a header may hold any Latin-1 text, which compare_digest rejects as str
+    if not hmac.compare_digest(expected.encode(), sig.strip().encode("utf-8", "replace")):
         return "bad signature"
     return None
 
@@ -109,12 +114,38 @@ class BotHTTPServer(ThreadingHTTPServer):
         self.answer = answer
         self.clock = clock
         self.guard = _Guard(rate_per_minute)
+        self._busy = 0
+        self._idle = threading.Condition()
         super().__init__(address, _Handler)
+
+    def _answer(self, sender: str, text: str, now: datetime) -> str:
+        with self._idle:
+            self._busy += 1
+        try:
+            return self.answer(sender, text, now)
+        finally:
+            with self._idle:
+                self._busy -= 1
+                self._idle.notify_all()
+
+    def wait_idle(self, timeout_s: float) -> bool:
+        """Wait until no answer is being made; False if one still is after ``timeout_s``."""
+        with self._idle:
+            return self._idle.wait_for(lambda: self._busy == 0, timeout=timeout_s)
+
+    def handle_error(self, request: Any, client_address: Any) -> None:
+        # a client that hangs up mid-request is not worth a traceback on stderr
+        log.warning(
+            "bot: request from %s failed",
+            client_address[0],
+            exc_info=log.isEnabledFor(logging.DEBUG),
+        )
 
 
 class _Handler(BaseHTTPRequestHandler):
     server: BotHTTPServer
     protocol_version = "HTTP/1.1"
+    timeout = 15  # seconds a client may take to send its request: no stalled threads
 
     def log_message(self, format: str, *args: Any) -> None:  # noqa: A002
         log.debug("bot http: " + format, *args)
@@ -137,13 +168,24 @@ class _Handler(BaseHTTPRequestHandler):
         if self.path != "/message":
             self._reply(404, {"error": "not found"})
             return
+        if self.headers.get("Transfer-Encoding") or "Content-Length" not in self.headers:
+            self.close_connection = True
+            self._reply(411, {"error": "a Content-Length is required"})
+            return
         try:
-            length = int(self.headers.get("Content-Length", "0"))
+            length = int(self.headers["Content-Length"])
+            if length < 0:
+                raise ValueError
         except ValueError:
+            self.close_connection = True
             self._reply(400, {"error": "bad Content-Length"})
             return
         if length > MAX_BODY:
             self.close_connection = True
+            if length <= DRAIN_LIMIT:
+                # read what was sent, so that closing does not reset the connection
+                # before the client has read the answer
+                self.rfile.read(length)
             self._reply(413, {"error": f"body over {MAX_BODY} bytes"})
             return
         body = self.rfile.read(length)
@@ -153,7 +195,7 @@ class _Handler(BaseHTTPRequestHandler):
             log.warning("bot: refused request: %s", why)
             self._reply(401, {"error": why})
             return
-        if self.server.guard.replayed(self.headers[SIG_HEADER], now_s):
+        if self.server.guard.replayed(self.headers[SIG_HEADER].strip(), now_s):
             self._reply(409, {"error": "replayed request"})
             return
         try:
@@ -168,7 +210,7 @@ class _Handler(BaseHTTPRequestHandler):
             self._reply(429, {"error": "too many messages; try again in a minute"})
             return
         try:
-            reply = self.server.answer(sender, text[:500], datetime.fromtimestamp(now_s, UTC))
+            reply = self.server._answer(sender, text[:500], datetime.fromtimestamp(now_s, UTC))
         except Exception:  # a bug must not kill the endpoint
             log.exception("bot: command failed")
             self._reply(500, {"error": "internal error"})

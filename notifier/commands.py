@@ -211,6 +211,11 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
             )
 
         def answer(sender: str, text: str, now: datetime) -> str:
+            # new allow-lists, join codes and sites apply without a restart
+            if service.files_changed():
+                ok, message = service.reload()
+                if not ok:
+                    log.error("reload failed, keeping the running config: %s", message)
             return handle(ServiceBackend(service, now), sender, text, now)
 
         try:

@@ -528,6 +528,11 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
                 check_site_ref(("subscribers", i, "sites"), sel)
     for code, site_id in config.bot.join_codes.items():
         check_site_ref(("bot", "join_codes", code), site_id)
+    if config.bot.channel not in channel_ids:
+        add(
+            ("bot", "channel"),
+            f"unknown channel {config.bot.channel!r} (known: {', '.join(sorted(channel_ids))})",
+        )
     for i, rule_path in enumerate(config.rules):
         if not rule_path.exists():
             add(("rules", i), f"rule path not found: {rule_path}")

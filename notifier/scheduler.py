@@ -27,6 +27,7 @@ __all__ = ["build_scheduler", "run_forever"]
 log = logging.getLogger(__name__)
 
 CONFIG_WATCH_S = 5.0
+_RELOADING = threading.Lock()  # SIGHUP and the file watch may ask at the same moment
 
 
 def _now() -> datetime:
@@ -62,57 +63,52 @@ def build_scheduler(
         "misfire_grace_time": int(config.schedule.misfire_grace),
     }
 
+    def add(job_id: str, fn: Callable[[], Any], trigger: Any, **kwargs: Any) -> None:
+        sched.add_job(_guarded(job_id, fn), trigger, id=job_id, name=job_id, **defaults, **kwargs)
+
     for source in config.sources:
-        sid = source.id
-        sched.add_job(
-            _guarded(
-                f"poll:{sid}", lambda sid=sid: service.poll_and_assess(clock(), source_ids=[sid])
-            ),
+        add(
+            f"poll:{source.id}",
+            lambda sid=source.id: service.poll_and_assess(clock(), source_ids=[sid]),
             IntervalTrigger(seconds=source.interval),
-            id=f"poll:{sid}",
-            next_run_time=clock(),
-            **defaults,
+            # the scheduler keeps real time even when the service is handed another clock
+            next_run_time=_now(),
         )
     # sites without any source still need assessing (their data gap must be reported)
-    sched.add_job(
-        _guarded("assess", lambda: service.poll_and_assess(clock(), source_ids=[])),
+    add(
+        "assess",
+        lambda: service.poll_and_assess(clock(), source_ids=[]),
         IntervalTrigger(seconds=config.schedule.evaluate_every),
-        id="assess",
-        **defaults,
     )
-    sched.add_job(
-        _guarded("deliver", lambda: service.deliver(clock())),
+    add(
+        "deliver",
+        lambda: service.deliver(clock()),
         IntervalTrigger(seconds=config.schedule.deliver_every),
-        id="deliver",
-        **defaults,
     )
     if config.schedule.outlook_local_time:
         hour, minute = (int(x) for x in config.schedule.outlook_local_time.split(":"))
         for zone in sorted({s.timezone for s in config.sites}):
             ids = [s.id for s in config.sites if s.timezone == zone]
-            sched.add_job(
-                _guarded(f"outlook:{zone}", lambda ids=ids: service.outlook(clock(), ids)),
+            # a cron trigger in the site's own zone: 17:30 stays 17:30 across DST
+            add(
+                f"outlook:{zone}",
+                lambda ids=ids: service.outlook(clock(), ids),
                 CronTrigger(hour=hour, minute=minute, timezone=zone),
-                id=f"outlook:{zone}",
-                **defaults,
             )
-    sched.add_job(
-        _guarded("health", lambda: service.health(clock())),
+    add(
+        "health",
+        lambda: service.health(clock()),
         IntervalTrigger(seconds=config.schedule.health_every),
-        id="health",
-        **defaults,
     )
-    sched.add_job(
-        _guarded("housekeeping", lambda: service.housekeeping(clock())),
+    add(
+        "housekeeping",
+        lambda: service.housekeeping(clock()),
         IntervalTrigger(seconds=config.schedule.housekeeping_every),
-        id="housekeeping",
-        **defaults,
     )
-    sched.add_job(
-        _guarded("watch-config", lambda: _reload_if_changed(service, sched, clock)),
+    add(
+        "watch-config",
+        lambda: _reload_if_changed(service, sched, clock),
         IntervalTrigger(seconds=CONFIG_WATCH_S),
-        id="watch-config",
-        **defaults,
     )
     return sched
 
@@ -126,13 +122,14 @@ def _reload_if_changed(
 
 def reload(service: Service, sched: BaseScheduler, clock: Callable[[], datetime]) -> bool:
     """Reload config and rules; on failure keep the running ones and say why."""
-    ok, message = service.reload()
-    if not ok:
-        log.error("reload failed, keeping the running config: %s", message)
-        return False
-    for job in list(sched.get_jobs()):
-        job.remove()
-    build_scheduler(service, sched, clock)
+    with _RELOADING:
+        ok, message = service.reload()
+        if not ok:
+            log.error("reload failed, keeping the running config: %s", message)
+            return False
+        for job in list(sched.get_jobs()):
+            job.remove()
+        build_scheduler(service, sched, clock)
     log.warning("reloaded %s", service.config.path)
     return True
 
@@ -140,13 +137,17 @@ def reload(service: Service, sched: BaseScheduler, clock: Callable[[], datetime]
 def run_forever(service: Service) -> int:
     """Run until SIGTERM or SIGINT; SIGHUP reloads. Finishes the job in flight."""
     sched = build_scheduler(service)
-    stopping = threading.Event()
+    stopping: list[threading.Thread] = []
 
     def stop(signum: int, _frame: Any) -> None:
-        if not stopping.is_set():
-            stopping.set()
-            log.warning("signal %s: finishing the job in flight, then stopping", signum)
-            threading.Thread(target=sched.shutdown, kwargs={"wait": True}, daemon=True).start()
+        if stopping:
+            return
+        log.warning("signal %s: finishing the job in flight, then stopping", signum)
+        service.stop()  # a delivery run ends after the message it is sending
+        # shutdown waits for running jobs, so it cannot run inside this handler
+        stopper = threading.Thread(target=sched.shutdown, kwargs={"wait": True}, daemon=True)
+        stopping.append(stopper)
+        stopper.start()
 
     def hup(_signum: int, _frame: Any) -> None:
         threading.Thread(target=reload, args=(service, sched, _now), daemon=True).start()
@@ -163,6 +164,8 @@ def run_forever(service: Service) -> int:
     try:
         sched.start()
     finally:
+        for stopper in stopping:
+            stopper.join(timeout=60)  # the jobs in flight end before the store closes
         service.close()
         log.warning("fogwatch stopped")
     return 0

@@ -1,0 +1,128 @@
+"""Follows and hushes made through the bot are honoured by delivery, across a simulated
+night on a real file-backed service."""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta
+
+from notifier.bot import handle
+from notifier.botbackend import ServiceBackend
+from notifier.service import Service, bot_subscriber_id
+from tests.service.conftest import Scene, utc
+
+
+def cycle(scene: Scene, service: Service, at: datetime) -> None:
+    scene.feed(at)
+    service.cycle(at)
+
+
+def say(service: Service, sender: str, text: str, at: datetime) -> str:
+    return handle(ServiceBackend(service, at), sender, text, at)
+
+
+def received(service: Service) -> set[tuple[str, str, str, str, str]]:
+    """(subscriber, channel, event type, hazard, status) of every delivery so far."""
+    out = set()
+    for row in service.outbox.deliveries():
+        event, _ = service.outbox.event(row.event_id)
+        out.add((row.subscriber, row.channel, event.type, event.hazard, row.status))
+    return out
+
+
+def test_a_follow_routes_later_alerts_to_the_bot_channel(scene: Scene):
+    service = scene.service()
+    cycle(scene, service, utc(2026, 11, 20, 22, 30))
+    assert service.outbox.deliveries() == []
+    at = utc(2026, 11, 20, 22, 40)
+    assert "from watch level up" in say(service, "guest-cy", "follow vale", at)
+    assert "from warning level up" in say(service, "op-ash", "follow vale from warning", at)
+    assert say(service, "walk-in-dee", "join VALE-7", at).startswith("Welcome.")
+
+    cycle(scene, service, utc(2026, 11, 20, 23, 0))  # fog warning raised at the valley
+    cycle(scene, service, utc(2026, 11, 20, 23, 30))  # icing watch raised
+    guest = bot_subscriber_id("guest-cy", "zz-vale")
+    op = bot_subscriber_id("op-ash", "zz-vale")
+    walk_in = bot_subscriber_id("walk-in-dee", "zz-vale")
+    got = received(service)
+    for who in (guest, op, walk_in):
+        assert (who, "botline", "raised", "fog", "sent") in got
+    # watch-level news only for those who follow from watch
+    assert (guest, "botline", "raised", "icing", "sent") in got
+    assert (walk_in, "botline", "raised", "icing", "sent") in got
+    assert not any(r[0] == op and r[3] == "icing" for r in got)
+    # the configured subscribers still get theirs on their own channel
+    assert ("desk", "duty", "raised", "fog", "sent") in got
+
+    text = scene.out("bot.txt")
+    assert text.count("Fog WARNING · Lower Vale Orchard") == 3
+    assert "not an official" in text
+
+    # after unfollowing, the 02:00 reminder does not go to that sender
+    assert say(service, "guest-cy", "unfollow vale", utc(2026, 11, 21, 0, 0)).startswith(
+        "You no longer"
+    )
+    cycle(scene, service, utc(2026, 11, 21, 2, 0))
+    reminders = {r[0] for r in received(service) if r[2] == "reminder"}
+    assert walk_in in reminders and "desk" in reminders
+    assert guest not in reminders
+
+
+def test_a_hush_holds_a_senders_alerts_until_it_expires(scene: Scene):
+    service = scene.service()
+    cycle(scene, service, utc(2026, 11, 20, 22, 30))
+    reply = say(service, "crew-bo", "hush vale for 2h", utc(2026, 11, 20, 22, 50))
+    assert "until 00:50 GMT (21 Nov)" in reply
+    assert "from watch level up" in say(
+        service, "guest-cy", "follow vale", utc(2026, 11, 20, 22, 50)
+    )
+    # guest-cy follows and also hushes: their bot subscription is muted too
+    say(service, "guest-cy", "hush vale for 2h", utc(2026, 11, 20, 22, 50))
+    guest = bot_subscriber_id("guest-cy", "zz-vale")
+
+    for at in (utc(2026, 11, 20, 23, 0), utc(2026, 11, 20, 23, 30), utc(2026, 11, 21, 0, 30)):
+        cycle(scene, service, at)
+    got = received(service)
+    assert ("desk", "duty", "raised", "fog", "sent") in got  # others are told
+    assert ("desk", "duty", "raised", "icing", "sent") in got
+    assert not any(r[0] in ("crew", guest) for r in got)  # the hushed are not
+
+    # the hush ended at 00:50; the 02:00 reminder reaches them again
+    cycle(scene, service, utc(2026, 11, 21, 2, 0))
+    got = received(service)
+    assert ("crew", "duty", "reminder", "fog", "sent") in got
+    assert (guest, "botline", "reminder", "fog", "sent") in got
+
+
+def test_a_hush_for_everyone_and_its_early_lifting(scene: Scene):
+    service = scene.service()
+    cycle(scene, service, utc(2026, 11, 20, 22, 30))
+    assert "for everyone" in say(
+        service, "op-ash", "hush vale for 1h for everyone", utc(2026, 11, 20, 22, 50)
+    )
+    cycle(scene, service, utc(2026, 11, 20, 23, 0))
+    assert service.outbox.deliveries() == []  # no one: fog warning raised under the hush
+    say(service, "op-ash", "unhush vale for everyone", utc(2026, 11, 20, 23, 10))
+    cycle(scene, service, utc(2026, 11, 20, 23, 30))  # icing watch raised, hush lifted
+    got = received(service)
+    assert ("desk", "duty", "raised", "icing", "sent") in got
+    assert ("crew", "duty", "raised", "icing", "sent") in got
+    assert not any(r[3] == "fog" for r in got)
+
+
+def test_follows_and_mutes_outlive_the_process(scene: Scene):
+    first = scene.service()
+    at = utc(2026, 11, 20, 22, 40)
+    say(first, "guest-cy", "follow quay from warning", at)
+    say(first, "crew-bo", "hush vale for 3h", at)
+    first.close()
+    second = scene.service()
+    assert second.outbox.follows() == [("guest-cy", "zz-quay", "warning")]
+    subs = {s.id: s for s in second.subscribers()}
+    follower = subs[bot_subscriber_id("guest-cy", "zz-quay")]
+    assert (follower.channel, follower.address, follower.sites, follower.min_level) == (
+        "botline",
+        "guest-cy",
+        ("zz-quay",),
+        "warning",
+    )
+    assert ("crew", "zz-vale", at + timedelta(hours=3)) in second.mutes(at)
