@@ -361,18 +361,26 @@ def default_rules_dir() -> Path:
 # loading
 
 
-def _expand_all(node: Any, loc: tuple[Any, ...], missing: list[tuple[tuple[Any, ...], str]]) -> Any:
+def _expand_all(
+    node: Any,
+    loc: tuple[Any, ...],
+    missing: list[tuple[tuple[Any, ...], str]],
+    expanded: set[tuple[Any, ...]],
+) -> Any:
     if isinstance(node, MarkedDict):
         for key in list(node):
-            node[key] = _expand_all(node[key], (*loc, key), missing)
+            node[key] = _expand_all(node[key], (*loc, key), missing, expanded)
     elif isinstance(node, MarkedList):
         for i, item in enumerate(node):
-            node[i] = _expand_all(item, (*loc, i), missing)
+            node[i] = _expand_all(item, (*loc, i), missing, expanded)
     elif isinstance(node, str) and "${" in node:
         try:
-            return expand_env(node)
+            value = expand_env(node)
         except KeyError as exc:
             missing.append((loc, exc.args[0]))
+        else:
+            expanded.add(loc)
+            return value
     return node
 
 
@@ -390,14 +398,41 @@ def _loc_text(loc: tuple[Any, ...]) -> str:
     return "".join(parts)
 
 
+def _raw_loc(raw: Any, loc: tuple[Any, ...]) -> tuple[Any, ...]:
+    """``loc`` without the validator's own labels (union tags), as keys of the file."""
+    out: list[Any] = []
+    node: Any = raw
+    for k, part in enumerate(loc):
+        if isinstance(node, dict) and part not in node:
+            nxt = loc[k + 1] if k + 1 < len(loc) else None
+            if nxt is not None and nxt in node:
+                continue  # a tag pydantic adds for the member of a union
+            out.extend(loc[k:])  # a missing key: name it as it is
+            break
+        if isinstance(node, dict | list):
+            try:
+                node = node[part]
+            except (KeyError, IndexError, TypeError):
+                node = None
+        out.append(part)
+    return tuple(out)
+
+
 def problems_from_validation(
-    path: str, raw: Any, exc: ValidationError, prefix: str = ""
+    path: str,
+    raw: Any,
+    exc: ValidationError,
+    prefix: str = "",
+    secret_locs: set[tuple[Any, ...]] = frozenset(),  # type: ignore[assignment]
 ) -> list[ConfigProblem]:
-    """Turn pydantic's errors into located problems, one per error."""
+    """Turn pydantic's errors into located problems, one per error.
+
+    A value that came from the environment is never echoed: it may be a secret.
+    """
     out = []
     for err in exc.errors(include_url=False):
         loc = tuple(p for p in err["loc"] if p not in ("function-after", "function-before"))
-        shown = tuple(p for p in loc if not (isinstance(p, str) and "[" in p))
+        shown = _raw_loc(raw, loc)
         msg = err["msg"].removeprefix("Value error, ")
         where = _loc_text(shown)
         got = ""
@@ -406,6 +441,8 @@ def problems_from_validation(
         if err["type"] == "extra_forbidden":
             msg = "unknown key"
             got = ""
+        if _raw_loc(raw, loc) in secret_locs:
+            got = " (value from the environment, not shown)"
         out.append(ConfigProblem(path, line_of(raw, loc), f"{prefix}{where}: {msg}{got}"))
     return out
 
@@ -420,7 +457,8 @@ def load_config(path: str | Path) -> Config:
     if not isinstance(raw, dict):
         raise ConfigError(ConfigProblem(str(path), 1, "expected a mapping at the top level"))
     missing: list[tuple[tuple[Any, ...], str]] = []
-    _expand_all(raw, (), missing)
+    expanded: set[tuple[Any, ...]] = set()
+    _expand_all(raw, (), missing, expanded)
     problems = [
         ConfigProblem(
             str(path),
@@ -434,7 +472,8 @@ def load_config(path: str | Path) -> Config:
     try:
         config = Config.model_validate({**raw, "path": path})
     except ValidationError as exc:
-        raise ConfigError(problems_from_validation(str(path), raw, exc)) from exc
+        raise ConfigError(problems_from_validation(str(path), raw, exc,
+                                                   secret_locs=expanded)) from exc
     config = _resolve_paths(config)
     problems = _cross_check(config, raw)
     if problems:

@@ -160,3 +160,17 @@ def test_no_sites(tmp_path):
         load_config(write(tmp_path, "version: 1\nsites: []\n"))
     with pytest.raises(ConfigError, match=r"sites: Field required"):
         load_config(write(tmp_path, "version: 1\n"))
+
+
+def test_a_bad_value_from_the_environment_is_not_echoed(tmp_path, monkeypatch):
+    # the value may be a secret: the error names the place, not the value
+    monkeypatch.setenv("FW_TEST_PORT", "hunter2-not-a-port")
+    text = MINIMAL + textwrap.dedent("""\
+        channels:
+          - {id: m, type: email, host: 127.0.0.1, port: "${FW_TEST_PORT}", sender: a@b.test}
+        """)
+    with pytest.raises(ConfigError) as info:
+        load_config(write(tmp_path, text))
+    message = str(info.value)
+    assert "channels[0].port" in message and "not shown" in message
+    assert "hunter2" not in message
