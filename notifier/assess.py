@@ -193,15 +193,16 @@ def _aggregate(sa: SiteAssessment, at: datetime, evals: Sequence[RuleEvaluation]
     for hazard, fired in by_hazard.items():
         top = max(level_rank(r.rule.level) for r in fired)
         level = LEVELS[top]
-        # the rules at the top level explain the alert; lower ones add context
+        # the rules at the top level explain the alert; the lower ones are listed only
         fired.sort(key=lambda r: -level_rank(r.rule.level))
         lead = fired[0]
+        top_rules = [r for r in fired if level_rank(r.rule.level) == top]
         reasons: list[str] = []
-        for r in fired:
+        for r in top_rules:
             for text in r.reasons():
                 if text not in reasons:
                     reasons.append(text)
-        explanations = [r.explanation(sa.features) for r in fired if r.rule.explain]
+        explanations = [r.explanation(sa.features) for r in top_rules if r.rule.explain]
         refs: list[str] = []
         for r in fired:
             refs.extend(x for x in r.rule.safety if x not in refs)
