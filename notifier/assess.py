@@ -9,15 +9,16 @@ moment a value touches its threshold.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
+from functools import partial
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from notifier.features import FEATURES, FeatureSettings, FeatureTable, compute_features
-from notifier.rules import LEVELS, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
+from notifier.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -34,6 +35,33 @@ def level_rank(level: str) -> int:
     return LEVELS.index(level)
 
 
+class LazyTexts(Sequence[str]):
+    """Text worked out only when read: most assessments are never shown to anyone."""
+
+    __slots__ = ("_make", "_items")
+
+    def __init__(self, make: Callable[[], list[str]]):
+        self._make = make
+        self._items: list[str] | None = None
+
+    def _all(self) -> list[str]:
+        if self._items is None:
+            self._items = self._make()
+        return self._items
+
+    def __getitem__(self, k):  # type: ignore[no-untyped-def, override]
+        return self._all()[k]
+
+    def __len__(self) -> int:
+        return len(self._all())
+
+    def __eq__(self, other: object) -> bool:
+        return list(self) == list(other) if isinstance(other, Sequence) else NotImplemented
+
+    def __repr__(self) -> str:
+        return repr(self._all())
+
+
 @dataclass
 class HazardAssessment:
     hazard: str
@@ -41,8 +69,8 @@ class HazardAssessment:
     kind: str
     eta: datetime | None
     rules: list[str]
-    reasons: list[str]
-    explanations: list[str]
+    reasons: Sequence[str]
+    explanations: Sequence[str]
     safety_refs: list[str]
 
 
@@ -181,52 +209,59 @@ def _projection(table: FeatureTable, i: int) -> tuple[float, float, datetime] | 
 
 
 def _aggregate(sa: SiteAssessment, at: datetime, evals: Sequence[RuleEvaluation], i: int) -> None:
-    by_hazard: dict[str, list[RuleResult]] = {}
+    by_hazard: dict[str, list[RuleEvaluation]] = {}
     for ev in evals:
         rule = ev.rule
         if ev.fires[i]:
-            by_hazard.setdefault(rule.hazard, []).append(ev[i])
+            by_hazard.setdefault(rule.hazard, []).append(ev)
         if ev.sustains[i]:
             cur = sa.sustain.get(rule.hazard, "none")
             if level_rank(rule.level) > level_rank(cur):
                 sa.sustain[rule.hazard] = rule.level
     for hazard, fired in by_hazard.items():
-        top = max(level_rank(r.rule.level) for r in fired)
+        fired.sort(key=lambda ev: -level_rank(ev.rule.level))
+        top = level_rank(fired[0].rule.level)
         level = LEVELS[top]
+        lead = fired[0].rule
         # the rules at the top level explain the alert; the lower ones are listed only
-        fired.sort(key=lambda r: -level_rank(r.rule.level))
-        lead = fired[0]
-        top_rules = [r for r in fired if level_rank(r.rule.level) == top]
-        reasons: list[str] = []
-        for r in top_rules:
-            for text in r.reasons():
-                if text not in reasons:
-                    reasons.append(text)
-        explanations = [r.explanation(sa.features) for r in top_rules if r.rule.explain]
+        top_evals = [ev for ev in fired if level_rank(ev.rule.level) == top]
         refs: list[str] = []
-        for r in fired:
-            refs.extend(x for x in r.rule.safety if x not in refs)
+        for ev in fired:
+            refs.extend(x for x in ev.rule.safety if x not in refs)
         sa.hazards[hazard] = HazardAssessment(
             hazard=hazard,
             level=level,
-            kind=lead.rule.kind,
+            kind=lead.kind,
             eta=_eta(hazard, lead, sa.features, at),
-            rules=[r.rule.id for r in fired],
-            reasons=reasons,
-            explanations=explanations,
+            rules=[ev.rule.id for ev in fired],
+            reasons=LazyTexts(partial(_reasons, top_evals, i)),
+            explanations=LazyTexts(partial(_explanations, top_evals, i, sa.features)),
             safety_refs=refs,
         )
         if level_rank(sa.sustain.get(hazard, "none")) < top:
             sa.sustain[hazard] = level
 
 
-def _eta(
-    hazard: str, lead: RuleResult, features: dict[str, float], at: datetime
-) -> datetime | None:
+def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
+    out: list[str] = []
+    for ev in evals:
+        for text in ev[i].reasons():
+            if text not in out:
+                out.append(text)
+    return out
+
+
+def _explanations(
+    evals: Sequence[RuleEvaluation], i: int, features: Mapping[str, float]
+) -> list[str]:
+    return [ev[i].explanation(features) for ev in evals if ev.rule.explain]
+
+
+def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -> datetime | None:
     """When the hazard is expected: now if observed, else the projected time of fog."""
     if hazard == "data_gap":
         return None
-    if lead.rule.kind == "observed" or features.get("observed_fog") == 1.0:
+    if lead.kind == "observed" or features.get("observed_fog") == 1.0:
         return at
     hours = features.get("hours_to_fog", float("nan"))
     if hours is None or not np.isfinite(hours):
@@ -264,7 +299,7 @@ def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
                 "kind": h.kind,
                 "eta": _iso(h.eta),
                 "rules": h.rules,
-                "reasons": h.reasons,
+                "reasons": list(h.reasons),
             }
             for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
         ]
