@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from notifier.features import FEATURES, FeatureSettings, FeatureTable, compute_features
+from notifier.features import FEATURES, FeatureSettings, FeatureTable, compute_features_at
 from notifier.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -25,7 +25,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from notifier.config import Site
 
-__all__ = ["HazardAssessment", "SiteAssessment", "assess", "level_rank", "to_json"]
+__all__ = ["HazardAssessment", "SiteAssessment", "assess", "assess_times", "level_rank", "to_json"]
 
 HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
 STALE_AFTER_MIN = 90.0
@@ -158,46 +158,75 @@ def assess(
     feature tables of earlier evaluation times for the hold windows; it must only be
     shared between calls over the same sites and the same observations.
     """
-    if at.tzinfo is None:
+    return assess_times(rules, sites, obs, [at], settings, stale_after_min, cache)[0]
+
+
+def assess_times(
+    rules: RuleSet,
+    sites: Sequence[Site],
+    obs: pd.DataFrame,
+    times: Sequence[datetime],
+    settings: FeatureSettings | None = None,
+    stale_after_min: float = STALE_AFTER_MIN,
+    cache: dict[float, FeatureTable] | None = None,
+) -> list[list[SiteAssessment]]:
+    """``assess`` at each of ``times``, with the rules evaluated once for them all.
+
+    The feature tables of every time (and of their hold windows) are stacked, so each
+    rule is one vectorised pass over sites × times; ``result[k]`` equals
+    ``assess(..., times[k])``.
+    """
+    if any(t.tzinfo is None for t in times):
         raise ValueError("evaluation time must be timezone-aware")
-    at = at.astimezone(UTC)
+    times = [t.astimezone(UTC) for t in times]
     tables: dict[float, FeatureTable] = {} if cache is None else cache
+    max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
+    wanted = sorted({t.timestamp() - j * HOLD_STEP_S for t in times
+                     for j in range(max_hold + 1)} - set(tables))
+    if wanted:
+        found = compute_features_at(obs, sites, [datetime.fromtimestamp(w, UTC)
+                                                 for w in wanted], settings)
+        tables.update(zip(wanted, found, strict=True))
+    n, k_times = len(sites), len(times)
 
-    def table(steps_back: int) -> FeatureTable:
-        when = at - timedelta(seconds=steps_back * HOLD_STEP_S)
-        key = when.timestamp()
-        if key not in tables:
-            tables[key] = compute_features(obs, sites, when, settings)
-        return tables[key]
+    def stacked(j: int) -> dict[str, np.ndarray]:
+        parts = [tables[t.timestamp() - j * HOLD_STEP_S].values for t in times]
+        if k_times == 1:
+            return parts[0]
+        return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
 
-    now = table(0)
+    feats = [stacked(j) for j in range(max_hold + 1)]
     evals: list[RuleEvaluation] = []
     for rule in rules.rules:
         steps = math.ceil(rule.hold_s / HOLD_STEP_S)
-        feats_at = [table(k).values for k in range(steps + 1)]
-        evals.append(evaluate_rule(rule, sites, feats_at))
+        applies = np.tile(rule.sites.mask(sites), k_times)
+        evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
 
     # only sites where some rule fires or holds with its margins need a closer look
-    n = len(sites)
-    busy = np.zeros(n, dtype=bool)
+    busy = np.zeros(n * k_times, dtype=bool)
     for ev in evals:
         busy |= ev.fires | ev.sustains
     out = []
-    for i, site in enumerate(sites):
-        last = now.last_time[i]
-        sa = SiteAssessment(
-            site=site,
-            time=at,
-            features=FeatureRow(now, i),
-            projection_method=str(now.projection_method[i] or ""),
-            last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
-            results=SiteResults(evals, i),
-            stale_after_min=stale_after_min,
-            projection=_projection(now, i),
-        )
-        if busy[i]:
-            _aggregate(sa, at, evals, i)
-        out.append(sa)
+    for k, at in enumerate(times):
+        now = tables[at.timestamp()]
+        per_time = []
+        for i, site in enumerate(sites):
+            flat = k * n + i
+            last = now.last_time[i]
+            sa = SiteAssessment(
+                site=site,
+                time=at,
+                features=FeatureRow(now, i),
+                projection_method=str(now.projection_method[i] or ""),
+                last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
+                results=SiteResults(evals, flat),
+                stale_after_min=stale_after_min,
+                projection=_projection(now, i),
+            )
+            if busy[flat]:
+                _aggregate(sa, at, evals, flat)
+            per_time.append(sa)
+        out.append(per_time)
     return out
 
 

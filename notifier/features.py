@@ -5,6 +5,15 @@ sites × times block (right-aligned: each site's newest row in the last column, 
 padding on the left), and every feature is a masked reduction over that block — there
 is no Python loop over sites.
 
+How it stays fast (10,000 sites × 144 rows in a few tenths of a second): the block is
+built once per call — once for several evaluation times with ``compute_features_at`` —
+as an index from cells to rows, with value blocks gathered only where they are needed.
+Each evaluation time's windows (the last 3 h, tonight since sunset, around midday, …)
+are found per site by a binary search over the time-sorted rows, and each reduction runs
+on the narrowest column slice that holds them. The answers are those of the plain
+masked reductions over the whole block, bit for bit (``tests/engine/test_fast_path.py``
+checks the vectorised path against the site-by-site one).
+
 A feature that cannot be computed from the data present is NaN ("unknown"); rules that
 need it do not fire and ``explain`` says so. The one exception is ``data_age_min``,
 which is +inf for a site that has never reported: no data is the loudest kind of stale.
@@ -27,6 +36,8 @@ How site exposure shapes the physics (each factor is deliberately simple and sho
 
 from __future__ import annotations
 
+import threading
+from collections import OrderedDict
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
@@ -49,6 +60,7 @@ __all__ = [
     "FeatureSpec",
     "FeatureTable",
     "compute_features",
+    "compute_features_at",
 ]
 
 
@@ -204,37 +216,378 @@ _OBS_COLUMNS = (
     "water_temp_c",
     "visibility_m",
 )
+_FORECAST_COLUMNS = ("temp_c", "dewpoint_c", "cloud_pct", "wind_ms")
+_FORECAST_BEFORE_S = 1800  # a forecast for up to 30 min ago still stands in for cloud, wind
+# a column boundary test for _Block.bounds: (t | h, minus, > | >=, limit)
+_Bound = tuple[str, "float | np.ndarray", str, "float | np.ndarray"]
+_WIDE_COLUMNS = ("temp_c", "dewpoint_c")  # read over many hours (trend, fit, midday)
+# Below this share of sites needing a per-row fit, only those rows are passed on (copying
+# the rows out costs more than it saves when nearly all need it).
+_SUBSET_SHARE = 0.6
 
 
 def epoch_seconds(times: pd.Series) -> np.ndarray:
     """Tz-aware timestamps → float POSIX seconds."""
     import pandas as pd
 
+    if isinstance(times.dtype, pd.DatetimeTZDtype):
+        # already parsed: read the UTC instants straight out (no conversion pass)
+        utc = times.to_numpy(dtype=f"datetime64[{times.dtype.unit}]")
+        return utc.astype("datetime64[ms]").astype(np.int64) / 1000.0
     t = pd.to_datetime(times, utc=True)
     return t.dt.tz_localize(None).to_numpy().astype("datetime64[ms]").astype(np.int64) / 1000.0
 
 
-def _block(
-    site_idx: np.ndarray, values: Mapping[str, np.ndarray], n_sites: int
-) -> dict[str, np.ndarray]:
-    """Scatter rows sorted by (site, time) into right-aligned sites × times arrays."""
-    counts = np.bincount(site_idx, minlength=n_sites)
-    width = int(counts.max()) if counts.size and counts.max() > 0 else 1
-    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-    rank = np.arange(site_idx.size) - starts[site_idx]
-    col = width - counts[site_idx] + rank
-    out = {}
-    for name, arr in values.items():
-        block = np.full((n_sites, width), np.nan)
-        block[site_idx, col] = arr
-        out[name] = block
-    return out
+# ---- the parts that do not depend on the evaluation time -------------------------------
+
+
+@dataclass
+class _Sites:
+    """Per-site constants as arrays, read from the ``Site`` objects once."""
+
+    ids: list[str]
+    pos: dict[str, int]
+    lat: np.ndarray
+    lon: np.ndarray
+    sky_view: np.ndarray
+    cooling_factor: np.ndarray
+    min_offset: np.ndarray
+    onshore_lo: np.ndarray
+    onshore_hi: np.ndarray
+    zones: list[str]  # distinct time zones
+    zone_code: np.ndarray  # index into ``zones`` per site
+
+    @classmethod
+    def of(cls, sites: Sequence[Site]) -> _Sites:
+        ids = [s.id for s in sites]
+        eff = [EXPOSURE_EFFECTS[s.exposure] for s in sites]
+        zone_index: dict[str, int] = {}
+        zone_code = np.array(
+            [zone_index.setdefault(s.timezone, len(zone_index)) for s in sites], dtype=np.intp
+        )
+        nan = np.nan
+        return cls(
+            ids=ids,
+            pos={sid: i for i, sid in enumerate(ids)},
+            lat=np.array([s.lat for s in sites], dtype=float),
+            lon=np.array([s.lon for s in sites], dtype=float),
+            sky_view=np.array([e.sky_view for e in eff], dtype=float),
+            cooling_factor=np.array([e.cooling_factor for e in eff], dtype=float),
+            min_offset=np.array([e.min_offset_c for e in eff], dtype=float),
+            onshore_lo=np.array(
+                [nan if s.onshore_from_deg is None else s.onshore_from_deg for s in sites],
+                dtype=float,
+            ),
+            onshore_hi=np.array(
+                [nan if s.onshore_to_deg is None else s.onshore_to_deg for s in sites],
+                dtype=float,
+            ),
+            zones=list(zone_index),
+            zone_code=zone_code,
+        )
+
+    def zone_offsets_s(self, at: datetime) -> np.ndarray:
+        offsets = np.empty(len(self.zones))
+        for i, name in enumerate(self.zones):
+            off = at.astimezone(ZoneInfo(name)).utcoffset()
+            offsets[i] = off.total_seconds() if off else 0.0
+        return offsets[self.zone_code]
+
+
+def _site_index(
+    column: pd.Series, pos: Mapping[str, int], rows: np.ndarray | None = None
+) -> np.ndarray:
+    """Row → index into the site list (-1 for an unknown site).
+
+    Rows usually come grouped by site (the store returns them sorted), so equal
+    neighbours are found with one vectorised comparison and only the first row of each
+    run is looked up; any order gives the same answer, just more slowly. With ``rows``,
+    only those rows are read (the others get -1).
+    """
+    import pandas as pd
+
+    if rows is not None:
+        out = np.full(len(column), -1, dtype=np.intp)
+        out[rows] = _site_index(column.iloc[rows], pos)
+        return out
+    if isinstance(column.dtype, pd.CategoricalDtype):  # one lookup per category
+        lookup = [pos.get(c, -1) if isinstance(c, str) else -1 for c in column.cat.categories]
+        return np.array([*lookup, -1], dtype=np.intp)[column.cat.codes.to_numpy()]
+    values = column.to_numpy(dtype=object)
+    if values.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    with np.errstate(invalid="ignore"):
+        change = np.asarray(values[1:] != values[:-1], dtype=bool)
+    starts = np.concatenate(([0], np.flatnonzero(change) + 1))
+    heads = np.fromiter(
+        (pos.get(v, -1) if isinstance(v, str) else -1 for v in values[starts]),
+        dtype=np.intp,
+        count=starts.size,
+    )
+    return np.repeat(heads, np.diff(np.append(starts, values.size)))
+
+
+def _kinds(
+    column: pd.Series, known: np.ndarray, rows: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """(kind is obs, kind is forecast) per row; forecast only for known sites. With
+    ``rows``, only those rows are read (the others are neither)."""
+    import pandas as pd
+
+    if rows is not None:
+        is_obs = np.zeros(len(column), dtype=bool)
+        is_fc = np.zeros(len(column), dtype=bool)
+        is_obs[rows], is_fc[rows] = _kinds(column.iloc[rows], known[rows])
+        return is_obs, is_fc
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        cats = list(column.cat.categories)
+        codes = column.cat.codes.to_numpy()
+        is_obs = codes == (cats.index("obs") if "obs" in cats else -2)
+        is_fc = known & (codes == (cats.index("forecast") if "forecast" in cats else -2))
+        return is_obs, is_fc
+    kind = column.to_numpy()
+    is_obs = np.asarray(kind == "obs", dtype=bool)
+    is_fc = np.zeros(kind.size, dtype=bool)
+    other = np.flatnonzero(known & ~is_obs)
+    if other.size:
+        is_fc[other] = np.asarray(kind[other] == "forecast", dtype=bool)
+    return is_obs, is_fc
+
+
+def _float_column(obs: pd.DataFrame, name: str) -> np.ndarray | None:
+    if name not in obs:
+        return None
+    series = obs[name]
+    if series.dtype == np.float64:
+        return series.to_numpy()
+    return series.to_numpy(dtype=float, na_value=np.nan)
+
+
+def _weather_flags(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Present-weather text → (code per row, flags per code).
+
+    The flags (reported, FG, FZFG, BR — see :func:`_observed_now`) are worked out once
+    per distinct text; code -1 (no text) picks the all-false last row of ``flags``.
+    """
+    import pandas as pd
+
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    flags = np.zeros((len(uniques) + 1, 4), dtype=bool)
+    for i, value in enumerate(uniques):
+        text = str(value).upper()
+        tokens = set(text.replace("+", " ").replace("-", " ").split())
+        flags[i] = (
+            text != "",
+            any(tok.endswith("FG") for tok in tokens),
+            "FZFG" in tokens,
+            "BR" in tokens,
+        )
+    return codes.astype(np.intp, copy=False), flags
+
+
+class _Block:
+    """Observed rows laid out as a right-aligned sites × times block.
+
+    ``src[i, j]`` is the row of ``obs`` in cell (site i, column j), each site's rows in
+    time order with the newest in the last column; ``pad`` marks the empty cells on the
+    left. ``t`` holds each cell's POSIX seconds (NaN in padding). Value blocks are
+    gathered from ``obs`` on demand, whole or as a column slice, so a feature that only
+    looks at the last hours never touches the rest.
+    """
+
+    def __init__(
+        self,
+        obs: pd.DataFrame,
+        st: _Sites,
+        t_first: float,
+        t_last: float,
+        t_weather: float,
+        t_forecast: float,
+    ):
+        """Observed rows with ``t_first < time <= t_last`` for the sites in ``st``;
+        present weather is read for rows from ``t_weather`` on, forecast rows from
+        ``t_forecast`` on (earlier ones never count)."""
+        n = len(st.ids)
+        self.n = n
+        self.rows = np.arange(n)
+        self.obs = obs
+        self._columns: dict[str, np.ndarray | None] = {}
+        self._full: dict[str, np.ndarray] = {}
+        self._reports: dict[str, np.ndarray] = {}
+        nrows = len(obs)
+        self._empty = nrows == 0
+        if self._empty:
+            self.width = 1
+            self.src = np.zeros((n, 1), dtype=np.intp)
+            self.pad = np.ones((n, 1), dtype=bool)
+            self.t = np.full((n, 1), np.nan)
+            self.forecast = (
+                np.zeros(0, dtype=np.int64),
+                np.zeros(0),
+                {name: np.zeros(0) for name in _FORECAST_COLUMNS},
+            )
+            self.weather_code = np.full(1, -1, dtype=np.intp)
+            self.weather_flags = np.zeros((1, 4), dtype=bool)
+            self._steps = 1
+            return
+        t_all = epoch_seconds(obs["time"])
+        window = (t_all <= t_last) & (t_all > t_first)
+        # Only rows in the observed window, or late enough to be a forecast that counts,
+        # are read any further: the text columns are the slow part of the table.
+        wanted = window | (t_all >= t_forecast)
+        rows = None if wanted.all() else np.flatnonzero(wanted)
+        site_idx = _site_index(obs["site"], st.pos, rows)
+        known = site_idx >= 0
+        if "kind" in obs:
+            is_obs_kind, is_fc = _kinds(obs["kind"], known, rows)
+        else:
+            is_obs_kind = np.ones(nrows, dtype=bool)
+            is_fc = np.zeros(nrows, dtype=bool)
+
+        # forecast rows keep their input order: the per-site picks below depend on it
+        frows = np.flatnonzero(is_fc)
+        self.forecast = (
+            site_idx[frows].astype(np.int64),
+            t_all[frows],
+            {name: self._nan_or(name, frows) for name in _FORECAST_COLUMNS},
+        )
+
+        sel = np.flatnonzero(known & is_obs_kind & window)
+        s_sel = site_idx[sel]
+        t_sel = t_all[sel]
+        order = None
+        if s_sel.size > 1 and bool(np.any(s_sel[1:] < s_sel[:-1])):
+            order = np.argsort(s_sel, kind="stable")
+            s_sel, t_sel = s_sel[order], t_sel[order]
+        if s_sel.size > 1 and not bool(
+            np.all((s_sel[1:] != s_sel[:-1]) | (t_sel[1:] >= t_sel[:-1]))
+        ):
+            # times out of order within a site: the general (slower) sort
+            s_raw, t_raw = site_idx[sel], t_all[sel]
+            order = np.lexsort((t_raw, s_raw))
+            s_sel, t_sel = s_raw[order], t_raw[order]
+        rows_sorted = sel if order is None else sel[order]
+
+        counts = np.bincount(s_sel, minlength=n)
+        width = int(counts.max()) if counts.size and counts.max() > 0 else 1
+        starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+        # the k-th sorted row goes to flat cell k + (s·width + width − count_s − start_s)
+        offset = np.arange(n) * width + width - counts - starts
+        src = np.full(n * width, nrows, dtype=np.intp)
+        src[np.arange(s_sel.size) + offset[s_sel]] = rows_sorted
+        self.width = width
+        self.src = src.reshape(n, width)
+        self.pad = self.src == nrows
+        self.t = self._gather(t_all, self.src, self.pad)
+        self._steps = width.bit_length()
+
+        wrows = rows_sorted[t_sel >= t_weather]
+        self.weather_code = np.full(nrows, -1, dtype=np.intp)
+        if "weather" in obs and wrows.size:
+            codes, self.weather_flags = _weather_flags(obs["weather"].to_numpy()[wrows])
+            self.weather_code[wrows] = codes
+        else:
+            self.weather_flags = np.zeros((1, 4), dtype=bool)
+
+    @staticmethod
+    def _gather(values: np.ndarray, src: np.ndarray, pad: np.ndarray) -> np.ndarray:
+        out = np.take(values, src, mode="clip")
+        np.putmask(out, pad, np.nan)
+        return out
+
+    def column(self, name: str) -> np.ndarray | None:
+        if name not in self._columns:
+            self._columns[name] = None if self._empty else _float_column(self.obs, name)
+        return self._columns[name]
+
+    def _nan_or(self, name: str, rows: np.ndarray) -> np.ndarray:
+        values = self.column(name)
+        return np.full(rows.size, np.nan) if values is None else values[rows]
+
+    def block(self, name: str, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """Columns ``start:stop`` of the value block of ``name`` (NaN where empty)."""
+        stop = self.width if stop is None else stop
+        if name in self._full:
+            return self._full[name][:, start:stop]
+        values = self.column(name)
+        if values is None:
+            return np.full((self.n, max(stop - start, 0)), np.nan)
+        if name in _WIDE_COLUMNS or (start == 0 and stop == self.width):
+            # looked at over many hours, often several times: gathered whole, once
+            self._full[name] = self._gather(values, self.src, self.pad)
+            return self._full[name][:, start:stop]
+        return self._gather(values, self.src[:, start:stop], self.pad[:, start:stop])
+
+    def weather(self, start: int, stop: int) -> np.ndarray:
+        """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
+        ``weather_flags[code]`` (reported, FG, FZFG, BR)."""
+        code = np.take(self.weather_code, self.src[:, start:stop], mode="clip")
+        np.putmask(code, self.pad[:, start:stop], -1)
+        return code
+
+    def reports(self, name: str) -> np.ndarray:
+        """The sites (indices) with at least one value of ``name`` in the block."""
+        if name not in self._reports:
+            values = self.block(name)
+            self._reports[name] = np.flatnonzero(~np.isnan(values).all(axis=1))
+        return self._reports[name]
+
+    def bounds(self, t_at: float, tests: Sequence[_Bound]) -> list[np.ndarray]:
+        """Per test and site, the first column that passes it (width if none).
+
+        A test ``(of, minus, op, limit)`` compares ``value - minus`` with ``limit``
+        (``op`` ">" or ">="), where the value is the cell's time (``of="t"``, POSIX
+        seconds) or its hours from ``t_at`` (``of="h"``, as ``(t - t_at) / 3600``);
+        ``minus`` and ``limit`` are numbers or one per site. Every such test is monotone
+        along a row (False … True), as the rows are in time order and padding (NaN)
+        fails it, so a binary search finds each boundary in log2(width) steps without
+        touching the whole block — all the tests at once.
+        """
+        n, k = self.n, len(tests)
+        of_hours = np.array([test[0] == "h" for test in tests])[:, None]
+        strict = np.array([test[2] == ">" for test in tests])[:, None]
+        minus = np.empty((k, n))
+        limit = np.empty((k, n))
+        for i, (_, sub, _, lim) in enumerate(tests):
+            minus[i] = sub
+            limit[i] = lim
+        flat = self.t.reshape(-1)
+        base = self.rows * self.width
+        last = self.width - 1
+        lo = np.zeros((k, n), dtype=np.intp)
+        hi = np.full((k, n), self.width, dtype=np.intp)
+        with np.errstate(invalid="ignore"):
+            for _ in range(self._steps):
+                mid = (lo + hi) >> 1
+                t = flat[base + np.minimum(mid, last)]
+                value = np.where(of_hours, (t - t_at) / 3600.0, t) - minus
+                passed = np.where(strict, value > limit, value >= limit)
+                open_ = lo < hi
+                hi = np.where(open_ & passed, mid, hi)
+                lo = np.where(open_ & ~passed, mid + 1, lo)
+        return list(lo)
+
+
+def _span(lo: np.ndarray, hi: np.ndarray) -> tuple[int, int]:
+    """The narrowest column slice holding every site's range ``lo:hi``."""
+    some = lo < hi
+    if not some.any():
+        return 0, 0
+    return int(lo[some].min()), int(hi[some].max())
+
+
+def _in_range(start: int, stop: int, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Mask over columns ``start:stop``: True inside each site's ``lo:hi``."""
+    cols = np.arange(start, stop)
+    return (cols >= lo[:, None]) & (cols < hi[:, None])
 
 
 def _latest(block: np.ndarray, valid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Value and column of the right-most valid entry of each row (NaN / -1 if none)."""
     ok = valid & ~np.isnan(block)
     width = block.shape[1]
+    if width == 0:
+        return np.full(block.shape[0], np.nan), np.full(block.shape[0], -1)
     rev = np.argmax(ok[:, ::-1], axis=1)
     col = width - 1 - rev
     has = ok.any(axis=1)
@@ -242,22 +595,7 @@ def _latest(block: np.ndarray, valid: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return val, np.where(has, col, -1)
 
 
-def _tail(block: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The narrowest right-hand slice of ``block`` that holds every masked entry."""
-    cols = np.flatnonzero(mask.any(axis=0))
-    start = int(cols[0]) if cols.size else block.shape[1]
-    return block[:, start:], mask[:, start:]
-
-
-def _zone_offsets_s(sites: Sequence[Site], at: datetime) -> np.ndarray:
-    cache: dict[str, float] = {}
-    out = np.empty(len(sites))
-    for i, site in enumerate(sites):
-        if site.timezone not in cache:
-            off = at.astimezone(ZoneInfo(site.timezone)).utcoffset()
-            cache[site.timezone] = off.total_seconds() if off else 0.0
-        out[i] = cache[site.timezone]
-    return out
+# ---- the public entry points -------------------------------------------------------------
 
 
 def compute_features(
@@ -271,77 +609,180 @@ def compute_features(
     ``obs`` is the canonical observation table (see ``notifier.observations``) holding
     observed rows up to ``at`` and any forecast rows; later observed rows are ignored.
     """
+    return compute_features_at(obs, sites, [at], settings)[0]
+
+
+def compute_features_at(
+    obs: pd.DataFrame,
+    sites: Sequence[Site],
+    times: Sequence[datetime],
+    settings: FeatureSettings | None = None,
+) -> list[FeatureTable]:
+    """:func:`compute_features` at each of ``times`` (tz-aware), sharing the work.
+
+    The observation block is built once for all the times (the hold windows of the
+    rules look 10, 20 … minutes back), so each extra time costs only the per-time
+    reductions; at night an earlier time also reuses the later time's sunset and
+    sunrise. ``result[k]`` equals ``compute_features(obs, sites, times[k])`` but for
+    rounding in the last bits (the shared block can be a column or two wider, which
+    reorders a least-squares sum; tested to 1e-9).
+    """
+    settings = settings or FeatureSettings()
+    st = _Sites.of(sites)
+    if not times:
+        return []
+    t_ats = [t.timestamp() for t in times]
+    if obs is None:
+        obs = _empty_obs()
+    block = _Block(
+        obs,
+        st,
+        t_first=min(t - settings.block_hours * 3600 for t in t_ats),
+        t_last=max(t_ats),
+        t_weather=min(t - settings.current_max_age_h * 3600 for t in t_ats),
+        t_forecast=min(t_ats) - _FORECAST_BEFORE_S,
+    )
+    night: tuple[float, np.ndarray, np.ndarray, np.ndarray] | None = None
+    out = []
+    # latest first: an earlier time in the same night can reuse its sun (see _sun)
+    for k in sorted(range(len(times)), key=lambda k: -t_ats[k]):
+        table, night = _features_at(block, st, times[k], settings, night)
+        out.append((k, table))
+    return [table for _, table in sorted(out, key=lambda kt: kt[0])]
+
+
+def _empty_obs() -> pd.DataFrame:
     import pandas as pd
 
-    settings = settings or FeatureSettings()
-    n = len(sites)
-    t_at = at.timestamp()
-    ids = [s.id for s in sites]
-    pos = {sid: i for i, sid in enumerate(ids)}
-    lat = np.array([s.lat for s in sites], dtype=float)
-    lon = np.array([s.lon for s in sites], dtype=float)
-    eff = [EXPOSURE_EFFECTS[s.exposure] for s in sites]
-    sky_view = np.array([e.sky_view for e in eff])
-    cooling_factor = np.array([e.cooling_factor for e in eff])
-    min_offset = np.array([e.min_offset_c for e in eff])
-
-    if obs is None or len(obs) == 0:
-        obs = pd.DataFrame(
-            {
-                "site": pd.Series([], dtype=object),
-                "time": pd.Series([], dtype="datetime64[ns, UTC]"),
-                "kind": pd.Series([], dtype=object),
-            }
-        )
-    site_idx_all = obs["site"].map(pos)
-    known = site_idx_all.notna().to_numpy()
-    t_all = epoch_seconds(obs["time"])
-    kind = obs["kind"].to_numpy() if "kind" in obs else np.full(len(obs), "obs")
-    is_obs = (
-        known & (kind == "obs") & (t_all <= t_at) & (t_all > t_at - settings.block_hours * 3600)
+    return pd.DataFrame(
+        {
+            "site": pd.Series([], dtype=object),
+            "time": pd.Series([], dtype="datetime64[ns, UTC]"),
+            "kind": pd.Series([], dtype=object),
+        }
     )
-    is_fc = known & (kind == "forecast")
 
-    def col(name: str, mask: np.ndarray) -> np.ndarray:
-        if name in obs:
-            return obs[name].to_numpy(dtype=float, na_value=np.nan)[mask]
-        return np.full(int(mask.sum()), np.nan)
 
-    # ---- the observed block ----------------------------------------------------------
-    sidx = site_idx_all.to_numpy()[is_obs].astype(np.int64)
-    tt = t_all[is_obs]
-    order = np.lexsort((tt, sidx))
-    sidx, tt = sidx[order], tt[order]
-    cols = {name: col(name, is_obs)[order] for name in _OBS_COLUMNS}
-    cols["hours"] = (tt - t_at) / 3600.0
-    blk = _block(sidx, cols, n)
-    hours = blk["hours"]
-    present = ~np.isnan(hours)
-    recent = present & (hours >= -settings.current_max_age_h)
+_SUN_CACHE: OrderedDict[tuple[float, bytes, bytes], tuple[np.ndarray, ...]] = OrderedDict()
+_SUN_CACHE_SIZE = 16  # evaluation times; the hold windows of a few cycles
+_SUN_LOCK = threading.Lock()
 
-    cur: dict[str, np.ndarray] = {}
-    for name in _OBS_COLUMNS:
-        cur[name], _ = _latest(blk[name], recent)
-    water_recent = present & (hours >= -settings.water_max_age_h)
-    cur["water_temp_c"], _ = _latest(blk["water_temp_c"], water_recent)
 
-    # a reading with both temperature and dew point is the basis for moisture features
-    pair = recent & ~np.isnan(blk["temp_c"]) & ~np.isnan(blk["dewpoint_c"])
-    temp_c, pair_col = _latest(blk["temp_c"], pair)
-    rows = np.arange(n)
-    dewpoint_c = np.where(pair_col >= 0, blk["dewpoint_c"][rows, np.maximum(pair_col, 0)], np.nan)
-    last_any, _ = _latest(hours, present)
+def _night_bounds(st: _Sites, t_at: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``physics.night_bounds_utc`` for every site at ``t_at``, remembered.
+
+    It is a pure function of the coordinates and the time, and the hold windows of one
+    cycle (10 and 20 minutes back) are the evaluation times of the cycles before, so
+    the few most recent answers are kept. Copies go out: callers may change theirs.
+    """
+    key = (t_at, st.lat.tobytes(), st.lon.tobytes())
+    with _SUN_LOCK:
+        hit = _SUN_CACHE.get(key)
+        if hit is not None:
+            _SUN_CACHE.move_to_end(key)
+    if hit is None:
+        n = len(st.ids)
+        hit = tuple(
+            np.asarray(a) for a in physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_at))
+        )
+        with _SUN_LOCK:
+            _SUN_CACHE[key] = hit
+            while len(_SUN_CACHE) > _SUN_CACHE_SIZE:
+                _SUN_CACHE.popitem(last=False)
+    sunset, sunrise, night = (a.copy() for a in hit)
+    return sunset, sunrise, night
+
+
+def _sun(
+    st: _Sites,
+    t_at: float,
+    later: tuple[float, np.ndarray, np.ndarray, np.ndarray] | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``physics.night_bounds_utc`` for every site at ``t_at``.
+
+    ``later`` is the result for a later time of the same call. A site that was in the
+    night then, and whose sunset had already come by ``t_at``, is in that same night at
+    ``t_at``: only the other sites are computed again.
+    """
+    if later is None:
+        return _night_bounds(st, t_at)
+    t_later, sunset, sunrise, night = later
+    same = night & (sunset <= t_at) & (t_at <= t_later)
+    sunset, sunrise, night = sunset.copy(), sunrise.copy(), night.copy()
+    if same.all():
+        return sunset, sunrise, night
+    redo = ~same
+    s2, r2, n2 = physics.night_bounds_utc(st.lat[redo], st.lon[redo], np.full(redo.sum(), t_at))
+    sunset[redo], sunrise[redo], night[redo] = s2, r2, n2
+    return sunset, sunrise, night
+
+
+def _features_at(
+    blk: _Block,
+    st: _Sites,
+    at: datetime,
+    settings: FeatureSettings,
+    later_sun: tuple[float, np.ndarray, np.ndarray, np.ndarray] | None,
+) -> tuple[FeatureTable, tuple[float, np.ndarray, np.ndarray, np.ndarray]]:
+    n = blk.n
+    rows = blk.rows
+    t_at = at.timestamp()
+
+    hours = (blk.t - t_at) / 3600.0
+
+    # ---- the observed window: columns lo:hi of each row ---------------------------------
+    # and where, within it, the last hours of each kind begin (see _Block.bounds)
+    hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(
+        t_at,
+        [
+            ("t", 0.0, ">", t_at),
+            ("t", 0.0, ">", t_at - settings.block_hours * 3600),
+            ("h", 0.0, ">=", -settings.current_max_age_h),
+            ("h", 0.0, ">=", -settings.trend_window_h),
+            ("h", 0.0, ">=", -settings.water_max_age_h),
+            ("t", 0.0, ">=", t_at - settings.current_max_age_h * 3600),
+        ],
+    )
+    lo = np.minimum(lo, hi)
+    recent_lo, trend_lo, water_lo, report_lo = (
+        np.maximum(lo, bound) for bound in (recent_lo, trend_lo, water_lo, report_lo)
+    )
+    present_any = lo < hi
+    last_col = np.maximum(hi - 1, 0)
+    last_any = np.where(present_any, hours[rows, last_col], np.nan)
     last_time = t_at + last_any * 3600.0
 
+    # ---- current values: the newest reading of each in the last hours -------------------
+    a, b = _span(recent_lo, hi)
+    recent = _in_range(a, b, recent_lo, hi)
+    cur: dict[str, np.ndarray] = {}
+    for name in _OBS_COLUMNS:
+        if name != "water_temp_c":
+            cur[name], _ = _latest(blk.block(name, a, b), recent)
+    # water changes slowly: its newest reading in the whole window, if young enough;
+    # only the sites with a water sensor at all are looked at
+    cur["water_temp_c"] = np.full(n, np.nan)
+    wet = blk.reports("water_temp_c")
+    if wet.size:
+        water_lo = water_lo[wet]
+        wa, wb = _span(water_lo, hi[wet])
+        cur["water_temp_c"][wet], _ = _latest(
+            blk.block("water_temp_c")[wet, wa:wb], _in_range(wa, wb, water_lo, hi[wet])
+        )
+
+    # a reading with both temperature and dew point is the basis for moisture features
+    temp_recent = blk.block("temp_c", a, b)
+    dew_recent = blk.block("dewpoint_c", a, b)
+    pair = recent & ~np.isnan(temp_recent) & ~np.isnan(dew_recent)
+    temp_c, pair_col = _latest(temp_recent, pair)
+    if b > a:
+        dewpoint_c = np.where(pair_col >= 0, dew_recent[rows, np.maximum(pair_col, 0)], np.nan)
+    else:
+        dewpoint_c = np.full(n, np.nan)
+
     # ---- fall back to forecast rows for cloud and wind when the station has none ------
-    fsidx = (
-        site_idx_all.to_numpy()[is_fc].astype(np.int64)
-        if is_fc.any()
-        else np.array([], dtype=np.int64)
-    )
-    ft = t_all[is_fc]
-    fcols = {name: col(name, is_fc) for name in ("temp_c", "dewpoint_c", "cloud_pct", "wind_ms")}
-    near = (ft >= t_at - 1800) & (ft <= t_at + 3 * 3600)
+    fsidx, ft, fcols = blk.forecast
+    near = (ft >= t_at - _FORECAST_BEFORE_S) & (ft <= t_at + 3 * 3600)
     for name in ("cloud_pct", "wind_ms"):
         fill = _first_per_site(fsidx[near], ft[near], fcols[name][near], n)
         cur[name] = np.where(np.isnan(cur[name]), fill, cur[name])
@@ -352,24 +793,48 @@ def compute_features(
         rh_pct = np.where(np.isnan(rh_pct), cur["rh_pct"], rh_pct)
 
     # ---- trend of the depression over the last hours (Theil–Sen) ----------------------
-    tmask = present & (hours >= -settings.trend_window_h)
-    dep_blk = blk["temp_c"] - blk["dewpoint_c"]
-    tmask &= ~np.isnan(dep_blk)
-    h_tail, m_tail = _tail(hours, tmask)
-    d_tail, _ = _tail(dep_blk, tmask)
+    a, b = _span(trend_lo, hi)
+    h_tail = hours[:, a:b]
+    d_tail = blk.block("temp_c", a, b) - blk.block("dewpoint_c", a, b)
+    m_tail = _in_range(a, b, trend_lo, hi) & ~np.isnan(d_tail)
     h_use = np.where(m_tail, h_tail, np.nan)
-    d_use = np.where(m_tail, d_tail, np.nan)
     span = np.nanmax(h_use, axis=1, initial=-np.inf) - np.nanmin(h_use, axis=1, initial=np.inf)
-    trend = physics.robust_slope_per_h(h_use, d_use) if h_use.shape[1] >= 2 else np.full(n, np.nan)
-    trend = np.where((m_tail.sum(axis=1) >= 3) & (span >= settings.trend_min_span_h), trend, np.nan)
+    usable = (m_tail.sum(axis=1) >= 3) & (span >= settings.trend_min_span_h)
+    trend = np.full(n, np.nan)
+    if h_tail.shape[1] >= 2 and usable.any():
+        # the slope is per row: when few rows will use it, only those are worked out
+        pick = usable if usable.mean() < _SUBSET_SHARE else slice(None)
+        d_use = np.where(m_tail[pick], d_tail[pick], np.nan)
+        trend[pick] = physics.robust_slope_per_h(h_use[pick], d_use)
+        trend = np.where(usable, trend, np.nan)
     hours_to_saturation = physics.hours_to_zero(depression, trend)
 
     # ---- sun --------------------------------------------------------------------------
-    last_sunset, next_sunrise, night = physics.night_bounds_utc(lat, lon, np.full(n, t_at))
+    last_sunset, next_sunrise, night = _sun(st, t_at, later_sun)
+    sun = (t_at, last_sunset, next_sunrise, night)
     is_night = np.where(np.isnan(next_sunrise), np.nan, night.astype(float))
     hours_to_sunrise = (next_sunrise - t_at) / 3600.0
     hours_since_sunset = np.where(night, (t_at - last_sunset) / 3600.0, np.nan)
     sunset_h = (last_sunset - t_at) / 3600.0  # relative to at; negative at night
+    # local midday of the day the coming or current night began (for Craddock–Pritchard
+    # and the crossover temperature)
+    offsets = st.zone_offsets_s(at)
+    ref = np.where(np.isnan(last_sunset), t_at, np.where(night, last_sunset, t_at))
+    local_midnight = np.floor((ref + offsets) / 86400.0) * 86400.0 - offsets
+    noon_h = (local_midnight + 12 * 3600 - t_at) / 3600.0
+    aft_lo = noon_h
+    aft_hi = noon_h + 6.0
+    since_lo, noon_lo, noon_hi, aft_start, aft_stop = blk.bounds(
+        t_at,
+        [
+            ("h", 0.0, ">=", sunset_h),
+            ("h", noon_h, ">=", -1.5),
+            ("h", noon_h, ">", 1.5),
+            ("h", 0.0, ">=", aft_lo),
+            ("h", 0.0, ">=", aft_hi),
+        ],
+    )
+    since_lo = np.where(night, np.maximum(lo, since_lo), hi)
 
     # ---- radiation and cooling potential ------------------------------------------------
     vp = physics.vapor_pressure_hpa(dewpoint_c)
@@ -380,7 +845,7 @@ def compute_features(
         eps,
         surface_temp_c=np.where(np.isnan(cur["surface_temp_c"]), temp_c, cur["surface_temp_c"]),
         surface_emissivity=settings.surface_emissivity,
-        sky_view_factor=sky_view,
+        sky_view_factor=st.sky_view,
     )
     wind = cur["wind_ms"]
     with np.errstate(invalid="ignore"):
@@ -391,7 +856,7 @@ def compute_features(
             1.0,
         )
         cooling_potential = np.clip(
-            np.clip(net_lw / settings.full_loss_wm2, 0.0, 1.0) * wind_factor * cooling_factor,
+            np.clip(net_lw / settings.full_loss_wm2, 0.0, 1.0) * wind_factor * st.cooling_factor,
             0.0,
             1.0,
         )
@@ -403,6 +868,7 @@ def compute_features(
     hours_to_crossing = np.full(n, np.nan)
     fit_t0 = np.full(n, np.nan)
     fit_k = np.full(n, np.nan)
+    min_offset = st.min_offset
 
     # (1) forecast rows for the coming or current night
     if fsidx.size:
@@ -419,13 +885,20 @@ def compute_features(
         method[has_fc] = "forecast"
 
     # (2) Brunt's square-root law fitted to tonight's own readings
-    since = present & night[:, None] & (hours >= sunset_h[:, None]) & ~np.isnan(blk["temp_c"])
-    h_tail, m_tail = _tail(hours, since)
-    tc_tail, _ = _tail(blk["temp_c"], since)
+    a, b = _span(since_lo, hi)
+    h_tail = hours[:, a:b]
+    tc_tail = blk.block("temp_c", a, b)
+    m_tail = _in_range(a, b, since_lo, hi) & ~np.isnan(tc_tail)
     x = np.where(m_tail, h_tail - sunset_h[:, None], np.nan)
     y = np.where(m_tail, tc_tail, np.nan)
     if x.shape[1] >= 3:
-        t0, k = physics.fit_sqrt_cooling(x, y)
+        # per row again: a site with a forecast minimum or too few points needs no fit
+        t0 = np.full(n, np.nan)
+        k = np.full(n, np.nan)
+        need = np.isnan(proj) & (m_tail.sum(axis=1) >= 3)
+        if need.any():
+            pick = need if need.mean() < _SUBSET_SHARE else slice(None)
+            t0[pick], k[pick] = physics.fit_sqrt_cooling(x[pick], y[pick])
         fit_span = np.nanmax(x, axis=1, initial=-np.inf) - np.nanmin(x, axis=1, initial=np.inf)
         fit_ok = ~np.isnan(k) & (fit_span >= settings.fit_min_span_h) & np.isnan(proj)
         night_len = (next_sunrise - last_sunset) / 3600.0
@@ -446,21 +919,21 @@ def compute_features(
         hours_to_crossing = np.where(cross_ok, cross_from_now, np.nan)
 
     # (3) Craddock & Pritchard (1951) from the readings nearest local midday
-    offsets = _zone_offsets_s(sites, at)
-    ref = np.where(np.isnan(last_sunset), t_at, np.where(night, last_sunset, t_at))
-    local_midnight = np.floor((ref + offsets) / 86400.0) * 86400.0 - offsets
-    noon_h = (local_midnight + 12 * 3600 - t_at) / 3600.0
-    near_noon = (
-        present
-        & (np.abs(hours - noon_h[:, None]) <= 1.5)
-        & ~np.isnan(blk["temp_c"])
-        & ~np.isnan(blk["dewpoint_c"])
-    )
-    dist = np.where(near_noon, np.abs(hours - noon_h[:, None]), np.inf)
-    best = np.argmin(dist, axis=1)
-    has_noon = np.isfinite(dist[rows, best])
-    t12 = np.where(has_noon, blk["temp_c"][rows, best], np.nan)
-    td12 = np.where(has_noon, blk["dewpoint_c"][rows, best], np.nan)
+    noon_lo = np.maximum(lo, noon_lo)
+    noon_hi = np.minimum(hi, noon_hi)
+    a, b = _span(noon_lo, noon_hi)
+    t12 = np.full(n, np.nan)
+    td12 = np.full(n, np.nan)
+    if b > a:
+        h_band = hours[:, a:b]
+        temp_band = blk.block("temp_c", a, b)
+        dew_band = blk.block("dewpoint_c", a, b)
+        near_noon = _in_range(a, b, noon_lo, noon_hi) & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+        dist = np.where(near_noon, np.abs(h_band - noon_h[:, None]), np.inf)
+        best = np.argmin(dist, axis=1)
+        has_noon = np.isfinite(dist[rows, best])
+        t12 = np.where(has_noon, temp_band[rows, best], np.nan)
+        td12 = np.where(has_noon, dew_band[rows, best], np.nan)
     # K from −2.2 (calm, clear) to +2.5 (windy, cloudy) — the published end members,
     # interpolated by cooling potential (our choice).
     k_cp = 2.5 - 4.7 * cooling_potential
@@ -477,17 +950,16 @@ def compute_features(
         min_margin = proj - proj_dew
 
     # ---- crossover temperature: the afternoon's lowest dew point ---------------------------
-    aft_lo = noon_h
-    aft_hi = noon_h + 6.0
-    aft = present & (hours >= aft_lo[:, None]) & (hours < aft_hi[:, None])
-    dew_aft = np.where(aft, blk["dewpoint_c"], np.nan)
-    with np.errstate(invalid="ignore"):
-        crossover = np.where(
-            aft.any(axis=1) & ~np.all(np.isnan(dew_aft), axis=1),
-            np.nanmin(np.where(np.isnan(dew_aft), np.inf, dew_aft), axis=1),
-            np.nan,
-        )
-        crossover = np.where(np.isinf(crossover), np.nan, crossover)
+    aft_start = np.maximum(lo, aft_start)
+    aft_stop = np.minimum(hi, aft_stop)
+    a, b = _span(aft_start, aft_stop)
+    crossover = np.full(n, np.nan)
+    if b > a:
+        dew_band = blk.block("dewpoint_c", a, b)
+        aft = _in_range(a, b, aft_start, aft_stop) & ~np.isnan(dew_band)
+        lowest = np.where(aft, dew_band, np.inf).min(axis=1)
+        # none in the window (or an infinite reading) is unknown
+        crossover = np.where(np.isinf(lowest), np.nan, lowest)
 
     # ---- surfaces, water, wind sector ----------------------------------------------------
     frost_point = physics.frost_point_from_dewpoint_c(dewpoint_c)
@@ -496,10 +968,10 @@ def compute_features(
         surface_margin = cur["surface_temp_c"] - deposit_ref
         dew_minus_water = dewpoint_c - cur["water_temp_c"]
         water_minus_air = cur["water_temp_c"] - temp_c
-    onshore = _onshore(sites, cur["wind_dir_deg"], wind)
+    onshore = _onshore(st.onshore_lo, st.onshore_hi, cur["wind_dir_deg"], wind)
 
     # ---- what is being observed -------------------------------------------------------
-    fog, mist, fzfg = _observed(obs, is_obs, pos, n, t_at, settings, cur["temp_c"], rh_pct)
+    fog, mist, fzfg = _observed(blk, report_lo, hi, cur["temp_c"], rh_pct)
 
     with np.errstate(invalid="ignore"):
         # Once tonight's cooling curve is fitted it says when the air meets the dew point
@@ -549,9 +1021,9 @@ def compute_features(
         "data_age_min": data_age,
     }
     values = {k: np.asarray(v, dtype=float) for k, v in values.items()}
-    return FeatureTable(
+    table = FeatureTable(
         at=at,
-        site_ids=ids,
+        site_ids=st.ids,
         values=values,
         projection_method=method,
         last_time=last_time,
@@ -559,6 +1031,7 @@ def compute_features(
         fit_k_per_sqrt_h=fit_k,
         last_sunset=last_sunset,
     )
+    return table, sun
 
 
 def _first_per_site(sidx: np.ndarray, t: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
@@ -587,9 +1060,9 @@ def _min_per_site(
     return tmin, dmin
 
 
-def _onshore(sites: Sequence[Site], wind_dir: np.ndarray, wind_ms: np.ndarray) -> np.ndarray:
-    lo = np.array([np.nan if s.onshore_from_deg is None else s.onshore_from_deg for s in sites])
-    hi = np.array([np.nan if s.onshore_to_deg is None else s.onshore_to_deg for s in sites])
+def _onshore(
+    lo: np.ndarray, hi: np.ndarray, wind_dir: np.ndarray, wind_ms: np.ndarray
+) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         d = np.mod(wind_dir, 360.0)
         inside = np.where(lo <= hi, (d >= lo) & (d <= hi), (d >= lo) | (d <= hi))
@@ -600,12 +1073,9 @@ def _onshore(sites: Sequence[Site], wind_dir: np.ndarray, wind_ms: np.ndarray) -
 
 
 def _observed(
-    obs: pd.DataFrame,
-    is_obs: np.ndarray,
-    pos: Mapping[str, int],
-    n: int,
-    t_at: float,
-    settings: FeatureSettings,
+    blk: _Block,
+    start: np.ndarray,
+    hi: np.ndarray,
     temp_c: np.ndarray,
     rh_pct: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -614,39 +1084,27 @@ def _observed(
     Fog is visibility below 1000 m or a reported FG; mist is BR, or 1–5 km with RH ≥ 95 %
     (WMO-No. 8 / WMO-No. 306 FM 15); freezing fog is FZFG, or fog below 0 °C.
     """
+    n = blk.n
     fog = np.full(n, np.nan)
     mist = np.full(n, np.nan)
     fzfg = np.full(n, np.nan)
-    if "visibility_m" not in obs and "weather" not in obs:
+    if "visibility_m" not in blk.obs and "weather" not in blk.obs:
         return fog, mist, fzfg
-    sub = obs.loc[is_obs, [c for c in ("site", "time", "visibility_m", "weather") if c in obs]]
-    t = epoch_seconds(sub["time"])
-    recent = t >= t_at - settings.current_max_age_h * 3600
-    sub = sub.loc[recent]
-    vis = (
-        sub["visibility_m"].to_numpy(dtype=float, na_value=np.nan)
-        if "visibility_m" in sub
-        else np.full(len(sub), np.nan)
-    )
-    wx = (
-        sub["weather"].fillna("").astype(str).str.upper().to_numpy()
-        if "weather" in sub
-        else np.full(len(sub), "", dtype=object)
-    )
-    has = ~np.isnan(vis) | (wx != "")
-    if not has.any():
+    a, b = _span(start, hi)  # the reports of the last hours (current_max_age_h)
+    if b <= a:
         return fog, mist, fzfg
-    sidx = sub["site"].map(pos).to_numpy()[has].astype(np.int64)
-    tt = t[recent][has]
-    vis, wx = vis[has], wx[has]
-    order = np.lexsort((tt, sidx))
-    sidx, vis, wx = sidx[order], vis[order], wx[order]
-    last = np.r_[sidx[1:] != sidx[:-1], True]
-    sidx, vis, wx = sidx[last], vis[last], wx[last]
-    tokens = [set(w.replace("+", " ").replace("-", " ").split()) for w in wx]
-    has_fg = np.array([any(tok.endswith("FG") for tok in toks) for toks in tokens])
-    has_fz = np.array(["FZFG" in toks for toks in tokens])
-    has_br = np.array(["BR" in toks for toks in tokens])
+    vis_band = blk.block("visibility_m", a, b)
+    code = blk.weather(a, b)
+    reported = blk.weather_flags[:, 0][code]
+    has = _in_range(a, b, start, hi) & (~np.isnan(vis_band) | reported)
+    any_report = has.any(axis=1)
+    if not any_report.any():
+        return fog, mist, fzfg
+    sidx = np.flatnonzero(any_report)
+    col = (b - a) - 1 - np.argmax(has[sidx, ::-1], axis=1)
+    vis = vis_band[sidx, col]
+    flags = blk.weather_flags[code[sidx, col]]
+    has_fg, has_fz, has_br = flags[:, 1], flags[:, 2], flags[:, 3]
     with np.errstate(invalid="ignore"):
         fog_now = has_fg | (vis < 1000)
         mist_now = ~fog_now & (has_br | ((vis >= 1000) & (vis < 5000) & (rh_pct[sidx] >= 95)))
@@ -659,4 +1117,6 @@ def _observed(
 
 def feature_rows(table: FeatureTable) -> list[dict[str, Any]]:
     """One plain dict per site (for JSON output)."""
-    return [table.row(i) for i in range(len(table.site_ids))]
+    names = list(table.values)
+    columns = [table.values[name].tolist() for name in names]
+    return [dict(zip(names, row, strict=True)) for row in zip(*columns, strict=True)]

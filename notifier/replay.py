@@ -37,6 +37,7 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["ReplayResult", "replay", "to_json"]
 
 HISTORY = timedelta(hours=26)  # what one step's features can look back on
+BATCH = 144  # steps whose features and rules are worked out together (a day at 10 min)
 AHEAD = timedelta(hours=37)  # forecast rows one step can use
 
 
@@ -123,7 +124,7 @@ def replay(
     """Step from ``start`` to ``end`` and collect events, alert periods and night scores."""
     import pandas as pd
 
-    from notifier.assess import assess, level_rank
+    from notifier.assess import HOLD_STEP_S, assess_times, level_rank
     from notifier.lifecycle import step
 
     config = loaded.config
@@ -145,15 +146,26 @@ def replay(
     events: list[Event] = []
     cache: dict[float, Any] = {}
     stale = config.alerts.stale_after / 60.0
+    hold_s = max((r.hold_s for r in loaded.rules.rules), default=0.0) + HOLD_STEP_S
+    batch: list[list[Any]] = []
     for k, t_s in enumerate(times):
         now = datetime.fromtimestamp(float(t_s), UTC)
-        lo, hi = np.searchsorted(
-            t_rows, [t_s - HISTORY.total_seconds(), t_s + AHEAD.total_seconds()]
-        )
-        window = obs.iloc[lo:hi] if len(obs) else obs
-        assessments = assess(loaded.rules, sites, window, now, stale_after_min=stale, cache=cache)
-        for old in [x for x in cache if x < t_s - 3600]:
-            del cache[old]
+        if k % BATCH == 0:
+            # features and rules for a batch of steps at once (sites × times)
+            batch_times = times[k : k + BATCH]
+            lo, hi = np.searchsorted(
+                t_rows,
+                [t_s - HISTORY.total_seconds() - hold_s,
+                 float(batch_times[-1]) + AHEAD.total_seconds()],
+            )
+            window = obs.iloc[lo:hi] if len(obs) else obs
+            cache.clear()
+            batch = assess_times(
+                loaded.rules, sites, window,
+                [datetime.fromtimestamp(float(t), UTC) for t in batch_times],
+                stale_after_min=stale, cache=cache,
+            )
+        assessments = batch[k % BATCH]
         states, found = step(states, assessments, now, config.alerts)
         events.extend(found)
         for (site_id, hazard), st in states.items():

@@ -341,17 +341,20 @@ def evaluate_rule(
     rule: Rule,
     sites: Sequence[Any],
     feats_at: Sequence[Mapping[str, np.ndarray]],
+    applies: np.ndarray | None = None,
 ) -> RuleEvaluation:
     """Evaluate ``rule`` for every site at once.
 
     ``feats_at[0]`` holds each feature as an array over ``sites`` at the evaluation
     time; further entries are the same features at earlier times inside the rule's hold
     window (oldest last). The rule fires where its conditions held at every one of them.
+    ``applies`` may give the site filter's mask precomputed (e.g. tiled over times).
     """
-    applies = rule.sites.mask(sites)
+    if applies is None:
+        applies = rule.sites.mask(sites)
     held_now, _ = evaluate_condition(rule.when, feats_at[0], relaxed=False)
     sustain, _ = evaluate_condition(rule.when, feats_at[0], relaxed=True)
-    hold_met = np.ones(len(sites), dtype=bool)
+    hold_met = np.ones(applies.shape, dtype=bool)
     for feats in feats_at[1:]:
         held_then, _ = evaluate_condition(rule.when, feats, relaxed=False)
         hold_met &= held_then

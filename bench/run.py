@@ -1,0 +1,673 @@
+"""fogwatch benchmark (issue 8): ``make bench``, or ``.venv/bin/python bench/run.py``.
+
+Prints each figure beside its target and writes ``bench/results.json``. Everything else
+it makes (the W1 store, CSV files, a config copy) lives in a temporary folder that is
+removed at the end; every server it starts listens on 127.0.0.1 only.
+
+Figures (see bench/README.md for what each one means):
+
+- W1: 10,000 sites × 144 rows in a SQLite store; one evaluation time through
+  store.window → features → rules → assessment → lifecycle, in a child process whose
+  peak memory is read from the kernel (VmHWM), timed stage by stage;
+- the same features computed by a per-site MetPy loop (bench/baseline_metpy.py) on a
+  subset of the sites, scaled linearly, in the same child;
+- the floor: the Magnus dew point of every row in one numpy pass;
+- ingest: 1,000,000 CSV rows through parsing, validation and the store;
+- the command line: ``fogwatch --help`` and ``fogwatch check`` on the demo config, cold;
+- delivery: 1,000 alert emails through notifier.dispatch (outbox, render, EmailSender) to a
+  local SMTP server, reusing the connection; EmailSender alone beside it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+BENCH = Path(__file__).resolve().parent
+ROOT = BENCH.parent
+sys.path.insert(0, str(BENCH))
+
+import generate  # noqa: E402  (bench/ is not a package)
+
+RESULTS = BENCH / "results.json"
+HOLD_STEPS = 3  # the default rules hold for up to 20 min: tables at at, at-10, at-20
+METPY_SITES = 300
+INGEST_ROWS = 1_000_000
+EMAILS = 1_000
+
+# name → (target, "max" when lower is better / "min" when higher is better, unit)
+TARGETS: dict[str, tuple[float, str, str]] = {
+    "w1_assess_s": (1.0, "max", "s"),
+    "w1_with_window_s": (1.0, "max", "s"),
+    "w1_peak_rss_mb": (600.0, "max", "MB"),
+    "features_one_time_s": (0.25, "max", "s"),
+    "speedup_vs_metpy": (50.0, "min", "×"),
+    "floor_ratio_features": (20.0, "max", "×"),
+    "floor_ratio_assess": (20.0, "max", "×"),
+    "ingest_s": (10.0, "max", "s"),
+    "cli_help_s": (0.3, "max", "s"),
+    "cli_check_s": (1.5, "max", "s"),
+    "email_s": (10.0, "max", "s"),
+}
+
+
+def best_of(k: int, fn: Callable[[], Any]) -> tuple[float, Any]:
+    best, out = float("inf"), None
+    for _ in range(k):
+        start = time.perf_counter()
+        out = fn()
+        best = min(best, time.perf_counter() - start)
+    return best, out
+
+
+def reset_peak_rss() -> bool:
+    """Restart the high-water mark (Linux: clear_refs 5), so each stage has its own."""
+    try:
+        Path("/proc/self/clear_refs").write_text("5")
+        return True
+    except OSError:
+        return False
+
+
+def peak_rss_mb() -> float:
+    """This process's high-water resident set (VmHWM; getrusage where /proc is missing)."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024.0
+    except OSError:
+        pass
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+# ---- W1, in a child process -------------------------------------------------------------
+
+
+def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
+    """Runs in a fresh interpreter: nothing of the generator's memory is counted."""
+    import numpy as np
+
+    import notifier.assess as assess_module
+    from notifier import lifecycle
+    from notifier.config import AlertSettings, default_rules_dir
+    from notifier.features import compute_features, compute_features_at
+    from notifier.rules import load_rule_set
+    from notifier.store import Store
+
+    sites = generate.sites(n_sites, seed)
+    ids = [s.id for s in sites]
+    rules = load_rule_set([default_rules_dir()])
+    alerts = AlertSettings()
+    at = generate.AT
+    rss_ready = peak_rss_mb()
+
+    # time spent in the feature code inside assess, whichever entry point it uses
+    spent = {"features": 0.0}
+    for name in ("compute_features", "compute_features_at"):
+        original = getattr(assess_module, name, None)
+        if original is None:
+            continue
+
+        def timed(*a: Any, _original: Any = original, **kw: Any) -> Any:
+            start = time.perf_counter()
+            try:
+                return _original(*a, **kw)
+            finally:
+                spent["features"] += time.perf_counter() - start
+
+        setattr(assess_module, name, timed)
+
+    import notifier.features as features_module
+
+    def cold() -> None:
+        """Forget remembered sun positions: every figure is for a new evaluation time."""
+        cache = getattr(features_module, "_SUN_CACHE", None)
+        if cache is not None:
+            cache.clear()
+
+    runs = []
+    with Store(f"sqlite:///{db}") as store:
+        for _ in range(3):
+            cold()
+            spent["features"] = 0.0
+            peaks = {}
+            reset_peak_rss()
+            t0 = time.perf_counter()
+            # the service's rolling window: 48 h back, forecasts 36 h ahead
+            obs = store.window(ids, at - timedelta(hours=48), at + timedelta(hours=36))
+            window_s = time.perf_counter() - t0
+            peaks["window"] = peak_rss_mb()
+            reset_peak_rss()
+            t1 = time.perf_counter()
+            assessments = assess_module.assess(rules, sites, obs, at, stale_after_min=90.0)
+            assess_s = time.perf_counter() - t1
+            peaks["assess"] = peak_rss_mb()
+            reset_peak_rss()
+            t2 = time.perf_counter()
+            states, events = lifecycle.step({}, assessments, at, alerts)
+            lifecycle_s = time.perf_counter() - t2
+            peaks["lifecycle"] = peak_rss_mb()
+            runs.append(
+                {
+                    "peak_rss_mb_by_stage": peaks,
+                    "window_s": window_s,
+                    "features_s": spent["features"],
+                    "rules_and_assessment_s": assess_s - spent["features"],
+                    "lifecycle_s": lifecycle_s,
+                    "assess_s": assess_s + lifecycle_s,
+                    "with_window_s": window_s + assess_s + lifecycle_s,
+                    "rows": len(obs),
+                    "events": len(events),
+                    "states": len(states),
+                    "levels": {
+                        lvl: sum(1 for a in assessments if a.level == lvl)
+                        for lvl in ("none", "watch", "warning")
+                    },
+                }
+            )
+            del assessments, states, events
+            if _ + 1 < 3:
+                del obs
+    # the highest of the stage peaks is the peak of the whole run
+    rss_peak = max(max(r["peak_rss_mb_by_stage"].values()) for r in runs)
+
+    # a running service has already met the hold times (10, 20 min back) as the
+    # evaluation times of its previous cycles: their sun positions are remembered
+    cold()
+    for k in range(1, HOLD_STEPS):
+        compute_features(obs, sites, at - timedelta(minutes=10 * k))
+    spent["features"] = 0.0
+    start = time.perf_counter()
+    assessments = assess_module.assess(rules, sites, obs, at, stale_after_min=90.0)
+    lifecycle.step({}, assessments, at, alerts)
+    steady = {"assess_s": time.perf_counter() - start, "features_s": spent["features"]}
+    del assessments
+
+    # features alone, on the same table, side by side with the yardsticks
+    def features_once() -> Any:
+        cold()
+        return compute_features(obs, sites, at)
+
+    hold_times = [at - timedelta(minutes=10 * k) for k in range(HOLD_STEPS)]
+
+    def features_hold_times() -> Any:
+        cold()
+        return compute_features_at(obs, sites, hold_times)
+
+    features_s, _ = best_of(3, features_once)
+    features_at_s, _ = best_of(3, features_hold_times)
+    temp = obs["temp_c"].to_numpy(dtype=float)
+    rh = obs["rh_pct"].to_numpy(dtype=float)
+
+    def magnus() -> np.ndarray:
+        with np.errstate(all="ignore"):
+            gamma = np.log(rh / 100.0) + 17.62 * temp / (243.12 + temp)
+            return 243.12 * gamma / (17.62 - gamma)
+
+    floor_s, _ = best_of(7, magnus)
+
+    import baseline_metpy
+
+    subset = sites[:METPY_SITES]
+    subset_ids = {s.id for s in subset}
+    subset_obs = obs[obs["site"].isin(subset_ids)]
+    start = time.perf_counter()
+    baseline = baseline_metpy.features_site_by_site(subset_obs, subset, at)
+    metpy_subset_s = time.perf_counter() - start
+
+    # working sets, apart from what store.window's row-by-row fetch leaves resident:
+    # tracemalloc sees numpy's buffers as well as Python objects
+    import tracemalloc
+
+    tracemalloc.start()
+    compute_features(obs, sites, at)
+    features_mb = tracemalloc.get_traced_memory()[1] / 2**20
+    tracemalloc.reset_peak()
+    assessments = assess_module.assess(rules, sites, obs, at, stale_after_min=90.0)
+    lifecycle.step({}, assessments, at, alerts)
+    assess_mb = tracemalloc.get_traced_memory()[1] / 2**20
+    tracemalloc.stop()
+    del assessments
+
+    best = min(runs, key=lambda r: r["assess_s"])
+    out.write_text(
+        json.dumps(
+            {
+                "runs": runs,
+                "best": best,
+                "rss_after_imports_mb": rss_ready,
+                "rss_peak_mb": rss_peak,
+                "window_frame_mb": float(obs.memory_usage(deep=True).sum()) / 2**20,
+                "features_working_set_mb": features_mb,
+                "assess_and_lifecycle_working_set_mb": assess_mb,
+                "steady_state": steady,
+                "features_one_time_s": features_s,
+                "features_hold_times_s": features_at_s,
+                "floor_s": floor_s,
+                "floor_rows": int(temp.size),
+                "metpy_subset_sites": len(subset),
+                "metpy_subset_s": metpy_subset_s,
+                "metpy_sites_done": len(baseline),
+            }
+        )
+    )
+
+
+def run_w1(tmp: Path, n_sites: int, seed: int) -> dict[str, Any]:
+    start = time.perf_counter()
+    db, _, written = generate.load_store(tmp / "w1", n_sites, seed)
+    load_s = time.perf_counter() - start
+    out = tmp / "w1.json"
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--w1-child", str(db), "--out", str(out)]
+    cmd += ["--sites", str(n_sites), "--seed", str(seed)]
+    subprocess.run(cmd, check=True, cwd=tmp)
+    data = json.loads(out.read_text())
+    data["generate_and_load_s"] = load_s
+    data["rows_in_store"] = written
+    return data
+
+
+# ---- ingest ------------------------------------------------------------------------------
+
+
+def run_ingest(tmp: Path, seed: int) -> dict[str, Any]:
+    import numpy as np
+
+    from notifier.config import Config
+    from notifier.sources import read_files
+    from notifier.store import Store
+
+    site_list = generate.sites(10_000, seed)
+    per_site = INGEST_ROWS // len(site_list) + 8  # the generator drops a few per cent
+    obs = generate.observations(site_list, generate.AT, seed, per_site, forecast_share=0.0)
+    obs = obs.iloc[:INGEST_ROWS]
+    csv = obs[["site", "time", "temp_c", "rh_pct", "wind_ms", "cloud_pct", "visibility_m"]].copy()
+    csv["time"] = csv["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")
+    # wind in knots and cloud in okta, so the unit conversion is part of the work
+    csv["wind_kt"] = (csv.pop("wind_ms") / 0.514444).round(1)
+    csv["cloud_okta"] = (csv.pop("cloud_pct") / 12.5).round()
+    csv["weather"] = obs["weather"].fillna("")
+    folder = tmp / "ingest"
+    folder.mkdir()
+    paths = []
+    for i, part in enumerate(np.array_split(np.arange(len(csv)), 10)):  # ten file drops
+        path = folder / f"loggers-{i:02d}.csv"
+        csv.iloc[part].to_csv(path, index=False, float_format="%.6g")
+        paths.append(path)
+    del obs, csv
+    config = Config(sites=tuple(site_list))
+    store = Store(f"sqlite:///{folder / 'ingest.sqlite'}")
+    now = generate.AT + timedelta(minutes=1)
+    start = time.perf_counter()
+    frame, rejections, _ = read_files(paths, config, now)
+    parsed = time.perf_counter()
+    written = store.add_observations(frame, received_at=now)
+    done = time.perf_counter()
+    store.close()
+    return {
+        "csv_rows": INGEST_ROWS,
+        "files": len(paths),
+        "rows_stored": written,
+        "rows_rejected": len(rejections),
+        "parse_and_validate_s": parsed - start,
+        "store_s": done - parsed,
+        "ingest_s": done - start,
+    }
+
+
+# ---- the command line ----------------------------------------------------------------------
+
+
+def run_cli(tmp: Path) -> dict[str, Any]:
+    exe = Path(sys.executable).with_name("fogwatch")
+    base = [str(exe)] if exe.exists() else [sys.executable, "-m", "notifier"]
+    folder = tmp / "cli"
+    folder.mkdir()
+    config = folder / "demo_sites.yaml"
+    shutil.copy(ROOT / "demo_sites.yaml", config)
+    env = dict(os.environ)
+    env.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", "bench-not-a-secret")
+    env.setdefault("FOGWATCH_DEMO_BOT_SECRET", "bench-not-a-secret")
+
+    def wall(args: list[str]) -> float:
+        start = time.perf_counter()
+        subprocess.run(base + args, check=True, cwd=folder, env=env, capture_output=True)
+        return time.perf_counter() - start
+
+    help_s = min(wall(["--help"]) for _ in range(3))
+    check_s = min(wall(["check", str(config)]) for _ in range(3))
+    return {"cli_help_s": help_s, "cli_check_s": check_s, "command": " ".join(base)}
+
+
+# ---- delivery ------------------------------------------------------------------------------
+
+
+def _smtp_server() -> tuple[Any, Any]:
+    """aiosmtpd on 127.0.0.1 (ephemeral port) in its own thread, counting what it gets."""
+    import threading
+
+    from aiosmtpd.controller import Controller
+
+    class Inbox:
+        def __init__(self) -> None:
+            self.count = 0
+            self.connections = 0
+            self.lock = threading.Lock()
+
+        async def handle_DATA(self, server: Any, session: Any, envelope: Any) -> str:  # noqa: N802
+            with self.lock:
+                self.count += 1
+            return "250 OK queued"
+
+    inbox = Inbox()
+
+    class Loopback(Controller):
+        def factory(self) -> Any:
+            with inbox.lock:
+                inbox.connections += 1
+            return super().factory()
+
+        def _trigger_server(self) -> None:
+            assert self.server is not None
+            self.port = self.server.sockets[0].getsockname()[1]
+            super()._trigger_server()
+
+    controller = Loopback(inbox, hostname="127.0.0.1", port=0)
+    controller.start()
+    inbox.connections = 0  # start() makes one connection of its own
+    return controller, inbox
+
+
+def _email_config(port: int) -> Any:
+    from notifier.config import EmailChannel
+
+    return EmailChannel(
+        id="bench-mail",
+        type="email",
+        host="127.0.0.1",
+        port=port,
+        security="none",
+        sender="fogwatch@bench.invalid",
+        chart=False,
+    )
+
+
+def run_email_dispatch(tmp: Path, seed: int) -> dict[str, Any]:
+    """1,000 real alerts through the service's path: lifecycle events → routing → outbox
+    → notifier.dispatch (render each message, send, mark it sent) → EmailSender."""
+    from notifier.assess import assess
+    from notifier.config import AlertSettings, Config, Subscriber, default_rules_dir
+    from notifier.dispatch import dispatch
+    from notifier.lifecycle import step
+    from notifier.outbox import Outbox
+    from notifier.routing import route
+    from notifier.rules import load_rule_set
+    from notifier.store import Store
+
+    site_list = generate.sites(1_600, seed)
+    obs = generate.observations(site_list, generate.AT, seed)
+    rules = load_rule_set([default_rules_dir()])
+    now = generate.AT
+    _, events = step({}, assess(rules, site_list, obs, now), now, AlertSettings())
+    controller, inbox = _smtp_server()
+    try:
+        config = Config(
+            sites=tuple(site_list),
+            channels=(_email_config(controller.port),),
+            subscribers=(
+                Subscriber(id="duty-desk", channel="bench-mail", address="desk@bench.invalid"),
+            ),
+        )
+        deliveries = route(events, config.subscribers, config)[:EMAILS]
+        store = Store(f"sqlite:///{tmp / 'outbox.sqlite'}")
+        outbox = Outbox(store)
+        outbox.commit_cycle({}, {}, events, deliveries, now)
+        start = time.perf_counter()
+        sent = failed = runs = 0
+        while True:  # one dispatch run takes at most a batch of due rows (500)
+            report = dispatch(outbox, config, rules, now)
+            runs += 1
+            sent, failed = sent + report.sent, failed + report.failed
+            if report.sent + report.failed + report.retried == 0 or runs > 10:
+                break
+        elapsed = time.perf_counter() - start
+        store.close()
+    finally:
+        controller.stop()
+    return {
+        "emails": len(deliveries),
+        "sent": sent,
+        "failed": failed,
+        "dispatch_runs": runs,
+        "received": inbox.count,
+        "email_s": elapsed,
+        "server_connections": inbox.connections,
+        "path": "notifier.dispatch over an Outbox (render, send, mark sent) → EmailSender",
+    }
+
+
+def run_email_channel() -> dict[str, Any]:
+    """1,000 messages straight through notifier.channels.email.EmailSender."""
+    from notifier.channels.email import EmailSender
+    from notifier.messages import Message
+    from notifier.routing import Delivery
+
+    controller, inbox = _smtp_server()
+    try:
+        text = "Fog warning for Invented site 7.\n\n" + "Dew-point depression 0.4 °C.\n" * 20
+        start = time.perf_counter()
+        with EmailSender(_email_config(controller.port)) as sender:
+            for i in range(EMAILS):
+                message = Message(f"Fog warning {i}", text, {"id": f"bench-event-{i}"})
+                delivery = Delivery(
+                    f"bench-event-{i}", "bench-sub", "bench-mail", f"desk{i % 50}@bench.invalid"
+                )
+                sender.send(message, delivery, f"bench-{i:05d}")
+        elapsed = time.perf_counter() - start
+    finally:
+        controller.stop()
+    return {
+        "emails": EMAILS,
+        "received": inbox.count,
+        "email_s": elapsed,
+        "server_connections": inbox.connections,
+        "path": "notifier.channels.email.EmailSender directly",
+    }
+
+
+def run_email(tmp: Path, seed: int) -> dict[str, Any]:
+    direct = run_email_channel()
+    try:
+        via = run_email_dispatch(tmp, seed)
+    except Exception as exc:  # dispatch is still moving: fall back to the channel alone
+        via = {"error": f"{type(exc).__name__}: {exc}"}
+    return {"dispatch": via, "channel": direct}
+
+
+# ---- report ------------------------------------------------------------------------------------
+
+
+def verdict(name: str, value: float) -> str:
+    target, sense, _ = TARGETS[name]
+    ok = value <= target if sense == "max" else value >= target
+    return "ok" if ok else "MISSED"
+
+
+def line(label: str, name: str, value: float, note: str = "") -> dict[str, Any]:
+    target, sense, unit = TARGETS[name]
+    fmt = "{:.3f}" if unit == "s" else "{:.1f}"
+    shown = fmt.format(value) + (" " + unit if unit != "×" else "×")
+    want = (
+        ("≤ " if sense == "max" else "≥ ")
+        + fmt.format(target)
+        + (" " + unit if unit != "×" else "×")
+    )
+    status = verdict(name, value)
+    print(f"  {label:<44} {shown:>12}   target {want:<10} {status:<7} {note}")
+    return {"value": value, "target": target, "sense": sense, "unit": unit, "status": status}
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description="fogwatch benchmark (issue 8)")
+    parser.add_argument("--sites", type=int, default=10_000)
+    parser.add_argument("--seed", type=int, default=generate.SEED)
+    parser.add_argument("--w1-child", type=Path, help=argparse.SUPPRESS)
+    parser.add_argument("--out", type=Path, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.w1_child:
+        w1_child(args.w1_child, args.sites, args.seed, args.out)
+        return 0
+
+    started = time.perf_counter()
+    print(f"fogwatch benchmark: {args.sites:,} sites, seed {args.seed}, {os.cpu_count()} cores")
+    with tempfile.TemporaryDirectory(prefix="fogwatch-bench-") as name:
+        tmp = Path(name)
+        print("  … W1 (generate, load the store, evaluate in a child process)", flush=True)
+        w1 = run_w1(tmp, args.sites, args.seed)
+        print("  … ingest (1,000,000 CSV rows)", flush=True)
+        ingest = run_ingest(tmp, args.seed)
+        print("  … command line and delivery", flush=True)
+        cli = run_cli(tmp)
+        email = run_email(tmp, args.seed)
+
+    best = w1["best"]
+    scale = args.sites / w1["metpy_subset_sites"]
+    metpy_scaled_s = w1["metpy_subset_s"] * scale
+    figures: dict[str, Any] = {}
+    print()
+    print(f"W1: {w1['rows_in_store']:,} rows in the store; best of {len(w1['runs'])} runs")
+    print(
+        f"    stages: store.window {best['window_s']:.3f} s, features {best['features_s']:.3f} s,"
+        f" rules + assessment {best['rules_and_assessment_s']:.3f} s,"
+        f" lifecycle {best['lifecycle_s']:.3f} s"
+    )
+    print(
+        f"    levels {best['levels']}, {best['events']:,} events; peak memory after imports"
+        f" {w1['rss_after_imports_mb']:.0f} MB; peak by stage"
+        f" {', '.join(f'{k} {v:.0f} MB' for k, v in best['peak_rss_mb_by_stage'].items())}"
+    )
+    figures["w1_assess_s"] = line(
+        "W1 features+rules+assessment+lifecycle", "w1_assess_s", best["assess_s"]
+    )
+    steady = w1["steady_state"]
+    print(
+        f"  (a running service, whose earlier cycles met the hold times: W1"
+        f" {steady['assess_s']:.3f} s, of which features {steady['features_s']:.3f} s)"
+    )
+    figures["w1_with_window_s"] = line(
+        "W1 including store.window", "w1_with_window_s", best["with_window_s"]
+    )
+    figures["w1_peak_rss_mb"] = line(
+        "W1 peak memory (child, VmHWM)",
+        "w1_peak_rss_mb",
+        w1["rss_peak_mb"],
+        f"(window frame {w1['window_frame_mb']:.0f} MB; working sets: features"
+        f" {w1['features_working_set_mb']:.0f} MB, assess+lifecycle"
+        f" {w1['assess_and_lifecycle_working_set_mb']:.0f} MB)",
+    )
+
+    figures["features_one_time_s"] = line(
+        "compute_features, one time",
+        "features_one_time_s",
+        w1["features_one_time_s"],
+        f"({HOLD_STEPS} hold times via compute_features_at: {w1['features_hold_times_s']:.3f} s)",
+    )
+    speedup = metpy_scaled_s / w1["features_one_time_s"]
+    figures["speedup_vs_metpy"] = line(
+        "per-site MetPy loop ÷ compute_features",
+        "speedup_vs_metpy",
+        speedup,
+        f"(MetPy {w1['metpy_subset_s']:.2f} s for {w1['metpy_subset_sites']} sites,"
+        f" ×{scale:.1f} → {metpy_scaled_s:.0f} s;"
+        f" ÷ full W1: {metpy_scaled_s / best['assess_s']:.0f}×)",
+    )
+    figures["floor_ratio_features"] = line(
+        "compute_features ÷ numpy dew-point floor",
+        "floor_ratio_features",
+        w1["features_one_time_s"] / w1["floor_s"],
+        f"(floor {w1['floor_s'] * 1000:.1f} ms for {w1['floor_rows']:,} rows; aim ≤ 5×)",
+    )
+    figures["floor_ratio_assess"] = line(
+        "W1 assessment ÷ floor",
+        "floor_ratio_assess",
+        best["assess_s"] / w1["floor_s"],
+        "(aim ≤ 5×)",
+    )
+    figures["ingest_s"] = line(
+        "ingest 1,000,000 CSV rows",
+        "ingest_s",
+        ingest["ingest_s"],
+        f"(parse+validate {ingest['parse_and_validate_s']:.2f} s, store {ingest['store_s']:.2f} s;"
+        f" {ingest['rows_stored']:,} stored, {ingest['rows_rejected']:,} rejected)",
+    )
+    figures["cli_help_s"] = line(
+        "fogwatch --help (cold, best of 3)", "cli_help_s", cli["cli_help_s"]
+    )
+    figures["cli_check_s"] = line(
+        "fogwatch check demo_sites.yaml (cold, best of 3)", "cli_check_s", cli["cli_check_s"]
+    )
+    via, direct = email["dispatch"], email["channel"]
+    if "error" not in via and via["sent"] == via["emails"] == EMAILS:
+        figures["email_s"] = line(
+            f"{EMAILS:,} alert emails via notifier.dispatch",
+            "email_s",
+            via["email_s"],
+            f"({via['received']:,} received over {via['server_connections']} connection(s),"
+            f" {via['dispatch_runs']} dispatch runs; EmailSender alone: {direct['email_s']:.2f} s)",
+        )
+    else:
+        figures["email_s"] = line(
+            f"{EMAILS:,} emails via EmailSender directly",
+            "email_s",
+            direct["email_s"],
+            f"({direct['received']:,} received over {direct['server_connections']} connection(s);"
+            f" dispatch path not used: {via.get('error') or via})",
+        )
+    missed = [k for k, v in figures.items() if v["status"] != "ok"]
+    total_s = time.perf_counter() - started
+    print(
+        f"\n{len(figures) - len(missed)} of {len(figures)} targets met; bench took {total_s:.0f} s"
+    )
+    RESULTS.write_text(
+        json.dumps(
+            {
+                "when": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+                "machine": {
+                    "cores": os.cpu_count(),
+                    "python": platform.python_version(),
+                    "platform": platform.platform(),
+                },
+                "sites": args.sites,
+                "seed": args.seed,
+                "figures": figures,
+                "missed": missed,
+                "w1": w1,
+                "metpy_scaled_s": metpy_scaled_s,
+                "ingest": ingest,
+                "cli": cli,
+                "email": email,
+                "bench_s": total_s,
+            },
+            indent=2,
+        )
+        + "\n"
+    )
+    print(f"results: {RESULTS.relative_to(ROOT)}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
