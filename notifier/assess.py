@@ -29,6 +29,7 @@ __all__ = ["HazardAssessment", "SiteAssessment", "assess", "assess_times", "leve
 
 HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
 STALE_AFTER_MIN = 90.0
+ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
 
 
 def level_rank(level: str) -> int:
@@ -181,11 +182,13 @@ def assess_times(
     times = [t.astimezone(UTC) for t in times]
     tables: dict[float, FeatureTable] = {} if cache is None else cache
     max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
-    wanted = sorted({t.timestamp() - j * HOLD_STEP_S for t in times
-                     for j in range(max_hold + 1)} - set(tables))
+    wanted = sorted(
+        {t.timestamp() - j * HOLD_STEP_S for t in times for j in range(max_hold + 1)} - set(tables)
+    )
     if wanted:
-        found = compute_features_at(obs, sites, [datetime.fromtimestamp(w, UTC)
-                                                 for w in wanted], settings)
+        found = compute_features_at(
+            obs, sites, [datetime.fromtimestamp(w, UTC) for w in wanted], settings
+        )
         tables.update(zip(wanted, found, strict=True))
     n, k_times = len(sites), len(times)
 
@@ -293,7 +296,7 @@ def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -
     if lead.kind == "observed" or features.get("observed_fog") == 1.0:
         return at
     hours = features.get("hours_to_fog", float("nan"))
-    if hours is None or not np.isfinite(hours):
+    if hours is None or not np.isfinite(hours) or hours > ETA_HORIZON_H:
         return None
     return at + timedelta(hours=float(hours))
 

@@ -170,6 +170,7 @@ class FeatureSettings:
     trend_min_span_h: float = 0.75
     fit_min_span_h: float = 0.75
     evening_transition_h: float = 1.5
+    min_closing_c_per_h: float = 0.02
     water_max_age_h: float = 24.0  # water temperature changes slowly
     block_hours: float = 24.0
     # Radiation fog needs light wind: calm to ~3 m/s is typical, stronger wind mixes the
@@ -807,7 +808,11 @@ def _features_at(
         d_use = np.where(m_tail[pick], d_tail[pick], np.nan)
         trend[pick] = physics.robust_slope_per_h(h_use[pick], d_use)
         trend = np.where(usable, trend, np.nan)
-    hours_to_saturation = physics.hours_to_zero(depression, trend)
+    # A slope below the sensors' resolution over the window is no trend (0.06 °C in
+    # 3 h, common practice): without this a flat series reads as "saturation in 10^15 h".
+    closing = np.where(trend <= -settings.min_closing_c_per_h, trend, 0.0)
+    closing = np.where(np.isnan(trend), np.nan, closing)
+    hours_to_saturation = physics.hours_to_zero(depression, closing)
 
     # ---- sun --------------------------------------------------------------------------
     last_sunset, next_sunrise, night = _sun(st, t_at, later_sun)

@@ -26,6 +26,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from notifier.assess import SiteAssessment
     from notifier.dispatch import DispatchReport
+    from notifier.features import FeatureTable
     from notifier.lifecycle import Event
     from notifier.routing import Delivery
     from notifier.sources.base import ObservationSource, PollResult
@@ -76,7 +77,13 @@ def observations_for(config: Config, store: Store, at: datetime) -> pd.DataFrame
     return store.window([s.id for s in config.sites], start, at + FORECAST_HORIZON)
 
 
-def evaluate(loaded: Loaded, obs: pd.DataFrame, at: datetime) -> list[SiteAssessment]:
+def evaluate(
+    loaded: Loaded,
+    obs: pd.DataFrame,
+    at: datetime,
+    cache: dict[float, FeatureTable] | None = None,
+) -> list[SiteAssessment]:
+    """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
     from notifier.assess import assess
 
     return assess(
@@ -85,6 +92,7 @@ def evaluate(loaded: Loaded, obs: pd.DataFrame, at: datetime) -> list[SiteAssess
         obs,
         at,
         stale_after_min=loaded.config.alerts.stale_after / 60.0,
+        cache=cache,
     )
 
 
@@ -129,6 +137,10 @@ class Service:
         self._fixed_sources = sources
         self.rng = rng or random.Random()
         self._mtimes = self._file_mtimes()
+        # The hold windows look 10, 20 … minutes back: times the previous cycles already
+        # evaluated. Their feature tables are kept, so a cycle computes only its own time
+        # (they say what was known then, as a person on watch would have seen it).
+        self._features: dict[float, FeatureTable] = {}
         self._stop = threading.Event()
         self._lock = threading.Lock()  # one cycle or delivery at a time
 
@@ -168,6 +180,7 @@ class Service:
             return False, str(exc)
         with self._lock:
             self.loaded = loaded
+            self._features.clear()
             self._mtimes = self._file_mtimes()
         return True, "reloaded"
 
@@ -190,8 +203,18 @@ class Service:
         with self._lock:
             polls = self.poll(now, source_ids)
             obs = observations_for(self.config, self.store, now)
-            assessments = evaluate(self.loaded, obs, now)
+            assessments = evaluate(self.loaded, obs, now, self._remembered(now))
             return self._advance(now, assessments, obs, polls)
+
+    def _remembered(self, now: datetime) -> dict[float, FeatureTable]:
+        """The feature cache, without what no hold window can reach from ``now``.
+
+        The table for ``now`` itself is always worked out afresh, from the newest data.
+        """
+        reach = max((r.hold_s for r in self.rules.rules), default=0.0) + 3600.0
+        for t in [t for t in self._features if t < now.timestamp() - reach or t >= now.timestamp()]:
+            del self._features[t]
+        return self._features
 
     def _advance(
         self,

@@ -283,3 +283,14 @@ def test_vectorised_over_sites_equals_site_by_site():
                 atol=1e-12,
                 err_msg=f"{s.id} {name}",
             )
+
+
+def test_a_flat_depression_is_not_closing():
+    # readings at 0.01 °C resolution, depression constant: the Theil–Sen slope is a
+    # rounding residue, and no saturation time may be projected from it
+    s = site("flat")
+    at = utc(2026, 11, 20, 3)
+    obs = steady(s.id, at, temp_c=5.37, dewpoint_c=3.21, wind_ms=1.0, cloud_pct=0.0)
+    row, _ = one(obs, s, at)
+    assert abs(row["depression_trend_c_per_h"]) < 1e-9
+    assert np.isnan(row["hours_to_saturation"])

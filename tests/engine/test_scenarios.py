@@ -263,3 +263,12 @@ def test_site_that_never_reported_is_a_data_gap():
     a = assess(RULES, [s], pd.DataFrame(), at)[0]
     assert a.hazards["data_gap"].level == "watch"
     assert a.level == "watch"
+
+
+def test_eta_beyond_the_horizon_is_none_not_an_overflow():
+    from notifier.assess import _eta
+
+    rule = next(r for r in RULES.rules if r.id == "radiation-fog-watch")
+    at = utc(2026, 11, 20, 3)
+    assert _eta("fog", rule, {"hours_to_fog": 3.0e15}, at) is None
+    assert _eta("fog", rule, {"hours_to_fog": 2.0}, at) == at + timedelta(hours=2)
