@@ -205,29 +205,41 @@ def assess_times(
         applies = np.tile(rule.sites.mask(sites), k_times)
         evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
 
-    # only sites where some rule fires or holds with its margins need a closer look
-    busy = np.zeros(n * k_times, dtype=bool)
-    for ev in evals:
-        busy |= ev.fires | ev.sustains
+    # only sites where some rule fires or holds with its margins need a closer look;
+    # their flags come out of numpy once, as plain lists, for the per-site step below
+    fires = np.stack([ev.fires for ev in evals]) if evals else np.zeros((0, n * k_times), bool)
+    sustains = np.stack([ev.sustains for ev in evals]) if evals else fires
+    busy = (fires | sustains).any(axis=0)
+    busy_idx = np.flatnonzero(busy)
+    flags = dict(
+        zip(
+            busy_idx.tolist(),
+            zip(fires[:, busy_idx].T.tolist(), sustains[:, busy_idx].T.tolist(), strict=True),
+            strict=True,
+        )
+    )
+    ranked = [(ev, level_rank(ev.rule.level)) for ev in evals]
     out = []
     for k, at in enumerate(times):
         now = tables[at.timestamp()]
+        last_times = now.last_time.tolist()
+        methods = now.projection_method.tolist()
         per_time = []
         for i, site in enumerate(sites):
             flat = k * n + i
-            last = now.last_time[i]
+            last = last_times[i]
             sa = SiteAssessment(
                 site=site,
                 time=at,
                 features=FeatureRow(now, i),
-                projection_method=str(now.projection_method[i] or ""),
-                last_time=None if np.isnan(last) else datetime.fromtimestamp(last, UTC),
+                projection_method=str(methods[i] or ""),
+                last_time=None if last != last else datetime.fromtimestamp(last, UTC),
                 results=SiteResults(evals, flat),
                 stale_after_min=stale_after_min,
-                projection=_projection(now, i),
+                projection=_projection(now, i) if methods[i] == "cooling-fit" else None,
             )
-            if busy[flat]:
-                _aggregate(sa, at, evals, flat)
+            if flat in flags:
+                _aggregate(sa, at, ranked, flat, *flags[flat])
             per_time.append(sa)
         out.append(per_time)
     return out
@@ -240,38 +252,43 @@ def _projection(table: FeatureTable, i: int) -> tuple[float, float, datetime] | 
     return float(t0), float(k), datetime.fromtimestamp(float(sunset), UTC)
 
 
-def _aggregate(sa: SiteAssessment, at: datetime, evals: Sequence[RuleEvaluation], i: int) -> None:
-    by_hazard: dict[str, list[RuleEvaluation]] = {}
-    for ev in evals:
-        rule = ev.rule
-        if ev.fires[i]:
-            by_hazard.setdefault(rule.hazard, []).append(ev)
-        if ev.sustains[i]:
-            cur = sa.sustain.get(rule.hazard, "none")
-            if level_rank(rule.level) > level_rank(cur):
-                sa.sustain[rule.hazard] = rule.level
-    for hazard, fired in by_hazard.items():
-        fired.sort(key=lambda ev: -level_rank(ev.rule.level))
-        top = level_rank(fired[0].rule.level)
-        level = LEVELS[top]
-        lead = fired[0].rule
+def _aggregate(
+    sa: SiteAssessment,
+    at: datetime,
+    ranked: Sequence[tuple[RuleEvaluation, int]],
+    i: int,
+    fires: Sequence[bool],
+    sustains: Sequence[bool],
+) -> None:
+    by_hazard: dict[str, list[tuple[RuleEvaluation, int]]] = {}
+    sustain_rank: dict[str, int] = {}
+    for (ev, rank), fired, held in zip(ranked, fires, sustains, strict=True):
+        hazard = ev.rule.hazard
+        if fired:
+            by_hazard.setdefault(hazard, []).append((ev, rank))
+        if held and rank > sustain_rank.get(hazard, 0):
+            sustain_rank[hazard] = rank
+    for hazard, fired_evals in by_hazard.items():
+        fired_evals.sort(key=lambda er: -er[1])
+        top = fired_evals[0][1]
+        lead = fired_evals[0][0].rule
         # the rules at the top level explain the alert; the lower ones are listed only
-        top_evals = [ev for ev in fired if level_rank(ev.rule.level) == top]
+        top_evals = [ev for ev, rank in fired_evals if rank == top]
         refs: list[str] = []
-        for ev in fired:
+        for ev, _ in fired_evals:
             refs.extend(x for x in ev.rule.safety if x not in refs)
         sa.hazards[hazard] = HazardAssessment(
             hazard=hazard,
-            level=level,
+            level=LEVELS[top],
             kind=lead.kind,
             eta=_eta(hazard, lead, sa.features, at),
-            rules=[ev.rule.id for ev in fired],
+            rules=[ev.rule.id for ev, _ in fired_evals],
             reasons=LazyTexts(partial(_reasons, top_evals, i)),
             explanations=LazyTexts(partial(_explanations, top_evals, i, sa.features)),
             safety_refs=refs,
         )
-        if level_rank(sa.sustain.get(hazard, "none")) < top:
-            sa.sustain[hazard] = level
+        sustain_rank[hazard] = max(sustain_rank.get(hazard, 0), top)
+    sa.sustain.update({h: LEVELS[r] for h, r in sustain_rank.items() if r > 0})
 
 
 def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
