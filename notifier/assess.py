@@ -25,7 +25,15 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from notifier.config import Site
 
-__all__ = ["HazardAssessment", "SiteAssessment", "assess", "assess_times", "level_rank", "to_json"]
+__all__ = [
+    "HazardAssessment",
+    "SiteAssessment",
+    "assess",
+    "assess_times",
+    "iso_z",
+    "level_rank",
+    "to_json",
+]
 
 HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
 STALE_AFTER_MIN = 90.0
@@ -318,7 +326,8 @@ def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -
     return at + timedelta(hours=float(hours))
 
 
-def _iso(t: datetime | None) -> str | None:
+def iso_z(t: datetime | None) -> str | None:
+    """``2026-11-07T02:00:00Z`` (UTC, seconds), or None: the times in JSON output."""
     return None if t is None else t.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
@@ -346,7 +355,7 @@ def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
                 "hazard": h.hazard,
                 "level": h.level,
                 "kind": h.kind,
-                "eta": _iso(h.eta),
+                "eta": iso_z(h.eta),
                 "rules": h.rules,
                 "reasons": list(h.reasons),
             }
@@ -356,12 +365,12 @@ def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
         out.append(
             {
                 "site": sa.site.id,
-                "time": _iso(sa.time),
+                "time": iso_z(sa.time),
                 "level": sa.level,
                 "hazards": hazards,
                 "features": feats,
                 "data": {
-                    "last_time": _iso(sa.last_time),
+                    "last_time": iso_z(sa.last_time),
                     "age_min": None if not np.isfinite(age) else round(age, 1),
                     "stale": sa.stale,
                 },

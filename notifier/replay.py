@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from notifier.assess import iso_z
 from notifier.features import epoch_seconds
 from notifier.verify import (
     Contingency,
@@ -155,15 +156,20 @@ def replay(
             batch_times = times[k : k + BATCH]
             lo, hi = np.searchsorted(
                 t_rows,
-                [t_s - HISTORY.total_seconds() - hold_s,
-                 float(batch_times[-1]) + AHEAD.total_seconds()],
+                [
+                    t_s - HISTORY.total_seconds() - hold_s,
+                    float(batch_times[-1]) + AHEAD.total_seconds(),
+                ],
             )
             window = obs.iloc[lo:hi] if len(obs) else obs
             cache.clear()
             batch = assess_times(
-                loaded.rules, sites, window,
+                loaded.rules,
+                sites,
+                window,
                 [datetime.fromtimestamp(float(t), UTC) for t in batch_times],
-                stale_after_min=stale, cache=cache,
+                stale_after_min=stale,
+                cache=cache,
             )
         assessments = batch[k % BATCH]
         states, found = step(states, assessments, now, config.alerts)
@@ -242,10 +248,6 @@ def _write_messages(loaded: Loaded, events: Sequence[Event], folder: Path) -> in
     return len(events)
 
 
-def _iso(t: datetime | None) -> str | None:
-    return None if t is None else t.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
 def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for res in results:
@@ -260,8 +262,8 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
                 },
             }
         out[res.label] = {
-            "from": _iso(res.start),
-            "to": _iso(res.end),
+            "from": iso_z(res.start),
+            "to": iso_z(res.end),
             "step_s": res.step_s,
             "overall": {
                 "warning": res.table("warning").as_dict(),
@@ -271,7 +273,7 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
             "sites": per_site,
             "events": [
                 {
-                    "time": _iso(e.time),
+                    "time": iso_z(e.time),
                     "site": e.site_id,
                     "hazard": e.hazard,
                     "type": e.type,
@@ -284,7 +286,7 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
                 {
                     "site": n.site,
                     "night": n.night.date().isoformat(),
-                    "first_warning": _iso(n.first_warning),
+                    "first_warning": iso_z(n.first_warning),
                     "rules": n.rules,
                 }
                 for n in res.nights
@@ -294,8 +296,8 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
                 {
                     "site": n.site,
                     "night": n.night.date().isoformat(),
-                    "onset": _iso(n.fog_onset),
-                    "first_watch": _iso(n.first_watch),
+                    "onset": iso_z(n.fog_onset),
+                    "first_watch": iso_z(n.first_watch),
                     "why_not": n.why_not,
                 }
                 for n in res.nights
@@ -313,7 +315,7 @@ def report_text(results: Sequence[ReplayResult]) -> str:
     """Timeline, tables and scores; two rule sets side by side when given."""
     first = results[0]
     lines = [
-        f"fogwatch replay {_iso(first.start)} → {_iso(first.end)}, "
+        f"fogwatch replay {iso_z(first.start)} → {iso_z(first.end)}, "
         f"step {first.step_s / 60:g} min, {len(first.site_ids)} site(s), "
         f"{len(first.nights)} site-night(s)",
         "",
@@ -324,7 +326,7 @@ def report_text(results: Sequence[ReplayResult]) -> str:
             if e.type == "reminder":
                 continue
             lines.append(
-                f"  {_iso(e.time)}  {e.site_id:<22} {e.hazard:<8} {e.type:<10} "
+                f"  {iso_z(e.time)}  {e.site_id:<22} {e.hazard:<8} {e.type:<10} "
                 f"{e.level:<7} {', '.join(e.rules)}"
             )
         if not res.events:
@@ -368,7 +370,7 @@ def report_text(results: Sequence[ReplayResult]) -> str:
             for n in fa:
                 lines.append(
                     f"  {n.site} night of {n.night.date()}: warning from "
-                    f"{_iso(n.first_warning)}; rules {', '.join(n.rules)}"
+                    f"{iso_z(n.first_warning)}; rules {', '.join(n.rules)}"
                 )
         if miss:
             lines.append(f"Misses ({res.label}):")
@@ -380,7 +382,7 @@ def report_text(results: Sequence[ReplayResult]) -> str:
                     else "no warning"
                 )
                 lines.append(
-                    f"  {n.site} night of {n.night.date()}: fog from {_iso(n.fog_onset)}; {said}"
+                    f"  {n.site} night of {n.night.date()}: fog from {iso_z(n.fog_onset)}; {said}"
                 )
                 lines.extend(f"      {w}" for w in n.why_not[:4])
         lines.append("")
@@ -403,7 +405,7 @@ def write_csv(results: Sequence[ReplayResult], path: Path) -> None:
                 w.writerow(
                     [
                         res.label,
-                        _iso(e.time),
+                        iso_z(e.time),
                         e.site_id,
                         e.hazard,
                         e.type,
