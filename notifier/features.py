@@ -644,9 +644,24 @@ def compute_features_at(
         t_forecast=min(t_ats) - _FORECAST_BEFORE_S,
     )
     night: tuple[float, np.ndarray, np.ndarray, np.ndarray] | None = None
+    suns: dict[float, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+    if len(times) > _SUN_BATCH_FROM:
+        # many times (a replay's day of steps): the sun of all of them in one pass
+        n = len(st.ids)
+        ts = np.repeat(np.asarray(t_ats, dtype=float), n)
+        sunset, sunrise, is_night = (
+            np.asarray(a).reshape(len(times), n)
+            for a in physics.night_bounds_utc(
+                np.tile(st.lat, len(times)), np.tile(st.lon, len(times)), ts
+            )
+        )
+        suns = {t: (sunset[k], sunrise[k], is_night[k]) for k, t in enumerate(t_ats)}
     out = []
     # latest first: an earlier time in the same night can reuse its sun (see _sun)
     for k in sorted(range(len(times)), key=lambda k: -t_ats[k]):
+        known = suns.get(t_ats[k])
+        if known is not None:
+            night = (t_ats[k], *(a.copy() for a in known))
         table, night = _features_at(block, st, times[k], settings, night)
         out.append((k, table))
     return [table for _, table in sorted(out, key=lambda kt: kt[0])]
@@ -666,6 +681,7 @@ def _empty_obs() -> pd.DataFrame:
 
 _SUN_CACHE: OrderedDict[tuple[float, bytes, bytes], tuple[np.ndarray, ...]] = OrderedDict()
 _SUN_CACHE_SIZE = 16  # evaluation times; the hold windows of a few cycles
+_SUN_BATCH_FROM = 8  # more evaluation times than this: the sun of all in one call
 _SUN_LOCK = threading.Lock()
 
 
@@ -708,6 +724,8 @@ def _sun(
     if later is None:
         return _night_bounds(st, t_at)
     t_later, sunset, sunrise, night = later
+    if t_later == t_at:  # worked out for exactly this time already
+        return sunset.copy(), sunrise.copy(), night.copy()
     same = night & (sunset <= t_at) & (t_at <= t_later)
     sunset, sunrise, night = sunset.copy(), sunrise.copy(), night.copy()
     if same.all():

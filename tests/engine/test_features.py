@@ -294,3 +294,22 @@ def test_a_flat_depression_is_not_closing():
     row, _ = one(obs, s, at)
     assert abs(row["depression_trend_c_per_h"]) < 1e-9
     assert np.isnan(row["hours_to_saturation"])
+
+
+def test_many_times_at_once_equal_each_time_alone():
+    # more than a handful of times takes the batched sun path (a replay's day of steps)
+    from notifier.features import compute_features_at
+
+    sites = [site("a"), site("b", exposure="valley", lat=60.1, lon=10.0),
+             site("c", lat=-33.9, lon=18.4, timezone="Africa/Johannesburg")]
+    end = utc(2026, 10, 15, 6)
+    frames = [steady(s.id, end, hours=30, temp_c=(12.0, 4.0), dewpoint_c=(6.0, 3.5),
+                     wind_ms=1.0, cloud_pct=10.0) for s in sites]
+    obs = pd.concat(frames)
+    times = [end - timedelta(minutes=50 * k) for k in range(14)]
+    batched = compute_features_at(obs, sites, times)
+    for t, table in zip(times, batched, strict=True):
+        alone = compute_features(obs, sites, t)
+        for name in FEATURES:
+            np.testing.assert_allclose(table.values[name], alone.values[name], rtol=0,
+                                       atol=1e-9, err_msg=f"{t} {name}")
