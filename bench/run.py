@@ -59,7 +59,10 @@ TARGETS: dict[str, tuple[float, str, str]] = {
     "cli_help_s": (0.3, "max", "s"),
     "cli_check_s": (1.5, "max", "s"),
     "email_s": (10.0, "max", "s"),
+    # issue 7: "thousands of site-nights in seconds" — read as ≤ 10 s per 1,000
+    "replay_s_per_1000_site_nights": (10.0, "max", "s"),
 }
+REPLAY_SITES, REPLAY_DAYS = 100, 10
 
 
 def best_of(k: int, fn: Callable[[], Any]) -> tuple[float, Any]:
@@ -513,6 +516,37 @@ def run_email(tmp: Path, seed: int) -> dict[str, Any]:
 # ---- report ------------------------------------------------------------------------------------
 
 
+def run_replay(seed: int) -> dict[str, Any]:
+    """``notifier.replay`` over REPLAY_DAYS nights of W1-style data for REPLAY_SITES."""
+    import pandas as pd
+
+    from notifier.config import Config, default_rules_dir
+    from notifier.replay import replay
+    from notifier.rules import load_rule_set
+    from notifier.service import Loaded
+
+    site_list = generate.sites(REPLAY_SITES, seed)
+    frames = []
+    for d in range(REPLAY_DAYS):
+        day = generate.observations(
+            site_list, generate.AT - timedelta(days=REPLAY_DAYS - 1 - d), seed + d
+        )
+        frames.append(day[day["kind"] == "obs"])
+    obs = pd.concat(frames).drop_duplicates(["site", "time", "kind"], keep="last")
+    loaded = Loaded(Config(sites=tuple(site_list)), load_rule_set([default_rules_dir()]))
+    start = generate.AT - timedelta(days=REPLAY_DAYS - 1, hours=15)
+    end = generate.AT + timedelta(hours=9)
+    t0 = time.perf_counter()
+    result = replay(loaded, obs, start, end)
+    seconds = time.perf_counter() - t0
+    return {
+        "seconds": seconds,
+        "site_nights": len(result.nights),
+        "steps": len(result.times),
+        "sites": REPLAY_SITES,
+    }
+
+
 def verdict(name: str, value: float) -> str:
     target, sense, _ = TARGETS[name]
     ok = value <= target if sense == "max" else value >= target
@@ -555,6 +589,8 @@ def main() -> int:
         print("  … command line and delivery", flush=True)
         cli = run_cli(tmp)
         email = run_email(tmp, args.seed)
+        print("  … replay (site-nights through the rules and lifecycle)", flush=True)
+        replayed = run_replay(args.seed)
 
     best = w1["best"]
     scale = args.sites / w1["metpy_subset_sites"]
@@ -649,6 +685,13 @@ def main() -> int:
             f"({direct['received']:,} received over {direct['server_connections']} connection(s);"
             f" dispatch path not used: {via.get('error') or via})",
         )
+    figures["replay_s_per_1000_site_nights"] = line(
+        "replay, per 1,000 site-nights",
+        "replay_s_per_1000_site_nights",
+        replayed["seconds"] * 1000 / replayed["site_nights"],
+        f"({replayed['site_nights']:,} site-nights, {replayed['steps']:,} steps of 10 min, "
+        f"{replayed['sites']} sites, {replayed['seconds']:.1f} s)",
+    )
     missed = [k for k, v in figures.items() if v["status"] != "ok"]
     total_s = time.perf_counter() - started
     print(
