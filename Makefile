@@ -17,7 +17,7 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(PY) -m ruff check notifier tests $(wildcard bench)
-	$(PY) -m pytest -q -p no:cacheprovider
+	$(PY) -m pytest -q -p no:cacheprovider --doctest-modules notifier tests
 
 lint: $(STAMP)
 	$(PY) -m ruff check notifier tests $(wildcard bench)
