@@ -398,7 +398,7 @@ class Store:
         # Fetched in chunks, each turned into columns at once, and the text columns
         # (site, kind, source, weather: few distinct values) share one string object per
         # value: a 10,000-site window then costs a fraction of the memory of 1.4 M tuples.
-        chunks = []
+        chunks: list[dict[str, Any]] = []
         with self.engine.connect() as conn:
             cursor = conn.connection.cursor()
             try:
@@ -407,14 +407,15 @@ class Store:
                     records = cursor.fetchmany(_FETCH_ROWS)
                     if not records:
                         break
-                    chunks.append(_frame(records, shared_text=True))
+                    frame = _frame(records, shared_text=True)
+                    del records
+                    chunks.append({c: frame[c].array for c in CANONICAL_COLUMNS})
+                    del frame
             finally:
                 cursor.close()
         if not chunks:
             return _frame([])
-        if len(chunks) == 1:
-            return text_columns_as_objects(chunks[0])
-        return text_columns_as_objects(_concat_shared(chunks))
+        return text_columns_as_objects(_join_columns(chunks))
 
     def trim_observations(self, before: datetime, *, conn: Connection | None = None) -> int:
         """Delete rows older than ``before``; returns how many."""
@@ -606,13 +607,24 @@ def _frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame
     return text_columns_as_objects(frame)
 
 
-def _concat_shared(chunks: list[pd.DataFrame]) -> pd.DataFrame:
-    """Concatenate chunks whose text columns are categoricals, keeping them shared."""
+def _join_columns(chunks: list[dict[str, Any]]) -> pd.DataFrame:
+    """One frame from per-chunk columns, a column at a time, freeing chunks as it goes.
+
+    Text columns are categoricals (one string object per distinct value); at most one
+    column is held twice at any moment.
+    """
     from pandas.api.types import union_categoricals
 
-    texts = {c: union_categoricals([ch[c] for ch in chunks]) for c in TEXT_COLUMNS}
-    frame = pd.concat([ch.drop(columns=list(TEXT_COLUMNS)) for ch in chunks], ignore_index=True)
+    out = pd.DataFrame(index=pd.RangeIndex(sum(len(c["site"]) for c in chunks)))
     for column in CANONICAL_COLUMNS:
-        if column in texts:
-            frame[column] = pd.Categorical(texts[column])
-    return frame[CANONICAL_COLUMNS]
+        parts = [c.pop(column) for c in chunks]
+        if column in TEXT_COLUMNS:
+            joined: Any = union_categoricals(parts)
+        elif column == "time":  # tz-aware: join the underlying nanoseconds, not objects
+            ns = np.concatenate([np.asarray(p.asi8) for p in parts])
+            joined = pd.to_datetime(ns, unit="ns", utc=True).astype("datetime64[ns, UTC]")
+        else:
+            joined = pd.array(np.concatenate([np.asarray(p) for p in parts]), dtype=parts[0].dtype)
+        del parts
+        out[column] = joined
+    return out
