@@ -57,10 +57,11 @@ def _data_for(loaded: Loaded, args: argparse.Namespace) -> tuple[ObservationBatc
     return batch, at
 
 
-def _report_input(batch: ObservationBatch, stream: Any) -> None:
+def _report_input(batch: ObservationBatch) -> None:
+    """Warnings and rejected rows of the input, on stderr."""
     import sys
 
-    stream = stream or sys.stderr
+    stream = sys.stderr
     for w in batch.warnings:
         print(f"warning: {w}", file=stream)
     for r in batch.rejections[:20]:
@@ -75,7 +76,7 @@ def cli_assess(args: argparse.Namespace) -> int:
 
     loaded = load(args.config)
     batch, at = _data_for(loaded, args)
-    _report_input(batch, None)
+    _report_input(batch)
     assessments = evaluate(loaded, batch.frame, at)
     if args.json:
         print(json.dumps(to_json(assessments), indent=2, ensure_ascii=False))
@@ -92,7 +93,7 @@ def cli_explain(args: argparse.Namespace) -> int:
     if args.site not in ids:
         raise UsageError(f"unknown site {args.site!r} (known: {', '.join(ids)})")
     batch, at = _data_for(loaded, args)
-    _report_input(batch, None)
+    _report_input(batch)
     assessments = evaluate(loaded, batch.frame, at)
     (sa,) = [a for a in assessments if a.site.id == args.site]
     print(explanation(sa, loaded.rules))
@@ -271,9 +272,10 @@ def cli_replay(args: argparse.Namespace) -> int:
         raise UsageError(f"--step: {exc}") from exc
     if step_s <= 0:
         raise UsageError("--step must be positive")
-    frame, rejections, warnings = read_files([Path(p) for p in args.data], loaded.config,
-                                             datetime.now(UTC))
-    _report_input(ObservationBatch(frame, rejections, warnings), None)
+    frame, rejections, warnings = read_files(
+        [Path(p) for p in args.data], loaded.config, datetime.now(UTC)
+    )
+    _report_input(ObservationBatch(frame, rejections, warnings))
     sets = [(loaded, "rules")]
     if args.rules_b:
         other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]))
@@ -283,11 +285,15 @@ def cli_replay(args: argparse.Namespace) -> int:
     n_steps = int((end - start).total_seconds() // step_s) + 1
     results = []
     for which, label in sets:
-        bar = rp.progress_bar() if (n_steps > 300 and not args.json
-                                    and sys.stderr.isatty()) else None
+        bar = (
+            rp.progress_bar() if (n_steps > 300 and not args.json and sys.stderr.isatty()) else None
+        )
         deliver = Path(args.deliver_to) / label if args.deliver_to else None
-        results.append(rp.replay(which, frame, start, end, step_s, label=label,
-                                 deliver_to=deliver, progress=bar))
+        results.append(
+            rp.replay(
+                which, frame, start, end, step_s, label=label, deliver_to=deliver, progress=bar
+            )
+        )
     if args.json:
         print(json.dumps(rp.to_json(results), indent=2, ensure_ascii=False))
     else:

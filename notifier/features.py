@@ -41,7 +41,7 @@ from collections import OrderedDict
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -1136,10 +1136,3 @@ def _observed(
     mist[sidx] = mist_now
     fzfg[sidx] = fz_now
     return fog, mist, fzfg
-
-
-def feature_rows(table: FeatureTable) -> list[dict[str, Any]]:
-    """One plain dict per site (for JSON output)."""
-    names = list(table.values)
-    columns = [table.values[name].tolist() for name in names]
-    return [dict(zip(names, row, strict=True)) for row in zip(*columns, strict=True)]

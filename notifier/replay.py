@@ -123,8 +123,6 @@ def replay(
     progress: Callable[[int, int], None] | None = None,
 ) -> ReplayResult:
     """Step from ``start`` to ``end`` and collect events, alert periods and night scores."""
-    import pandas as pd
-
     from notifier.assess import HOLD_STEP_S, assess_times, level_rank
     from notifier.lifecycle import step
 
@@ -186,7 +184,6 @@ def replay(
     result = ReplayResult(start, end, step_s, ids, events, times, fog_level, nights, label)
     if deliver_to is not None:
         result.delivered = _write_messages(loaded, events, deliver_to)
-    del pd
     return result
 
 
