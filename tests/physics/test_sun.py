@@ -276,3 +276,23 @@ def test_dates_outside_supported_years_are_nan(day: dt.date) -> None:
         warnings.simplefilter("error")
         rise, sset = sunrise_sunset_utc(51.4769, 0.0, day)
     assert np.isnan(rise) and np.isnan(sset)
+
+
+def test_many_sites_at_once_match_each_alone() -> None:
+    """Thousands of sites take the interpolated declination/EoT grid; each alone takes
+    the direct equations. The interpolation error bound (h²/8 · f'', see
+    ``notifier.physics.sun._GRID_STEP_S``) allows a few milliseconds of event time."""
+    rng = np.random.default_rng(11)
+    n = 2000
+    lats = rng.uniform(-60.0, 65.0, n)
+    lons = rng.uniform(-180.0, 180.0, n)
+    times = posix("2025-11-20T03:00:00") + rng.uniform(-3 * 86400, 3 * 86400, n)
+    sunset_s, sunrise_s, is_night = night_bounds_utc(lats, lons, times)
+    for i in rng.choice(n, 60, replace=False):
+        one = night_bounds_utc(lats[i], lons[i], times[i])
+        np.testing.assert_allclose([sunset_s[i], sunrise_s[i]], [one[0], one[1]], atol=0.005)
+        assert bool(is_night[i]) == bool(one[2])
+    # and the many-site answer still agrees with astral's NOAA events (±60 s, REFERENCES)
+    for i in rng.choice(n, 10, replace=False):
+        day = dt.datetime.fromtimestamp(sunset_s[i] + lons[i] * 240.0, tz=dt.UTC).date()
+        assert abs(sunset_s[i] - astral_event_s(lats[i], lons[i], day, rising=False)) < 1.0
