@@ -488,11 +488,11 @@ def _parse_times(
     strings = pd.Series(text, dtype=object)
     if aware.any():
         parsed = pd.to_datetime(strings[aware], utc=True, format="ISO8601", errors="coerce")
-        values[aware] = _utc_naive(pd.DatetimeIndex(parsed))
+        values[aware] = _utc_naive(_in_ns_range(pd.DatetimeIndex(parsed)))
     local = pd.DatetimeIndex(values)
     if naive.any():
         local = pd.to_datetime(strings.where(naive, None), format="ISO8601", errors="coerce")
-        local = pd.DatetimeIndex(local).as_unit("ns")
+        local = _in_ns_range(pd.DatetimeIndex(local)).as_unit("ns")
     unparsed = (aware & np.isnat(values)) | (naive & np.isnat(local.to_numpy()))
     checks.reject(
         unparsed,
@@ -557,6 +557,15 @@ class _Numbers:
         unit = ALTERNATIVES[name][1]
         given = self.given[name][row]
         return f"{_fmt(given)} {_SHOWN_UNIT.get(unit, unit)} ({_fmt(value)} {shown})"
+
+
+def _in_ns_range(index: pd.DatetimeIndex) -> pd.DatetimeIndex:
+    """NaT for times the table's nanosecond clock cannot hold (about 1677–2262): the
+    parser reads such text (``.8`` as year 0) at a coarser unit without complaint."""
+    lo, hi = pd.Timestamp.min, pd.Timestamp.max
+    if index.tz is not None:
+        lo, hi = lo.tz_localize("UTC"), hi.tz_localize("UTC")
+    return index.where((index >= lo) & (index <= hi))
 
 
 def _utc_naive(index: pd.DatetimeIndex) -> np.ndarray:

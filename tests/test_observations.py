@@ -261,6 +261,12 @@ VALIDATORS = [
     ("bad-time", row(time="yesterday"), "time",
      "not an ISO 8601 time: 'yesterday' (expected e.g. 2024-01-05T03:00:00Z)"),
     ("no-time", row(time=...), "time", "time missing"),
+    # found by the file-drop fuzz test: the parser read ".8" as year 0, which the
+    # table's nanosecond clock cannot hold, and the whole file failed
+    ("year-zero", row(time=".8"), "time",
+     "not an ISO 8601 time: '.8' (expected e.g. 2024-01-05T03:00:00Z)"),
+    ("year-one-utc", row(time="0001-01-01T00:00:00Z"), "time",
+     "not an ISO 8601 time: '0001-01-01T00:00:00Z' (expected e.g. 2024-01-05T03:00:00Z)"),
     ("unknown-site", row(site="zz-nowhere"), "site",
      "unknown site 'zz-nowhere' (known: zz-quay, zz-vale)"),
     ("no-site", row(site=...), "site", "site missing"),
