@@ -98,7 +98,7 @@ def chart_png(
     zone = ZoneInfo(tz_name)
     data = frame
     if "kind" in data.columns:
-        data = data[data["kind"].fillna("obs") == "obs"]
+        data = data[(data["kind"].isna() | (data["kind"] == "obs")).to_numpy()]
     times = pd.to_datetime(data["time"], utc=True) if "time" in data.columns else None
     if times is not None:
         keep = (times > pd.Timestamp(now - WINDOW)) & (times <= pd.Timestamp(now))

@@ -31,6 +31,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.routing import Delivery
     from notifier.sources.base import ObservationSource, PollResult
     from notifier.store import Store
+    from notifier.window import RollingWindow
 
 __all__ = ["CycleReport", "Loaded", "Service", "evaluate", "load", "observations_for", "parse_time"]
 
@@ -141,6 +142,8 @@ class Service:
         # evaluated. Their feature tables are kept, so a cycle computes only its own time
         # (they say what was known then, as a person on watch would have seen it).
         self._features: dict[float, FeatureTable] = {}
+        # the rolling window, kept in memory: each cycle reads only the rows written since
+        self._window: RollingWindow | None = None
         self._stop = threading.Event()
         self._lock = threading.Lock()  # one cycle or delivery at a time
 
@@ -181,6 +184,7 @@ class Service:
         with self._lock:
             self.loaded = loaded
             self._features.clear()
+            self._window = None  # the sites or the window's length may have changed
             self._mtimes = self._file_mtimes()
         return True, "reloaded"
 
@@ -202,9 +206,22 @@ class Service:
         """Poll (all sources, or the given ones), assess, run the lifecycle, queue."""
         with self._lock:
             polls = self.poll(now, source_ids)
-            obs = observations_for(self.config, self.store, now)
+            obs = self._observations(now)
             assessments = evaluate(self.loaded, obs, now, self._remembered(now))
             return self._advance(now, assessments, obs, polls)
+
+    def _observations(self, now: datetime) -> pd.DataFrame:
+        """The rolling window at ``now`` (as :func:`observations_for` reads it)."""
+        if self._window is None:
+            from notifier.window import RollingWindow
+
+            self._window = RollingWindow(
+                self.store,
+                [s.id for s in self.config.sites],
+                back=timedelta(seconds=self.config.store.window),
+                ahead=FORECAST_HORIZON,
+            )
+        return self._window.frame(now)
 
     def _remembered(self, now: datetime) -> dict[float, FeatureTable]:
         """The feature cache, without what no hold window can reach from ``now``.
@@ -337,7 +354,7 @@ class Service:
         from notifier.routing import route
 
         with self._lock:
-            obs = observations_for(self.config, self.store, now)
+            obs = self._observations(now)
             wanted = set(site_ids)
             sites = [a for a in evaluate(self.loaded, obs, now) if a.site.id in wanted]
             events = [outlook_event(sa, now) for sa in sites]

@@ -141,10 +141,28 @@ def _m0002_alerts(conn: Connection) -> None:
         conn.exec_driver_sql(ddl)
 
 
+def _m0003_observation_batches(conn: Connection) -> None:
+    """Number the write batches of observations, so that a reader holding the window in
+    memory can fetch only what changed since it last looked (``Store.window(after=…)``).
+
+    ``received_at`` cannot serve: it is the writer's clock, which the demo and replay
+    set themselves, and two writers' clocks need not agree. Rows written before this
+    migration are batch 0.
+    """
+    for ddl in (
+        "ALTER TABLE observations ADD COLUMN batch INTEGER NOT NULL DEFAULT 0",
+        "CREATE INDEX observations_batch ON observations (batch)",
+        "CREATE TABLE counters (name TEXT PRIMARY KEY, value INTEGER NOT NULL)",
+        "INSERT INTO counters (name, value) VALUES ('observation_batch', 0)",
+    ):
+        conn.exec_driver_sql(ddl)
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
     Migration("0002_alerts", _m0002_alerts),
+    Migration("0003_observation_batches", _m0003_observation_batches),
 ]
 
 metadata = sa.MetaData()
@@ -165,6 +183,13 @@ observations = sa.Table(
     sa.Column("weather", sa.Text),
     sa.Column("source", sa.Text),
     sa.Column("received_at", sa.Integer, nullable=False),
+    sa.Column("batch", sa.Integer, nullable=False),
+)
+counters = sa.Table(
+    "counters",
+    metadata,
+    sa.Column("name", sa.Text, primary_key=True),
+    sa.Column("value", sa.Integer, nullable=False),
 )
 source_health = sa.Table(
     "source_health",
@@ -325,6 +350,7 @@ class Store:
         received = _epoch_s(received_at or datetime.now(UTC))
         nan_is_null = self.engine.dialect.name == "sqlite"
         with self._write(conn) as c:
+            batch = self._next_batch(c)
             # Straight to the DB-API cursor: SQLAlchemy's per-row parameter handling would
             # triple the cost of a million-row batch.
             cursor = c.connection.cursor()
@@ -335,7 +361,7 @@ class Store:
                         for name in (*FLOAT_COLUMNS, "weather")
                         if bool(part[name].notna().any())
                     ]
-                    sql = self._upsert_sql(present, kind, source, received)
+                    sql = self._upsert_sql(present, kind, source, received, batch)
                     rows = _rows(part, present, nan_is_null=nan_is_null)
                     for start in range(0, len(rows), _BATCH_ROWS):
                         cursor.executemany(sql, rows[start : start + _BATCH_ROWS])
@@ -356,17 +382,46 @@ class Store:
     def _mark(self) -> str:
         return "?" if self.engine.dialect.paramstyle == "qmark" else "%s"
 
-    def _upsert_sql(self, present: list[str], kind: str, source: Any, received: int) -> str:
+    def _next_batch(self, conn: Connection) -> int:
+        """The number of a new write batch. The counter row stays locked until the
+        batch commits, so batches commit in the order of their numbers."""
+        conn.execute(
+            counters.update()
+            .where(counters.c.name == "observation_batch")
+            .values(value=counters.c.value + 1)
+        )
+        return int(
+            conn.execute(
+                sa.select(counters.c.value).where(counters.c.name == "observation_batch")
+            ).scalar_one()
+        )
+
+    def last_batch(self) -> int:
+        """The number of the newest committed write batch of observations (0: none)."""
+        with self.engine.connect() as conn:
+            return int(
+                conn.execute(
+                    sa.select(counters.c.value).where(counters.c.name == "observation_batch")
+                ).scalar_one()
+            )
+
+    def _upsert_sql(
+        self, present: list[str], kind: str, source: Any, received: int, batch: int
+    ) -> str:
         """Only the columns this batch fills are bound, and the batch-wide values are
         written into the statement: each bound column costs time on every row."""
-        names = ["site", "time", *present, "kind", "source", "received_at"]
+        names = ["site", "time", *present, "kind", "source", "received_at", "batch"]
         values = [self._mark()] * (2 + len(present))
-        values += [_sql_text(kind), _sql_text(source), str(int(received))]
+        values += [_sql_text(kind), _sql_text(source), str(int(received)), str(int(batch))]
         updates = [
             f"{name} = excluded.{name}" if name in present else f"{name} = NULL"
             for name in (*FLOAT_COLUMNS, "weather")
         ]
-        updates += ["source = excluded.source", "received_at = excluded.received_at"]
+        updates += [
+            "source = excluded.source",
+            "received_at = excluded.received_at",
+            "batch = excluded.batch",
+        ]
         return (
             f"INSERT INTO observations ({', '.join(names)}) VALUES ({', '.join(values)}) "
             f"ON CONFLICT (site, time, kind) DO UPDATE SET {', '.join(updates)}"
@@ -376,25 +431,43 @@ class Store:
         self,
         site_ids: Sequence[str] | None,
         start: datetime,
-        end: datetime,
+        end: datetime | None,
         kinds: Sequence[str] = ("obs", "forecast"),
+        *,
+        after: int | None = None,
+        categorical: bool = False,
     ) -> pd.DataFrame:
-        """Rows with ``start <= time <= end``, as a canonical table sorted by site, time."""
+        """Rows with ``start <= time <= end``, as a canonical table sorted by site, time.
+
+        ``end=None``: no upper bound. ``after``: only rows written by batches after that
+        one (see :meth:`last_batch`). ``categorical``: the text columns as categoricals
+        (one string per distinct value) instead of ``str`` objects.
+        """
         mark = self._mark()
         kinds = list(kinds)
         if not kinds or (site_ids is not None and not list(site_ids)):
-            return _frame([])
+            return _frame([], shared_text=categorical)
         sql = (
             f"SELECT {', '.join(CANONICAL_COLUMNS)} FROM observations "
-            f"WHERE time >= {mark} AND time <= {mark} "
-            f"AND kind IN ({', '.join([mark] * len(kinds))})"
+            f"WHERE time >= {mark} AND kind IN ({', '.join([mark] * len(kinds))})"
         )
-        params: list[Any] = [_epoch_s(start, ceil=True), _epoch_s(end), *kinds]
+        params: list[Any] = [_epoch_s(start, ceil=True), *kinds]
+        if end is not None:
+            sql += f" AND time <= {mark}"
+            params.append(_epoch_s(end))
+        if after is not None:
+            sql += f" AND batch > {mark}"
+            params.append(int(after))
         if site_ids is not None:
             site_ids = list(site_ids)
             sql += f" AND site IN ({', '.join([mark] * len(site_ids))})"
             params += site_ids
-        sql += " ORDER BY site, time, kind"
+        if after is not None and self.engine.dialect.name == "sqlite":
+            # "+site": SQLite would otherwise walk the whole primary-key index to save the
+            # sort, rather than take the few rows of the latest batches by their index
+            sql += " ORDER BY +site, time, kind"
+        else:
+            sql += " ORDER BY site, time, kind"
         # Fetched in chunks, each turned into columns at once, and the text columns
         # (site, kind, source, weather: few distinct values) share one string object per
         # value: a 10,000-site window then costs a fraction of the memory of 1.4 M tuples.
@@ -414,8 +487,9 @@ class Store:
             finally:
                 cursor.close()
         if not chunks:
-            return _frame([])
-        return text_columns_as_objects(_join_columns(chunks))
+            return _frame([], shared_text=categorical)
+        joined = _join_columns(chunks)
+        return joined if categorical else text_columns_as_objects(joined)
 
     def trim_observations(self, before: datetime, *, conn: Connection | None = None) -> int:
         """Delete rows older than ``before``; returns how many."""

@@ -88,6 +88,56 @@ def test_window_bounds_are_inclusive_and_sorted_by_site_then_time(db):
     assert list(db.window([], start, end).columns) == CANONICAL_COLUMNS
 
 
+def test_each_write_batch_is_numbered_and_window_after_reads_only_later_ones(db):
+    assert db.last_batch() == 0
+    db.add_observations(table([obs(h) for h in (1, 2)]))
+    first = db.last_batch()
+    db.add_observations(table([obs(3), obs(2, temp_c=0.5)]))  # one new, one replacing
+    assert db.last_batch() == first + 1
+    start = NOW - timedelta(hours=12)
+    later = db.window(None, start, None, after=first)
+    assert [(t.hour, v) for t, v in zip(later["time"], later["temp_c"], strict=True)] == [
+        (2, 0.5),
+        (3, 2.0),
+    ]
+    assert db.window(None, start, None, after=db.last_batch()).empty
+    assert db.add_observations(table([])[:0]) == 0
+    assert db.last_batch() == first + 1, "an empty write is no batch"
+
+
+def test_window_without_an_end_and_with_categorical_text(db):
+    db.add_observations(table([obs(h, weather="BR" if h % 2 else None) for h in range(1, 5)]))
+    db.add_observations(table([obs(30 - 24, kind="forecast")]))  # 06Z, after NOW's window
+    start = NOW - timedelta(hours=12)
+    plain = db.window(None, start, None)
+    assert len(plain) == 5 and len(db.window(None, start, NOW - timedelta(hours=2))) == 4
+    cats = db.window(None, start, None, categorical=True)
+    assert all(isinstance(cats[c].dtype, pd.CategoricalDtype) for c in ("site", "kind"))
+    # the same table apart from the dtype of the text columns
+    as_objects = cats.astype({c: object for c in ("site", "kind", "weather", "source")})
+    as_objects = as_objects.where(as_objects.notna(), None)
+    pd.testing.assert_frame_equal(as_objects, plain)
+
+
+def test_rows_from_before_the_batch_numbers_count_as_batch_zero(tmp_path: Path, monkeypatch):
+    url = f"sqlite:///{tmp_path / 'fw.sqlite'}"
+    monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS[:2])
+    with Store(url) as old:
+        with old.atomic() as conn:  # a version-2 store written by the earlier code
+            conn.exec_driver_sql(
+                "INSERT INTO observations (site, time, kind, temp_c, dewpoint_c, received_at) "
+                "VALUES ('zz-vale', 1705035600, 'obs', 2.0, 1.0, 1705035600)"
+            )
+    monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS)
+    with Store(url) as db:
+        assert db.applied_migrations()[-1] == "0003_observation_batches"
+        start = NOW - timedelta(hours=12)
+        assert len(db.window(None, start, None)) == 1
+        assert db.window(None, start, None, after=0).empty
+        db.add_observations(table([obs(2)]))
+        assert len(db.window(None, start, None, after=0)) == 1
+
+
 def test_trim_deletes_older_rows_and_says_how_many(db):
     db.add_observations(table([obs(h) for h in range(6)]))
     assert db.trim_observations(datetime(2024, 1, 12, 2, tzinfo=UTC)) == 2

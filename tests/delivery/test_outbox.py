@@ -293,7 +293,11 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
         box.add_member("+440000001", T0, None)
         before = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))
     with Store(url) as store:
-        assert store.applied_migrations() == ["0001_initial", "0002_alerts"]
+        assert store.applied_migrations() == [
+            "0001_initial",
+            "0002_alerts",
+            "0003_observation_batches",
+        ]
         box = Outbox(store)
         after = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))
         assert after == before

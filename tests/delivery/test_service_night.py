@@ -19,8 +19,9 @@ from notifier import cli
 from notifier.channels.webhook import DELIVERY_HEADER
 from notifier.demo_data import NightSpec, simulate_night
 from notifier.messages import CAUTION
+from notifier.observations import text_columns_as_objects
 from notifier.routing import delivery_key
-from notifier.service import Service
+from notifier.service import Service, observations_for
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
 from tests.engine.scenes import EVENING
 
@@ -107,6 +108,11 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
             fed = upto
             report, sent = service.cycle(now)
             cycles += 1
+            # the window the service keeps in memory is what a fresh read would give
+            held = service._window.frame(now) if service._window else None
+            assert held is not None and service._window.last_read == 0
+            fresh = observations_for(service.config, service.store, now)
+            pd.testing.assert_frame_equal(text_columns_as_objects(held), fresh, check_dtype=False)
             assert [p.ok for p in report.polls] == [True], report.polls
             assert sent.retried == sent.failed == sent.expired == 0
             assert sent.sent == report.deliveries_added  # everything went at once
