@@ -232,9 +232,11 @@ def epoch_seconds(times: pd.Series) -> np.ndarray:
     import pandas as pd
 
     if isinstance(times.dtype, pd.DatetimeTZDtype):
-        # already parsed: read the UTC instants straight out (no conversion pass)
-        utc = times.to_numpy(dtype=f"datetime64[{times.dtype.unit}]")
-        return utc.astype("datetime64[ms]").astype(np.int64) / 1000.0
+        # already parsed: read the UTC instants straight out (no conversion pass). Whole
+        # milliseconds, then seconds: the quotient is exact for whole seconds.
+        utc = times.to_numpy(dtype=f"datetime64[{times.dtype.unit}]").view(np.int64)
+        # one pass; whole seconds come out exact (both operands are exact doubles)
+        return utc / float({"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[times.dtype.unit])
     t = pd.to_datetime(times, utc=True)
     return t.dt.tz_localize(None).to_numpy().astype("datetime64[ms]").astype(np.int64) / 1000.0
 
@@ -303,17 +305,29 @@ def _site_index(
     Rows usually come grouped by site (the store returns them sorted), so equal
     neighbours are found with one vectorised comparison and only the first row of each
     run is looked up; any order gives the same answer, just more slowly. With ``rows``,
-    only those rows are read (the others get -1).
+    only those rows need be read: the others get -1, or their index where that costs
+    nothing (categories that are the site list itself).
     """
     import pandas as pd
 
+    if isinstance(column.dtype, pd.CategoricalDtype):  # one lookup per category
+        categories = column.cat.categories
+        codes = column.cat.codes.to_numpy()
+        if len(categories) == len(pos) and categories.equals(pd.Index(pos)):
+            # the categories are the sites in order (the service's rolling window): the
+            # codes are the indices already, for every row (-1, a missing site, stays)
+            return codes.astype(np.intp)
+        lookup = [pos.get(c, -1) if isinstance(c, str) else -1 for c in categories]
+        table = np.array([*lookup, -1], dtype=np.intp)
+        if rows is None:
+            return table[codes]
+        out = np.full(len(column), -1, dtype=np.intp)
+        out[rows] = table[codes[rows]]
+        return out
     if rows is not None:
         out = np.full(len(column), -1, dtype=np.intp)
         out[rows] = _site_index(column.iloc[rows], pos)
         return out
-    if isinstance(column.dtype, pd.CategoricalDtype):  # one lookup per category
-        lookup = [pos.get(c, -1) if isinstance(c, str) else -1 for c in column.cat.categories]
-        return np.array([*lookup, -1], dtype=np.intp)[column.cat.codes.to_numpy()]
     values = column.to_numpy(dtype=object)
     if values.size == 0:
         return np.zeros(0, dtype=np.intp)
@@ -364,15 +378,19 @@ def _float_column(obs: pd.DataFrame, name: str) -> np.ndarray | None:
     return series.to_numpy(dtype=float, na_value=np.nan)
 
 
-def _weather_flags(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Present-weather text → (code per row, flags per code).
+def _weather_flags(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Present-weather text of ``rows`` → (code per row, flags per code).
 
     The flags (reported, FG, FZFG, BR — see :func:`_observed_now`) are worked out once
     per distinct text; code -1 (no text) picks the all-false last row of ``flags``.
     """
     import pandas as pd
 
-    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    if isinstance(column.dtype, pd.CategoricalDtype):  # coded already
+        codes = column.cat.codes.to_numpy()[rows]
+        uniques = column.cat.categories
+    else:
+        codes, uniques = pd.factorize(column.to_numpy()[rows], use_na_sentinel=True)
     flags = np.zeros((len(uniques) + 1, 4), dtype=bool)
     for i, value in enumerate(uniques):
         text = str(value).upper()
@@ -453,9 +471,10 @@ class _Block:
             {name: self._nan_or(name, frows) for name in _FORECAST_COLUMNS},
         )
 
-        sel = np.flatnonzero(known & is_obs_kind & window)
-        s_sel = site_idx[sel]
-        t_sel = t_all[sel]
+        taken = known & is_obs_kind & window
+        sel = np.flatnonzero(taken)
+        s_sel = site_idx[taken]  # a mask compresses faster than an index gathers
+        t_sel = t_all[taken]
         order = None
         if s_sel.size > 1 and bool(np.any(s_sel[1:] < s_sel[:-1])):
             order = np.argsort(s_sel, kind="stable")
@@ -472,20 +491,27 @@ class _Block:
         counts = np.bincount(s_sel, minlength=n)
         width = int(counts.max()) if counts.size and counts.max() > 0 else 1
         starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-        # the k-th sorted row goes to flat cell k + (s·width + width − count_s − start_s)
-        offset = np.arange(n) * width + width - counts - starts
-        src = np.full(n * width, nrows, dtype=np.intp)
-        src[np.arange(s_sel.size) + offset[s_sel]] = rows_sorted
+        # cell (s, j) holds sorted row start_s + j - (width - count_s), or is padding when
+        # j < width - count_s: gathered cell by cell (a broadcast), not scattered by row
+        empty = width - counts
+        cols = np.arange(width)
+        self.pad = cols[None, :] < empty[:, None]
+        if rows_sorted.size:
+            which = (starts - empty)[:, None] + cols[None, :]
+            np.clip(which, 0, rows_sorted.size - 1, out=which)
+            src = rows_sorted.take(which)
+            np.putmask(src, self.pad, nrows)
+        else:
+            src = np.full((n, width), nrows, dtype=np.intp)
         self.width = width
-        self.src = src.reshape(n, width)
-        self.pad = self.src == nrows
+        self.src = src
         self.t = self._gather(t_all, self.src, self.pad)
         self._steps = width.bit_length()
 
         wrows = rows_sorted[t_sel >= t_weather]
         self.weather_code = np.full(nrows, -1, dtype=np.intp)
         if "weather" in obs and wrows.size:
-            codes, self.weather_flags = _weather_flags(obs["weather"].to_numpy()[wrows])
+            codes, self.weather_flags = _weather_flags(obs["weather"], wrows)
             self.weather_code[wrows] = codes
         else:
             self.weather_flags = np.zeros((1, 4), dtype=bool)

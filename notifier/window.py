@@ -10,9 +10,11 @@ the back of the window.
 
 It holds every row of the configured sites from ``at - back`` on, however far ahead a
 forecast reaches, so that forecasts come into view as time moves on without another
-read, and hands out exactly what ``Store.window(sites, at - back, at + ahead,
-categorical=True)`` would return: the canonical table sorted by site, time and kind,
-with categorical text columns. A test holds it to that after random writes.
+read, and hands out the rows ``Store.window(sites, at - back, at + ahead)`` would
+return, as a canonical table with categorical text columns. The rows are grouped by
+site in the order of ``site_ids`` (the ``site`` categories are that list, so a site's
+code is its index in the configuration, which ``notifier.features`` reads directly),
+each site's rows by time, then kind. A test holds it to that after random writes.
 
 An evaluation time earlier than the last one (a simulated clock going back, or a
 ``--at`` in the past) reads the window whole again: the rows it needs may already have
@@ -45,11 +47,9 @@ class RollingWindow:
     """Observations of ``site_ids`` from ``at - back`` to ``at + ahead``, kept up to date
     from ``store`` with one small read per call of :meth:`frame`."""
 
-    def __init__(
-        self, store: Store, site_ids: Sequence[str], *, back: timedelta, ahead: timedelta
-    ):
+    def __init__(self, store: Store, site_ids: Sequence[str], *, back: timedelta, ahead: timedelta):
         self.store = store
-        self.sites = pd.Index(sorted(set(site_ids)), dtype=object)
+        self.sites = pd.Index(list(dict.fromkeys(site_ids)), dtype=object)
         self.back = back
         self.ahead = ahead
         self._site_dtype = pd.CategoricalDtype(self.sites)
@@ -189,9 +189,7 @@ class RollingWindow:
                     cut(values), dtype=self._kind_dtype, validate=False
                 )
             elif name == "time":
-                data[name] = pd.Series(cut(values).view("M8[ns]"), copy=False).dt.tz_localize(
-                    "UTC"
-                )
+                data[name] = pd.Series(cut(values).view("M8[ns]"), copy=False).dt.tz_localize("UTC")
             elif isinstance(values, tuple):
                 codes, categories = values
                 data[name] = pd.Categorical.from_codes(

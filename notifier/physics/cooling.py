@@ -112,19 +112,23 @@ def fit_sqrt_cooling(
         np.atleast_1d(np.asarray(temp_c, dtype=float)),
     )
     usable = np.isfinite(hours) & np.isfinite(temp) & (hours >= 0.0)
-    x = np.sqrt(np.where(usable, hours, 0.0))
+    x = np.sqrt(np.where(usable, hours, 0.0))  # 0 where unusable: adds nothing below
     y = np.where(usable, temp, 0.0)
     count = usable.sum(axis=-1)
-    # initial= keeps an empty time axis from raising.
-    x_max = np.where(usable, x, -np.inf).max(axis=-1, initial=-np.inf)
+    # initial= keeps an empty time axis from raising; x >= 0, so the unusable zeros
+    # never raise the maximum
+    x_max = x.max(axis=-1, initial=0.0)
     x_min = np.where(usable, x, np.inf).min(axis=-1, initial=np.inf)
     spread = x_max - x_min
     ok = (count >= _MIN_FIT_POINTS) & (spread > 0.0)
-    x_mean = x.sum(axis=-1) / count
-    y_mean = y.sum(axis=-1) / count
-    dx = np.where(usable, x - x_mean[..., np.newaxis], 0.0)
-    dy = np.where(usable, y - y_mean[..., np.newaxis], 0.0)
-    slope = (dx * dy).sum(axis=-1) / (dx * dx).sum(axis=-1)
+    # the sums in one pass each; centred afterwards (x <= ~4, T within tens of degrees:
+    # no cancellation worth the name in float64)
+    sum_x, sum_y = x.sum(axis=-1), y.sum(axis=-1)
+    sum_xx = np.einsum("...i,...i->...", x, x)
+    sum_xy = np.einsum("...i,...i->...", x, y)
+    x_mean = sum_x / count
+    y_mean = sum_y / count
+    slope = (sum_xy - sum_x * y_mean) / (sum_xx - sum_x * x_mean)
     t0 = y_mean - slope * x_mean
     t0_c = np.where(ok, t0, np.nan)
     k_per_sqrt_h = np.where(ok, -slope, np.nan)

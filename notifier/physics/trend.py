@@ -31,8 +31,10 @@ def _theil_sen_rows(hours: NDArray[np.float64], values: NDArray[np.float64]) -> 
     rows_per_chunk = max(1, _MAX_PAIRS_PER_CHUNK // first.size)
     for start in range(0, rows, rows_per_chunk):
         stop = min(rows, start + rows_per_chunk)
-        dx = hours[start:stop, second] - hours[start:stop, first]
-        dy = values[start:stop, second] - values[start:stop, first]
+        # np.take along an axis: several times faster than fancy indexing here
+        h, v = hours[start:stop], values[start:stop]
+        dx = np.take(h, second, axis=1) - np.take(h, first, axis=1)
+        dy = np.take(v, second, axis=1) - np.take(v, first, axis=1)
         slopes = dy / dx
         # Pairs at equal times carry no slope (Sen 1968 excludes tied x).
         usable = np.isfinite(slopes) & (dx != 0.0)
