@@ -716,18 +716,29 @@ def _night_bounds(st: _Sites, t_at: float) -> tuple[np.ndarray, np.ndarray, np.n
 
     It is a pure function of the coordinates and the time, and the hold windows of one
     cycle (10 and 20 minutes back) are the evaluation times of the cycles before, so
-    the few most recent answers are kept. Copies go out: callers may change theirs.
+    the few most recent answers are kept. A new time starts from the latest answer
+    before it (the cycle before): only the sites whose sun has set or risen since are
+    worked out again. Copies go out: callers may change theirs.
     """
     key = (t_at, st.lat.tobytes(), st.lon.tobytes())
+    earlier = None
     with _SUN_LOCK:
         hit = _SUN_CACHE.get(key)
         if hit is not None:
             _SUN_CACHE.move_to_end(key)
+        else:
+            before = [k for k in _SUN_CACHE if k[0] < t_at and k[1:] == key[1:]]
+            if before:
+                earlier = (max(before)[0], _SUN_CACHE[max(before)])
     if hit is None:
-        n = len(st.ids)
-        hit = tuple(
-            np.asarray(a) for a in physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_at))
-        )
+        if earlier is not None:
+            t_known, answer = earlier
+            hit = _carried(st, t_at, t_known, *(a.copy() for a in answer))
+        else:
+            n = len(st.ids)
+            hit = tuple(
+                np.asarray(a) for a in physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_at))
+            )
         with _SUN_LOCK:
             _SUN_CACHE[key] = hit
             while len(_SUN_CACHE) > _SUN_CACHE_SIZE:
@@ -736,30 +747,47 @@ def _night_bounds(st: _Sites, t_at: float) -> tuple[np.ndarray, np.ndarray, np.n
     return sunset, sunrise, night
 
 
+def _carried(
+    st: _Sites,
+    t_at: float,
+    t_known: float,
+    sunset: np.ndarray,
+    sunrise: np.ndarray,
+    night: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``physics.night_bounds_utc`` at ``t_at`` from its answer at ``t_known`` (changed
+    in place and returned).
+
+    Later than ``t_known``, a site at night stays in the same night until its sunrise,
+    and a site by day keeps the same coming night until its sunset (a time exactly at
+    sunset is night, at sunrise day, as there). Earlier, a site at night whose sunset had
+    come by ``t_at`` is in that same night. Those keep the answer; the others (an event
+    passed, unknown, or by day earlier) are worked out again.
+    """
+    with np.errstate(invalid="ignore"):
+        if t_at >= t_known:
+            ahead = np.where(night, t_at < sunrise, t_at < sunset)
+            still = np.isfinite(sunset) & np.isfinite(sunrise) & ahead
+        else:
+            still = night & (sunset <= t_at)
+    redo = ~still
+    if redo.any():
+        s2, r2, n2 = physics.night_bounds_utc(st.lat[redo], st.lon[redo], np.full(redo.sum(), t_at))
+        sunset[redo], sunrise[redo], night[redo] = s2, r2, n2
+    return sunset, sunrise, night
+
+
 def _sun(
     st: _Sites,
     t_at: float,
     later: tuple[float, np.ndarray, np.ndarray, np.ndarray] | None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``physics.night_bounds_utc`` for every site at ``t_at``.
-
-    ``later`` is the result for a later time of the same call. A site that was in the
-    night then, and whose sunset had already come by ``t_at``, is in that same night at
-    ``t_at``: only the other sites are computed again.
-    """
+    """``physics.night_bounds_utc`` for every site at ``t_at``; ``later`` is the result
+    for a later time of the same call, which most sites can keep (see :func:`_carried`)."""
     if later is None:
         return _night_bounds(st, t_at)
     t_later, sunset, sunrise, night = later
-    if t_later == t_at:  # worked out for exactly this time already
-        return sunset.copy(), sunrise.copy(), night.copy()
-    same = night & (sunset <= t_at) & (t_at <= t_later)
-    sunset, sunrise, night = sunset.copy(), sunrise.copy(), night.copy()
-    if same.all():
-        return sunset, sunrise, night
-    redo = ~same
-    s2, r2, n2 = physics.night_bounds_utc(st.lat[redo], st.lon[redo], np.full(redo.sum(), t_at))
-    sunset[redo], sunrise[redo], night[redo] = s2, r2, n2
-    return sunset, sunrise, night
+    return _carried(st, t_at, t_later, sunset.copy(), sunrise.copy(), night.copy())
 
 
 def _features_at(

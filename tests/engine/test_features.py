@@ -300,16 +300,57 @@ def test_many_times_at_once_equal_each_time_alone():
     # more than a handful of times takes the batched sun path (a replay's day of steps)
     from notifier.features import compute_features_at
 
-    sites = [site("a"), site("b", exposure="valley", lat=60.1, lon=10.0),
-             site("c", lat=-33.9, lon=18.4, timezone="Africa/Johannesburg")]
+    sites = [
+        site("a"),
+        site("b", exposure="valley", lat=60.1, lon=10.0),
+        site("c", lat=-33.9, lon=18.4, timezone="Africa/Johannesburg"),
+    ]
     end = utc(2026, 10, 15, 6)
-    frames = [steady(s.id, end, hours=30, temp_c=(12.0, 4.0), dewpoint_c=(6.0, 3.5),
-                     wind_ms=1.0, cloud_pct=10.0) for s in sites]
+    frames = [
+        steady(
+            s.id,
+            end,
+            hours=30,
+            temp_c=(12.0, 4.0),
+            dewpoint_c=(6.0, 3.5),
+            wind_ms=1.0,
+            cloud_pct=10.0,
+        )
+        for s in sites
+    ]
     obs = pd.concat(frames)
     times = [end - timedelta(minutes=50 * k) for k in range(14)]
     batched = compute_features_at(obs, sites, times)
     for t, table in zip(times, batched, strict=True):
         alone = compute_features(obs, sites, t)
         for name in FEATURES:
-            np.testing.assert_allclose(table.values[name], alone.values[name], rtol=0,
-                                       atol=1e-9, err_msg=f"{t} {name}")
+            np.testing.assert_allclose(
+                table.values[name], alone.values[name], rtol=0, atol=1e-9, err_msg=f"{t} {name}"
+            )
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_the_sun_carried_from_another_time_equals_the_sun_worked_out(seed):
+    # A cycle reuses the sun of the cycle before (or a later hold time's) for every site
+    # whose sun has neither set nor risen in between; the reference is
+    # physics.night_bounds_utc at the new time, itself checked against astral
+    # (tests/physics/test_sun.py). Offsets span sunsets and sunrises in both directions.
+    from notifier import physics
+    from notifier.features import _carried, _Sites
+
+    rng = np.random.default_rng(seed)
+    n = 400
+    sites = [
+        site(f"s{i}", lat=float(rng.uniform(-60.0, 66.0)), lon=float(rng.uniform(-180, 180)))
+        for i in range(n)
+    ]
+    st = _Sites.of(sites)
+    t_known = utc(2026, 11, 20, 3).timestamp() + float(rng.uniform(0, 86400))
+    known = physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_known))
+    for hours in (-14.0, -5.0, -0.5, 0.0, 0.2, 3.0, 9.0, 16.0, 30.0):
+        t_at = t_known + hours * 3600.0
+        carried = _carried(st, t_at, t_known, *(np.array(a, copy=True) for a in known))
+        direct = physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_at))
+        np.testing.assert_array_equal(carried[2], direct[2], err_msg=f"night at {hours} h")
+        for got, want in zip(carried[:2], direct[:2], strict=True):
+            np.testing.assert_allclose(got, want, rtol=0, atol=0.01, err_msg=f"{hours} h")
