@@ -123,6 +123,19 @@ class SiteResults(Sequence[RuleResult]):
     def __len__(self) -> int:
         return len(self._evals)
 
+    def where(self, keep: Callable[[Rule], bool]) -> list[RuleResult]:
+        """The results of the rules ``keep`` accepts; the others are not built."""
+        if self._cache is not None:
+            return [r for r in self._cache if keep(r.rule)]
+        return [ev[self._i] for ev in self._evals if keep(ev.rule)]
+
+
+def results_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[RuleResult]:
+    """``sa``'s results for the rules ``keep`` accepts (built lazily where they can be)."""
+    if isinstance(sa.results, SiteResults):
+        return sa.results.where(keep)
+    return [r for r in sa.results if keep(r.rule)]
+
 
 @dataclass
 class SiteAssessment:
@@ -227,11 +240,20 @@ def assess_times(
         )
     )
     ranked = [(ev, level_rank(ev.rule.level)) for ev in evals]
+    moments: dict[float, datetime] = {}  # last readings and sunsets repeat: one object each
+
+    def moment(seconds: float) -> datetime:
+        found = moments.get(seconds)
+        if found is None:
+            found = moments[seconds] = datetime.fromtimestamp(seconds, UTC)
+        return found
+
     out = []
     for k, at in enumerate(times):
         now = tables[at.timestamp()]
         last_times = now.last_time.tolist()
         methods = now.projection_method.tolist()
+        fits = (now.fit_t0_c.tolist(), now.fit_k_per_sqrt_h.tolist(), now.last_sunset.tolist())
         per_time = []
         for i, site in enumerate(sites):
             flat = k * n + i
@@ -241,10 +263,10 @@ def assess_times(
                 time=at,
                 features=FeatureRow(now, i),
                 projection_method=str(methods[i] or ""),
-                last_time=None if last != last else datetime.fromtimestamp(last, UTC),
+                last_time=None if last != last else moment(last),
                 results=SiteResults(evals, flat),
                 stale_after_min=stale_after_min,
-                projection=_projection(now, i) if methods[i] == "cooling-fit" else None,
+                projection=_projection(fits, i, moment) if methods[i] == "cooling-fit" else None,
             )
             if flat in flags:
                 _aggregate(sa, at, ranked, flat, *flags[flat])
@@ -253,11 +275,16 @@ def assess_times(
     return out
 
 
-def _projection(table: FeatureTable, i: int) -> tuple[float, float, datetime] | None:
-    t0, k, sunset = table.fit_t0_c[i], table.fit_k_per_sqrt_h[i], table.last_sunset[i]
-    if np.isnan(t0) or np.isnan(k) or np.isnan(sunset):
+def _projection(
+    fits: tuple[list[float], list[float], list[float]],
+    i: int,
+    moment: Callable[[float], datetime],
+) -> tuple[float, float, datetime] | None:
+    """(T0, k, sunset) of site ``i``'s cooling fit, from the table's columns as lists."""
+    t0, k, sunset = fits[0][i], fits[1][i], fits[2][i]
+    if t0 != t0 or k != k or sunset != sunset:  # NaN
         return None
-    return float(t0), float(k), datetime.fromtimestamp(float(sunset), UTC)
+    return t0, k, moment(sunset)
 
 
 def _aggregate(

@@ -45,7 +45,7 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
-from notifier.assess import level_rank
+from notifier.assess import level_rank, results_where
 from notifier.features import FEATURES
 from notifier.rules import HAZARDS, format_value
 
@@ -277,9 +277,8 @@ def _rank(level: str) -> int:
 
 def _shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
     names = list(SHOWN_FEATURES)
-    for result in sa.results:
-        if result.rule.id in rule_ids:
-            names.extend(sorted(result.rule.features()))
+    for result in results_where(sa, lambda rule: rule.id in rule_ids):
+        names.extend(sorted(result.rule.features()))
     out: dict[str, float] = {}
     for name in names:
         value = sa.features.get(name)
@@ -297,9 +296,7 @@ def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
     """What is no longer true: each test of the ended rules that does not hold now."""
     lines: list[str] = []
     unknown: list[str] = []
-    for result in sa.results:
-        if result.rule.id not in state.rules:
-            continue
+    for result in results_where(sa, lambda rule: rule.id in state.rules):
         if not result.applies:
             continue
         for outcome in result.outcomes:
@@ -324,11 +321,8 @@ def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
 
 
 def _sustaining_rules(sa: SiteAssessment, hazard: str, level: str) -> tuple[str, ...]:
-    return tuple(
-        r.rule.id
-        for r in sa.results
-        if r.applies and r.sustains and r.rule.hazard == hazard and r.rule.level == level
-    )
+    same = results_where(sa, lambda rule: rule.hazard == hazard and rule.level == level)
+    return tuple(r.rule.id for r in same if r.applies and r.sustains)
 
 
 def _make_event(
@@ -414,7 +408,7 @@ def _step_one(
 
     if sa.stale and not is_data:
         # unknown is not "below threshold": no clearing and no reminder on stale data
-        return replace(state, below_since=None, clear_since=None), []
+        return _with_since(state, None, None), []
 
     below_since = None
     if _rank(sustain) < _rank(state.level):
@@ -471,7 +465,7 @@ def _step_one(
         )
         return new, [event]
 
-    new = replace(state, below_since=below_since, clear_since=clear_since)
+    new = _with_since(state, below_since, clear_since)
     every = timedelta(seconds=settings.reminder_every)
     last = state.last_reminder_at or state.since
     if (
@@ -493,6 +487,16 @@ def _step_one(
         )
         return new, [event]
     return new, []
+
+
+def _with_since(
+    state: AlertState, below_since: datetime | None, clear_since: datetime | None
+) -> AlertState:
+    """``state`` with these easing times; itself when they are its own already (most
+    cycles change nothing, and a replay steps through a great many)."""
+    if state.below_since == below_since and state.clear_since == clear_since:
+        return state
+    return replace(state, below_since=below_since, clear_since=clear_since)
 
 
 def _ended(state: AlertState, now: datetime) -> AlertState:

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from notifier.assess import iso_z
+from notifier.assess import iso_z, results_where
 from notifier.features import epoch_seconds
 from notifier.verify import (
     Contingency,
@@ -94,8 +94,8 @@ def _fog_onsets(
 def _why_not(sa: Any) -> list[str]:
     """For a miss: each fog rule for this site and what kept it from firing."""
     lines = []
-    for r in sa.results:
-        if r.rule.hazard != "fog" or not r.applies or r.fires:
+    for r in results_where(sa, lambda rule: rule.hazard == "fog"):
+        if not r.applies or r.fires:
             continue
         if r.missing:
             lines.append(f"{r.rule.id}: unknown {', '.join(r.missing)}")
@@ -123,6 +123,8 @@ def replay(
     progress: Callable[[int, int], None] | None = None,
 ) -> ReplayResult:
     """Step from ``start`` to ``end`` and collect events, alert periods and night scores."""
+    import pandas as pd
+
     from notifier.assess import HOLD_STEP_S, assess_times, level_rank
     from notifier.lifecycle import step
 
@@ -131,7 +133,15 @@ def replay(
     ids = [s.id for s in sites]
     start, end = start.astimezone(UTC), end.astimezone(UTC)
     obs = obs.sort_values("time", kind="stable").reset_index(drop=True) if len(obs) else obs
+    if len(obs):
+        # sites coded in the configuration's order: the feature pass reads the codes as
+        # site indices instead of looking each row's text up (the rows are in time order)
+        obs = obs.assign(
+            site=pd.Categorical(obs["site"], categories=ids),
+            kind=pd.Categorical(obs["kind"], categories=["forecast", "obs"]),
+        )
     t_rows = epoch_seconds(obs["time"]) if len(obs) else np.array([])
+    pos = {sid: i for i, sid in enumerate(ids)}
     n_steps = int(math.floor((end - start).total_seconds() / step_s)) + 1
     times = start.timestamp() + np.arange(n_steps) * step_s
     fog_level = np.zeros((len(sites), n_steps), dtype=np.int8)
@@ -139,7 +149,7 @@ def replay(
     onset_steps: dict[int, list[tuple[int, tuple[str, datetime]]]] = {}
     for key, when in onsets.items():
         k = int(math.ceil((when.timestamp() - times[0]) / step_s))
-        onset_steps.setdefault(min(max(k, 0), n_steps - 1), []).append((ids.index(key[0]), key))
+        onset_steps.setdefault(min(max(k, 0), n_steps - 1), []).append((pos[key[0]], key))
     why_not: dict[tuple[str, datetime], list[str]] = {}
     states: dict[Any, Any] = {}
     events: list[Event] = []
@@ -174,7 +184,7 @@ def replay(
         events.extend(found)
         for (site_id, hazard), st in states.items():
             if hazard == "fog":
-                fog_level[ids.index(site_id), k] = level_rank(st.level)
+                fog_level[pos[site_id], k] = level_rank(st.level)
         for i, key in onset_steps.get(k, []):
             why_not[key] = _why_not(assessments[i])
         if progress is not None:
@@ -199,6 +209,10 @@ def _nights(
     step_s: float,
 ) -> list[NightOutcome]:
     out = []
+    fog_events: dict[str, list[Event]] = {}
+    for e in events:
+        if e.hazard == "fog":
+            fog_events.setdefault(e.site_id, []).append(e)
     for i, site in enumerate(sites):
         night = night_of(start, site.timezone)
         while night < end:
@@ -217,10 +231,8 @@ def _nights(
                 o.rules = sorted(
                     {
                         r
-                        for e in events
-                        if e.site_id == site.id
-                        and e.hazard == "fog"
-                        and n_start <= e.time.timestamp() < n_end
+                        for e in fog_events.get(site.id, ())
+                        if n_start <= e.time.timestamp() < n_end
                         for r in e.rules
                     }
                 )
