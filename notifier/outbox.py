@@ -232,8 +232,11 @@ class Outbox:
                         created_at=when,
                     )
                     .on_conflict_do_nothing(index_elements=["key"])
+                    # counted by what comes back: PostgreSQL's driver reports no rowcount
+                    # for an INSERT that SQLAlchemy has given a RETURNING of its own
+                    .returning(deliveries.c.key)
                 )
-                added += result.rowcount or 0
+                added += len(result.fetchall())
             for site, (level, payload) in (snapshots or {}).items():
                 stmt = self.store._insert(site_status).values(
                     site=site, time=when, level=level, payload=json.dumps(payload)

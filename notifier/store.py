@@ -111,14 +111,17 @@ def _m0001_initial(conn: Connection) -> None:
 
 def _m0002_alerts(conn: Connection) -> None:
     """Alert states, events, the delivery outbox, site snapshots, and the bot's tables."""
+    # PostgreSQL has no BLOB. This migration could never run there before this choice of
+    # type was added, so no database holds the other spelling: SQLite keeps BLOB.
+    binary = "BYTEA" if conn.dialect.name == "postgresql" else "BLOB"
     for ddl in (
         """CREATE TABLE alert_states (
             site TEXT NOT NULL, hazard TEXT NOT NULL, state TEXT NOT NULL,
             updated_at TEXT NOT NULL, PRIMARY KEY (site, hazard))""",
-        """CREATE TABLE events (
+        f"""CREATE TABLE events (
             id TEXT PRIMARY KEY, site TEXT NOT NULL, hazard TEXT NOT NULL,
             type TEXT NOT NULL, level TEXT NOT NULL, time TEXT NOT NULL,
-            payload TEXT NOT NULL, chart BLOB, created_at TEXT NOT NULL)""",
+            payload TEXT NOT NULL, chart {binary}, created_at TEXT NOT NULL)""",
         """CREATE TABLE deliveries (
             key TEXT PRIMARY KEY, event_id TEXT NOT NULL, subscriber TEXT NOT NULL,
             channel TEXT NOT NULL, address TEXT, status TEXT NOT NULL,
@@ -158,11 +161,30 @@ def _m0003_observation_batches(conn: Connection) -> None:
         conn.exec_driver_sql(ddl)
 
 
+def _m0004_postgresql_widths(conn: Connection) -> None:
+    """On PostgreSQL, the widths SQLite gives these columns anyway: REAL and INTEGER are
+    4 bytes there (7 digits; seconds that run out in 2038), 8 bytes in SQLite. Nothing
+    to do on SQLite."""
+    if conn.dialect.name != "postgresql":
+        return
+    floats = ", ".join(
+        f"ALTER COLUMN {c} TYPE DOUBLE PRECISION"
+        for c in (
+            "temp_c", "dewpoint_c", "rh_pct", "wind_ms", "wind_dir_deg", "cloud_pct",
+            "surface_temp_c", "water_temp_c", "visibility_m", "pressure_hpa",
+        )
+    )  # fmt: skip
+    wide = ", ".join(f"ALTER COLUMN {c} TYPE BIGINT" for c in ("time", "received_at", "batch"))
+    conn.exec_driver_sql(f"ALTER TABLE observations {floats}, {wide}")
+    conn.exec_driver_sql("ALTER TABLE counters ALTER COLUMN value TYPE BIGINT")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
     Migration("0002_alerts", _m0002_alerts),
     Migration("0003_observation_batches", _m0003_observation_batches),
+    Migration("0004_postgresql_widths", _m0004_postgresql_widths),
 ]
 
 metadata = sa.MetaData()

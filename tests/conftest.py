@@ -139,3 +139,22 @@ def make_config(tmp_path: Path) -> Callable[..., Config]:
         return load_config(path)
 
     return make
+
+
+# ---- stores: every store test runs on SQLite and on a real PostgreSQL server --------------
+
+from tests.postgres import postgres  # noqa: E402,F401  (a session fixture)
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def any_store(request: pytest.FixtureRequest) -> Iterator[Any]:
+    """A new, empty store: in-memory SQLite, or a fresh database on the test PostgreSQL
+    server (see tests/postgres.py; skipped where the machine has no server binaries)."""
+    from notifier.store import Store
+
+    if request.param == "sqlite":
+        url = None
+    else:
+        url = request.getfixturevalue("postgres").new_database()
+    with Store.memory() if url is None else Store(url) as store:
+        yield store

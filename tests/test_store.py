@@ -40,9 +40,8 @@ def obs(hour: int, temp_c: float = 2.0, site: str = "zz-vale", **extra: Any) -> 
 
 
 @pytest.fixture
-def db() -> Store:
-    with Store.memory() as store:
-        yield store
+def db(any_store: Store) -> Store:
+    return any_store  # SQLite and PostgreSQL (tests/conftest.py)
 
 
 def test_public_names():
@@ -130,12 +129,22 @@ def test_rows_from_before_the_batch_numbers_count_as_batch_zero(tmp_path: Path, 
             )
     monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS)
     with Store(url) as db:
-        assert db.applied_migrations()[-1] == "0003_observation_batches"
+        assert db.applied_migrations()[2] == "0003_observation_batches"
         start = NOW - timedelta(hours=12)
         assert len(db.window(None, start, None)) == 1
         assert db.window(None, start, None, after=0).empty
         db.add_observations(table([obs(2)]))
         assert len(db.window(None, start, None, after=0)) == 1
+
+
+def test_values_keep_double_precision_and_times_go_past_2038(db):
+    # PostgreSQL's REAL and INTEGER are 4 bytes (migration 0004 widens them); SQLite's 8
+    frame = table([obs(3, temp_c=2.345678901234)])
+    frame["time"] = pd.Timestamp("2040-01-12T03:00:00Z")  # past 2**31 s from the epoch
+    db.add_observations(frame)
+    back = db.window(None, datetime(2040, 1, 1, tzinfo=UTC), None)
+    assert back["temp_c"].tolist() == [2.345678901234]
+    assert back["time"].tolist() == [pd.Timestamp("2040-01-12T03:00:00Z")]
 
 
 def test_trim_deletes_older_rows_and_says_how_many(db):

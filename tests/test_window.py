@@ -8,7 +8,6 @@ The reference is ``Store.window`` itself, on the same SQLite file: whatever is w
 from __future__ import annotations
 
 from datetime import UTC, datetime, timedelta
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -73,9 +72,8 @@ def assert_same_as_a_full_read(store: Store, window: RollingWindow, at: datetime
 
 
 @pytest.fixture
-def store(tmp_path: Path) -> Store:
-    with Store(f"sqlite:///{tmp_path / 'fw.sqlite'}") as s:
-        yield s
+def store(any_store: Store) -> Store:
+    return any_store  # SQLite and PostgreSQL (tests/conftest.py)
 
 
 def test_a_cycle_reads_only_what_was_written_since(store: Store) -> None:

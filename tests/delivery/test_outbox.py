@@ -22,9 +22,8 @@ FIELD = ("north-field", "fog")
 
 
 @pytest.fixture
-def box():
-    with Store.memory() as store:
-        yield Outbox(store)
+def box(any_store):
+    return Outbox(any_store)  # SQLite and PostgreSQL (tests/conftest.py)
 
 
 def state(key=QUAY, level="watch", at=T0) -> AlertState:
@@ -297,6 +296,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0001_initial",
             "0002_alerts",
             "0003_observation_batches",
+            "0004_postgresql_widths",
         ]
         box = Outbox(store)
         after = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))

@@ -14,6 +14,7 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import pandas as pd
+import pytest
 
 from notifier import cli
 from notifier.channels.webhook import DELIVERY_HEADER
@@ -81,18 +82,25 @@ def parse(data: bytes) -> EmailMessage:
     return email.message_from_bytes(data, policy=policy.default)  # type: ignore[return-value]
 
 
+@pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
 def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
-    tmp_path, monkeypatch, smtp_server, webhook_server, capsys
+    tmp_path, monkeypatch, smtp_server, webhook_server, capsys, request, backend
 ):
     secrets_env(monkeypatch)
     folder = tmp_path / "drop"
     folder.mkdir()
+    # the store: the SQLite file beside the config, or a database on the test PostgreSQL
+    # server (tests/postgres.py), as several instances sharing state would use
+    store = {}
+    if backend == "postgresql":
+        store = {"store": {"url": request.getfixturevalue("postgres").new_database()}}
     config = write_config(
         tmp_path,
         [email_channel(smtp_server.port), webhook_channel(webhook_server.url)],
         [FARM, DUTY],
         sites=[SITE],
         sources=[{"id": "logger", "type": "filedrop", "path": "drop", "settle": 0}],
+        **store,
     )
     obs = night()
     service = Service(config, rng=random.Random(3))
