@@ -85,7 +85,26 @@ def dispatch(
     report.expired = len(
         outbox.expire(now - max_age, now, f"gave up: still undelivered after {hours:g} h")
     )
-    due = outbox.due(now)
+    due, claim = outbox.claim(now)
+    try:
+        _dispatch_claimed(outbox, config, rules, due, now, channel_kwargs, rng, should_stop, report)
+    finally:
+        # what was neither sent nor given up (a stop, a failing channel) is due again now
+        outbox.release([r.key for r in due], claim)
+    return report
+
+
+def _dispatch_claimed(
+    outbox: Outbox,
+    config: Config,
+    rules: RuleSet,
+    due: list[DeliveryRow],
+    now: datetime,
+    channel_kwargs: Mapping[str, Mapping[str, Any]] | None,
+    rng: random.Random,
+    should_stop: Callable[[], bool],
+    report: DispatchReport,
+) -> None:
     by_channel: dict[str, list[DeliveryRow]] = defaultdict(list)
     for row in due:
         by_channel[row.channel].append(row)
@@ -106,7 +125,7 @@ def dispatch(
             failing = 0
             for batch in _batches(rows):
                 if should_stop():
-                    return report
+                    return
                 ok = _deliver(outbox, config, rules, channel, batch, now, rng, report)
                 failing = 0 if ok else failing + 1
                 if failing >= MAX_TRANSIENT_IN_A_ROW:
@@ -121,7 +140,6 @@ def dispatch(
                 channel.close()
             except Exception:  # closing must not lose the other channels' deliveries
                 log.exception("closing channel %s failed", channel_id)
-    return report
 
 
 def _batches(rows: list[DeliveryRow]) -> list[list[DeliveryRow]]:

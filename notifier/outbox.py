@@ -12,9 +12,10 @@ delivery twice is a no-op.
 from __future__ import annotations
 
 import json
+import uuid
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import sqlalchemy as sa
@@ -24,7 +25,12 @@ from notifier.lifecycle import AlertState, Event, StateKey
 from notifier.routing import Delivery
 from notifier.store import Store, iso_utc, metadata
 
-__all__ = ["DeliveryRow", "Outbox"]
+__all__ = ["CLAIM_LEASE", "DeliveryRow", "Outbox"]
+
+#: How long a dispatcher's claim on the deliveries it is sending lasts. A run sends at
+#: most 500 (seconds each at worst, with the channel timeouts); a claim still held after
+#: this belongs to a dispatcher that died, and its rows go out again.
+CLAIM_LEASE = timedelta(minutes=15)
 
 alert_states = sa.Table(
     "alert_states",
@@ -63,6 +69,8 @@ deliveries = sa.Table(
     sa.Column("created_at", sa.Text, nullable=False),
     sa.Column("sent_at", sa.Text),
     sa.Column("last_error", sa.Text),
+    sa.Column("claimed_until", sa.Text),
+    sa.Column("claimed_by", sa.Text),  # the claim's own token (see Outbox.claim)
 )
 site_status = sa.Table(
     "site_status",
@@ -273,22 +281,77 @@ class Outbox:
 
     # -- deliveries ------------------------------------------------------------------
 
+    @staticmethod
+    def _due(when: str) -> Any:
+        d = deliveries.c
+        return (
+            (d.status == "pending")
+            & (d.next_attempt_at <= when)
+            & (d.not_before.is_(None) | (d.not_before <= when))
+            & (d.claimed_until.is_(None) | (d.claimed_until <= when))
+        )
+
     def due(self, now: datetime, limit: int = 500) -> list[DeliveryRow]:
-        """Pending deliveries whose retry time and quiet-hours hold have passed."""
-        when = iso_utc(now)
+        """Pending deliveries whose retry time and quiet-hours hold have passed and that
+        no dispatcher holds a claim on."""
         d = deliveries.c
         with self.engine.connect() as conn:
             rows = conn.execute(
                 sa.select(deliveries)
-                .where(
-                    (d.status == "pending")
-                    & (d.next_attempt_at <= when)
-                    & ((d.not_before.is_(None)) | (d.not_before <= when))
-                )
+                .where(self._due(iso_utc(now)))
                 .order_by(d.created_at, d.key)
                 .limit(limit)
             ).mappings()
             return [DeliveryRow.from_row(r) for r in rows]
+
+    def claim(
+        self, now: datetime, lease: timedelta = CLAIM_LEASE, limit: int = 500
+    ) -> tuple[list[DeliveryRow], str]:
+        """The due deliveries, claimed until ``now + lease`` so that no other dispatcher
+        sends them meanwhile; returns them (oldest first) and the claim's token.
+
+        The claim is one UPDATE that checks again that each row is still due: of two
+        dispatchers, the second gets only what the first did not take (SQLite serialises
+        the write transactions; PostgreSQL re-checks a row it had to wait for). Marking a
+        row ends its claim; :meth:`release` hands back what was not sent; a crashed
+        dispatcher's claims simply lapse.
+        """
+        when, until = iso_utc(now), iso_utc(now + lease)
+        token = uuid.uuid4().hex
+        d = deliveries.c
+        with self.store.atomic() as conn:
+            keys = [
+                r[0]
+                for r in conn.execute(
+                    sa.select(d.key)
+                    .where(self._due(when))
+                    .order_by(d.created_at, d.key)
+                    .limit(limit)
+                )
+            ]
+            if not keys:
+                return [], token
+            rows = conn.execute(
+                deliveries.update()
+                .where(d.key.in_(keys) & self._due(when))
+                .values(claimed_until=until, claimed_by=token)
+                .returning(*deliveries.c)
+            ).mappings()
+            claimed = [DeliveryRow.from_row(r) for r in rows]
+        claimed.sort(key=lambda r: (r.created_at, r.key))
+        return claimed, token
+
+    def release(self, keys: Iterable[str], token: str) -> None:
+        """End the claim ``token`` on these rows where it still holds (unsent rows go
+        back to the queue at once rather than when the lease runs out)."""
+        keys = list(keys)
+        if keys:
+            with self.store.atomic() as conn:
+                conn.execute(
+                    deliveries.update()
+                    .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
+                    .values(claimed_until=None, claimed_by=None)
+                )
 
     def mark(
         self,
@@ -304,6 +367,7 @@ class Outbox:
         if not keys:
             return
         values: dict[str, Any] = {"status": status, "last_error": error}
+        values.update(claimed_until=None, claimed_by=None)  # marked: no longer anyone's
         if status == "sent":
             values["sent_at"] = iso_utc(now)
         if status in ("sent", "failed") or next_attempt_at is not None:

@@ -179,12 +179,21 @@ def _m0004_postgresql_widths(conn: Connection) -> None:
     conn.exec_driver_sql("ALTER TABLE counters ALTER COLUMN value TYPE BIGINT")
 
 
+def _m0005_delivery_claims(conn: Connection) -> None:
+    """A dispatcher claims the deliveries it is about to send until ``claimed_until``, so
+    that two dispatchers sharing one store (PostgreSQL, several instances) do not both
+    send them; a crashed one's claims lapse and the rows go out again."""
+    conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_until TEXT")
+    conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_by TEXT")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
     Migration("0002_alerts", _m0002_alerts),
     Migration("0003_observation_batches", _m0003_observation_batches),
     Migration("0004_postgresql_widths", _m0004_postgresql_widths),
+    Migration("0005_delivery_claims", _m0005_delivery_claims),
 ]
 
 metadata = sa.MetaData()

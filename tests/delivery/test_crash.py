@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from notifier.outbox import Outbox
+from notifier.outbox import CLAIM_LEASE, Outbox
 from notifier.service import Service
 from notifier.store import Store
 from tests.delivery.conftest import WEBHOOK_SECRET
@@ -39,8 +39,10 @@ SEND_DELAY_S = 0.15  # per send: at most a few sends between two kills
 SEED = 20260110
 
 
-def worker(config: Path, env: dict[str, str], stderr: int = subprocess.DEVNULL):
-    at = (T0 + timedelta(minutes=1)).isoformat()
+def worker(config: Path, env: dict[str, str], run: int, stderr: int = subprocess.DEVNULL):
+    # each restart comes after the killed run's claims have lapsed (CLAIM_LEASE), as a
+    # restarted service's clock would have moved on
+    at = (T0 + timedelta(minutes=1) + run * (CLAIM_LEASE + timedelta(minutes=1))).isoformat()
     return subprocess.Popen(
         [sys.executable, "-m", "tests.delivery.crash_worker", str(config), at, str(SEND_DELAY_S)],
         cwd=ROOT,
@@ -71,7 +73,7 @@ def test_killed_dispatcher_loses_nothing_and_duplicates_at_most_once_per_kill(
         kills = 0
         runs = 0
         while kills < KILLS:  # ~1.3 s a run here, mostly the worker's imports
-            proc = worker(config, env)
+            proc = worker(config, env, runs)
             runs += 1
             assert proc.stdout is not None
             assert proc.stdout.readline().strip() == "ready"
@@ -85,7 +87,7 @@ def test_killed_dispatcher_loses_nothing_and_duplicates_at_most_once_per_kill(
                 break  # it finished the whole outbox before a kill could land
         sent_before_final = len(receiver.delivered())
 
-        final = worker(config, env, stderr=subprocess.PIPE)
+        final = worker(config, env, runs, stderr=subprocess.PIPE)
         out, err = final.communicate(timeout=60)
         assert final.returncode == 0 and out.strip() == "ready", err
         delivered = receiver.delivered()

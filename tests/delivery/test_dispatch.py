@@ -360,3 +360,44 @@ def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_serv
     assert report.failed == 1
     (row,) = service.outbox.deliveries(["failed"])
     assert row.last_error == "channel 'mail' is no longer configured"
+
+
+@pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
+def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request, backend):
+    # two services sharing one store (the SQLite file, or a PostgreSQL database as several
+    # instances would share), dispatching at the same moment with slow sends so that
+    # their runs overlap: each claims what the other has not, and nothing goes twice
+    import threading
+
+    from tests.delivery.crash_worker import SlowSession
+
+    store = {}
+    if backend == "postgresql":
+        store = {"store": {"url": request.getfixturevalue("postgres").new_database()}}
+    subs = [{"id": f"bridge-{n}", "channel": "hook", "address": f"room-{n}"} for n in range(3)]
+    with signed_receiver() as receiver:
+        path = write_config(tmp_path, [webhook_channel(receiver.url)], subs, **store)
+        services = [
+            Service(path, channel_kwargs={"hook": {"session": SlowSession(0.02)}}) for _ in range(2)
+        ]
+        try:
+            queued = queue(services[0], [event(at=T0 - timedelta(minutes=m)) for m in range(8)], T0)
+            reports = [None, None]
+
+            def run(i: int) -> None:
+                reports[i] = services[i].deliver(T0 + timedelta(minutes=1))
+
+            threads = [threading.Thread(target=run, args=(i,)) for i in range(2)]
+            for t in threads:
+                t.start()
+            for t in threads:
+                t.join(timeout=60)
+            delivered = receiver.delivered()
+            final = {r.key: r.status for r in services[0].outbox.deliveries()}
+        finally:
+            for service in services:
+                service.close()
+    assert len(queued) == 24
+    assert delivered == {d.key: 1 for d in queued}  # every one, exactly once
+    assert sum(r.sent for r in reports) == 24  # one claimed them all; the other none
+    assert set(final.values()) == {"sent"}

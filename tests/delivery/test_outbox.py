@@ -53,7 +53,7 @@ def counts(box: Outbox) -> tuple[int, int, int]:
 
 
 def test_public_names():
-    assert set(outbox_module.__all__) == {"DeliveryRow", "Outbox"}
+    assert set(outbox_module.__all__) == {"CLAIM_LEASE", "DeliveryRow", "Outbox"}
 
 
 def test_commit_cycle_writes_states_events_and_deliveries_together(box):
@@ -297,6 +297,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0002_alerts",
             "0003_observation_batches",
             "0004_postgresql_widths",
+            "0005_delivery_claims",
         ]
         box = Outbox(store)
         after = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))
@@ -305,3 +306,28 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
         assert box.event(ev.id) == (ev, b"\x89PNG")
         assert box.is_member("+440000001")
         assert [r.subscriber for r in box.due(T0 + timedelta(minutes=1))] == ["duty-lead"]
+
+
+def test_a_claim_keeps_other_dispatchers_off_until_released_marked_or_lapsed(box):
+    ev = event(at=T0)
+    box.commit_cycle({}, {QUAY: state()}, [ev], deliveries_for(ev, "harbour-ops", "duty-lead"), T0)
+    other = Outbox(box.store)  # a second dispatcher on the same store
+    mine, stamp = box.claim(T0)
+    first, second = mine
+    assert [r.subscriber for r in mine] == ["duty-lead", "harbour-ops"]
+    assert other.claim(T0)[0] == [] and other.due(T0) == []
+    # handed back unsent: the other dispatcher may take it at once
+    box.release([first.key], stamp)
+    theirs, their_stamp = other.claim(T0)
+    assert [r.key for r in theirs] == [first.key]
+    # an old stamp ends nobody else's claim
+    box.release([first.key], stamp)
+    assert box.claim(T0)[0] == []
+    # marking a row ends its claim; a retry is due at its own time, claimed by nobody
+    box.mark([second.key], "pending", T0, error="451 try later", next_attempt_at=T0)
+    assert [r.key for r in other.claim(T0)[0]] == [second.key]
+    # a claim never ended (its dispatcher died) lapses after CLAIM_LEASE
+    lease_over = T0 + outbox_module.CLAIM_LEASE
+    assert box.claim(lease_over - timedelta(seconds=1))[0] == []
+    assert sorted(r.key for r in box.claim(lease_over)[0]) == sorted([first.key, second.key])
+    assert their_stamp != stamp
