@@ -157,8 +157,13 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("replay", help="run the rules over history and score them")
     _add_common(p)
-    p.add_argument("--data", nargs="+", metavar="FILE", required=True,
-                   help="observation files (CSV, JSON, NDJSON, METAR)")
+    p.add_argument(
+        "--data",
+        nargs="+",
+        metavar="FILE",
+        required=True,
+        help="observation files (CSV, JSON, NDJSON, METAR)",
+    )
     p.add_argument("--from", dest="start", required=True, metavar="TIME")
     p.add_argument("--to", dest="end", required=True, metavar="TIME")
     p.add_argument("--step", default="10min", help="clock step (default 10min)")

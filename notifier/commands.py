@@ -123,6 +123,7 @@ def cli_once(args: argparse.Namespace) -> int:
         f"{len(report.assessments)} site(s) assessed, {len(report.events)} event(s), "
         f"{report.deliveries_added} delivery(ies) queued; sent {sent.sent}, "
         f"retrying {sent.retried}, failed {sent.failed}, expired {sent.expired}"
+        + (f", cancelled {sent.cancelled} (hushed or unfollowed since)" if sent.cancelled else "")
     )
     for poll in report.polls:
         if not poll.ok:
@@ -166,7 +167,7 @@ def cli_status(args: argparse.Namespace) -> int:
         print()
         backlog = outbox.backlog()
         print("Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty"))
-        for row in outbox.deliveries(["failed", "expired"])[-10:]:
+        for row in outbox.deliveries(["failed", "expired", "cancelled"])[-10:]:
             print(f"  {row.status}: {row.subscriber} via {row.channel}: {row.last_error}")
         pending = [r for r in outbox.deliveries(["pending"]) if r.attempts]
         for row in pending[-10:]:

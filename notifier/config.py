@@ -472,8 +472,9 @@ def load_config(path: str | Path) -> Config:
     try:
         config = Config.model_validate({**raw, "path": path})
     except ValidationError as exc:
-        raise ConfigError(problems_from_validation(str(path), raw, exc,
-                                                   secret_locs=expanded)) from exc
+        raise ConfigError(
+            problems_from_validation(str(path), raw, exc, secret_locs=expanded)
+        ) from exc
     config = _resolve_paths(config)
     problems = _cross_check(config, raw)
     if problems:

@@ -15,6 +15,11 @@ rest of the run: a mail server that is down would otherwise cost a connect timeo
 pending delivery while the service waits (the rest stay due and go next run). An
 unexpected exception from a channel is logged and retried like a transient failure, so
 one bad row or adapter bug never stops the others.
+
+What was queued for someone who has since hushed the site (a mute covering it now) or
+stopped following it (no longer among ``subscribers``) is not sent but recorded as
+cancelled, with the reason: a held morning summary must not bring back a site its
+reader silenced overnight.
 """
 
 from __future__ import annotations
@@ -23,7 +28,7 @@ import hashlib
 import logging
 import random
 from collections import defaultdict
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Collection, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
@@ -34,6 +39,7 @@ from notifier.config import Config
 from notifier.errors import PermanentDeliveryError, TransientDeliveryError
 from notifier.messages import Message, render, render_summary
 from notifier.outbox import DeliveryRow, Outbox
+from notifier.routing import Mute, muted
 from notifier.rules import RuleSet
 
 __all__ = ["DispatchReport", "backoff_s", "dispatch"]
@@ -57,6 +63,7 @@ class DispatchReport:
     retried: int = 0
     failed: int = 0
     expired: int = 0
+    cancelled: int = 0
     errors: list[str] = field(default_factory=list)
 
 
@@ -76,8 +83,13 @@ def dispatch(
     channel_kwargs: Mapping[str, Mapping[str, Any]] | None = None,
     rng: random.Random | None = None,
     should_stop: Callable[[], bool] = lambda: False,
+    mutes: Sequence[Mute] = (),
+    subscribers: Collection[str] | None = None,
 ) -> DispatchReport:
-    """Deliver every due delivery once; ``channel_kwargs[channel_id]`` is injected."""
+    """Deliver every due delivery once; ``channel_kwargs[channel_id]`` is injected.
+
+    ``mutes`` (as for routing) and ``subscribers`` (the ids still subscribed; ``None``:
+    do not check) cancel what was queued before a hush or an unfollow."""
     rng = rng or random.Random()
     report = DispatchReport()
     max_age = timedelta(seconds=config.alerts.max_delivery_age)
@@ -87,11 +99,39 @@ def dispatch(
     )
     due, claim = outbox.claim(now)
     try:
+        due = _cancel_unwanted(outbox, due, now, mutes, subscribers, report)
         _dispatch_claimed(outbox, config, rules, due, now, channel_kwargs, rng, should_stop, report)
     finally:
         # what was neither sent nor given up (a stop, a failing channel) is due again now
         outbox.release([r.key for r in due], claim)
     return report
+
+
+def _cancel_unwanted(
+    outbox: Outbox,
+    rows: list[DeliveryRow],
+    now: datetime,
+    mutes: Sequence[Mute],
+    subscribers: Collection[str] | None,
+    report: DispatchReport,
+) -> list[DeliveryRow]:
+    """``rows`` without those whose reader has since hushed the site or unsubscribed;
+    those are marked cancelled, with the reason."""
+    if not rows or (not mutes and subscribers is None):
+        return rows
+    sites = outbox.event_sites({r.event_id for r in rows})
+    keep, reasons = [], {}
+    for r in rows:
+        if subscribers is not None and r.subscriber not in subscribers:
+            reasons[r.key] = "cancelled: no longer subscribed"
+        elif r.event_id in sites and muted(mutes, r.subscriber, sites[r.event_id], now):
+            reasons[r.key] = f"cancelled: {sites[r.event_id]} hushed"
+        else:
+            keep.append(r)
+    for reason in set(reasons.values()):
+        outbox.mark([k for k, v in reasons.items() if v == reason], "cancelled", now, error=reason)
+    report.cancelled += len(reasons)
+    return keep
 
 
 def _dispatch_claimed(

@@ -270,6 +270,15 @@ class Outbox:
             raise KeyError(event_id)
         return Event.from_dict(json.loads(row[0])), row[1]
 
+    def event_sites(self, event_ids: Iterable[str]) -> dict[str, str]:
+        """The site of each of these events (those still stored)."""
+        ids = list(event_ids)
+        if not ids:
+            return {}
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(events.c.id, events.c.site).where(events.c.id.in_(ids)))
+            return {event_id: site for event_id, site in rows}
+
     def events_between(self, start: datetime, end: datetime) -> list[Event]:
         with self.engine.connect() as conn:
             rows = conn.execute(
@@ -423,7 +432,7 @@ class Outbox:
         with self.store.atomic() as conn:
             n = conn.execute(
                 deliveries.delete().where(
-                    d.status.in_(["sent", "failed", "expired"]) & (d.created_at < cut)
+                    d.status.in_(["sent", "failed", "expired", "cancelled"]) & (d.created_at < cut)
                 )
             ).rowcount
             conn.execute(

@@ -139,7 +139,8 @@ def quiet_until(window: tuple[time, time] | None, zone_name: str, at: datetime) 
     return _local_end(day, end, zone, at.astimezone(UTC))
 
 
-def _muted(mutes: Iterable[Mute], subscriber_id: str, site_id: str, at: datetime) -> bool:
+def muted(mutes: Iterable[Mute], subscriber_id: str, site_id: str, at: datetime) -> bool:
+    """Whether a mute covers this subscriber's news of this site at ``at``."""
     for who, site, until in mutes:
         if who in ("*", subscriber_id) and site in ("*", site_id) and at < until:
             return True
@@ -167,7 +168,7 @@ def route(
                 continue
             if not data_news and level_rank(news) < level_rank(sub.min_level):
                 continue
-            if _muted(mutes, sub.id, event.site_id, event.time):
+            if muted(mutes, sub.id, event.site_id, event.time):
                 continue
             zone = sub.timezone or site.timezone
             held_until = quiet_until(sub.quiet_window(), zone, event.time)

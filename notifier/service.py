@@ -304,6 +304,8 @@ class Service:
                 channel_kwargs=self.channel_kwargs,
                 rng=self.rng,
                 should_stop=self._stop.is_set,
+                mutes=self.mutes(now),
+                subscribers={s.id for s in self.subscribers()},
             )
 
     def cycle(self, now: datetime) -> tuple[CycleReport, DispatchReport]:

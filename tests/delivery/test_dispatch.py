@@ -351,12 +351,29 @@ def test_an_adapter_bug_on_one_channel_does_not_stop_another(
     assert len(smtp_server.inbox.messages) == 1
 
 
-def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_service, tmp_path):
+def test_a_subscriber_removed_from_the_config_has_its_rows_cancelled(
+    smtp_server, make_service, tmp_path
+):
     service = make_service([email_channel(smtp_server.port)], [OPS])
     queue(service, [event(at=T0)], T0)
     write_config(tmp_path, [], [])
     assert service.reload()[0]
     report = service.deliver(T0)
+    assert (report.cancelled, report.sent, report.failed) == (1, 0, 0)
+    (row,) = service.outbox.deliveries(["cancelled"])
+    assert row.last_error == "cancelled: no longer subscribed"
+    assert smtp_server.inbox.messages == []
+
+
+def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_service, tmp_path):
+    # dispatch() called without the subscriber list (as a tool outside the service might)
+    from notifier.dispatch import dispatch
+
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    queue(service, [event(at=T0)], T0)
+    write_config(tmp_path, [], [])
+    assert service.reload()[0]
+    report = dispatch(service.outbox, service.config, service.rules, T0)
     assert report.failed == 1
     (row,) = service.outbox.deliveries(["failed"])
     assert row.last_error == "channel 'mail' is no longer configured"

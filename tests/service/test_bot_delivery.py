@@ -126,3 +126,36 @@ def test_follows_and_mutes_outlive_the_process(scene: Scene):
         "warning",
     )
     assert ("crew", "zz-vale", at + timedelta(hours=3)) in second.mutes(at)
+
+
+def test_what_was_queued_before_a_hush_or_an_unfollow_is_cancelled(scene: Scene, capsys):
+    from notifier import cli
+
+    service = scene.service()
+    cycle(scene, service, utc(2026, 11, 20, 22, 30))
+    say(service, "guest-cy", "follow vale", utc(2026, 11, 20, 22, 40))
+    # the fog warning is queued (assessed, not yet sent): then crew hushes, guest leaves
+    at = utc(2026, 11, 20, 23, 0)
+    scene.feed(at)
+    service.poll_and_assess(at)
+    guest = bot_subscriber_id("guest-cy", "zz-vale")
+    queued = {(r.subscriber, r.status) for r in service.outbox.deliveries()}
+    assert {("crew", "pending"), ("desk", "pending"), (guest, "pending")} <= queued
+    say(service, "crew-bo", "hush vale for 2h", at)
+    say(service, "guest-cy", "unfollow vale", at)
+    report = service.deliver(at + timedelta(seconds=30))
+    rows = {r.subscriber: r for r in service.outbox.deliveries()}
+    assert rows["desk"].status == "sent"  # the others are told
+    assert (rows["crew"].status, rows["crew"].last_error) == (
+        "cancelled",
+        "cancelled: zz-vale hushed",
+    )
+    assert (rows[guest].status, rows[guest].last_error) == (
+        "cancelled",
+        "cancelled: no longer subscribed",
+    )
+    assert report.cancelled == 2 and report.sent == sum(r.status == "sent" for r in rows.values())
+    capsys.readouterr()
+    assert cli.main(["status", str(service.config_path)]) == 0
+    out = capsys.readouterr().out
+    assert "2 cancelled" in out and "cancelled: crew via duty: cancelled: zz-vale hushed" in out
