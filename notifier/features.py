@@ -488,7 +488,8 @@ class _Block:
             s_sel, t_sel = s_raw[order], t_raw[order]
         rows_sorted = sel if order is None else sel[order]
 
-        counts = np.bincount(s_sel, minlength=n)
+        # s_sel is sorted: each site's count from where its run starts (no full pass)
+        counts = np.diff(np.searchsorted(s_sel, np.arange(n + 1)))
         width = int(counts.max()) if counts.size and counts.max() > 0 else 1
         starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
         # cell (s, j) holds sorted row start_s + j - (width - count_s), or is padding when
@@ -544,6 +545,16 @@ class _Block:
             self._full[name] = self._gather(values, self.src, self.pad)
             return self._full[name][:, start:stop]
         return self._gather(values, self.src[:, start:stop], self.pad[:, start:stop])
+
+    def cells(self, name: str, start: int, stop: int) -> np.ndarray:
+        """Like :meth:`block`, but the padding cells hold arbitrary values instead of
+        NaN: for callers whose mask excludes them anyway (one pass less)."""
+        if name in self._full or name in _WIDE_COLUMNS:
+            return self.block(name, start, stop)
+        values = self.column(name)
+        if values is None or self._empty:
+            return np.full((self.n, max(stop - start, 0)), np.nan)
+        return np.take(values, self.src[:, start:stop], mode="clip")
 
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
@@ -611,14 +622,15 @@ def _in_range(start: int, stop: int, lo: np.ndarray, hi: np.ndarray) -> np.ndarr
 
 def _latest(block: np.ndarray, valid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Value and column of the right-most valid entry of each row (NaN / -1 if none)."""
-    ok = valid & ~np.isnan(block)
+    ok = ~np.isnan(block)
+    ok &= valid
     width = block.shape[1]
     if width == 0:
         return np.full(block.shape[0], np.nan), np.full(block.shape[0], -1)
-    rev = np.argmax(ok[:, ::-1], axis=1)
-    col = width - 1 - rev
-    has = ok.any(axis=1)
-    val = np.where(has, block[np.arange(block.shape[0]), col], np.nan)
+    col = width - 1 - np.argmax(ok[:, ::-1], axis=1)
+    rows = np.arange(block.shape[0])
+    has = ok[rows, col]  # argmax of a row with no True is its first cell, which is False
+    val = np.where(has, block[rows, col], np.nan)
     return val, np.where(has, col, -1)
 
 
@@ -831,7 +843,7 @@ def _features_at(
     cur: dict[str, np.ndarray] = {}
     for name in _OBS_COLUMNS:
         if name != "water_temp_c":
-            cur[name], _ = _latest(blk.block(name, a, b), recent)
+            cur[name], _ = _latest(blk.cells(name, a, b), recent)
     # water changes slowly: its newest reading in the whole window, if young enough;
     # only the sites with a water sensor at all are looked at
     cur["water_temp_c"] = np.full(n, np.nan)

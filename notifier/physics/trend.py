@@ -35,10 +35,11 @@ def _theil_sen_rows(hours: NDArray[np.float64], values: NDArray[np.float64]) -> 
         h, v = hours[start:stop], values[start:stop]
         dx = np.take(h, second, axis=1) - np.take(h, first, axis=1)
         dy = np.take(v, second, axis=1) - np.take(v, first, axis=1)
-        slopes = dy / dx
-        # Pairs at equal times carry no slope (Sen 1968 excludes tied x).
-        usable = np.isfinite(slopes) & (dx != 0.0)
-        slopes = np.where(usable, slopes, np.nan)
+        slopes = np.divide(dy, dx, out=dy)
+        # Pairs at equal times carry no slope (Sen 1968 excludes tied x): their quotient
+        # is ±inf or NaN, so "finite" excludes them along with the missing points.
+        usable = np.isfinite(slopes)
+        slopes[~usable] = np.nan
         slopes.sort(axis=1)  # NaN sorts last, so the usable slopes lead each row
         count = usable.sum(axis=1)
         lower = np.maximum((count - 1) // 2, 0)[:, np.newaxis]
