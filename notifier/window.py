@@ -112,15 +112,24 @@ class RollingWindow:
         categories); rows of sites not in the window are left out."""
         site = _codes(table["site"], self._site_dtype)
         known = site >= 0
-        out: dict[str, Any] = {"site": site[known]}
-        out["time"] = _nanoseconds(table["time"])[known]
-        out["kind"] = _codes(table["kind"], self._kind_dtype).astype(np.int8)[known]
+        every = bool(known.all())
+
+        def rows(values: np.ndarray) -> np.ndarray:  # no copy when every row is kept
+            return values if every else values[known]
+
+        out: dict[str, Any] = {"site": rows(site)}
+        out["time"] = rows(_nanoseconds(table["time"]))
+        out["kind"] = rows(_codes(table["kind"], self._kind_dtype).astype(np.int8))
         for name in FLOAT_COLUMNS:
-            out[name] = table[name].to_numpy(dtype=np.float64, na_value=np.nan)[known]
+            column = table[name]
+            # the store's float64 columns are taken as they are (a view, not a copy)
+            values = column.to_numpy() if column.dtype == np.float64 else None
+            if values is None:
+                values = column.to_numpy(dtype=np.float64, na_value=np.nan)
+            out[name] = rows(values)
         for name in ("weather", "source"):
-            values = table[name].astype("category")
-            codes = values.cat.codes.to_numpy().astype(np.int32)
-            out[name] = (codes[known], values.cat.categories)
+            text = table[name].astype("category")
+            out[name] = (rows(text.cat.codes.to_numpy().astype(np.int32)), text.cat.categories)
         return out
 
     def _key(self, columns: dict[str, Any]) -> np.ndarray:
