@@ -298,6 +298,8 @@ def _aggregate(
     by_hazard: dict[str, list[tuple[RuleEvaluation, int]]] = {}
     sustain_rank: dict[str, int] = {}
     for (ev, rank), fired, held in zip(ranked, fires, sustains, strict=True):
+        if not (fired or held):
+            continue
         hazard = ev.rule.hazard
         if fired:
             by_hazard.setdefault(hazard, []).append((ev, rank))
@@ -309,9 +311,7 @@ def _aggregate(
         lead = fired_evals[0][0].rule
         # the rules at the top level explain the alert; the lower ones are listed only
         top_evals = [ev for ev, rank in fired_evals if rank == top]
-        refs: list[str] = []
-        for ev, _ in fired_evals:
-            refs.extend(x for x in ev.rule.safety if x not in refs)
+        refs = list(dict.fromkeys(x for ev, _ in fired_evals for x in ev.rule.safety))
         sa.hazards[hazard] = HazardAssessment(
             hazard=hazard,
             level=LEVELS[top],

@@ -67,6 +67,8 @@ def _fog_onsets(
     obs: pd.DataFrame, sites: Sequence[Any], start: datetime, end: datetime
 ) -> dict[tuple[str, datetime], datetime]:
     """First observed fog of each site-night in [start, end]."""
+    import pandas as pd
+
     zones = {s.id: s.timezone for s in sites}
     out: dict[tuple[str, datetime], datetime] = {}
     if not len(obs):
@@ -78,9 +80,11 @@ def _fog_onsets(
         else np.full(len(rows), np.nan)
     )
     wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
-    fog = np.fromiter(
-        (fog_observed(v, w) for v, w in zip(vis, wx, strict=True)), dtype=bool, count=len(rows)
-    )
+    # fog_observed, row by row in effect: its weather test once per distinct text
+    codes, texts = pd.factorize(wx, use_na_sentinel=True)
+    foggy_text = np.array([*(fog_observed(None, text) for text in texts), False], dtype=bool)
+    with np.errstate(invalid="ignore"):
+        fog = (vis < 1000.0) | foggy_text[codes]
     foggy = rows.loc[fog, ["site", "time"]].sort_values("time")
     for site_id, t in zip(foggy["site"], foggy["time"], strict=True):
         if site_id not in zones:
