@@ -60,6 +60,7 @@ __all__ = [
     "Event",
     "StateKey",
     "event_id",
+    "iso_text",
     "step",
 ]
 
@@ -83,7 +84,9 @@ SHOWN_FEATURES = (
 )
 
 
-def _iso(t: datetime | None) -> str | None:
+def iso_text(t: datetime | None) -> str | None:
+    """An instant as ISO 8601 in UTC (``2026-11-20T03:00:00+00:00``), or None: the times
+    of stored states and of event payloads."""
     return None if t is None else t.astimezone(UTC).isoformat()
 
 
@@ -122,13 +125,13 @@ class AlertState:
             "site_id": self.site_id,
             "hazard": self.hazard,
             "level": self.level,
-            "since": _iso(self.since),
-            "episode_start": _iso(self.episode_start),
-            "below_since": _iso(self.below_since),
-            "clear_since": _iso(self.clear_since),
-            "last_event_at": _iso(self.last_event_at),
-            "last_reminder_at": _iso(self.last_reminder_at),
-            "last_raised": {lvl: _iso(t) for lvl, t in self.last_raised},
+            "since": iso_text(self.since),
+            "episode_start": iso_text(self.episode_start),
+            "below_since": iso_text(self.below_since),
+            "clear_since": iso_text(self.clear_since),
+            "last_event_at": iso_text(self.last_event_at),
+            "last_reminder_at": iso_text(self.last_reminder_at),
+            "last_raised": {lvl: iso_text(t) for lvl, t in self.last_raised},
             "rules": list(self.rules),
             "reasons": list(self.reasons),
         }
@@ -208,12 +211,12 @@ class Event:
             "hazard": self.hazard,
             "level": self.level,
             "previous_level": self.previous_level,
-            "time": _iso(self.time),
-            "episode_start": _iso(self.episode_start),
-            "level_since": _iso(self.level_since),
-            "eased_since": _iso(self.eased_since),
+            "time": iso_text(self.time),
+            "episode_start": iso_text(self.episode_start),
+            "level_since": iso_text(self.level_since),
+            "eased_since": iso_text(self.eased_since),
             "kind": self.kind,
-            "eta": _iso(self.eta),
+            "eta": iso_text(self.eta),
             "rules": list(self.rules),
             "reasons": list(self.reasons),
             "explanations": list(self.explanations),
@@ -266,7 +269,7 @@ def event_id(
     """Stable id: sha256 over site|hazard|episode start|type|level|minute of the event."""
     bucket = time.astimezone(UTC).replace(second=0, microsecond=0)
     text = "|".join(
-        (site_id, hazard, _iso(episode_start) or "-", type_, level, _iso(bucket) or "-")
+        (site_id, hazard, iso_text(episode_start) or "-", type_, level, iso_text(bucket) or "-")
     )
     return hashlib.sha256(text.encode()).hexdigest()[:32]
 

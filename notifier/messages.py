@@ -22,10 +22,11 @@ import math
 import textwrap
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.features import FEATURES
+from notifier.lifecycle import iso_text
 from notifier.rules import format_value
 from notifier.views import local_time
 
@@ -257,10 +258,6 @@ def _body(event: Event, site: Site, rules: RuleSet, zone: str) -> list[str]:
     return lines
 
 
-def _iso(t: datetime | None) -> str | None:
-    return None if t is None else t.astimezone(UTC).isoformat()
-
-
 def _age(age: float | None) -> float | None:
     return None if age is None or not math.isfinite(age) else round(age, 1)
 
@@ -280,8 +277,8 @@ def _event_json(event: Event, site: Site, head: str, text: str) -> dict[str, Any
         "text": text,
         "reasons": list(event.reasons),
         "changes": list(event.changes),
-        "eta": _iso(event.eta),
-        "time": _iso(event.time),
+        "eta": iso_text(event.eta),
+        "time": iso_text(event.time),
         "data_age_min": _age(event.data_age_min),
         "features": {k: round(v, 3) for k, v in event.features.items() if math.isfinite(v)},
         "caution": CAUTION,
@@ -352,7 +349,7 @@ def render_summary(
         "type": "summary",
         "headline": head,
         "text": text,
-        "time": _iso(at),
+        "time": iso_text(at),
         "events": [_event_json(e, s, headline(e, s, zone), "") for e, s in ordered],
         "caution": CAUTION,
     }

@@ -2,14 +2,27 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timedelta
+from datetime import datetime, time, timedelta
+from zoneinfo import ZoneInfo
+
+import pandas as pd
 
 from notifier.assess import HazardAssessment, SiteAssessment
 from notifier.config import AlertSettings, Config, Site, Subscriber
+from notifier.demo_data import NightSpec, simulate_night
 from notifier.lifecycle import Event, event_id
-from tests.engine.scenes import RULES, site, utc
+from tests.engine.scenes import EVENING, RULES, site, utc
 
-__all__ = ["RULES", "SETTINGS", "assessment", "config_with", "event", "site", "utc"]
+__all__ = [
+    "RULES",
+    "SETTINGS",
+    "assessment",
+    "clear_night",
+    "config_with",
+    "event",
+    "site",
+    "utc",
+]
 
 SETTINGS = AlertSettings()  # 45 min clearing, 3 h reminders, 60 min cooldown
 FEATURES = {
@@ -97,3 +110,24 @@ def config_with(subscribers: list[dict[str, object]], sites: list[Site] | None =
     return Config(
         sites=tuple(sites), subscribers=tuple(Subscriber.model_validate(s) for s in subscribers)
     )
+
+
+def clear_night(s: Site) -> tuple[pd.DataFrame, datetime, datetime]:
+    """The invented clear, calm night of tests/engine at ``s`` (watch in the evening,
+    warning as the air nears saturation, fog until after sunrise), fed to 11:00 so that
+    the all-clear (45 min after the fog lifts, ~09:10) can be seen; and the span a test
+    steps through, 16:00 that evening to 10:30 the next morning, local time."""
+    obs = simulate_night(
+        NightSpec(
+            site=s.id,
+            evening=EVENING,
+            timezone=s.timezone,
+            lat=s.lat,
+            lon=s.lon,
+            end_local=time(11, 0),
+        )
+    )
+    zone = ZoneInfo(s.timezone)
+    start = datetime.combine(EVENING, time(16, 0), zone)
+    end = datetime.combine(EVENING + timedelta(days=1), time(10, 30), zone)
+    return obs, start, end

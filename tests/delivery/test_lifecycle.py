@@ -10,10 +10,9 @@ import pytest
 
 from notifier.assess import assess
 from notifier.config import AlertSettings
-from notifier.demo_data import NightSpec, simulate_night
 from notifier.lifecycle import AlertState, Event, event_id, step
-from tests.delivery.scenes import SETTINGS, assessment, site, utc
-from tests.engine.scenes import EVENING, RULES
+from tests.delivery.scenes import SETTINGS, assessment, clear_night, site, utc
+from tests.engine.scenes import RULES
 
 SITE = site("test-meadow")
 T0 = utc(2026, 1, 10, 18, 0)
@@ -227,23 +226,9 @@ def test_quiet_state_is_pruned_after_cooldown():
 
 
 def test_simulated_night_gives_one_watch_one_warning_one_all_clear():
-    # A clear calm night at an open site (tests/engine: watch in the evening, warning
-    # once the air nears saturation, fog until after sunrise). The invented feed runs
-    # to 11:00 so the all-clear (45 min after the fog lifts, ~09:10) can be seen.
+    # A clear calm night at an open site (tests/delivery/scenes.py: clear_night)
     s = site("clear-field")
-    obs = simulate_night(
-        NightSpec(
-            site=s.id,
-            evening=EVENING,
-            timezone=s.timezone,
-            lat=s.lat,
-            lon=s.lon,
-            end_local=time(11, 0),
-        )
-    )
-    zone = ZoneInfo(s.timezone)
-    now = datetime.combine(EVENING, time(16, 0), zone)
-    end = datetime.combine(EVENING + timedelta(days=1), time(10, 30), zone)
+    obs, now, end = clear_night(s)
     states: dict = {}
     events: list[Event] = []
     while now <= end:
@@ -261,7 +246,7 @@ def test_simulated_night_gives_one_watch_one_warning_one_all_clear():
         for a, b in zip([escalated.time, *reminders], reminders, strict=False)
     )
     assert cleared.previous_level == "warning" and cleared.changes
-    assert cleared.time.astimezone(zone).time() >= time(9, 30)
+    assert cleared.time.astimezone(ZoneInfo(s.timezone)).time() >= time(9, 30)
     assert len({e.id for e in events}) == len(events)
     assert {e.episode_start for e in events} == {events[0].time}
 

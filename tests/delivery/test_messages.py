@@ -4,17 +4,14 @@ readable on a phone."""
 from __future__ import annotations
 
 import re
-from datetime import datetime, time, timedelta
-from zoneinfo import ZoneInfo
+from datetime import timedelta
 
 import pytest
 
 from notifier.assess import assess
-from notifier.demo_data import NightSpec, simulate_night
 from notifier.lifecycle import Event, step
 from notifier.messages import CAUTION, WIDTH, headline, render, render_summary
-from tests.delivery.scenes import RULES, SETTINGS, event, site, utc
-from tests.engine.scenes import EVENING
+from tests.delivery.scenes import RULES, SETTINGS, clear_night, event, site, utc
 
 USES = ("farm", "port", "venue", "other")
 
@@ -26,21 +23,10 @@ def flat(text: str) -> str:
 @pytest.fixture(scope="module")
 def night_events() -> list[Event]:
     s = site("clear-field")
-    obs = simulate_night(
-        NightSpec(
-            site=s.id,
-            evening=EVENING,
-            timezone=s.timezone,
-            lat=s.lat,
-            lon=s.lon,
-            end_local=time(11, 0),
-        )
-    )
-    zone = ZoneInfo(s.timezone)
-    now = datetime.combine(EVENING, time(16, 0), zone)
+    obs, now, end = clear_night(s)
     states: dict = {}
     events: list[Event] = []
-    while now <= datetime.combine(EVENING + timedelta(days=1), time(10, 30), zone):
+    while now <= end:
         states, found = step(states, assess(RULES, [s], obs, now), now, SETTINGS)
         events.extend(found)
         now += timedelta(minutes=10)

@@ -18,12 +18,13 @@ import pytest
 
 from notifier import cli
 from notifier.channels.webhook import DELIVERY_HEADER
-from notifier.demo_data import NightSpec, simulate_night
+from notifier.config import Site
 from notifier.messages import CAUTION
 from notifier.observations import text_columns_as_objects
 from notifier.routing import delivery_key
 from notifier.service import Service, observations_for
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
+from tests.delivery.scenes import clear_night
 from tests.engine.scenes import EVENING
 
 ZONE = ZoneInfo("Europe/London")
@@ -51,21 +52,6 @@ COLUMNS = [
     "weather",
 ]
 STEP = timedelta(minutes=10)
-
-
-def night() -> pd.DataFrame:
-    """A clear calm night (radiation fog after midnight, lifting after sunrise); the
-    invented feed runs to 11:00 so that the all-clear can be seen."""
-    return simulate_night(
-        NightSpec(
-            site=SITE["id"],
-            evening=EVENING,
-            timezone=SITE["timezone"],
-            lat=SITE["lat"],
-            lon=SITE["lon"],
-            end_local=time(11, 0),
-        )
-    )
 
 
 def drop(folder: Path, rows: pd.DataFrame, now: datetime) -> None:
@@ -102,10 +88,9 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
         sources=[{"id": "logger", "type": "filedrop", "path": "drop", "settle": 0}],
         **store,
     )
-    obs = night()
+    # the clear calm night of tests/delivery/scenes.py, fed through the file drop
+    obs, start, end = clear_night(Site(**SITE))
     service = Service(config, rng=random.Random(3))
-    start = datetime.combine(EVENING, time(16, 0), ZONE)
-    end = datetime.combine(EVENING + timedelta(days=1), time(10, 30), ZONE)
     now, fed = start, pd.Timestamp(obs["time"].min()) - pd.Timedelta(minutes=1)
     events = []
     cycles = 0
@@ -222,7 +207,7 @@ def test_fogwatch_once_queues_delivers_and_says_how_it_went(
         sources=[{"id": "logger", "type": "filedrop", "path": "drop", "settle": 0}],
     )
     at = datetime.combine(EVENING, time(21, 0), ZONE)
-    obs = night()
+    obs, _, _ = clear_night(Site(**SITE))
     drop(folder, obs[obs["time"] <= pd.Timestamp(at)], at)
 
     def once(when: datetime) -> tuple[int, str]:
