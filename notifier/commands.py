@@ -11,7 +11,7 @@ import json
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 from notifier.config import load_config
 from notifier.errors import FogwatchError, UsageError
@@ -243,7 +243,8 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
     previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGINT)}
     host, port = server.server_address[:2]
     log.warning("bot listening on http://%s:%d/message", host, port)
-    print(f"listening on http://{host}:{port}/message", flush=True)
+    # an AF_INET socket names its host as text; the stubs also allow bytes
+    print(f"listening on http://{cast(str, host)}:{port}/message", flush=True)
     try:
         server.serve_forever(poll_interval=0.2)
     finally:

@@ -62,9 +62,9 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
     end = datetime.combine(spec.evening + timedelta(days=1), spec.end_local, zone)
     n = int((end - start).total_seconds() // (spec.step_min * 60)) + 1
     t = start.timestamp() + np.arange(n) * spec.step_min * 60.0
-    sunrise_today, sunset = physics.sunrise_sunset_utc(spec.lat, spec.lon, spec.evening)
-    sunrise, _ = physics.sunrise_sunset_utc(spec.lat, spec.lon, spec.evening + timedelta(days=1))
-    sunset, sunrise = float(sunset), float(sunrise)
+    sunrise_today, sunset_s = physics.sunrise_sunset_utc(spec.lat, spec.lon, spec.evening)
+    sunrise_s, _ = physics.sunrise_sunset_utc(spec.lat, spec.lon, spec.evening + timedelta(days=1))
+    sunset, sunrise = float(sunset_s), float(sunrise_s)
 
     cloud = np.full(n, spec.cloud_pct)
     wind = np.full(n, spec.wind_ms)

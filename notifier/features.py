@@ -41,7 +41,7 @@ from collections import OrderedDict
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -699,7 +699,10 @@ def compute_features_at(
     for k in sorted(range(len(times)), key=lambda k: -t_ats[k]):
         known = suns.get(t_ats[k])
         if known is not None:
-            night = (t_ats[k], *(a.copy() for a in known))
+            night = cast(
+                tuple[float, np.ndarray, np.ndarray, np.ndarray],
+                (t_ats[k], *(a.copy() for a in known)),
+            )
         table, night = _features_at(block, st, times[k], settings, night)
         out.append((k, table))
     return [table for _, table in sorted(out, key=lambda kt: kt[0])]

@@ -27,7 +27,7 @@ import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 import pandas as pd
@@ -157,7 +157,7 @@ def unit_registry() -> pint.UnitRegistry:
     """The one pint registry (building one takes a noticeable fraction of a second)."""
     import pint
 
-    registry = pint.UnitRegistry()
+    registry: pint.UnitRegistry = pint.UnitRegistry()
     # An okta is an eighth of the sky (WMO-No. 306, code table 2700).
     registry.define("okta = 0.125")
     return registry
@@ -276,7 +276,7 @@ class _Checks:
     ) -> None:
         for row in np.flatnonzero(mask):
             name = column(int(row)) if callable(column) else column
-            rejection = Rejection(self.origin, self.line(row), name, reason(int(row)))
+            rejection = Rejection(self.origin, self.line(int(row)), name, reason(int(row)))
             self.found.append((int(row), len(self.found), rejection))
         self.bad |= mask
 
@@ -329,7 +329,8 @@ def _numeric(series: pd.Series) -> tuple[np.ndarray, np.ndarray]:
         odd = series.map(lambda v: isinstance(v, bool | dict | list)).to_numpy(dtype=bool)
     else:
         odd = np.zeros(len(series), dtype=bool)
-    cleaned = pd.Series(np.where(odd, None, present), dtype=object)
+    # numpy's stubs leave None out of the scalars np.where takes; object arrays hold it
+    cleaned = pd.Series(np.where(odd, cast(Any, None), present), dtype=object)
     values = pd.to_numeric(cleaned, errors="coerce").to_numpy(dtype="float64", na_value=np.nan)
     return values, has_value & (np.isnan(values) | odd)
 
@@ -512,22 +513,21 @@ def _parse_times(
         ambiguous[rows] = strict.isna() & ~as_summer.isna()
         nonexistent[rows] = as_summer.isna()
         values[rows] = _utc_naive(strict)
-        checks.reject(
-            ambiguous,
-            "time",
-            lambda r, zone=zone: (
+
+        def is_ambiguous(r: int, zone: str = zone) -> str:
+            return (
                 f"local time {text[r]} is ambiguous in {zone} (it happens twice as the clocks "
                 "go back); give a UTC offset"
-            ),
-        )
-        checks.reject(
-            nonexistent,
-            "time",
-            lambda r, zone=zone: (
+            )
+
+        def does_not_exist(r: int, zone: str = zone) -> str:
+            return (
                 f"local time {text[r]} does not exist in {zone} (the clocks skip it); "
                 "give a UTC offset"
-            ),
-        )
+            )
+
+        checks.reject(ambiguous, "time", is_ambiguous)
+        checks.reject(nonexistent, "time", does_not_exist)
         warnings.append(
             f"{checks.origin}: {int(rows.sum())} times for site {site_id} had no UTC offset; "
             f"read as local time in {zone}"
@@ -586,9 +586,16 @@ def _numbers(raw: pd.DataFrame, units: Mapping[str, str], checks: _Checks) -> _N
         target, default_unit = (name, UNITS[name]) if name in UNITS else ALTERNATIVES[name]
         given, not_number = _numeric(raw[name])
         cells = raw[name]
-        checks.reject(not_number, name, lambda r, cells=cells: f"not a number: {cells.iloc[r]!r}")
+
+        def not_a_number(r: int, cells: pd.Series = cells) -> str:
+            return f"not a number: {cells.iloc[r]!r}"
+
+        def not_finite(r: int, v: np.ndarray = given) -> str:
+            return f"not a finite number: {v[r]}"
+
+        checks.reject(not_number, name, not_a_number)
         infinite = np.isinf(given)
-        checks.reject(infinite, name, lambda r, v=given: f"not a finite number: {v[r]}")
+        checks.reject(infinite, name, not_finite)
         given = np.where(infinite, np.nan, given)
         numbers.unreadable[target] |= not_number | infinite
         unit_in = units.get(name, default_unit)
@@ -596,11 +603,13 @@ def _numbers(raw: pd.DataFrame, units: Mapping[str, str], checks: _Checks) -> _N
             converted = _convert(given, unit_in, UNITS[target])
         except Exception as exc:  # pint raises several unrelated types for a bad unit
             present = ~np.isnan(given)
-            checks.reject(
-                present,
-                name,
-                lambda r, u=unit_in, e=exc, t=target: f"cannot convert {u!r} to {UNITS[t]}: {e}",
-            )
+
+            def not_convertible(
+                r: int, u: str = unit_in, e: Exception = exc, t: str = target
+            ) -> str:
+                return f"cannot convert {u!r} to {UNITS[t]}: {e}"
+
+            checks.reject(present, name, not_convertible)
             numbers.unreadable[target] |= present
             continue
         values = numbers.values[target]
@@ -619,11 +628,11 @@ def _range_checks(numbers: _Numbers, checks: _Checks) -> None:
         limits = f"{_fmt(low)} to {_fmt(high)} {shown}"
         if target == "cloud_pct":
             limits = "0 to 100 % (0 to 8 okta)"
-        checks.reject(
-            outside,
-            numbers.column(target),
-            lambda r, t=target, lim=limits: f"{numbers.as_given(t, r)} is outside {lim}",
-        )
+
+        def is_outside(r: int, t: str = target, lim: str = limits) -> str:
+            return f"{numbers.as_given(t, r)} is outside {lim}"
+
+        checks.reject(outside, numbers.column(target), is_outside)
 
 
 def _moisture(numbers: _Numbers, checks: _Checks, warnings: list[str]) -> None:

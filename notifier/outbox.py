@@ -128,7 +128,7 @@ class DeliveryRow:
     last_error: str | None
 
     @classmethod
-    def from_row(cls, row: Mapping[str, Any]) -> DeliveryRow:
+    def from_row(cls, row: Mapping[str, Any] | sa.RowMapping) -> DeliveryRow:
         return cls(
             key=row["key"],
             event_id=row["event_id"],

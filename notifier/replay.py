@@ -454,7 +454,8 @@ def write_png(result: ReplayResult, obs: pd.DataFrame, path: Path) -> None:
             )
         ax.axhline(1000, color="grey", lw=0.6, ls="--")
         lv = result.fog_level[i]
-        naive = [t.replace(tzinfo=None) for t in times]
+        # matplotlib plots datetimes through its unit converters; its stubs name only numbers
+        naive: list[Any] = [t.replace(tzinfo=None) for t in times]
         ax.fill_between(
             naive,
             0,

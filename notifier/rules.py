@@ -36,7 +36,7 @@ import string
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -137,12 +137,14 @@ class Group:
         results = [evaluate_condition(c, feats, relaxed) for c in self.children]
         helds = np.array([r[0] for r in results])
         knowns = np.array([r[1] for r in results])
+        # each child gives an array per site, so reducing axis 0 gives an array (the stubs
+        # also allow numpy's bool scalar)
         if self.op == "all":
             false = (knowns & ~helds).any(axis=0)
-            held = helds.all(axis=0)
+            held = cast(np.ndarray, helds.all(axis=0))
             return held, held | false
         if self.op == "any":
-            held = helds.any(axis=0)
+            held = cast(np.ndarray, helds.any(axis=0))
             return held, held | knowns.all(axis=0)
         # not: Kleene negation, unknown stays unknown
         return knowns[0] & ~helds[0], knowns[0]

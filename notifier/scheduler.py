@@ -67,9 +67,13 @@ def build_scheduler(
         sched.add_job(_guarded(job_id, fn), trigger, id=job_id, name=job_id, **defaults, **kwargs)
 
     for source in config.sources:
+
+        def poll(sid: str = source.id) -> object:
+            return service.poll_and_assess(clock(), source_ids=[sid])
+
         add(
             f"poll:{source.id}",
-            lambda sid=source.id: service.poll_and_assess(clock(), source_ids=[sid]),
+            poll,
             IntervalTrigger(seconds=source.interval),
             # the scheduler keeps real time even when the service is handed another clock
             next_run_time=_now(),
@@ -89,10 +93,14 @@ def build_scheduler(
         hour, minute = (int(x) for x in config.schedule.outlook_local_time.split(":"))
         for zone in sorted({s.timezone for s in config.sites}):
             ids = [s.id for s in config.sites if s.timezone == zone]
+
+            def outlook(ids: list[str] = ids) -> object:
+                return service.outlook(clock(), ids)
+
             # a cron trigger in the site's own zone: 17:30 stays 17:30 across DST
             add(
                 f"outlook:{zone}",
-                lambda ids=ids: service.outlook(clock(), ids),
+                outlook,
                 CronTrigger(hour=hour, minute=minute, timezone=zone),
             )
     add(

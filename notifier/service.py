@@ -14,7 +14,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal, cast
 
 from notifier.config import Config, Subscriber, load_config
 from notifier.errors import FogwatchError, UsageError
@@ -329,9 +329,10 @@ class Service:
                     channel=channel,
                     address=sender,
                     sites=(site,),
-                    min_level=level,
+                    # the bot stores only levels a Subscriber accepts
+                    min_level=cast(Literal["watch", "warning"], level),
                 )
-            )  # type: ignore[arg-type]
+            )
         return tuple(subs)
 
     def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:

@@ -29,7 +29,7 @@ import math
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import pandas as pd
@@ -693,7 +693,8 @@ def _rows(frame: pd.DataFrame, present: list[str], *, nan_is_null: bool) -> list
 
 
 def _nan_to_none(values: np.ndarray) -> list[Any]:
-    return np.where(np.isnan(values), None, values.astype(object)).tolist()
+    # numpy's stubs leave None out of the scalars np.where takes; object arrays hold it
+    return np.where(np.isnan(values), cast(Any, None), values.astype(object)).tolist()
 
 
 def _frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame:

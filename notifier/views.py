@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 
 from notifier.assess import SiteAssessment, level_rank
@@ -46,7 +46,7 @@ def assessment_table(assessments: Sequence[SiteAssessment]) -> str:
     for a in sorted(assessments, key=lambda a: (-level_rank(a.level), a.site.id)):
         f = a.features
 
-        def num(name: str, spec: str = ".1f", f: dict[str, float] = f) -> str:
+        def num(name: str, spec: str = ".1f", f: Mapping[str, float] = f) -> str:
             v = f[name]
             return "—" if math.isnan(v) else format(v, spec)
 

@@ -183,7 +183,7 @@ def health_report(store: Store, config: Config) -> str:
     configured = [(s.id, s.type) for s in config.sources]
     ids = {source_id for source_id, _ in configured}
     extra = [(source_id, "(not in config)") for source_id in health if source_id not in ids]
-    table = [
+    table: list[tuple[str, ...]] = [
         ("source", "type", "last success", "rows ok", "rejected", "polls", "failures", "last error")
     ]
     for source_id, kind in configured + extra:

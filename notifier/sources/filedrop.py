@@ -135,11 +135,11 @@ def parse_file(
             raise _Unreadable(f"unknown file type (expected one of {known})")
         text = _decode(data)
         if fmt == "csv":
-            raw, lines, rejections = _read_csv(text, origin)
+            raw, csv_lines, rejections = _read_csv(text, origin)
             problems = missing_columns(raw.columns, default_site=default_site)
             if problems:
                 raise _Unreadable("line 1: " + "; ".join(problems))
-            frame, more, notes = normalize_frame(raw, lines=lines, **common)
+            frame, more, notes = normalize_frame(raw, lines=csv_lines, **common)
             return _result(frame, rejections + more, notes)
         if fmt in ("json", "ndjson"):
             reader = _json_records if fmt == "json" else _ndjson_records
@@ -285,7 +285,7 @@ def _record_lines(text: str, count: int) -> list[int] | None:
     skip = re.compile(r"[\s,]*")
 
     def elements(pos: int) -> list[int]:
-        starts = []
+        starts: list[int] = []
         pos += 1  # past "["
         while True:
             pos = skip.match(text, pos).end()  # type: ignore[union-attr]

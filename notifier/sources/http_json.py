@@ -247,7 +247,7 @@ class HttpJsonFeed:
         url = self.source.url
         if not self.source.per_site:
             return [(None, url)]
-        out = []
+        out: list[tuple[str | None, str]] = []
         for site_id, site in self.sites.items():
             filled = (
                 url.replace("{site}", quote(site_id, safe=""))

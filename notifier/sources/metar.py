@@ -26,7 +26,7 @@ import re
 import warnings
 from collections.abc import Collection, Mapping
 from datetime import datetime
-from typing import Any
+from typing import Any, cast
 
 from metar import Metar
 
@@ -160,7 +160,8 @@ def _record(parsed: Metar.Metar, report: str) -> dict[str, Any]:
     )
     return {
         "station": parsed.station_id,
-        "time": parsed.time.strftime("%Y-%m-%dT%H:%M:00Z"),
+        # the caller has rejected a report without a time group
+        "time": cast(datetime, parsed.time).strftime("%Y-%m-%dT%H:%M:00Z"),
         "temp_c": parsed.temp.value("C") if parsed.temp is not None else None,
         "dewpoint_c": parsed.dewpt.value("C") if parsed.dewpt is not None else None,
         "wind_kt": speed,
