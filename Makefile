@@ -22,6 +22,7 @@ test: $(STAMP)
 lint: $(STAMP)
 	$(PY) -m ruff check notifier tests $(wildcard bench)
 	$(PY) -m ruff format --check notifier tests $(wildcard bench)
+	$(PY) -m mypy notifier
 
 bench: $(STAMP)
 	$(PY) bench/run.py

@@ -33,17 +33,21 @@ def run(capsys, *argv: str) -> tuple[int, str, str]:
 
 def test_help_is_fast_because_heavy_libraries_load_lazily():
     # measured as "which modules were imported", not as a timing
-    code = ("import sys, notifier.cli as c; c.build_parser().format_help(); "
-            "print(sorted(m for m in ('pandas', 'matplotlib', 'pint', 'sqlalchemy', "
-            "'requests', 'scipy') if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                         check=True).stdout
+    code = (
+        "import sys, notifier.cli as c; c.build_parser().format_help(); "
+        "print(sorted(m for m in ('pandas', 'matplotlib', 'pint', 'sqlalchemy', "
+        "'requests', 'scipy') if m in sys.modules))"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, check=True
+    ).stdout
     assert out.strip() == "[]"
 
 
 def test_python_dash_m_works():
-    out = subprocess.run([sys.executable, "-m", "notifier", "--help"], capture_output=True,
-                         text=True, check=True).stdout
+    out = subprocess.run(
+        [sys.executable, "-m", "notifier", "--help"], capture_output=True, text=True, check=True
+    ).stdout
     assert "exit codes:" in out and "not an official forecast" in out
 
 
@@ -66,8 +70,9 @@ def test_check_ok_on_demo(capsys):
 
 def test_check_bad_config_exit_2_with_location(tmp_path, capsys):
     bad = tmp_path / "bad.yaml"
-    bad.write_text("version: 1\nsites:\n  - id: x\n    name: X\n    lat: 200\n    lon: 0\n"
-                   "    timezone: UTC\n")
+    bad.write_text(
+        "version: 1\nsites:\n  - id: x\n    name: X\n    lat: 200\n    lon: 0\n    timezone: UTC\n"
+    )
     code, _, err = run(capsys, "check", str(bad))
     assert code == 2
     assert re.search(r"bad\.yaml:5: sites\[0\]\.lat: Input should be less than", err)
@@ -78,14 +83,20 @@ def test_check_bad_rule_file_exit_2(tmp_path, capsys):
     rules.mkdir()
     (rules / "fog.yaml").write_text(
         "version: 1\nrules:\n  - id: r1\n    hazard: fog\n    level: watch\n    when:\n"
-        "      - dew_point: {below: 1}\n")
+        "      - dew_point: {below: 1}\n"
+    )
     cfg = tmp_path / "c.yaml"
-    cfg.write_text(f"version: 1\nrules: [{rules}]\nsites:\n  - {{id: x, name: X, lat: 1, "
-                   "lon: 1, timezone: UTC}\n")
+    cfg.write_text(
+        f"version: 1\nrules: [{rules}]\nsites:\n  - {{id: x, name: X, lat: 1, "
+        "lon: 1, timezone: UTC}\n"
+    )
     code, _, err = run(capsys, "check", str(cfg))
     assert code == 2
-    assert re.search(r"fog\.yaml:7: rule 'r1': unknown feature 'dew_point' — did you mean "
-                     r"'dewpoint_c'\?", err)
+    assert re.search(
+        r"fog\.yaml:7: rule 'r1': unknown feature 'dew_point' — did you mean "
+        r"'dewpoint_c'\?",
+        err,
+    )
 
 
 def test_missing_config_file(capsys):
@@ -97,18 +108,17 @@ def test_missing_config_file(capsys):
 def night_csv(tmp_path):
     frame = demo_observations(load(DEMO).config)
     path = tmp_path / "night.csv"
-    frame.assign(time=frame["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")).to_csv(path,
-                                                                               index=False)
+    frame.assign(time=frame["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")).to_csv(path, index=False)
     return path
 
 
 def test_assess_json_shape(capsys, night_csv):
-    code, out, _ = run(capsys, "assess", str(DEMO), "--data", str(night_csv), "--at",
-                       "2026-11-07T02:00Z", "--json")
+    code, out, _ = run(
+        capsys, "assess", str(DEMO), "--data", str(night_csv), "--at", "2026-11-07T02:00Z", "--json"
+    )
     assert code == 0
     data = json.loads(out)
-    assert {d["site"] for d in data} == {"hollin-orchard", "skerrow-berth",
-                                         "marrowby-showground"}
+    assert {d["site"] for d in data} == {"hollin-orchard", "skerrow-berth", "marrowby-showground"}
     for d in data:
         assert set(d) == {"site", "time", "level", "hazards", "features", "data"}
         assert d["time"] == "2026-11-07T02:00:00Z"
@@ -131,8 +141,16 @@ def test_assess_table_and_default_time_from_data(capsys, night_csv):
 
 
 def test_explain_lists_every_feature_and_rule(capsys, night_csv):
-    code, out, _ = run(capsys, "explain", str(DEMO), "skerrow-berth", "--data",
-                       str(night_csv), "--at", "2026-11-07T02:00Z")
+    code, out, _ = run(
+        capsys,
+        "explain",
+        str(DEMO),
+        "skerrow-berth",
+        "--data",
+        str(night_csv),
+        "--at",
+        "2026-11-07T02:00Z",
+    )
     assert code == 0
     from notifier.features import FEATURES
 

@@ -66,22 +66,31 @@ def test_env_secret_is_read_and_a_missing_one_is_located(tmp_path, monkeypatch):
     monkeypatch.setenv("FW_TEST_SECRET", "s3cret")
     assert load_config(path).channels[0].secret == "s3cret"
     monkeypatch.delenv("FW_TEST_SECRET")
-    with pytest.raises(ConfigError, match=r"fogwatch\.yaml:14: channels\[0\]\.secret: "
-                                          r"environment variable FW_TEST_SECRET is not set"):
+    with pytest.raises(
+        ConfigError,
+        match=r"fogwatch\.yaml:14: channels\[0\]\.secret: "
+        r"environment variable FW_TEST_SECRET is not set",
+    ):
         load_config(path)
 
 
 @pytest.mark.parametrize(
     ("old", "new", "pattern"),
     [
-        ("timezone: Europe/London", "timezone: Mars/Olympus",
-         r":7: sites\[0\]\.timezone: unknown time zone 'Mars/Olympus'"),
+        (
+            "timezone: Europe/London",
+            "timezone: Mars/Olympus",
+            r":7: sites\[0\]\.timezone: unknown time zone 'Mars/Olympus'",
+        ),
         ("lat: 52.6", "lat: 95", r":5: sites\[0\]\.lat: Input should be less than or equal"),
         ("exposure: valley", "exposure: swamp", r":8: sites\[0\]\.exposure: Input should be"),
         ("use: farm", "use: farm\n    colour: red", r":10: sites\[0\]\.colour: unknown key"),
         ("version: 1", "version: 3", r":1: version: unsupported config version 3"),
-        ("    use: farm\n", "    use: farm\n    onshore_from_deg: 200\n",
-         r"onshore_from_deg and onshore_to_deg must be given together"),
+        (
+            "    use: farm\n",
+            "    use: farm\n    onshore_from_deg: 200\n",
+            r"onshore_from_deg and onshore_to_deg must be given together",
+        ),
     ],
     ids=["timezone", "latitude", "exposure", "unknown-key", "version", "sector-pair"],
 )
@@ -95,31 +104,58 @@ def test_site_validators_reject(tmp_path, old, new, pattern):
 @pytest.mark.parametrize(
     ("extra", "pattern"),
     [
-        ("subscribers:\n  - {id: ann, channel: pager}\n",
-         r"subscribers\[0\]\.channel: unknown channel 'pager'"),
-        ("subscribers:\n  - {id: ann, channel: stdout, sites: [nowhere]}\n",
-         r"subscribers\[0\]\.sites: unknown site 'nowhere'"),
-        ("subscribers:\n  - {id: ann, channel: stdout, sites: ['tag:none']}\n",
-         r"no site has tag 'none'"),
-        ("subscribers:\n  - {id: ann, channel: stdout, quiet_hours: '25:00-06:00'}\n",
-         r"quiet_hours must look like '22:00-06:30'"),
-        ("channels:\n  - {id: m, type: folder, path: out}\n"
-         "subscribers:\n  - {id: ann, channel: m, address: not-an-address}\n",
-         r"not an email address: 'not-an-address'"),
-        ("sources:\n  - {id: d, type: filedrop, path: x, stations: {ZZQA: elsewhere}}\n",
-         r"sources\[0\]\.stations\.ZZQA: unknown site 'elsewhere'"),
-        ("sources:\n  - {id: d, type: filedrop, path: x, interval: 0}\n",
-         r"interval must be positive, got: 0"),
-        ("sources:\n  - {id: d, type: http_json, url: 'ftp://x'}\n",
-         r"url must start with http:// or https://"),
+        (
+            "subscribers:\n  - {id: ann, channel: pager}\n",
+            r"subscribers\[0\]\.channel: unknown channel 'pager'",
+        ),
+        (
+            "subscribers:\n  - {id: ann, channel: stdout, sites: [nowhere]}\n",
+            r"subscribers\[0\]\.sites: unknown site 'nowhere'",
+        ),
+        (
+            "subscribers:\n  - {id: ann, channel: stdout, sites: ['tag:none']}\n",
+            r"no site has tag 'none'",
+        ),
+        (
+            "subscribers:\n  - {id: ann, channel: stdout, quiet_hours: '25:00-06:00'}\n",
+            r"quiet_hours must look like '22:00-06:30'",
+        ),
+        (
+            "channels:\n  - {id: m, type: folder, path: out}\n"
+            "subscribers:\n  - {id: ann, channel: m, address: not-an-address}\n",
+            r"not an email address: 'not-an-address'",
+        ),
+        (
+            "sources:\n  - {id: d, type: filedrop, path: x, stations: {ZZQA: elsewhere}}\n",
+            r"sources\[0\]\.stations\.ZZQA: unknown site 'elsewhere'",
+        ),
+        (
+            "sources:\n  - {id: d, type: filedrop, path: x, interval: 0}\n",
+            r"interval must be positive, got: 0",
+        ),
+        (
+            "sources:\n  - {id: d, type: http_json, url: 'ftp://x'}\n",
+            r"url must start with http:// or https://",
+        ),
         ("sources:\n  - {id: d, type: carrier_pigeon}\n", r"sources\[0\]: Input tag"),
         ("schedule: {evaluate_every: soon}\n", r"expected a duration such as '10min'"),
         ("rules: [missing-folder]\n", r"rule path not found"),
-        ("sites:\n  - {id: b, name: B, lat: 1, lon: 1, timezone: UTC}\n",
-         r"duplicate key 'sites'"),
+        ("sites:\n  - {id: b, name: B, lat: 1, lon: 1, timezone: UTC}\n", r"duplicate key 'sites'"),
     ],
-    ids=["channel", "site-ref", "tag-ref", "quiet-hours", "address", "station", "interval",
-         "url", "source-type", "duration", "rule-path", "duplicate-key"],
+    ids=[
+        "channel",
+        "site-ref",
+        "tag-ref",
+        "quiet-hours",
+        "address",
+        "station",
+        "interval",
+        "url",
+        "source-type",
+        "duration",
+        "rule-path",
+        "duplicate-key",
+    ],
 )
 def test_cross_checks_reject(tmp_path, extra, pattern):
     with pytest.raises(ConfigError) as info:

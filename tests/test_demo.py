@@ -73,8 +73,9 @@ def test_emails_are_real_mime_with_charts(demo):
         msg = email.message_from_bytes(path.read_bytes())
         assert msg["Message-ID"] and msg["Date"] and msg["To"]
         body = next(p for p in msg.walk() if p.get_content_type() == "text/plain")
-        assert "not an official forecast" in " ".join(body.get_payload(decode=True)
-                                                       .decode().split())
+        assert "not an official forecast" in " ".join(
+            body.get_payload(decode=True).decode().split()
+        )
         charts += any(p.get_content_type() == "image/png" for p in msg.walk())
     assert charts >= 5
 
