@@ -404,11 +404,17 @@ class Outbox:
                 ).scalars()
             )
             if keys:
-                conn.execute(
+                # checked again in the UPDATE: on PostgreSQL another dispatcher may have
+                # sent one of them since the SELECT
+                done = conn.execute(
                     deliveries.update()
-                    .where(d.key.in_(keys))
-                    .values(status="expired", last_error=reason)
+                    .where(d.key.in_(keys) & (d.status == "pending"))
+                    .values(
+                        status="expired", last_error=reason, claimed_until=None, claimed_by=None
+                    )
+                    .returning(d.key)
                 )
+                keys = sorted(done.scalars(), key=keys.index)
         return keys
 
     def deliveries(self, statuses: Sequence[str] | None = None) -> list[DeliveryRow]:

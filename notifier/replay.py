@@ -140,9 +140,18 @@ def replay(
     if len(obs):
         # sites coded in the configuration's order: the feature pass reads the codes as
         # site indices instead of looking each row's text up (the rows are in time order)
+        # (from codes: rows of sites not configured become missing without a warning)
+        site_dtype = pd.CategoricalDtype(pd.Index(ids, dtype=object))
+        kind_dtype = pd.CategoricalDtype(pd.Index(["forecast", "obs"], dtype=object))
         obs = obs.assign(
-            site=pd.Categorical(obs["site"], categories=ids),
-            kind=pd.Categorical(obs["kind"], categories=["forecast", "obs"]),
+            site=pd.Categorical.from_codes(
+                site_dtype.categories.get_indexer(obs["site"].to_numpy(dtype=object)),
+                dtype=site_dtype,
+            ),
+            kind=pd.Categorical.from_codes(
+                kind_dtype.categories.get_indexer(obs["kind"].to_numpy(dtype=object)),
+                dtype=kind_dtype,
+            ),
         )
     t_rows = epoch_seconds(obs["time"]) if len(obs) else np.array([])
     pos = {sid: i for i, sid in enumerate(ids)}

@@ -701,7 +701,11 @@ def _frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame
     from notifier.observations import empty_frame
 
     if not records:
-        return empty_frame()
+        empty = empty_frame()
+        if shared_text:
+            for column in TEXT_COLUMNS:
+                empty[column] = empty[column].astype("category")
+        return empty
     frame = pd.DataFrame.from_records(records, columns=CANONICAL_COLUMNS)
     frame["time"] = pd.to_datetime(frame["time"].astype("int64"), unit="s", utc=True).astype(
         "datetime64[ns, UTC]"

@@ -63,7 +63,11 @@ class RollingWindow:
         self.last_read = 0
 
     def frame(self, at: datetime) -> pd.DataFrame:
-        """The window for an evaluation at ``at`` (tz-aware)."""
+        """The window for an evaluation at ``at`` (tz-aware).
+
+        The table shares its memory with the window (a copy each cycle would cost as
+        much as the merge), so its values are read-only: setting a cell raises, and a
+        caller that wants to change it works on ``.copy()``. New columns are fine."""
         start_s = _ceil_s(at - self.back)
         if self._columns is None or start_s < self._start_s:
             self._load(start_s)
@@ -191,7 +195,9 @@ class RollingWindow:
         rows = None if not times.size or times.max() <= end_s * _NS else times <= end_s * _NS
 
         def cut(values: np.ndarray) -> np.ndarray:
-            return values if rows is None else values[rows]
+            out = values if rows is None else values[rows]
+            out.flags.writeable = False  # shared with the window: see frame()
+            return out
 
         data: dict[str, Any] = {}
         for name in CANONICAL_COLUMNS:
@@ -228,7 +234,7 @@ def _release_freed_heap() -> None:
 
     try:
         trim = getattr(ctypes.CDLL(None), "malloc_trim", None)  # the process's own libc
-    except OSError:
+    except (OSError, TypeError):  # TypeError: Windows cannot open "no library"
         trim = None
     if trim is not None:
         trim(0)

@@ -285,3 +285,13 @@ def test_cli_rejects_reversed_times(month, capsys):
         ]
     )
     assert code == 2 and "--to must be after --from" in capsys.readouterr().err
+
+
+def test_rows_of_a_site_not_configured_change_nothing(month):
+    # a history file may hold stations the configuration no longer has: they are left
+    # out quietly (warnings are errors in this suite) and the scores stay the same
+    loaded, obs, result, _, _, start, end = month
+    stranger = obs[obs["site"] == obs["site"].iloc[0]].assign(site="zz-not-configured")
+    again = replay(loaded, pd.concat([obs, stranger], ignore_index=True), start, end)
+    assert [(e.id, e.type) for e in again.events] == [(e.id, e.type) for e in result.events]
+    assert again.table("warning") == result.table("warning")

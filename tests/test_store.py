@@ -310,3 +310,9 @@ def test_a_hundred_thousand_csv_rows_are_parsed_and_stored_quickly(tmp_path):
     elapsed = time.perf_counter() - began
     assert parsed.rejections == []
     assert elapsed < 4.0, f"{n} rows took {elapsed:.1f} s"
+
+
+def test_an_empty_categorical_read_is_categorical_too(db):
+    empty = db.window(None, NOW, None, categorical=True)
+    assert empty.empty and list(empty.columns) == CANONICAL_COLUMNS
+    assert all(isinstance(empty[c].dtype, pd.CategoricalDtype) for c in ("site", "kind"))

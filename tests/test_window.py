@@ -173,3 +173,17 @@ def test_random_writes_and_clocks_match_a_full_read(tmp_path_factory: Any, cycle
                 store.add_observations(canonical(list(records.values())))
             assert_same_as_a_full_read(store, window, at)
         assert np.all(np.diff(window._keys) > 0), "held rows stay in key order, no repeats"
+
+
+def test_the_frame_handed_out_is_read_only_and_the_window_unharmed(store: Store) -> None:
+    store.add_observations(canonical([row("zz-vale", m) for m in range(0, 60, 10)]))
+    window = RollingWindow(store, WATCHED, back=BACK, ahead=AHEAD)
+    at = T0 + timedelta(minutes=50)
+    held = window.frame(at)
+    with pytest.raises(ValueError, match="read-only"):
+        held.loc[0, "temp_c"] = -99.0
+    changed = held.copy()
+    changed.loc[0, "temp_c"] = -99.0  # a copy may be changed
+    held["extra"] = 1.0  # and new columns added
+    assert window.frame(at)["temp_c"].iloc[0] == 2.0
+    assert_same_as_a_full_read(store, window, at)

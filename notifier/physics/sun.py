@@ -52,7 +52,8 @@ _LAST_DAY_S = float(np.datetime64("2099-12-31", "D").astype(np.int64)) * SECONDS
 # error is h^2/8 times the second derivative: below 1e-7 deg of declination and 1e-6 min
 # of equation of time for h = 10 min, a few milliseconds of event time at most, far under
 # the method's one-minute accuracy. The grid points are absolute (multiples of 600 s from
-# the epoch), so one site gives the same answer alone or among thousands.
+# the epoch), so a site's answer does not depend on which others share the call; fewer
+# than _GRID_FROM instants are evaluated directly, which differs by microseconds.
 _GRID_STEP_S = 600.0
 _GRID_FROM = 64  # instants; fewer are evaluated directly
 
