@@ -281,6 +281,8 @@ class AlertSettings(_Model):
     cooldown: Duration = 60 * 60.0
     max_delivery_age: Duration = 12 * 3600.0
     stale_after: Duration = 90 * 60.0
+    # how long a dispatcher's claim on what it is sending lasts (wall-clock time)
+    claim_lease: Duration = 15 * 60.0
 
 
 class BotSettings(_Model):

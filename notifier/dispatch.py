@@ -100,11 +100,28 @@ def dispatch(
     due, claim = outbox.claim(now)
     try:
         due = _cancel_unwanted(outbox, due, now, mutes, subscribers, report)
-        _dispatch_claimed(outbox, config, rules, due, now, channel_kwargs, rng, should_stop, report)
+        lease = _Lease(outbox, claim, due)
+        _dispatch_claimed(
+            outbox, config, rules, due, now, channel_kwargs, rng, should_stop, report, lease
+        )
     finally:
         # what was neither sent nor given up (a stop, a failing channel) is due again now
         outbox.release([r.key for r in due], claim)
     return report
+
+
+class _Lease:
+    """Renews a dispatch run's claim once half of it is spent (marking a row ends its
+    claim, so only what is left to send is renewed)."""
+
+    def __init__(self, outbox: Outbox, token: str, rows: list[DeliveryRow]):
+        self.outbox, self.token, self.keys = outbox, token, [r.key for r in rows]
+        self.since = outbox.wall_clock()
+
+    def keep_up(self) -> None:
+        if self.outbox.wall_clock() - self.since >= self.outbox.lease / 2:
+            self.outbox.renew(self.keys, self.token)
+            self.since = self.outbox.wall_clock()
 
 
 def _cancel_unwanted(
@@ -144,6 +161,7 @@ def _dispatch_claimed(
     rng: random.Random,
     should_stop: Callable[[], bool],
     report: DispatchReport,
+    lease: _Lease,
 ) -> None:
     by_channel: dict[str, list[DeliveryRow]] = defaultdict(list)
     for row in due:
@@ -166,6 +184,7 @@ def _dispatch_claimed(
             for batch in _batches(rows):
                 if should_stop():
                     return
+                lease.keep_up()
                 ok = _deliver(outbox, config, rules, channel, batch, now, rng, report)
                 failing = 0 if ok else failing + 1
                 if failing >= MAX_TRANSIENT_IN_A_ROW:

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import json
 import uuid
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
@@ -27,9 +27,9 @@ from notifier.store import Store, iso_utc, metadata
 
 __all__ = ["CLAIM_LEASE", "DeliveryRow", "Outbox"]
 
-#: How long a dispatcher's claim on the deliveries it is sending lasts. A run sends at
-#: most 500 (seconds each at worst, with the channel timeouts); a claim still held after
-#: this belongs to a dispatcher that died, and its rows go out again.
+#: How long a dispatcher's claim on the deliveries it is sending lasts, in wall-clock
+#: time (``alerts.claim_lease``). The dispatcher renews it while it works through a long
+#: run; a claim left to lapse belongs to a dispatcher that died, and its rows go out again.
 CLAIM_LEASE = timedelta(minutes=15)
 
 alert_states = sa.Table(
@@ -156,12 +156,29 @@ class DeliveryRow:
         )
 
 
+def _claim_time(moment: datetime) -> str:
+    """Claim times to the microsecond, fixed width so that they compare as text (a lease
+    of a second or two must not lose most of itself to rounding)."""
+    return moment.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
 class Outbox:
     """Queries over the alert and outbox tables of a ``Store``."""
 
-    def __init__(self, store: Store):
+    def __init__(
+        self,
+        store: Store,
+        *,
+        lease: timedelta = CLAIM_LEASE,
+        wall_clock: Callable[[], datetime] = lambda: datetime.now(UTC),
+    ):
+        """``lease`` and ``wall_clock`` are for claims (see :meth:`claim`): a claim is
+        about a dispatcher being alive, so it runs on real time even when the service is
+        driven by a simulated clock (the demo, replays, ``once --at``)."""
         self.store = store
         self.engine = store.engine
+        self.lease = lease
+        self.wall_clock = wall_clock
 
     # -- alert states ----------------------------------------------------------------
 
@@ -290,14 +307,14 @@ class Outbox:
 
     # -- deliveries ------------------------------------------------------------------
 
-    @staticmethod
-    def _due(when: str) -> Any:
+    def _due(self, when: str) -> Any:
         d = deliveries.c
+        wall = _claim_time(self.wall_clock())
         return (
             (d.status == "pending")
             & (d.next_attempt_at <= when)
             & (d.not_before.is_(None) | (d.not_before <= when))
-            & (d.claimed_until.is_(None) | (d.claimed_until <= when))
+            & (d.claimed_until.is_(None) | (d.claimed_until <= wall))
         )
 
     def due(self, now: datetime, limit: int = 500) -> list[DeliveryRow]:
@@ -313,11 +330,10 @@ class Outbox:
             ).mappings()
             return [DeliveryRow.from_row(r) for r in rows]
 
-    def claim(
-        self, now: datetime, lease: timedelta = CLAIM_LEASE, limit: int = 500
-    ) -> tuple[list[DeliveryRow], str]:
-        """The due deliveries, claimed until ``now + lease`` so that no other dispatcher
-        sends them meanwhile; returns them (oldest first) and the claim's token.
+    def claim(self, now: datetime, limit: int = 500) -> tuple[list[DeliveryRow], str]:
+        """The deliveries due at ``now``, claimed for :attr:`lease` of wall-clock time so
+        that no other dispatcher sends them meanwhile; returns them (oldest first) and
+        the claim's token.
 
         The claim is one UPDATE that checks again that each row is still due: of two
         dispatchers, the second gets only what the first did not take (SQLite serialises
@@ -325,7 +341,7 @@ class Outbox:
         row ends its claim; :meth:`release` hands back what was not sent; a crashed
         dispatcher's claims simply lapse.
         """
-        when, until = iso_utc(now), iso_utc(now + lease)
+        when, until = iso_utc(now), _claim_time(self.wall_clock() + self.lease)
         token = uuid.uuid4().hex
         d = deliveries.c
         with self.store.atomic() as conn:
@@ -349,6 +365,17 @@ class Outbox:
             claimed = [DeliveryRow.from_row(r) for r in rows]
         claimed.sort(key=lambda r: (r.created_at, r.key))
         return claimed, token
+
+    def renew(self, keys: Iterable[str], token: str) -> None:
+        """Extend the claim ``token`` on these rows by another lease from now."""
+        keys = list(keys)
+        if keys:
+            with self.store.atomic() as conn:
+                conn.execute(
+                    deliveries.update()
+                    .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
+                    .values(claimed_until=_claim_time(self.wall_clock() + self.lease))
+                )
 
     def release(self, keys: Iterable[str], token: str) -> None:
         """End the claim ``token`` on these rows where it still holds (unsent rows go

@@ -132,7 +132,9 @@ class Service:
         self.config_path = Path(config_path)
         self.loaded = load(self.config_path)
         self.store = store or open_store(self.loaded.config)
-        self.outbox = Outbox(self.store)
+        self.outbox = Outbox(
+            self.store, lease=timedelta(seconds=self.loaded.config.alerts.claim_lease)
+        )
         self.session = session
         self.channel_kwargs = dict(channel_kwargs or {})
         self._fixed_sources = sources

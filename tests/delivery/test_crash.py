@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from notifier.outbox import CLAIM_LEASE, Outbox
+from notifier.outbox import Outbox
 from notifier.service import Service
 from notifier.store import Store
 from tests.delivery.conftest import WEBHOOK_SECRET
@@ -36,13 +36,12 @@ EVENTS = 20
 SUBSCRIBERS = ("quay-bridge", "yard-bridge")  # 20 events × 2 = 40 deliveries
 KILLS = 16
 SEND_DELAY_S = 0.15  # per send: at most a few sends between two kills
+CLAIM_LEASE_S = 0.5
 SEED = 20260110
 
 
-def worker(config: Path, env: dict[str, str], run: int, stderr: int = subprocess.DEVNULL):
-    # each restart comes after the killed run's claims have lapsed (CLAIM_LEASE), as a
-    # restarted service's clock would have moved on
-    at = (T0 + timedelta(minutes=1) + run * (CLAIM_LEASE + timedelta(minutes=1))).isoformat()
+def worker(config: Path, env: dict[str, str], stderr: int = subprocess.DEVNULL):
+    at = (T0 + timedelta(minutes=1)).isoformat()
     return subprocess.Popen(
         [sys.executable, "-m", "tests.delivery.crash_worker", str(config), at, str(SEND_DELAY_S)],
         cwd=ROOT,
@@ -62,7 +61,14 @@ def test_killed_dispatcher_loses_nothing_and_duplicates_at_most_once_per_kill(
     started = time.monotonic()
     with signed_receiver() as receiver:
         subs = [{"id": s, "channel": "hook", "address": s} for s in SUBSCRIBERS]
-        config = write_config(tmp_path, [webhook_channel(receiver.url)], subs)
+        # a killed run's claims lapse after CLAIM_LEASE_S of wall time, and the next run
+        # takes what it held; a run longer than that renews its claim as it goes
+        config = write_config(
+            tmp_path,
+            [webhook_channel(receiver.url)],
+            subs,
+            alerts={"claim_lease": f"{CLAIM_LEASE_S}s"},
+        )
         service = Service(config)
         events = [event(at=T0 - timedelta(minutes=m)) for m in range(EVENTS)]
         queued = queue(service, events, T0)
@@ -73,7 +79,7 @@ def test_killed_dispatcher_loses_nothing_and_duplicates_at_most_once_per_kill(
         kills = 0
         runs = 0
         while kills < KILLS:  # ~1.3 s a run here, mostly the worker's imports
-            proc = worker(config, env, runs)
+            proc = worker(config, env)
             runs += 1
             assert proc.stdout is not None
             assert proc.stdout.readline().strip() == "ready"
@@ -87,7 +93,7 @@ def test_killed_dispatcher_loses_nothing_and_duplicates_at_most_once_per_kill(
                 break  # it finished the whole outbox before a kill could land
         sent_before_final = len(receiver.delivered())
 
-        final = worker(config, env, runs, stderr=subprocess.PIPE)
+        final = worker(config, env, stderr=subprocess.PIPE)
         out, err = final.communicate(timeout=60)
         assert final.returncode == 0 and out.strip() == "ready", err
         delivered = receiver.delivered()

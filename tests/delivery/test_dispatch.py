@@ -382,9 +382,11 @@ def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_serv
 @pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
 def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request, backend):
     # two services sharing one store (the SQLite file, or a PostgreSQL database as several
-    # instances would share), dispatching at the same moment with slow sends so that
-    # their runs overlap: each claims what the other has not, and nothing goes twice
+    # instances would share). One starts a run of slow sends (2.4 s) longer than the claim
+    # lease (1 s); the other tries again and again meanwhile. The first renews its claim
+    # as it goes, so the second never takes what the first is still sending.
     import threading
+    import time as wall_time
 
     from tests.delivery.crash_worker import SlowSession
 
@@ -393,18 +395,29 @@ def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request,
         store = {"store": {"url": request.getfixturevalue("postgres").new_database()}}
     subs = [{"id": f"bridge-{n}", "channel": "hook", "address": f"room-{n}"} for n in range(3)]
     with signed_receiver() as receiver:
-        path = write_config(tmp_path, [webhook_channel(receiver.url)], subs, **store)
+        path = write_config(
+            tmp_path, [webhook_channel(receiver.url)], subs, alerts={"claim_lease": "1s"}, **store
+        )
         services = [
-            Service(path, channel_kwargs={"hook": {"session": SlowSession(0.02)}}) for _ in range(2)
+            Service(path, channel_kwargs={"hook": {"session": SlowSession(0.1)}}) for _ in range(2)
         ]
         try:
             queued = queue(services[0], [event(at=T0 - timedelta(minutes=m)) for m in range(8)], T0)
-            reports = [None, None]
+            at = T0 + timedelta(minutes=1)
+            sent = [0, 0]
+            first_done = threading.Event()
 
-            def run(i: int) -> None:
-                reports[i] = services[i].deliver(T0 + timedelta(minutes=1))
+            def first() -> None:
+                sent[0] += services[0].deliver(at).sent
+                first_done.set()
 
-            threads = [threading.Thread(target=run, args=(i,)) for i in range(2)]
+            def second() -> None:
+                wall_time.sleep(0.05)  # let the first claim
+                while not first_done.is_set():
+                    sent[1] += services[1].deliver(at).sent
+                    wall_time.sleep(0.1)
+
+            threads = [threading.Thread(target=first), threading.Thread(target=second)]
             for t in threads:
                 t.start()
             for t in threads:
@@ -416,5 +429,5 @@ def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request,
                 service.close()
     assert len(queued) == 24
     assert delivered == {d.key: 1 for d in queued}  # every one, exactly once
-    assert sum(r.sent for r in reports) == 24  # one claimed them all; the other none
+    assert sent == [24, 0]  # the first kept its claim for the whole 2.4 s run
     assert set(final.values()) == {"sent"}

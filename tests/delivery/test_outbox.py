@@ -308,26 +308,43 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
         assert [r.subscriber for r in box.due(T0 + timedelta(minutes=1))] == ["duty-lead"]
 
 
-def test_a_claim_keeps_other_dispatchers_off_until_released_marked_or_lapsed(box):
+def test_a_claim_keeps_other_dispatchers_off_until_released_marked_or_lapsed(any_store):
+    wall = [T0]  # claims run on the wall clock, here a hand-driven one
+    box, other = (Outbox(any_store, wall_clock=lambda: wall[0]) for _ in range(2))
     ev = event(at=T0)
     box.commit_cycle({}, {QUAY: state()}, [ev], deliveries_for(ev, "harbour-ops", "duty-lead"), T0)
-    other = Outbox(box.store)  # a second dispatcher on the same store
-    mine, stamp = box.claim(T0)
+    mine, token = box.claim(T0)
     first, second = mine
     assert [r.subscriber for r in mine] == ["duty-lead", "harbour-ops"]
     assert other.claim(T0)[0] == [] and other.due(T0) == []
     # handed back unsent: the other dispatcher may take it at once
-    box.release([first.key], stamp)
-    theirs, their_stamp = other.claim(T0)
-    assert [r.key for r in theirs] == [first.key]
-    # an old stamp ends nobody else's claim
-    box.release([first.key], stamp)
+    box.release([first.key], token)
+    theirs, their_token = other.claim(T0)
+    assert [r.key for r in theirs] == [first.key] and their_token != token
+    # an old token ends nobody else's claim
+    box.release([first.key], token)
     assert box.claim(T0)[0] == []
     # marking a row ends its claim; a retry is due at its own time, claimed by nobody
     box.mark([second.key], "pending", T0, error="451 try later", next_attempt_at=T0)
     assert [r.key for r in other.claim(T0)[0]] == [second.key]
-    # a claim never ended (its dispatcher died) lapses after CLAIM_LEASE
-    lease_over = T0 + outbox_module.CLAIM_LEASE
-    assert box.claim(lease_over - timedelta(seconds=1))[0] == []
-    assert sorted(r.key for r in box.claim(lease_over)[0]) == sorted([first.key, second.key])
-    assert their_stamp != stamp
+    # a claim is renewed by its holder; one never ended (its dispatcher died) lapses
+    wall[0] = T0 + box.lease - timedelta(seconds=1)
+    other.renew([second.key], "not-their-token")
+    box.renew([first.key], token)  # not box's claim any more: nothing changes
+    assert box.claim(T0)[0] == []
+    wall[0] = T0 + box.lease
+    assert sorted(r.key for r in box.claim(T0)[0]) == sorted([first.key, second.key])
+
+
+def test_a_renewed_claim_outlasts_its_first_lease(any_store):
+    wall = [T0]
+    box, other = (Outbox(any_store, wall_clock=lambda: wall[0]) for _ in range(2))
+    ev = event(at=T0)
+    box.commit_cycle({}, {QUAY: state()}, [ev], deliveries_for(ev, "harbour-ops"), T0)
+    (row,), token = box.claim(T0)
+    wall[0] = T0 + box.lease / 2
+    box.renew([row.key], token)
+    wall[0] = T0 + box.lease + timedelta(seconds=1)  # the first lease is over
+    assert other.claim(T0)[0] == []
+    wall[0] = T0 + box.lease * 1.5  # the renewed one too
+    assert [r.key for r in other.claim(T0)[0]] == [row.key]
