@@ -323,6 +323,18 @@ class Store:
     def _migrate(self) -> None:
         with self.atomic() as conn:
             schema_migrations.create(conn, checkfirst=True)
+            # A newer fogwatch has changed this database in ways this one does not know
+            # (rows it writes could go unseen by the newer one): refuse rather than guess.
+            newer = conn.execute(
+                sa.select(schema_migrations.c.name)
+                .where(schema_migrations.c.version > len(MIGRATIONS))
+                .order_by(schema_migrations.c.version)
+            ).first()
+        if newer is not None:
+            raise StoreError(
+                f"the store was upgraded by a newer fogwatch (migration {newer[0]!r}); "
+                f"this version knows {len(MIGRATIONS)} migrations: upgrade it to use this store"
+            )
         for version, migration in enumerate(MIGRATIONS, start=1):
             with self.atomic() as conn:
                 # Checked inside the write lock: a second process may have just applied it.
@@ -619,6 +631,10 @@ class Store:
             )
 
 
+#: ``INSERT … RETURNING`` and ``UPDATE … RETURNING`` (the outbox's counts and claims).
+SQLITE_AT_LEAST = (3, 35)
+
+
 def _make_engine(url: str) -> Engine:
     engine = sa.create_engine(url)
     if engine.dialect.name == "sqlite":
@@ -627,6 +643,14 @@ def _make_engine(url: str) -> Engine:
 
 
 def _sqlite_events(engine: Engine) -> None:
+    import sqlite3
+
+    if sqlite3.sqlite_version_info < SQLITE_AT_LEAST:
+        raise StoreError(
+            f"SQLite {'.'.join(map(str, SQLITE_AT_LEAST))} or newer is needed; this Python "
+            f"has {sqlite3.sqlite_version}"
+        )
+
     @event.listens_for(engine, "connect")
     def _on_connect(dbapi_conn: Any, _record: Any) -> None:
         # Let SQLAlchemy's "begin" event issue BEGIN itself (see the module docstring).

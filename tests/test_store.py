@@ -224,7 +224,7 @@ def test_a_failing_migration_leaves_nothing_behind(tmp_path: Path, monkeypatch):
 def test_a_reordered_migration_is_refused(tmp_path: Path, monkeypatch):
     url = f"sqlite:///{tmp_path / 'fw.sqlite'}"
     Store(url).close()
-    renamed = [Migration("0001_something_else", MIGRATIONS[0].apply)]
+    renamed = [Migration("0001_something_else", MIGRATIONS[0].apply), *MIGRATIONS[1:]]
     monkeypatch.setattr(store_module, "MIGRATIONS", renamed)
     with pytest.raises(StoreError, match="was a migration reordered"):
         Store(url)
@@ -316,3 +316,27 @@ def test_an_empty_categorical_read_is_categorical_too(db):
     empty = db.window(None, NOW, None, categorical=True)
     assert empty.empty and list(empty.columns) == CANONICAL_COLUMNS
     assert all(isinstance(empty[c].dtype, pd.CategoricalDtype) for c in ("site", "kind"))
+
+
+def test_a_store_upgraded_by_a_newer_version_is_refused(tmp_path: Path):
+    url = f"sqlite:///{tmp_path / 'fw.sqlite'}"
+    with Store(url) as db:
+        with db.atomic() as conn:  # as a later fogwatch with one more migration would leave it
+            conn.execute(
+                store_module.schema_migrations.insert().values(
+                    version=len(MIGRATIONS) + 1, name="0099_from_the_future", applied_at="x"
+                )
+            )
+    with pytest.raises(StoreError, match="upgraded by a newer fogwatch.*0099_from_the_future"):
+        Store(url)
+
+
+def test_too_old_a_sqlite_is_refused_by_name(monkeypatch):
+    import sqlite3
+
+    monkeypatch.setattr(sqlite3, "sqlite_version_info", (3, 31, 1))
+    monkeypatch.setattr(sqlite3, "sqlite_version", "3.31.1")
+    with pytest.raises(
+        StoreError, match=r"SQLite 3\.35 or newer is needed; this Python has 3\.31\.1"
+    ):
+        Store.memory()
