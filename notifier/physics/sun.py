@@ -15,6 +15,7 @@ zenith 90.833° (refraction 34' at the horizon plus the solar semidiameter 16').
 from __future__ import annotations
 
 import datetime as dt
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -56,6 +57,7 @@ _LAST_DAY_S = float(np.datetime64("2099-12-31", "D").astype(np.int64)) * SECONDS
 # than _GRID_FROM instants are evaluated directly, which differs by microseconds.
 _GRID_STEP_S = 600.0
 _GRID_FROM = 64  # instants; fewer are evaluated directly
+_COS_SUNRISE_ZENITH = float(np.cos(np.radians(SUNRISE_ZENITH_DEG)))
 
 
 def _solar_declination_and_equation_of_time(
@@ -94,41 +96,58 @@ def _solar_declination_and_equation_of_time(
     return declination, equation_of_time_min
 
 
-def _declination_and_eot(
-    posix_s: NDArray[np.float64],
-) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """:func:`_solar_declination_and_equation_of_time`, on a 10-minute grid for many
-    instants (see ``_GRID_STEP_S``): the same values to within interpolation error."""
-    if posix_s.size >= _GRID_FROM:
-        finite = posix_s[np.isfinite(posix_s)]
-        if finite.size:
-            first = np.floor(finite.min() / _GRID_STEP_S)
-            last = np.ceil(finite.max() / _GRID_STEP_S)
-            points = int(last - first) + 1
-            if points <= posix_s.size // 2:  # else the grid costs more than it saves
-                grid = (first + np.arange(points + 1)) * _GRID_STEP_S
-                declination, equation_of_time = _solar_declination_and_equation_of_time(grid)
-                # a uniform grid: each instant's cell by division, no search
-                position = posix_s / _GRID_STEP_S - first
-                cell = np.clip(np.floor(np.nan_to_num(position)), 0, points - 1).astype(np.intp)
-                frac = position - cell  # NaN stays NaN
-                return (
-                    declination[cell] + frac * (declination[cell + 1] - declination[cell]),
-                    equation_of_time[cell]
-                    + frac * (equation_of_time[cell + 1] - equation_of_time[cell]),
-                )
-    return _solar_declination_and_equation_of_time(posix_s)
+class _SolarTerms:
+    """Declination (deg) and equation of time (min) for the instants of one
+    :func:`_events_s` call.
+
+    For many instants the terms are tabulated once, on the 10-minute grid (see
+    ``_GRID_STEP_S``), over every instant the call can ask about — an event lies within
+    12.3 h before and 36.3 h after its UTC day start (noon at 720 - 4 lon minutes, the
+    hour angle at most 720, the equation of time at most 17) — and each iteration only
+    interpolates. Fewer instants are evaluated directly.
+    """
+
+    def __init__(self, day_start_s: NDArray[np.float64]):
+        self.grid: tuple[float, NDArray[np.float64], NDArray[np.float64]] | None = None
+        if day_start_s.size < _GRID_FROM:
+            return
+        finite = day_start_s[np.isfinite(day_start_s)]
+        if not finite.size:
+            return
+        first = np.floor((finite.min() - SECONDS_PER_DAY) / _GRID_STEP_S)
+        last = np.ceil((finite.max() + 2 * SECONDS_PER_DAY) / _GRID_STEP_S)
+        points = int(last - first) + 1
+        if points > day_start_s.size // 2:  # spread over many days: the grid saves nothing
+            return
+        grid = (first + np.arange(points + 1)) * _GRID_STEP_S
+        declination, equation_of_time = _solar_declination_and_equation_of_time(grid)
+        self.grid = (float(first), declination, equation_of_time)
+
+    def __call__(
+        self, posix_s: NDArray[np.float64]
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        if self.grid is None:
+            return _solar_declination_and_equation_of_time(posix_s)
+        first, declination, equation_of_time = self.grid
+        # a uniform grid: each instant's cell by division, no search
+        position = posix_s / _GRID_STEP_S - first
+        cell = np.clip(np.floor(np.nan_to_num(position)), 0, declination.size - 2).astype(np.intp)
+        frac = position - cell  # NaN stays NaN
+        return (
+            declination[cell] + frac * (declination[cell + 1] - declination[cell]),
+            equation_of_time[cell] + frac * (equation_of_time[cell + 1] - equation_of_time[cell]),
+        )
 
 
 def _sunrise_hour_angle_deg(
-    lat_deg: NDArray[np.float64], declination_deg: NDArray[np.float64]
+    cos_lat: NDArray[np.float64], tan_lat: NDArray[np.float64], declination_deg: NDArray[np.float64]
 ) -> NDArray[np.float64]:
-    """Hour angle of sunrise at zenith 90.833°, deg; NaN where the sun never crosses."""
-    lat = np.radians(lat_deg)
+    """Hour angle of sunrise at zenith 90.833°, deg; NaN where the sun never crosses.
+    The latitude comes as its cosine and tangent (constant over the iterations)."""
     declination = np.radians(declination_deg)
-    cos_hour_angle = np.cos(np.radians(SUNRISE_ZENITH_DEG)) / (
-        np.cos(lat) * np.cos(declination)
-    ) - np.tan(lat) * np.tan(declination)
+    cos_hour_angle = _COS_SUNRISE_ZENITH / (cos_lat * np.cos(declination)) - tan_lat * np.tan(
+        declination
+    )
     return np.degrees(np.arccos(cos_hour_angle))
 
 
@@ -142,10 +161,16 @@ def _day_start_s(day: DayLike) -> NDArray[np.float64]:
 
 
 def _events_s(
-    lat_deg: NDArray[np.float64], lon_deg: NDArray[np.float64], day_start_s: NDArray[np.float64]
+    lat_deg: NDArray[np.float64],
+    lon_deg: NDArray[np.float64],
+    day_start_s: NDArray[np.float64],
+    *,
+    rise: bool = True,
+    set_: bool = True,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """(sunrise, sunset, solar noon) in POSIX s for the solar day centred near
-    ``day_start_s`` + 12 h - lon/15 h; iterated at each event's own time."""
+    ``day_start_s`` + 12 h - lon/15 h; iterated at each event's own time. An event not
+    wanted (``rise`` / ``set_`` False) is not worked out and comes back as None."""
     valid = (
         (np.abs(lat_deg) <= 90.0)
         & (np.abs(lon_deg) <= 180.0)
@@ -155,18 +180,23 @@ def _events_s(
     lat = np.where(valid, lat_deg, np.nan)
     lon = np.where(valid, lon_deg, np.nan)
     day_start_s = np.where(valid, day_start_s, np.nan)
+    terms = _SolarTerms(day_start_s)
+    cos_lat, tan_lat = np.cos(np.radians(lat)), np.tan(np.radians(lat))
     # Solar noon (NOAA): 720 - 4 lon - EoT minutes after 00:00 UTC.
     base_min = _NOON_MINUTES - MINUTES_PER_DEGREE * lon
     noon = day_start_s + base_min * SECONDS_PER_MINUTE
     for _ in range(2):
-        _, equation_of_time = _declination_and_eot(noon)
+        _, equation_of_time = terms(noon)
         noon = day_start_s + (base_min - equation_of_time) * SECONDS_PER_MINUTE
-    events = []
-    for sign in (-1.0, 1.0):  # sunrise, then sunset
+    events: list[Any] = []
+    for sign, wanted in ((-1.0, rise), (1.0, set_)):  # sunrise, then sunset
+        if not wanted:
+            events.append(None)
+            continue
         event = noon
         for _ in range(_ITERATIONS):
-            declination, equation_of_time = _declination_and_eot(event)
-            hour_angle = _sunrise_hour_angle_deg(lat, declination)
+            declination, equation_of_time = terms(event)
+            hour_angle = _sunrise_hour_angle_deg(cos_lat, tan_lat, declination)
             minutes = base_min - equation_of_time + sign * MINUTES_PER_DEGREE * hour_angle
             event = day_start_s + minutes * SECONDS_PER_MINUTE
         events.append(event)
@@ -234,8 +264,8 @@ def night_length_h(lat_deg: ArrayLike, lon_deg: ArrayLike, day: DayLike) -> Floa
     16.18
     """
     lat, lon, start = _broadcast_float(lat_deg, lon_deg, _day_start_s(day))
-    _, sunset, _ = _events_s(lat, lon, start)
-    sunrise_next, _, _ = _events_s(lat, lon, start + SECONDS_PER_DAY)
+    _, sunset, _ = _events_s(lat, lon, start, rise=False)
+    sunrise_next, _, _ = _events_s(lat, lon, start + SECONDS_PER_DAY, set_=False)
     return ((sunrise_next - sunset) / SECONDS_PER_HOUR)[()]
 
 
@@ -274,10 +304,10 @@ def night_bounds_utc(
     # Local mean solar date: shift UTC by lon/15 h.
     local_day = np.floor((t + lon * MINUTES_PER_DEGREE * SECONDS_PER_MINUTE) / SECONDS_PER_DAY)
     day_start = local_day * SECONDS_PER_DAY
-    _, sunset_prev, _ = _events_s(lat, lon, day_start - SECONDS_PER_DAY)
+    _, sunset_prev, _ = _events_s(lat, lon, day_start - SECONDS_PER_DAY, rise=False)
     sunrise_day, sunset_day, noon_day = _events_s(lat, lon, day_start)
     sunrise_next, sunset_next, _ = _events_s(lat, lon, day_start + SECONDS_PER_DAY)
-    sunrise_after, _, _ = _events_s(lat, lon, day_start + 2 * SECONDS_PER_DAY)
+    sunrise_after, _, _ = _events_s(lat, lon, day_start + 2 * SECONDS_PER_DAY, set_=False)
 
     morning = t < noon_day
     # Morning: the night before (sunset_prev, sunrise_day) if the sun has not yet risen;
