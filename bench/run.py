@@ -250,8 +250,6 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
         cold()
         return compute_features_at(obs, sites, hold_times)
 
-    features_s, _ = best_of(3, features_once)
-    features_at_s, _ = best_of(3, features_hold_times)
     temp = obs["temp_c"].to_numpy(dtype=float)
     rh = obs["rh_pct"].to_numpy(dtype=float)
 
@@ -260,7 +258,14 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
             gamma = np.log(rh / 100.0) + 17.62 * temp / (243.12 + temp)
             return 243.12 * gamma / (17.62 - gamma)
 
-    floor_s, _ = best_of(7, magnus)
+    # the features and the floor taken turn about, best of 7 each: the machine's speed
+    # drifts (other work shares it), and a ratio of two figures timed minutes apart
+    # would carry the drift
+    features_s, floor_s = float("inf"), float("inf")
+    for _ in range(7):
+        features_s = min(features_s, best_of(1, features_once)[0])
+        floor_s = min(floor_s, best_of(3, magnus)[0])
+    features_at_s, _ = best_of(3, features_hold_times)
 
     import baseline_metpy
 

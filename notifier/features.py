@@ -556,6 +556,32 @@ class _Block:
             return np.full((self.n, max(stop - start, 0)), np.nan)
         return np.take(values, self.src[:, start:stop], mode="clip")
 
+    def newest(
+        self,
+        name: str,
+        start: int,
+        stop: int,
+        lo: np.ndarray,
+        hi: np.ndarray,
+        valid: np.ndarray,
+    ) -> np.ndarray:
+        """``_latest(self.cells(name, start, stop), valid)[0]`` where ``valid`` marks each
+        row's columns ``lo:hi`` within ``start:stop``, read without the whole slice where
+        it can be: the newest reading is usually in a row's last column, so only the
+        rows where that one is missing are searched."""
+        values = self.column(name)
+        if values is None or self._empty or stop <= start:
+            return np.full(self.n, np.nan)
+        some = lo < hi
+        last = np.take(values, self.src[self.rows, np.maximum(hi - 1, 0)], mode="clip")
+        found = some & ~np.isnan(last)
+        out = np.where(found, last, np.nan)
+        search = np.flatnonzero(some & ~found)
+        if search.size:
+            cells = np.take(values, self.src[search, start:stop], mode="clip")
+            out[search], _ = _latest(cells, valid[search])
+        return out
+
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""
@@ -846,7 +872,7 @@ def _features_at(
     cur: dict[str, np.ndarray] = {}
     for name in _OBS_COLUMNS:
         if name != "water_temp_c":
-            cur[name], _ = _latest(blk.cells(name, a, b), recent)
+            cur[name] = blk.newest(name, a, b, recent_lo, hi, recent)
     # water changes slowly: its newest reading in the whole window, if young enough;
     # only the sites with a water sensor at all are looked at
     cur["water_temp_c"] = np.full(n, np.nan)
