@@ -259,6 +259,7 @@ class _Sites:
     onshore_hi: np.ndarray
     zones: list[str]  # distinct time zones
     zone_code: np.ndarray  # index into ``zones`` per site
+    _index: pd.Index | None = None
 
     @classmethod
     def of(cls, sites: Sequence[Site]) -> _Sites:
@@ -289,6 +290,15 @@ class _Sites:
             zone_code=zone_code,
         )
 
+    @property
+    def index(self) -> pd.Index:
+        """The site ids as an index (what a window's site categories are compared to)."""
+        import pandas as pd
+
+        if self._index is None:
+            self._index = pd.Index(self.ids, dtype=object)
+        return self._index
+
     def zone_offsets_s(self, at: datetime) -> np.ndarray:
         offsets = np.empty(len(self.zones))
         for i, name in enumerate(self.zones):
@@ -297,8 +307,34 @@ class _Sites:
         return offsets[self.zone_code]
 
 
+_SITES_CACHE: OrderedDict[tuple[int, ...], tuple[Sequence[Site], _Sites]] = OrderedDict()
+_SITES_LOCK = threading.Lock()
+
+
+def _sites_of(sites: Sequence[Site]) -> _Sites:
+    """``_Sites.of(sites)``, remembered for the last few site lists (a service passes the
+    same configured sites every cycle; reading 10,000 of them costs milliseconds). Keyed
+    by the objects' identities: the entry holds the objects, so no id is reused while it
+    lives, and a ``Site`` is frozen, so its arrays stay true. Nothing changes them."""
+    key = tuple(map(id, sites))
+    with _SITES_LOCK:
+        hit = _SITES_CACHE.get(key)
+        if hit is not None:
+            _SITES_CACHE.move_to_end(key)
+            return hit[1]
+    st = _Sites.of(sites)
+    with _SITES_LOCK:
+        _SITES_CACHE[key] = (list(sites), st)
+        while len(_SITES_CACHE) > 4:
+            _SITES_CACHE.popitem(last=False)
+    return st
+
+
 def _site_index(
-    column: pd.Series, pos: Mapping[str, int], rows: np.ndarray | None = None
+    column: pd.Series,
+    pos: Mapping[str, int],
+    rows: np.ndarray | None = None,
+    index: pd.Index | None = None,
 ) -> np.ndarray:
     """Row → index into the site list (-1 for an unknown site).
 
@@ -313,7 +349,9 @@ def _site_index(
     if isinstance(column.dtype, pd.CategoricalDtype):  # one lookup per category
         categories = column.cat.categories
         codes = column.cat.codes.to_numpy()
-        if len(categories) == len(pos) and categories.equals(pd.Index(pos)):
+        if len(categories) == len(pos) and categories.equals(
+            pd.Index(pos) if index is None else index
+        ):
             # the categories are the sites in order (the service's rolling window): the
             # codes are the indices already, for every row (-1, a missing site, stays)
             return codes.astype(np.intp)
@@ -455,7 +493,7 @@ class _Block:
         # are read any further: the text columns are the slow part of the table.
         wanted = window | (t_all >= t_forecast)
         rows = None if wanted.all() else np.flatnonzero(wanted)
-        site_idx = _site_index(obs["site"], st.pos, rows)
+        site_idx = _site_index(obs["site"], st.pos, rows, st.index)
         known = site_idx >= 0
         if "kind" in obs:
             is_obs_kind, is_fc = _kinds(obs["kind"], known, rows)
@@ -693,7 +731,7 @@ def compute_features_at(
     reorders a least-squares sum; tested to 1e-9).
     """
     settings = settings or FeatureSettings()
-    st = _Sites.of(sites)
+    st = _sites_of(sites)
     if not times:
         return []
     t_ats = [t.timestamp() for t in times]
