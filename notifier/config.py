@@ -275,14 +275,27 @@ class StoreSettings(_Model):
     keep_deliveries: Duration = 14 * 86400.0
 
 
+#: The ids of subscribers made by following a site through the bot start so
+#: (``service.bot_subscriber_id``); configured subscribers may not.
+BOT_SUBSCRIBER_PREFIX = "bot-"
+
+
 class AlertSettings(_Model):
     clearing_time: Duration = 45 * 60.0
     reminder_every: Duration = 3 * 3600.0
     cooldown: Duration = 60 * 60.0
     max_delivery_age: Duration = 12 * 3600.0
     stale_after: Duration = 90 * 60.0
-    # how long a dispatcher's claim on what it is sending lasts (wall-clock time)
+    # how long a dispatcher's claim on what it is sending lasts (wall-clock time); it
+    # should be well above the longest single send (the channels' timeouts)
     claim_lease: Duration = 15 * 60.0
+
+    @field_validator("claim_lease")
+    @classmethod
+    def _lease_positive(cls, value: float) -> float:
+        if value <= 0:
+            raise ValueError(f"claim_lease must be positive, got: {value}")
+        return value
 
 
 class BotSettings(_Model):
@@ -548,6 +561,12 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
                 check_site_ref(("sources", i, "sites"), site_id)
     channel_ids = {c.id for c in config.channels} | {"stdout"}
     for i, sub in enumerate(config.subscribers):
+        if sub.id.startswith(BOT_SUBSCRIBER_PREFIX):
+            add(
+                ("subscribers", i, "id"),
+                f"ids starting {BOT_SUBSCRIBER_PREFIX!r} are kept for the bot's followers "
+                f"(got {sub.id!r})",
+            )
         if sub.channel not in channel_ids:
             add(
                 ("subscribers", i, "channel"),

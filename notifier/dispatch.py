@@ -97,10 +97,11 @@ def dispatch(
     report.expired = len(
         outbox.expire(now - max_age, now, f"gave up: still undelivered after {hours:g} h")
     )
+    claimed_at = outbox.wall_clock()  # the lease runs from before the claim, to be safe
     due, claim = outbox.claim(now)
     try:
-        due = _cancel_unwanted(outbox, due, now, mutes, subscribers, report)
-        lease = _Lease(outbox, claim, due)
+        lease = _Lease(outbox, claim, due, claimed_at)
+        due = _cancel_unwanted(lease, due, now, mutes, subscribers, report)
         _dispatch_claimed(
             outbox, config, rules, due, now, channel_kwargs, rng, should_stop, report, lease
         )
@@ -111,21 +112,30 @@ def dispatch(
 
 
 class _Lease:
-    """Renews a dispatch run's claim once half of it is spent (marking a row ends its
-    claim, so only what is left to send is renewed)."""
+    """A dispatch run's claim: renewed once half of it is spent; its outcomes recorded
+    only on rows it still holds. If a row's claim lapsed (a send that hung, a paused
+    process) and another dispatcher took it, this run leaves that row alone."""
 
-    def __init__(self, outbox: Outbox, token: str, rows: list[DeliveryRow]):
-        self.outbox, self.token, self.keys = outbox, token, [r.key for r in rows]
-        self.since = outbox.wall_clock()
+    def __init__(self, outbox: Outbox, token: str, rows: list[DeliveryRow], since: datetime):
+        self.outbox, self.token, self.since = outbox, token, since
+        self.held = {r.key for r in rows}
 
     def keep_up(self) -> None:
-        if self.outbox.wall_clock() - self.since >= self.outbox.lease / 2:
-            self.outbox.renew(self.keys, self.token)
-            self.since = self.outbox.wall_clock()
+        now = self.outbox.wall_clock()
+        if now - self.since >= self.outbox.lease / 2:
+            self.held &= self.outbox.renew(sorted(self.held), self.token)
+            self.since = now
+
+    def holds(self, batch: list[DeliveryRow]) -> list[DeliveryRow]:
+        return [r for r in batch if r.key in self.held]
+
+    def mark(self, keys: list[str], status: str, now: datetime, **kw: Any) -> None:
+        self.outbox.mark(keys, status, now, claim=self.token, **kw)
+        self.held.difference_update(keys)
 
 
 def _cancel_unwanted(
-    outbox: Outbox,
+    lease: _Lease,
     rows: list[DeliveryRow],
     now: datetime,
     mutes: Sequence[Mute],
@@ -136,7 +146,7 @@ def _cancel_unwanted(
     those are marked cancelled, with the reason."""
     if not rows or (not mutes and subscribers is None):
         return rows
-    sites = outbox.event_sites({r.event_id for r in rows})
+    sites = lease.outbox.event_sites({r.event_id for r in rows})
     keep, reasons = [], {}
     for r in rows:
         if subscribers is not None and r.subscriber not in subscribers:
@@ -146,7 +156,7 @@ def _cancel_unwanted(
         else:
             keep.append(r)
     for reason in set(reasons.values()):
-        outbox.mark([k for k, v in reasons.items() if v == reason], "cancelled", now, error=reason)
+        lease.mark([k for k, v in reasons.items() if v == reason], "cancelled", now, error=reason)
     report.cancelled += len(reasons)
     return keep
 
@@ -170,7 +180,7 @@ def _dispatch_claimed(
         try:
             cfg = channel_config_for(config, channel_id)
         except KeyError:
-            outbox.mark(
+            lease.mark(
                 [r.key for r in rows],
                 "failed",
                 now,
@@ -185,7 +195,10 @@ def _dispatch_claimed(
                 if should_stop():
                     return
                 lease.keep_up()
-                ok = _deliver(outbox, config, rules, channel, batch, now, rng, report)
+                batch = lease.holds(batch)
+                if not batch:
+                    continue  # its claim lapsed and another dispatcher has it
+                ok = _deliver(outbox, config, rules, channel, batch, now, rng, report, lease)
                 failing = 0 if ok else failing + 1
                 if failing >= MAX_TRANSIENT_IN_A_ROW:
                     log.warning(
@@ -220,6 +233,7 @@ def _deliver(
     now: datetime,
     rng: random.Random,
     report: DispatchReport,
+    lease: _Lease,
 ) -> bool:
     """Send one batch and record the outcome; False on a transient failure."""
     keys = [r.key for r in batch]
@@ -227,13 +241,13 @@ def _deliver(
     try:
         message, chart, key = _compose(outbox, config, rules, batch)
     except KeyError as exc:
-        outbox.mark(keys, "failed", now, error=f"cannot compose: missing {exc}")
+        lease.mark(keys, "failed", now, error=f"cannot compose: missing {exc}")
         report.failed += len(batch)
         return True
     except Exception as exc:  # a row that cannot be rendered must not block the rest
         log.exception("cannot compose delivery %s", first.key)
         error = f"cannot compose: {type(exc).__name__}: {exc}"
-        outbox.mark(keys, "failed", now, error=error)
+        lease.mark(keys, "failed", now, error=error)
         report.failed += len(batch)
         report.errors.append(error)
         return True
@@ -241,7 +255,7 @@ def _deliver(
         channel.send(message, first.as_delivery(), key, chart)
     except PermanentDeliveryError as exc:
         log.error("delivery %s to %s failed for good: %s", key, first.subscriber, exc)
-        outbox.mark(keys, "failed", now, error=str(exc))
+        lease.mark(keys, "failed", now, error=str(exc))
         report.failed += len(batch)
         report.errors.append(str(exc))
         return True
@@ -257,13 +271,13 @@ def _deliver(
         log.warning(
             "delivery %s to %s will be retried in %.0f s: %s", key, first.subscriber, delay, error
         )
-        outbox.mark(
+        lease.mark(
             keys, "pending", now, error=error, next_attempt_at=now + timedelta(seconds=delay)
         )
         report.retried += len(batch)
         report.errors.append(error)
         return False
-    outbox.mark(keys, "sent", now)
+    lease.mark(keys, "sent", now)
     report.sent += len(batch)
     return True
 

@@ -366,16 +366,21 @@ class Outbox:
         claimed.sort(key=lambda r: (r.created_at, r.key))
         return claimed, token
 
-    def renew(self, keys: Iterable[str], token: str) -> None:
-        """Extend the claim ``token`` on these rows by another lease from now."""
+    def renew(self, keys: Iterable[str], token: str) -> set[str]:
+        """Extend the claim ``token`` on these rows by another lease from now; returns
+        the keys it still held (a row already marked, or whose claim lapsed and was
+        taken by another dispatcher, is not among them)."""
         keys = list(keys)
-        if keys:
-            with self.store.atomic() as conn:
-                conn.execute(
-                    deliveries.update()
-                    .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
-                    .values(claimed_until=_claim_time(self.wall_clock() + self.lease))
-                )
+        if not keys:
+            return set()
+        with self.store.atomic() as conn:
+            held = conn.execute(
+                deliveries.update()
+                .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
+                .values(claimed_until=_claim_time(self.wall_clock() + self.lease))
+                .returning(deliveries.c.key)
+            )
+            return set(held.scalars())
 
     def release(self, keys: Iterable[str], token: str) -> None:
         """End the claim ``token`` on these rows where it still holds (unsent rows go
@@ -398,7 +403,11 @@ class Outbox:
         error: str | None = None,
         next_attempt_at: datetime | None = None,
         conn: Connection | None = None,
+        claim: str | None = None,
     ) -> None:
+        """Record an outcome. With ``claim`` (a dispatcher's token), only rows that
+        claim still holds are changed: one whose claim lapsed and passed to another
+        dispatcher is that one's to record."""
         keys = list(keys)
         if not keys:
             return
@@ -410,8 +419,11 @@ class Outbox:
             values["attempts"] = deliveries.c.attempts + 1
         if next_attempt_at is not None:
             values["next_attempt_at"] = iso_utc(next_attempt_at)
+        where: Any = deliveries.c.key.in_(keys)
+        if claim is not None:
+            where &= deliveries.c.claimed_by == claim
         with self.store._write(conn) as c:
-            c.execute(deliveries.update().where(deliveries.c.key.in_(keys)).values(**values))
+            c.execute(deliveries.update().where(where).values(**values))
 
     def expire(self, older_than: datetime, now: datetime, reason: str) -> list[str]:
         """Give up pending deliveries due since before ``older_than``; their keys.
@@ -422,26 +434,30 @@ class Outbox:
         """
         d = deliveries.c
         due_since = sa.func.coalesce(d.not_before, d.created_at)
+        # a row another dispatcher holds a live claim on is that one's to record
+        unclaimed = d.claimed_until.is_(None) | (d.claimed_until <= _claim_time(self.wall_clock()))
         with self.store.atomic() as conn:
             keys = list(
                 conn.execute(
                     sa.select(d.key).where(
-                        (d.status == "pending") & (due_since < iso_utc(older_than))
+                        (d.status == "pending") & (due_since < iso_utc(older_than)) & unclaimed
                     )
                 ).scalars()
             )
             if keys:
                 # checked again in the UPDATE: on PostgreSQL another dispatcher may have
-                # sent one of them since the SELECT
-                done = conn.execute(
-                    deliveries.update()
-                    .where(d.key.in_(keys) & (d.status == "pending"))
-                    .values(
-                        status="expired", last_error=reason, claimed_until=None, claimed_by=None
-                    )
-                    .returning(d.key)
+                # sent or claimed one of them since the SELECT
+                done = set(
+                    conn.execute(
+                        deliveries.update()
+                        .where(d.key.in_(keys) & (d.status == "pending") & unclaimed)
+                        .values(
+                            status="expired", last_error=reason, claimed_until=None, claimed_by=None
+                        )
+                        .returning(d.key)
+                    ).scalars()
                 )
-                keys = sorted(done.scalars(), key=keys.index)
+                keys = [k for k in keys if k in done]
         return keys
 
     def deliveries(self, statuses: Sequence[str] | None = None) -> list[DeliveryRow]:

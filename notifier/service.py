@@ -16,7 +16,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal, cast
 
-from notifier.config import Config, Subscriber, load_config
+from notifier.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber, load_config
 from notifier.errors import FogwatchError, UsageError
 from notifier.outbox import Outbox
 from notifier.rules import RuleSet, load_rule_set
@@ -399,7 +399,7 @@ class Service:
 
 def bot_subscriber_id(sender: str, site: str) -> str:
     digest = hashlib.sha256(f"{sender}|{site}".encode()).hexdigest()[:12]
-    return f"bot-{digest}"
+    return f"{BOT_SUBSCRIBER_PREFIX}{digest}"
 
 
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:

@@ -281,7 +281,11 @@ class Store:
         self.url = url
         try:
             self.engine = engine or _make_engine(url)
-            self._migrate()
+            try:
+                self._migrate()
+            except StoreError:
+                self.engine.dispose()
+                raise
         except sa.exc.SQLAlchemyError as exc:
             raise StoreError(f"cannot open store {url}: {exc}") from exc
 

@@ -134,6 +134,14 @@ def test_site_validators_reject(tmp_path, old, new, pattern):
             r"interval must be positive, got: 0",
         ),
         (
+            "subscribers:\n  - {id: bot-0123abcd4567, channel: stdout}\n",
+            r"subscribers\[0\]\.id: ids starting 'bot-' are kept for the bot's followers",
+        ),
+        (
+            "alerts:\n  claim_lease: 0s\n",
+            r"claim_lease must be positive, got: 0",
+        ),
+        (
             "sources:\n  - {id: d, type: http_json, url: 'ftp://x'}\n",
             r"url must start with http:// or https://",
         ),
@@ -150,6 +158,8 @@ def test_site_validators_reject(tmp_path, old, new, pattern):
         "address",
         "station",
         "interval",
+        "bot-id",
+        "claim-lease",
         "url",
         "source-type",
         "duration",

@@ -431,3 +431,49 @@ def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request,
     assert delivered == {d.key: 1 for d in queued}  # every one, exactly once
     assert sent == [24, 0]  # the first kept its claim for the whole 2.4 s run
     assert set(final.values()) == {"sent"}
+
+
+@pytest.mark.parametrize("outcome", ["sent", "retry"])
+def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, monkeypatch, outcome):
+    # dispatcher A's first send hangs for longer than the lease (a stuck server, a paused
+    # process); B takes the claim over and sends everything. A then sends nothing more,
+    # and its late outcome for the stuck row does not overwrite B's "sent".
+    import notifier.dispatch as dispatch_module
+    from notifier.errors import TransientDeliveryError
+    from notifier.outbox import Outbox
+    from tests.delivery.scenes import config_with
+    from tests.delivery.test_outbox import QUAY, deliveries_for, state
+
+    wall = [T0]
+    a, b = (Outbox(any_store, wall_clock=lambda: wall[0]) for _ in range(2))
+    events = [event(at=T0 - timedelta(minutes=m)) for m in range(3)]
+    rows = [d for ev in events for d in deliveries_for(ev, "ops", channel="stdout")]
+    a.commit_cycle({}, {QUAY: state()}, events, rows, T0)
+    config = config_with([{"id": "ops", "channel": "stdout"}])
+    sends: list[tuple[str, str]] = []
+    current = ["a"]
+
+    class Channel:
+        def send(self, message, delivery, key, chart):
+            sends.append((current[0], key))
+            if len(sends) == 1:  # A's first send: the lease runs out while it hangs
+                wall[0] += a.lease + timedelta(minutes=1)
+                current[0] = "b"
+                dispatch_module.dispatch(b, config, None, T0, rng=random.Random(1))
+                current[0] = "a"
+                if outcome == "retry":
+                    raise TransientDeliveryError("451 try later")
+
+        def close(self):
+            pass
+
+    monkeypatch.setattr(dispatch_module, "build_channel", lambda cfg, **kw: Channel())
+    monkeypatch.setattr(
+        dispatch_module, "_compose", lambda o, c, r, batch: ("m", None, batch[0].key)
+    )
+    dispatch_module.dispatch(a, config, None, T0, rng=random.Random(1))
+    by_a = [k for who, k in sends if who == "a"]
+    by_b = [k for who, k in sends if who == "b"]
+    assert len(by_a) == 1 and sorted(by_b) == sorted(d.key for d in rows)
+    assert {r.key: r.status for r in a.deliveries()} == {d.key: "sent" for d in rows}
+    assert b.due(T0 + timedelta(hours=1)) == []  # nothing left to send a third time

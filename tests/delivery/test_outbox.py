@@ -348,3 +348,16 @@ def test_a_renewed_claim_outlasts_its_first_lease(any_store):
     assert other.claim(T0)[0] == []
     wall[0] = T0 + box.lease * 1.5  # the renewed one too
     assert [r.key for r in other.claim(T0)[0]] == [row.key]
+
+
+def test_expiry_leaves_a_row_another_dispatcher_is_sending(any_store):
+    wall = [T0]
+    box = Outbox(any_store, wall_clock=lambda: wall[0])
+    ev = event(at=T0)
+    box.commit_cycle({}, {QUAY: state()}, [ev], deliveries_for(ev, "harbour-ops"), T0)
+    (row,), _ = box.claim(T0)
+    late = T0 + timedelta(days=1)
+    assert box.expire(late, late, "too old") == []  # claimed: its sender records it
+    wall[0] = T0 + box.lease  # the claim lapsed: nobody is sending it
+    assert box.expire(late, late, "too old") == [row.key]
+    assert [(r.status, r.last_error) for r in box.deliveries()] == [("expired", "too old")]
