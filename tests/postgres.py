@@ -71,17 +71,22 @@ def postgres() -> Iterator[Server]:
         prefix = ["runuser", "-u", "postgres", "--"]
     data = base / "data"
     port = _free_port()
-    subprocess.run(
+    options = f"-p {port} -k {base} -c listen_addresses=127.0.0.1 -c fsync=off"
+    steps = [
         [*prefix, initdb, "-D", str(data), "-U", "fogwatch", "--auth=trust",
          "--encoding=UTF8", "--locale=C"],
-        check=True, capture_output=True,
-    )  # fmt: skip
-    options = f"-p {port} -k {base} -c listen_addresses=127.0.0.1 -c fsync=off"
-    subprocess.run(
         [*prefix, pg_ctl, "-D", str(data), "-l", str(base / "log"), "-w", "-o", options,
          "start"],
-        check=True, capture_output=True,
-    )  # fmt: skip
+    ]  # fmt: skip
+    for step in steps:
+        done = subprocess.run(step, capture_output=True, text=True)
+        if done.returncode != 0:  # the machine's server cannot run here: say why
+            stop = [*prefix, pg_ctl, "-D", str(data), "-m", "immediate", "stop"]
+            subprocess.run(stop, capture_output=True)  # in case "start" only timed out
+            shutil.rmtree(base, ignore_errors=True)
+            reason = (done.stderr or done.stdout).strip().splitlines()[-1:] or ["no output"]
+            pytest.skip(f"PostgreSQL server did not start ({Path(step[len(prefix)]).name}): "
+                        f"{reason[0]}")  # fmt: skip
     try:
         yield Server(port)
     finally:
