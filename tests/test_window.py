@@ -187,3 +187,9 @@ def test_the_frame_handed_out_is_read_only_and_the_window_unharmed(store: Store)
     held["extra"] = 1.0  # and new columns added
     assert window.frame(at)["temp_c"].iloc[0] == 2.0
     assert_same_as_a_full_read(store, window, at)
+
+
+def test_public_names():
+    import notifier.window as window_module
+
+    assert window_module.__all__ == ["RollingWindow"]

@@ -255,3 +255,20 @@ def test_event_dataclass_is_frozen():
     _, (e,) = step({}, [assessment(SITE, T0, "watch")], T0, SETTINGS)
     with pytest.raises(dataclasses.FrozenInstanceError):
         e.level = "warning"  # type: ignore[misc]
+
+
+def test_public_names():
+    import notifier.lifecycle as lifecycle_module
+
+    assert set(lifecycle_module.__all__) == {
+        "EVENT_TYPES",
+        "STATE_VERSION",
+        "AlertState",
+        "Event",
+        "StateKey",
+        "event_id",
+        "iso_text",
+        "step",
+    }
+    for name in lifecycle_module.__all__:
+        assert hasattr(lifecycle_module, name)
