@@ -40,8 +40,15 @@ STALE_AFTER_MIN = 90.0
 ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
 
 
+_LEVEL_RANK = {level: rank for rank, level in enumerate(LEVELS)}
+
+
 def level_rank(level: str) -> int:
-    return LEVELS.index(level)
+    """0 for none, then watch, warning (the order of ``rules.LEVELS``)."""
+    rank = _LEVEL_RANK.get(level)
+    if rank is None:
+        raise ValueError(f"unknown level {level!r} (known: {', '.join(LEVELS)})")
+    return rank
 
 
 class LazyTexts(Sequence[str]):
