@@ -219,6 +219,22 @@ def test_categorical_site_and_kind_columns_give_the_same(world):
     _assert_same(_columns(fast), _columns(reference), [s.id for s in sites], 0.0)
 
 
+def test_the_rolling_windows_coding_gives_the_same(world):
+    # notifier.window hands out site categories that are the configured sites in order
+    # (read as indices directly, unknown sites coded as missing) and weather as codes
+    sites, obs = world
+    reference = compute_features(obs, sites, AT)
+    ids = [s.id for s in sites]
+    coded = obs.assign(
+        site=pd.Categorical(obs["site"].where(obs["site"].isin(ids)), categories=ids),
+        kind=obs["kind"].astype("category"),
+        weather=obs["weather"].astype("category"),
+    )
+    assert list(coded["site"].cat.categories) == ids and coded["site"].isna().any()
+    fast = compute_features(coded, sites, AT)
+    _assert_same(_columns(fast), _columns(reference), ids, 0.0)
+
+
 def test_several_times_equal_one_time_each(world):
     # Hold windows step back 10 minutes at a time; a few hours back crosses sunset
     # for some sites, where the shared sun results must not be reused.
