@@ -232,10 +232,9 @@ def epoch_seconds(times: pd.Series) -> np.ndarray:
     import pandas as pd
 
     if isinstance(times.dtype, pd.DatetimeTZDtype):
-        # already parsed: read the UTC instants straight out (no conversion pass). Whole
-        # milliseconds, then seconds: the quotient is exact for whole seconds.
+        # already parsed: read the UTC instants straight out, in one pass; whole seconds
+        # come out exact (both operands are exact doubles)
         utc = times.to_numpy(dtype=f"datetime64[{times.dtype.unit}]").view(np.int64)
-        # one pass; whole seconds come out exact (both operands are exact doubles)
         return utc / float({"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[times.dtype.unit])
     t = pd.to_datetime(times, utc=True)
     return t.dt.tz_localize(None).to_numpy().astype("datetime64[ms]").astype(np.int64) / 1000.0
@@ -584,16 +583,6 @@ class _Block:
             return self._full[name][:, start:stop]
         return self._gather(values, self.src[:, start:stop], self.pad[:, start:stop])
 
-    def cells(self, name: str, start: int, stop: int) -> np.ndarray:
-        """Like :meth:`block`, but the padding cells hold arbitrary values instead of
-        NaN: for callers whose mask excludes them anyway (one pass less)."""
-        if name in self._full or name in _WIDE_COLUMNS:
-            return self.block(name, start, stop)
-        values = self.column(name)
-        if values is None or self._empty:
-            return np.full((self.n, max(stop - start, 0)), np.nan)
-        return np.take(values, self.src[:, start:stop], mode="clip")
-
     def newest(
         self,
         name: str,
@@ -603,10 +592,11 @@ class _Block:
         hi: np.ndarray,
         valid: np.ndarray,
     ) -> np.ndarray:
-        """``_latest(self.cells(name, start, stop), valid)[0]`` where ``valid`` marks each
-        row's columns ``lo:hi`` within ``start:stop``, read without the whole slice where
-        it can be: the newest reading is usually in a row's last column, so only the
-        rows where that one is missing are searched."""
+        """The newest value of ``name`` in each row's columns ``lo:hi`` (``valid``, a mask
+        over ``start:stop``), NaN if none: what :func:`_latest` gives on the slice, read
+        without the slice where it can be. The newest reading is usually in a row's last
+        column, so only the rows where that one is missing are searched; padding cells
+        are never inside ``lo:hi``, so they are not masked first."""
         values = self.column(name)
         if values is None or self._empty or stop <= start:
             return np.full(self.n, np.nan)

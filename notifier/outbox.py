@@ -307,14 +307,18 @@ class Outbox:
 
     # -- deliveries ------------------------------------------------------------------
 
+    def _unclaimed(self) -> Any:
+        """Rows no dispatcher holds a live claim on."""
+        d = deliveries.c
+        return d.claimed_until.is_(None) | (d.claimed_until <= _claim_time(self.wall_clock()))
+
     def _due(self, when: str) -> Any:
         d = deliveries.c
-        wall = _claim_time(self.wall_clock())
         return (
             (d.status == "pending")
             & (d.next_attempt_at <= when)
             & (d.not_before.is_(None) | (d.not_before <= when))
-            & (d.claimed_until.is_(None) | (d.claimed_until <= wall))
+            & self._unclaimed()
         )
 
     def due(self, now: datetime, limit: int = 500) -> list[DeliveryRow]:
@@ -435,7 +439,7 @@ class Outbox:
         d = deliveries.c
         due_since = sa.func.coalesce(d.not_before, d.created_at)
         # a row another dispatcher holds a live claim on is that one's to record
-        unclaimed = d.claimed_until.is_(None) | (d.claimed_until <= _claim_time(self.wall_clock()))
+        unclaimed = self._unclaimed()
         with self.store.atomic() as conn:
             keys = list(
                 conn.execute(

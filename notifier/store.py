@@ -432,14 +432,12 @@ class Store:
     def _next_batch(self, conn: Connection) -> int:
         """The number of a new write batch. The counter row stays locked until the
         batch commits, so batches commit in the order of their numbers."""
-        conn.execute(
-            counters.update()
-            .where(counters.c.name == "observation_batch")
-            .values(value=counters.c.value + 1)
-        )
         return int(
             conn.execute(
-                sa.select(counters.c.value).where(counters.c.name == "observation_batch")
+                counters.update()
+                .where(counters.c.name == "observation_batch")
+                .values(value=counters.c.value + 1)
+                .returning(counters.c.value)
             ).scalar_one()
         )
 
