@@ -187,6 +187,7 @@ class Service:
             self.loaded = loaded
             self._features.clear()
             self._window = None  # the sites or the window's length may have changed
+            self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
             self._mtimes = self._file_mtimes()
         return True, "reloaded"
 

@@ -477,3 +477,11 @@ def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, monkey
     assert len(by_a) == 1 and sorted(by_b) == sorted(d.key for d in rows)
     assert {r.key: r.status for r in a.deliveries()} == {d.key: "sent" for d in rows}
     assert b.due(T0 + timedelta(hours=1)) == []  # nothing left to send a third time
+
+
+def test_a_reload_takes_a_new_claim_lease(make_service, tmp_path, smtp_server):
+    service = make_service([email_channel(smtp_server.port)], [OPS])
+    assert service.outbox.lease == timedelta(minutes=15)
+    write_config(tmp_path, [email_channel(smtp_server.port)], [OPS], alerts={"claim_lease": "2min"})
+    assert service.reload()[0]
+    assert service.outbox.lease == timedelta(minutes=2)
