@@ -27,8 +27,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from notifier.config import Site
-from notifier.observations import CANONICAL_COLUMNS, text_columns_as_objects
+from notifier.core.config import Site
+from notifier.core.observations import CANONICAL_COLUMNS, text_columns_as_objects
 
 __all__ = ["AT", "SEED", "last_poll_path", "load_store", "observations", "sites"]
 
@@ -228,7 +228,7 @@ def load_store(
     are not written but kept beside the store (:func:`last_poll_path`), so that the
     benchmark can write them as a poll would and time the cycle that follows.
     """
-    from notifier.store import Store
+    from notifier.storage.store import Store
 
     directory.mkdir(parents=True, exist_ok=True)
     path = directory / "w1.sqlite"

@@ -15,7 +15,7 @@ Figures (see bench/README.md for what each one means):
 - the floor: the Magnus dew point of every row in one numpy pass;
 - ingest: 1,000,000 CSV rows through parsing, validation and the store;
 - the command line: ``fogwatch --help`` and ``fogwatch check`` on the demo config, cold;
-- delivery: 1,000 alert emails through notifier.dispatch (outbox, render, EmailSender) to a
+- delivery: 1,000 alert emails through notifier.delivery.dispatch (outbox, render, EmailSender) to a
   local SMTP server, reusing the connection; EmailSender alone beside it.
 """
 
@@ -103,13 +103,13 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     """Runs in a fresh interpreter: nothing of the generator's memory is counted."""
     import numpy as np
 
-    import notifier.assess as assess_module
-    from notifier import lifecycle
-    from notifier.config import AlertSettings, default_rules_dir
-    from notifier.features import compute_features, compute_features_at
-    from notifier.observations import text_columns_as_objects
-    from notifier.rules import load_rule_set
-    from notifier.store import Store
+    import notifier.engine.assess as assess_module
+    from notifier.core.config import AlertSettings, default_rules_dir
+    from notifier.core.observations import text_columns_as_objects
+    from notifier.engine import lifecycle
+    from notifier.engine.features import compute_features, compute_features_at
+    from notifier.engine.rules import load_rule_set
+    from notifier.storage.store import Store
 
     sites = generate.sites(n_sites, seed)
     ids = [s.id for s in sites]
@@ -134,7 +134,7 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
 
         setattr(assess_module, name, timed)
 
-    import notifier.features as features_module
+    import notifier.engine.features as features_module
 
     def cold() -> None:
         """Forget remembered sun positions: every figure is for a new evaluation time."""
@@ -144,8 +144,8 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
 
     import pandas as pd
 
-    from notifier.service import FORECAST_HORIZON
-    from notifier.window import RollingWindow
+    from notifier.service.cycle import FORECAST_HORIZON
+    from notifier.storage.window import RollingWindow
 
     poll = pd.read_pickle(generate.last_poll_path(db))
     runs = []
@@ -335,9 +335,9 @@ def run_w1(tmp: Path, n_sites: int, seed: int) -> dict[str, Any]:
 def run_ingest(tmp: Path, seed: int) -> dict[str, Any]:
     import numpy as np
 
-    from notifier.config import Config
-    from notifier.sources import read_files
-    from notifier.store import Store
+    from notifier.core.config import Config
+    from notifier.ingest.poll import read_files
+    from notifier.storage.store import Store
 
     site_list = generate.sites(10_000, seed)
     per_site = INGEST_ROWS // len(site_list) + 8  # the generator drops a few per cent
@@ -441,7 +441,7 @@ def _smtp_server() -> tuple[Any, Any]:
 
 
 def _email_config(port: int) -> Any:
-    from notifier.config import EmailChannel
+    from notifier.core.config import EmailChannel
 
     return EmailChannel(
         id="bench-mail",
@@ -456,15 +456,15 @@ def _email_config(port: int) -> Any:
 
 def run_email_dispatch(tmp: Path, seed: int) -> dict[str, Any]:
     """1,000 real alerts through the service's path: lifecycle events → routing → outbox
-    → notifier.dispatch (render each message, send, mark it sent) → EmailSender."""
-    from notifier.assess import assess
-    from notifier.config import AlertSettings, Config, Subscriber, default_rules_dir
-    from notifier.dispatch import dispatch
-    from notifier.lifecycle import step
-    from notifier.outbox import Outbox
-    from notifier.routing import route
-    from notifier.rules import load_rule_set
-    from notifier.store import Store
+    → notifier.delivery.dispatch (render each message, send, mark it sent) → EmailSender."""
+    from notifier.core.config import AlertSettings, Config, Subscriber, default_rules_dir
+    from notifier.delivery.dispatch import dispatch
+    from notifier.delivery.routing import route
+    from notifier.engine.assess import assess
+    from notifier.engine.lifecycle import step
+    from notifier.engine.rules import load_rule_set
+    from notifier.storage.outbox import Outbox
+    from notifier.storage.store import Store
 
     site_list = generate.sites(1_600, seed)
     obs = generate.observations(site_list, generate.AT, seed)
@@ -504,15 +504,15 @@ def run_email_dispatch(tmp: Path, seed: int) -> dict[str, Any]:
         "received": inbox.count,
         "email_s": elapsed,
         "server_connections": inbox.connections,
-        "path": "notifier.dispatch over an Outbox (render, send, mark sent) → EmailSender",
+        "path": "notifier.delivery.dispatch over an Outbox (render, send, mark sent) → EmailSender",
     }
 
 
 def run_email_channel() -> dict[str, Any]:
-    """1,000 messages straight through notifier.channels.email.EmailSender."""
-    from notifier.channels.email import EmailSender
-    from notifier.messages import Message
-    from notifier.routing import Delivery
+    """1,000 messages straight through notifier.delivery.channels.email.EmailSender."""
+    from notifier.delivery.channels.email import EmailSender
+    from notifier.delivery.messages import Message
+    from notifier.delivery.routing import Delivery
 
     controller, inbox = _smtp_server()
     try:
@@ -533,7 +533,7 @@ def run_email_channel() -> dict[str, Any]:
         "received": inbox.count,
         "email_s": elapsed,
         "server_connections": inbox.connections,
-        "path": "notifier.channels.email.EmailSender directly",
+        "path": "notifier.delivery.channels.email.EmailSender directly",
     }
 
 
@@ -550,13 +550,13 @@ def run_email(tmp: Path, seed: int) -> dict[str, Any]:
 
 
 def run_replay(seed: int) -> dict[str, Any]:
-    """``notifier.replay`` over REPLAY_DAYS nights of W1-style data for REPLAY_SITES."""
+    """``notifier.history.replay`` over REPLAY_DAYS nights of W1-style data for REPLAY_SITES."""
     import pandas as pd
 
-    from notifier.config import Config, default_rules_dir
-    from notifier.replay import replay
-    from notifier.rules import load_rule_set
-    from notifier.service import Loaded
+    from notifier.core.config import Config, default_rules_dir
+    from notifier.engine.rules import load_rule_set
+    from notifier.history.replay import replay
+    from notifier.service.cycle import Loaded
 
     site_list = generate.sites(REPLAY_SITES, seed)
     frames = []
@@ -712,7 +712,7 @@ def main() -> int:
     via, direct = email["dispatch"], email["channel"]
     if "error" not in via and via["sent"] == via["emails"] == EMAILS:
         figures["email_s"] = line(
-            f"{EMAILS:,} alert emails via notifier.dispatch",
+            f"{EMAILS:,} alert emails via notifier.delivery.dispatch",
             "email_s",
             via["email_s"],
             f"({via['received']:,} received over {via['server_connections']} connection(s),"

@@ -17,7 +17,7 @@ from typing import Any
 import pytest
 import yaml
 
-from notifier.config import Config, load_config
+from notifier.core.config import Config, load_config
 
 SITES: list[dict[str, Any]] = [
     {
@@ -150,7 +150,7 @@ from tests.postgres import postgres  # noqa: E402,F401  (a session fixture)
 def any_store(request: pytest.FixtureRequest) -> Iterator[Any]:
     """A new, empty store: in-memory SQLite, or a fresh database on the test PostgreSQL
     server (see tests/postgres.py; skipped where the machine has no server binaries)."""
-    from notifier.store import Store
+    from notifier.storage.store import Store
 
     if request.param == "sqlite":
         url = None
@@ -158,3 +158,8 @@ def any_store(request: pytest.FixtureRequest) -> Iterator[Any]:
         url = request.getfixturevalue("postgres").new_database()
     with Store.memory() if url is None else Store(url) as store:
         yield store
+
+
+# the service scene (a config, a drop folder and a store in a temporary folder) serves the
+# service, bot and delivery tests alike
+from tests.service.scene import bot_env, scene  # noqa: E402,F401

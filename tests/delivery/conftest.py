@@ -16,7 +16,7 @@ import pytest
 from aiosmtpd.controller import Controller
 from aiosmtpd.smtp import SMTP, AuthResult, LoginPassword
 
-from notifier.channels.webhook import DELIVERY_HEADER, verify_signature
+from notifier.delivery.channels.webhook import DELIVERY_HEADER, verify_signature
 
 SMTP_USER = "alerts"
 SMTP_PASSWORD = "loopback-secret"

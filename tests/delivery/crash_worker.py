@@ -15,7 +15,7 @@ from typing import Any
 
 import requests
 
-from notifier.service import Service
+from notifier.service.cycle import Service
 
 
 class SlowSession(requests.Session):

@@ -7,10 +7,10 @@ from zoneinfo import ZoneInfo
 
 import pandas as pd
 
-from notifier.assess import HazardAssessment, SiteAssessment
-from notifier.config import AlertSettings, Config, Site, Subscriber
-from notifier.demo_data import NightSpec, simulate_night
-from notifier.lifecycle import Event, event_id
+from notifier.core.config import AlertSettings, Config, Site, Subscriber
+from notifier.demo.weather import NightSpec, simulate_night
+from notifier.engine.assess import HazardAssessment, SiteAssessment
+from notifier.engine.lifecycle import Event, event_id
 from tests.engine.scenes import EVENING, RULES, site, utc
 
 __all__ = [

@@ -9,8 +9,8 @@ import matplotlib.image
 import pandas as pd
 import pytest
 
-from notifier.charts import chart_png, projection_points
-from notifier.demo_data import NightSpec, simulate_night
+from notifier.delivery.charts import chart_png, projection_points
+from notifier.demo.weather import NightSpec, simulate_night
 from tests.engine.scenes import EVENING, site, utc
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import pytest
 
-from notifier.outbox import Outbox
-from notifier.service import Service
-from notifier.store import Store
+from notifier.service.cycle import Service
+from notifier.storage.outbox import Outbox
+from notifier.storage.store import Store
 from tests.delivery.conftest import WEBHOOK_SECRET
 from tests.delivery.outbox_kit import (
     HOOK_ENV,

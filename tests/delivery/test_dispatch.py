@@ -14,12 +14,12 @@ from pathlib import Path
 
 import pytest
 
-from notifier import cli
-from notifier.channels.webhook import DELIVERY_HEADER
-from notifier.dispatch import MAX_TRANSIENT_IN_A_ROW, backoff_s
-from notifier.messages import CAUTION
-from notifier.outbox import DeliveryRow
-from notifier.service import Service
+from notifier.cli import main as cli
+from notifier.delivery.channels.webhook import DELIVERY_HEADER
+from notifier.delivery.dispatch import MAX_TRANSIENT_IN_A_ROW, backoff_s
+from notifier.delivery.messages import CAUTION
+from notifier.service.cycle import Service
+from notifier.storage.outbox import DeliveryRow
 from tests.delivery.outbox_kit import (
     SITES,
     email_channel,
@@ -367,7 +367,7 @@ def test_a_subscriber_removed_from_the_config_has_its_rows_cancelled(
 
 def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_service, tmp_path):
     # dispatch() called without the subscriber list (as a tool outside the service might)
-    from notifier.dispatch import dispatch
+    from notifier.delivery.dispatch import dispatch
 
     service = make_service([email_channel(smtp_server.port)], [OPS])
     queue(service, [event(at=T0)], T0)
@@ -438,11 +438,11 @@ def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, monkey
     # dispatcher A's first send hangs for longer than the lease (a stuck server, a paused
     # process); B takes the claim over and sends everything. A then sends nothing more,
     # and its late outcome for the stuck row does not overwrite B's "sent".
-    import notifier.dispatch as dispatch_module
-    from notifier.errors import TransientDeliveryError
-    from notifier.outbox import Outbox
+    import notifier.delivery.dispatch as dispatch_module
+    from notifier.core.errors import TransientDeliveryError
+    from notifier.storage.outbox import Outbox
     from tests.delivery.scenes import config_with
-    from tests.delivery.test_outbox import QUAY, deliveries_for, state
+    from tests.storage.test_outbox import QUAY, deliveries_for, state
 
     wall = [T0]
     a, b = (Outbox(any_store, wall_clock=lambda: wall[0]) for _ in range(2))

@@ -10,12 +10,12 @@ from email.message import EmailMessage
 
 import pytest
 
-from notifier.channels import build_channel
-from notifier.channels.email import EmailSender, build_email
-from notifier.config import EmailChannel
-from notifier.errors import PermanentDeliveryError, TransientDeliveryError
-from notifier.messages import render
-from notifier.routing import Delivery
+from notifier.core.config import EmailChannel
+from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
+from notifier.delivery.channels import build_channel
+from notifier.delivery.channels.email import EmailSender, build_email
+from notifier.delivery.messages import render
+from notifier.delivery.routing import Delivery
 from tests.delivery.conftest import SMTP_PASSWORD, SMTP_USER
 from tests.delivery.scenes import RULES, event, site, utc
 

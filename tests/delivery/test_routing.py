@@ -6,7 +6,7 @@ from datetime import UTC, datetime, time, timedelta
 
 import pytest
 
-from notifier.routing import DEFAULT_SUBSCRIBER, default_subscribers, quiet_until, route
+from notifier.delivery.routing import DEFAULT_SUBSCRIBER, default_subscribers, quiet_until, route
 from tests.delivery.scenes import config_with, event, utc
 
 HARBOUR = {"id": "harbour-desk", "channel": "stdout", "sites": ["tag:harbour"]}

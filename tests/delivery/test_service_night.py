@@ -16,13 +16,13 @@ from zoneinfo import ZoneInfo
 import pandas as pd
 import pytest
 
-from notifier import cli
-from notifier.channels.webhook import DELIVERY_HEADER
-from notifier.config import Site
-from notifier.messages import CAUTION
-from notifier.observations import text_columns_as_objects
-from notifier.routing import delivery_key
-from notifier.service import Service, observations_for
+from notifier.cli import main as cli
+from notifier.core.config import Site
+from notifier.core.observations import text_columns_as_objects
+from notifier.delivery.channels.webhook import DELIVERY_HEADER
+from notifier.delivery.messages import CAUTION
+from notifier.delivery.routing import delivery_key
+from notifier.service.cycle import Service, observations_for
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
 from tests.delivery.scenes import clear_night
 from tests.engine.scenes import EVENING

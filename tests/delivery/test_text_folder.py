@@ -9,11 +9,17 @@ from email import policy
 
 import pytest
 
-from notifier.channels import STDOUT, FolderWriter, TextWriter, build_channel, channel_config_for
-from notifier.config import FolderChannel, TextChannel
-from notifier.errors import PermanentDeliveryError, TransientDeliveryError
-from notifier.messages import render
-from notifier.routing import Delivery
+from notifier.core.config import FolderChannel, TextChannel
+from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
+from notifier.delivery.channels import (
+    STDOUT,
+    FolderWriter,
+    TextWriter,
+    build_channel,
+    channel_config_for,
+)
+from notifier.delivery.messages import render
+from notifier.delivery.routing import Delivery
 from tests.delivery.scenes import RULES, config_with, event, site, utc
 
 PNG = b"\x89PNG\r\n\x1a\n" + b"\x01" * 32
@@ -117,9 +123,9 @@ def test_build_channel_refuses_unknown_config():
 
 
 def test_public_api_of_channels():
-    import notifier.channels as channels
-    from notifier.channels.base import Channel
-    from notifier.config import EmailChannel, WebhookChannel
+    import notifier.delivery.channels as channels
+    from notifier.core.config import EmailChannel, WebhookChannel
+    from notifier.delivery.channels.base import Channel
 
     assert sorted(channels.__all__) == sorted(
         [

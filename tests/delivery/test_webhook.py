@@ -9,18 +9,18 @@ import pytest
 import requests
 import responses
 
-from notifier.channels import RetryLater, build_channel, verify_signature
-from notifier.channels.webhook import (
+from notifier.core.config import WebhookChannel
+from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
+from notifier.delivery.channels import RetryLater, build_channel, verify_signature
+from notifier.delivery.channels.webhook import (
     DELIVERY_HEADER,
     SIGNATURE_HEADER,
     TIMESTAMP_HEADER,
     WebhookSender,
     sign,
 )
-from notifier.config import WebhookChannel
-from notifier.errors import PermanentDeliveryError, TransientDeliveryError
-from notifier.messages import render
-from notifier.routing import Delivery
+from notifier.delivery.messages import render
+from notifier.delivery.routing import Delivery
 from tests.delivery.conftest import WEBHOOK_SECRET
 from tests.delivery.scenes import RULES, event, site
 

@@ -7,8 +7,8 @@ from datetime import UTC, date, datetime, timedelta
 import numpy as np
 import pandas as pd
 
-from notifier.config import Site, default_rules_dir
-from notifier.rules import load_rule_set
+from notifier.core.config import Site, default_rules_dir
+from notifier.engine.rules import load_rule_set
 
 RULES = load_rule_set([default_rules_dir()])
 EVENING = date(2026, 10, 14)

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from notifier.features import FEATURES, compute_features, compute_features_at
+from notifier.engine.features import FEATURES, compute_features, compute_features_at
 from tests.engine.scenes import site, utc
 
 ZONES = ("Europe/London", "America/New_York", "Asia/Tokyo", "Australia/Sydney", "UTC")
@@ -220,7 +220,7 @@ def test_categorical_site_and_kind_columns_give_the_same(world):
 
 
 def test_the_rolling_windows_coding_gives_the_same(world):
-    # notifier.window hands out site categories that are the configured sites in order
+    # notifier.storage.window hands out site categories that are the configured sites in order
     # (read as indices directly, unknown sites coded as missing) and weather as codes
     sites, obs = world
     reference = compute_features(obs, sites, AT)
@@ -256,7 +256,7 @@ def test_no_times_and_no_data():
 
 
 def test_public_names():
-    import notifier.features as features
+    import notifier.engine.features as features
 
     assert set(features.__all__) == {
         "EXPOSURE_EFFECTS",

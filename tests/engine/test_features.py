@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from notifier.features import FEATURES, compute_features
+from notifier.engine.features import FEATURES, compute_features
 from tests.engine.scenes import site, steady, utc
 
 
@@ -298,7 +298,7 @@ def test_a_flat_depression_is_not_closing():
 
 def test_many_times_at_once_equal_each_time_alone():
     # more than a handful of times takes the batched sun path (a replay's day of steps)
-    from notifier.features import compute_features_at
+    from notifier.engine.features import compute_features_at
 
     sites = [
         site("a"),
@@ -336,7 +336,7 @@ def test_the_sun_carried_from_another_time_equals_the_sun_worked_out(seed):
     # physics.night_bounds_utc at the new time, itself checked against astral
     # (tests/physics/test_sun.py). Offsets span sunsets and sunrises in both directions.
     from notifier import physics
-    from notifier.features import _carried, _Sites
+    from notifier.engine.features import _carried, _Sites
 
     rng = np.random.default_rng(seed)
     n = 400

@@ -9,9 +9,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from notifier.config import default_rules_dir
-from notifier.errors import ConfigError
-from notifier.rules import evaluate_rule, load_rule_set
+from notifier.core.config import default_rules_dir
+from notifier.core.errors import ConfigError
+from notifier.engine.rules import evaluate_rule, load_rule_set
 from tests.engine.scenes import site
 
 SAFETY = """\

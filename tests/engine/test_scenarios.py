@@ -11,8 +11,8 @@ from datetime import timedelta
 import pandas as pd
 import pytest
 
-from notifier.assess import assess
-from notifier.demo_data import NightSpec, simulate_night
+from notifier.demo.weather import NightSpec, simulate_night
+from notifier.engine.assess import assess
 from tests.engine.scenes import EVENING, RULES, site, steady, utc
 
 
@@ -266,7 +266,7 @@ def test_site_that_never_reported_is_a_data_gap():
 
 
 def test_eta_beyond_the_horizon_is_none_not_an_overflow():
-    from notifier.assess import _eta
+    from notifier.engine.assess import _eta
 
     rule = next(r for r in RULES.rules if r.id == "radiation-fog-watch")
     at = utc(2026, 11, 20, 3)

@@ -5,10 +5,10 @@ from __future__ import annotations
 
 from datetime import datetime, timedelta
 
-from notifier.bot import handle
-from notifier.botbackend import ServiceBackend
-from notifier.service import Service, bot_subscriber_id
-from tests.service.conftest import Scene, utc
+from notifier.bot.grammar import handle
+from notifier.service.botbackend import ServiceBackend
+from notifier.service.cycle import Service, bot_subscriber_id
+from tests.service.scene import Scene, utc
 
 
 def cycle(scene: Scene, service: Service, at: datetime) -> None:
@@ -129,7 +129,7 @@ def test_follows_and_mutes_outlive_the_process(scene: Scene):
 
 
 def test_what_was_queued_before_a_hush_or_an_unfollow_is_cancelled(scene: Scene, capsys):
-    from notifier import cli
+    from notifier.cli import main as cli
 
     service = scene.service()
     cycle(scene, service, utc(2026, 11, 20, 22, 30))

@@ -5,8 +5,8 @@ from __future__ import annotations
 import socket
 from datetime import timedelta
 
-from notifier.cli import main
-from tests.service.conftest import CONFIG, FOG_FROM, Scene
+from notifier.cli.main import main
+from tests.service.scene import CONFIG, FOG_FROM, Scene
 
 
 def run(capsys, *argv: str) -> tuple[int, str, str]:

@@ -14,8 +14,8 @@ from collections.abc import Callable
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
-from notifier.config import default_rules_dir
-from tests.service.conftest import BOT_SECRET, CONFIG, HEADER, HOOK_SECRET, Scene
+from notifier.core.config import default_rules_dir
+from tests.service.scene import BOT_SECRET, CONFIG, HEADER, HOOK_SECRET, Scene
 
 
 def closed_port() -> int:

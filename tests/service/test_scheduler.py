@@ -13,10 +13,10 @@ from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.cron import CronTrigger
 from apscheduler.triggers.interval import IntervalTrigger
 
-from notifier.config import default_rules_dir
-from notifier.scheduler import build_scheduler, reload
-from notifier.service import Service
-from tests.service.conftest import CONFIG, FOG_FROM, Scene, utc
+from notifier.core.config import default_rules_dir
+from notifier.service.cycle import Service
+from notifier.service.scheduler import build_scheduler, reload
+from tests.service.scene import CONFIG, FOG_FROM, Scene, utc
 
 EXTRA_SITE = """\
   - id: zz-cove
@@ -151,7 +151,7 @@ def test_a_failing_job_logs_why_and_does_not_raise(wide: Scene, sched, caplog, m
         raise RuntimeError("store on fire")
 
     monkeypatch.setattr(service, "deliver", broken)
-    with caplog.at_level(logging.ERROR, logger="notifier.scheduler"):
+    with caplog.at_level(logging.ERROR, logger="notifier.service.scheduler"):
         jobs(sched)["deliver"].func()
     assert "job deliver failed; it will run again at its next time" in caplog.text
     assert "store on fire" in caplog.text
@@ -203,7 +203,7 @@ def test_a_broken_rule_file_keeps_the_running_config_and_says_where(wide: Scene,
     assert service.rules is before_rules and service.config is before_config
     assert not service.files_changed()  # the same broken files are not retried each time
 
-    with caplog.at_level(logging.ERROR, logger="notifier.scheduler"):
+    with caplog.at_level(logging.ERROR, logger="notifier.service.scheduler"):
         assert reload(service, sched, lambda: FOG_FROM) is False
     assert "reload failed, keeping the running config" in caplog.text
     assert where in caplog.text
@@ -232,7 +232,7 @@ def test_a_good_change_reloads_and_rebuilds_the_jobs(wide: Scene, sched, caplog)
     text = text.replace("name: North Quay Basin", "name: North Quay Basin (east)")
     wide.config_path.write_text(text, encoding="utf-8")
     assert service.files_changed()
-    with caplog.at_level(logging.WARNING, logger="notifier.scheduler"):
+    with caplog.at_level(logging.WARNING, logger="notifier.service.scheduler"):
         assert reload(service, sched, lambda: FOG_FROM) is True
     assert f"reloaded {wide.config_path}" in caplog.text
     assert jobs(sched)["deliver"].trigger.interval == timedelta(seconds=45)

@@ -1,0 +1,202 @@
+"""The messaging bot: a small command grammar and short plain-text replies.
+
+Commands (one per message, case does not matter)::
+
+    help                              what the bot understands
+    sites                             the sites you may ask about
+    status [SITE]                     one site, or every site you follow
+    why SITE                          the reasons behind a site's level
+    follow SITE [from watch|warning]  send me this site's alerts
+    unfollow SITE                     stop sending them
+    hush SITE for 3h [for everyone]   mute a site (everyone: operators only)
+    unhush SITE [for everyone]        lift it
+    join CODE                         become known, with a code an operator gave you
+
+The grammar is pure; every read and write goes through a ``BotBackend`` so the same
+commands work over HTTP, from the shell (``fogwatch ask``) and in tests.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from typing import Protocol
+from zoneinfo import ZoneInfo
+
+from notifier.core.config import parse_duration_s
+
+__all__ = ["BotBackend", "SiteStatus", "handle"]
+
+CAUTION = "Automated estimate, not an official forecast."
+MAX_MUTE = timedelta(days=14)
+HOW_LONG = "Say how long, e.g. 'hush SITE for 3h' or 'for 45min'."
+
+
+@dataclass(frozen=True)
+class SiteStatus:
+    site_id: str
+    name: str
+    level: str  # none | watch | warning
+    summary: str  # one short line: hazards, eta, key values
+    data_age_min: float | None
+
+
+class BotBackend(Protocol):
+    """What the bot needs from the running service."""
+
+    def site_names(self) -> dict[str, str]: ...
+    def site_timezone(self, site_id: str) -> str: ...
+    def is_known(self, sender: str) -> bool: ...
+    def is_operator(self, sender: str) -> bool: ...
+    def join(self, sender: str, code: str) -> str | None: ...  # the site joined, or None
+    def status(self, site_ids: Sequence[str]) -> list[SiteStatus]: ...
+    def reasons(self, site_id: str) -> list[str]: ...
+    def followed(self, sender: str) -> list[str]: ...
+    def follow(self, sender: str, site_id: str, min_level: str) -> None: ...
+    def unfollow(self, sender: str, site_id: str) -> bool: ...
+    def mute(self, who: str, site_id: str, until: datetime) -> None: ...
+    def unmute(self, who: str, site_id: str) -> bool: ...
+
+
+HELP = """\
+I watch sites for fog and icing. Say:
+  sites — the sites I watch
+  status [SITE] — a site, or all you follow
+  why SITE — the reasons behind its level
+  follow SITE [from warning] — get its alerts
+  unfollow SITE
+  hush SITE for 3h — mute it for a while
+  unhush SITE
+  join CODE — with a code from an operator"""
+
+
+def _site(backend: BotBackend, text: str) -> str | None:
+    names = backend.site_names()
+    key = text.strip().lower()
+    if key in names:
+        return key
+    for sid, name in names.items():
+        if name.lower() == key:
+            return sid
+    matches = [sid for sid, name in names.items() if key and key in name.lower()]
+    return matches[0] if len(matches) == 1 else None
+
+
+def _unknown_site(backend: BotBackend, text: str) -> str:
+    return f"I don't know a site '{text.strip()}'. Say 'sites' for the list."
+
+
+def _status_line(s: SiteStatus) -> str:
+    age = "" if s.data_age_min is None else f" (data {s.data_age_min:.0f} min old)"
+    return f"{s.name}: {s.level.upper()} — {s.summary}{age}"
+
+
+def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
+    """Answer one message from ``sender``."""
+    words = text.strip()
+    lower = words.lower()
+    if not words:
+        return "Say 'help' to see what I understand."
+    m = re.fullmatch(r"join\s+(\S+)", lower)
+    if m:
+        joined = backend.join(sender, words.split()[1])
+        if joined is None:
+            return "That code is not valid. Ask your site operator for a current one."
+        return (
+            f"Welcome. You now follow {backend.site_names()[joined]}. "
+            "Say 'help' to see what else I do."
+        )
+    if not backend.is_known(sender):
+        return "I don't know you yet. Ask an operator for a join code, then say 'join CODE'."
+    if lower in ("help", "?", "hello", "hi"):
+        return HELP
+    if lower == "sites":
+        names = backend.site_names()
+        followed = set(backend.followed(sender))
+        lines = [f"{'*' if sid in followed else '-'} {sid}: {name}" for sid, name in names.items()]
+        return "\n".join(["Sites (* = you follow):", *lines])
+    m = re.fullmatch(r"status(?:\s+(.+))?", lower)
+    if m:
+        if m.group(1):
+            sid = _site(backend, m.group(1))
+            if sid is None:
+                return _unknown_site(backend, m.group(1))
+            ids = [sid]
+        else:
+            ids = backend.followed(sender)
+            if not ids:
+                return "You follow no sites. Say 'status SITE' or 'follow SITE'."
+        lines = [_status_line(s) for s in backend.status(ids)]
+        return "\n".join([*lines, CAUTION])
+    m = re.fullmatch(r"why\s+(.+)", lower)
+    if m:
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        (st,) = backend.status([sid])
+        reasons = backend.reasons(sid)
+        body = [f"- {r}" for r in reasons[:8]] or ["- no rule is firing"]
+        return "\n".join([f"{st.name}: {st.level.upper()}", *body, CAUTION])
+    m = re.fullmatch(r"follow\s+(.+?)(?:\s+from\s+(\S+))?", lower)
+    if m:
+        level = m.group(2) or "watch"
+        if level not in ("watch", "warning"):
+            return "Levels are 'watch' and 'warning', e.g. 'follow SITE from warning'."
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        backend.follow(sender, sid, level)
+        return f"You will get {backend.site_names()[sid]} alerts from {level} level up."
+    m = re.fullmatch(r"unfollow\s+(.+)", lower)
+    if m:
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        if backend.unfollow(sender, sid):
+            return f"You no longer get {backend.site_names()[sid]} alerts."
+        return f"You were not following {backend.site_names()[sid]}."
+    m = re.fullmatch(r"hush\s+(.+?)\s+for\s+(.+?)(\s+for\s+everyone)?", lower)
+    if m:
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        try:
+            seconds = parse_duration_s(m.group(2))
+        except ValueError:
+            return HOW_LONG
+        if seconds < 60 or timedelta(seconds=seconds) > MAX_MUTE:
+            return "A hush lasts between a minute and 14 days."
+        who = sender
+        if m.group(3):
+            if not backend.is_operator(sender):
+                return "Only an operator can hush a site for everyone."
+            who = "*"
+        until = now + timedelta(seconds=seconds)
+        backend.mute(who, sid, until)
+        scope = "for everyone" if who == "*" else "for you"
+        local = until.astimezone(ZoneInfo(backend.site_timezone(sid)))
+        return (
+            f"{backend.site_names()[sid]} hushed {scope} until "
+            f"{local:%H:%M %Z} ({local:%d %b}). Warnings then resume."
+        )
+    if re.fullmatch(r"hush\s+.+", lower):
+        return HOW_LONG
+    m = re.fullmatch(r"unhush\s+(.+?)(\s+for\s+everyone)?", lower)
+    if m:
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        who = sender
+        if m.group(2):
+            if not backend.is_operator(sender):
+                return "Only an operator can lift a hush for everyone."
+            who = "*"
+        if backend.unmute(who, sid):
+            return f"{backend.site_names()[sid]} alerts are back on."
+        return f"{backend.site_names()[sid]} was not hushed."
+    if lower in ("why", "follow", "unfollow", "hush", "unhush"):
+        example = next(iter(backend.site_names()), "SITE")
+        return f"Say which site, e.g. '{lower} {example}'. Say 'sites' for the list."
+    return "I didn't understand that. Say 'help'."

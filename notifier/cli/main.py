@@ -1,0 +1,202 @@
+"""The ``fogwatch`` command: argument parsing and exit codes only.
+
+Each command is a thin call into the library; heavy libraries are imported inside the
+handlers so that ``fogwatch --help`` answers at once.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+from collections.abc import Callable, Sequence
+from typing import Any
+
+from notifier import __version__
+from notifier.core.errors import FogwatchError
+
+__all__ = ["main"]
+
+EXIT_CODES = """\
+exit codes:
+  0  success
+  1  unexpected failure
+  2  bad usage, or invalid config / rule file / input
+  3  a data source was unavailable
+  4  a delivery failed
+
+This is an automated estimate from site data, not an official forecast. Follow
+official warnings, the harbour authority, local codes and licensed practice.
+"""
+
+Handler = Callable[[argparse.Namespace], int]
+
+
+class _Parser(argparse.ArgumentParser):
+    """Bad usage: exit 2 with a one-line hint."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(2, f"{self.prog}: error: {message}\n(try '{self.prog} --help')\n")
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from notifier.core.config import load_config
+    from notifier.engine.rules import load_rule_set
+
+    config = load_config(args.config)
+    rules = load_rule_set(config.rule_paths())
+    print(
+        f"ok: {config.path}: {len(config.sites)} site(s), {len(config.sources)} source(s), "
+        f"{len(rules.rules)} rule(s) from {len(rules.files)} file(s), "
+        f"{len(config.subscribers)} subscriber(s)"
+    )
+    return 0
+
+
+def _cmd_assess(args: argparse.Namespace) -> int:
+    from notifier.cli import commands
+
+    return commands.cli_assess(args)
+
+
+def _cmd_explain(args: argparse.Namespace) -> int:
+    from notifier.cli import commands
+
+    return commands.cli_explain(args)
+
+
+def _cmd_sources(args: argparse.Namespace) -> int:
+    from notifier.cli import commands
+
+    return commands.cli_sources(args)
+
+
+def _cmd(name: str) -> Handler:
+    def run(args: argparse.Namespace) -> int:
+        from notifier.cli import commands
+
+        return int(getattr(commands, name)(args))
+
+    return run
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from notifier.demo import play as demo
+
+    return demo.main()
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", help="the fogwatch YAML config file")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="fogwatch",
+        description=(
+            "Watch site weather data for fog, freezing fog and icing; explain and deliver alerts."
+        ),
+        epilog=EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"fogwatch {__version__}")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("check", help="validate the config and every rule file")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_check)
+
+    p = sub.add_parser("assess", help="poll (or read --data files), evaluate, send nothing")
+    _add_common(p)
+    p.add_argument("--data", nargs="+", metavar="FILE", help="read these files instead")
+    p.add_argument("--at", metavar="TIME", help="evaluation time (ISO 8601; default now)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(handler=_cmd_assess)
+
+    p = sub.add_parser("explain", help="every feature and rule for one site, and why")
+    _add_common(p)
+    p.add_argument("site", help="site id")
+    p.add_argument("--data", nargs="+", metavar="FILE", help="read these files instead")
+    p.add_argument("--at", metavar="TIME", help="evaluation time (ISO 8601; default now)")
+    p.set_defaults(handler=_cmd_explain)
+
+    p = sub.add_parser("sources", help="poll health of each configured source")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_sources)
+
+    p = sub.add_parser("once", help="one full cycle: poll, assess, alert, deliver")
+    _add_common(p)
+    p.add_argument("--at", metavar="TIME", help="cycle time (ISO 8601; default now)")
+    p.set_defaults(handler=_cmd("cli_once"))
+
+    p = sub.add_parser("run", help="run unattended on a schedule (stop with Ctrl-C/SIGTERM)")
+    _add_common(p)
+    p.set_defaults(handler=_cmd("cli_run"))
+
+    p = sub.add_parser("status", help="current levels, source health, outbox backlog")
+    _add_common(p)
+    p.set_defaults(handler=_cmd("cli_status"))
+
+    p = sub.add_parser("ask", help="send one bot command from the shell")
+    _add_common(p)
+    p.add_argument("text", help="the command, e.g. 'status' or 'hush SITE for 2h'")
+    p.add_argument(
+        "--as", dest="sender", required=True, metavar="SENDER", help="the sender id to act as"
+    )
+    p.add_argument("--at", metavar="TIME", help=argparse.SUPPRESS)
+    p.set_defaults(handler=_cmd("cli_ask"))
+
+    p = sub.add_parser("bot", help="the messaging bot")
+    bot_sub = p.add_subparsers(dest="bot_command", metavar="ACTION", parser_class=_Parser)
+    q = bot_sub.add_parser("serve", help="serve the signed bot endpoint over HTTP")
+    _add_common(q)
+    q.add_argument("--host", default="127.0.0.1")
+    q.add_argument("--port", type=int, default=8750)
+    q.set_defaults(handler=_cmd("cli_bot_serve"))
+
+    p = sub.add_parser("replay", help="run the rules over history and score them")
+    _add_common(p)
+    p.add_argument(
+        "--data",
+        nargs="+",
+        metavar="FILE",
+        required=True,
+        help="observation files (CSV, JSON, NDJSON, METAR)",
+    )
+    p.add_argument("--from", dest="start", required=True, metavar="TIME")
+    p.add_argument("--to", dest="end", required=True, metavar="TIME")
+    p.add_argument("--step", default="10min", help="clock step (default 10min)")
+    p.add_argument("--rules-b", metavar="DIR", help="a second rule set to score beside")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.add_argument("--csv", metavar="FILE", help="write the events as CSV")
+    p.add_argument("--png", metavar="FILE", help="write a timeline chart")
+    p.add_argument("--deliver-to", metavar="DIR", help="write the messages as .eml files")
+    p.set_defaults(handler=_cmd("cli_replay"))
+
+    p = sub.add_parser("demo", help="one invented night at three invented sites")
+    p.set_defaults(handler=_cmd_demo)
+
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "handler", None):
+        parser.print_help()
+        return 2
+    level = logging.WARNING - 10 * min(args.verbose, 2)
+    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    handler: Any = args.handler
+    try:
+        return int(handler(args))
+    except FogwatchError as exc:
+        print(f"fogwatch: {exc}" if "\n" not in str(exc) else str(exc), file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        # the reader went away (e.g. `| head`): end quietly
+        sys.stderr.close()
+        return 0

@@ -1,0 +1,600 @@
+"""Configuration: YAML → validated, frozen models; every error carries file:line.
+
+Only ``sites`` is required. Everything else has a working default: no sources, the
+shipped ``rules/`` folder, plain text to stdout, and a SQLite file beside the config.
+Relative paths resolve against the config file's folder; ``${NAME}`` in any string is
+read from the environment, and a missing variable is a located error.
+"""
+
+from __future__ import annotations
+
+import re
+from datetime import time as dtime
+from pathlib import Path
+from typing import Annotated, Any, Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+
+from notifier.core.errors import ConfigError, ConfigProblem
+from notifier.core.yamlio import MarkedDict, MarkedList, expand_env, line_of, load_yaml
+
+__all__ = [
+    "CHANNEL_TYPES",
+    "AlertSettings",
+    "BotSettings",
+    "Config",
+    "EmailChannel",
+    "FieldSpec",
+    "FileDropSource",
+    "FolderChannel",
+    "HttpJsonSource",
+    "Schedule",
+    "Site",
+    "StoreSettings",
+    "Subscriber",
+    "TextChannel",
+    "WebhookChannel",
+    "default_rules_dir",
+    "load_config",
+    "parse_duration_s",
+]
+
+CONFIG_VERSION = 1
+
+_DURATION = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(s|sec|min|m|h|hr|d)?\s*$", re.IGNORECASE)
+_UNIT_S = {None: 1.0, "s": 1.0, "sec": 1.0, "m": 60.0, "min": 60.0, "h": 3600.0, "hr": 3600.0}
+_UNIT_S["d"] = 86400.0
+
+
+def parse_duration_s(value: Any) -> float:
+    """``"10min"``, ``"2h"``, ``"30 s"``, ``90`` (seconds) → seconds as float.
+
+    >>> parse_duration_s("45min")
+    2700.0
+    """
+    if isinstance(value, bool):
+        raise ValueError(f"expected a duration such as '10min', got: {value!r}")
+    if isinstance(value, int | float):
+        seconds = float(value)
+    else:
+        match = _DURATION.match(str(value))
+        if not match:
+            raise ValueError(f"expected a duration such as '10min' or '2h', got: {value!r}")
+        unit = match.group(2).lower() if match.group(2) else None
+        seconds = float(match.group(1)) * _UNIT_S[unit]
+    if seconds < 0:
+        raise ValueError(f"duration must not be negative, got: {value!r}")
+    return seconds
+
+
+Duration = Annotated[float, BeforeValidator(parse_duration_s)]
+
+
+def _check_zone(name: str) -> str:
+    try:
+        ZoneInfo(name)
+    except (ZoneInfoNotFoundError, ValueError) as exc:
+        raise ValueError(f"unknown time zone {name!r} (expected e.g. 'Europe/Dublin')") from exc
+    return name
+
+
+TimeZoneName = Annotated[str, BeforeValidator(_check_zone)]
+Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$", max_length=64)]
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(frozen=True, extra="forbid")
+
+
+class Site(_Model):
+    id: Identifier
+    name: str
+    lat: float = Field(ge=-90, le=90)
+    lon: float = Field(ge=-180, le=180)
+    timezone: TimeZoneName
+    exposure: Literal["open", "valley", "forest", "waterside", "coast", "urban"] = "open"
+    use: Literal["farm", "port", "venue", "other"] = "other"
+    elevation_m: float | None = None
+    onshore_from_deg: float | None = Field(default=None, ge=0, le=360)
+    onshore_to_deg: float | None = Field(default=None, ge=0, le=360)
+    tags: tuple[str, ...] = ()
+
+    @model_validator(mode="after")
+    def _sector_pair(self) -> Site:
+        if (self.onshore_from_deg is None) != (self.onshore_to_deg is None):
+            raise ValueError("onshore_from_deg and onshore_to_deg must be given together")
+        return self
+
+    @property
+    def zone(self) -> ZoneInfo:
+        return ZoneInfo(self.timezone)
+
+
+class FieldSpec(_Model):
+    """Where a canonical column comes from in a source record, and in which unit."""
+
+    key: str
+    unit: str | None = None
+
+
+class _SourceBase(_Model):
+    id: Identifier
+    interval: Duration = 600.0
+    kind: Literal["obs", "forecast"] = "obs"
+
+    @field_validator("interval")
+    @classmethod
+    def _positive(cls, value: float) -> float:
+        if value <= 0:
+            raise ValueError(f"interval must be positive, got: {value}")
+        return value
+
+
+class FileDropSource(_SourceBase):
+    type: Literal["filedrop"]
+    path: Path
+    glob: str = "*"
+    format: Literal["auto", "csv", "json", "ndjson", "metar"] = "auto"
+    settle: Duration = 5.0
+    site: str | None = None  # for files whose rows carry no site column
+    stations: dict[str, str] = {}  # METAR station id → site id
+
+
+class HttpJsonSource(_SourceBase):
+    type: Literal["http_json"]
+    url: str
+    sites: tuple[str, ...] | Literal["all"] = "all"
+    headers: dict[str, str] = {}
+    records: str = ""  # dotted path to the list of records; "" = the document itself
+    fields: dict[str, str | FieldSpec] = {}
+    site_key: str = "site"
+    connect_timeout: Duration = 5.0
+    read_timeout: Duration = 15.0
+    retries: int = Field(default=3, ge=0, le=10)
+    backoff: float = Field(default=0.5, ge=0)
+    max_bytes: int = Field(default=5_000_000, gt=0)
+
+    @field_validator("url")
+    @classmethod
+    def _http(cls, value: str) -> str:
+        if not re.match(r"^https?://", value):
+            raise ValueError(f"url must start with http:// or https://, got: {value!r}")
+        return value
+
+    @property
+    def per_site(self) -> bool:
+        return any(k in self.url for k in ("{site}", "{lat}", "{lon}"))
+
+
+Source = Annotated[FileDropSource | HttpJsonSource, Field(discriminator="type")]
+
+
+class TextChannel(_Model):
+    id: Identifier
+    type: Literal["text"]
+    stdout: bool = True
+    file: Path | None = None
+
+
+class FolderChannel(_Model):
+    id: Identifier
+    type: Literal["folder"]
+    path: Path
+
+
+class EmailChannel(_Model):
+    id: Identifier
+    type: Literal["email"]
+    host: str
+    port: int = Field(default=587, gt=0, lt=65536)
+    security: Literal["starttls", "ssl", "none"] = "starttls"
+    username: str | None = None
+    password: str | None = None
+    sender: str
+    timeout: Duration = 20.0
+    chart: bool = True
+
+
+class WebhookChannel(_Model):
+    id: Identifier
+    type: Literal["webhook"]
+    url: str
+    secret: str
+    timeout: Duration = 10.0
+    headers: dict[str, str] = {}
+
+
+Channel = Annotated[
+    TextChannel | FolderChannel | EmailChannel | WebhookChannel, Field(discriminator="type")
+]
+CHANNEL_TYPES = ("text", "folder", "email", "webhook")
+
+_QUIET = re.compile(r"^\s*(\d{1,2}):(\d{2})\s*-\s*(\d{1,2}):(\d{2})\s*$")
+
+
+class Subscriber(_Model):
+    id: Identifier
+    name: str = ""
+    channel: str
+    address: str | None = None
+    sites: tuple[str, ...] = ("all",)  # site ids, "tag:NAME", or "all"
+    hazards: tuple[Literal["fog", "icing", "data_gap"], ...] = ("fog", "icing", "data_gap")
+    min_level: Literal["watch", "warning"] = "watch"
+    quiet_hours: str | None = None  # "22:00-06:30" in the subscriber's zone
+    warnings_in_quiet_hours: bool = True
+    timezone: TimeZoneName | None = None
+    operator: bool = False
+    senders: tuple[str, ...] = ()  # bot sender ids that speak for this subscriber
+
+    @field_validator("quiet_hours")
+    @classmethod
+    def _quiet(cls, value: str | None) -> str | None:
+        if value is None:
+            return None
+        match = _QUIET.match(value)
+        if not match or int(match.group(1)) > 23 or int(match.group(3)) > 23:
+            raise ValueError(f"quiet_hours must look like '22:00-06:30', got: {value!r}")
+        return value
+
+    def quiet_window(self) -> tuple[dtime, dtime] | None:
+        if not self.quiet_hours:
+            return None
+        h1, m1, h2, m2 = (int(g) for g in _QUIET.match(self.quiet_hours).groups())  # type: ignore[union-attr]
+        return dtime(h1, m1), dtime(h2, m2)
+
+
+class Schedule(_Model):
+    evaluate_every: Duration = 600.0
+    deliver_every: Duration = 60.0
+    housekeeping_every: Duration = 3600.0
+    health_every: Duration = 900.0
+    outlook_local_time: str | None = "17:30"
+    morning_summary_local_time: str = "07:00"
+    misfire_grace: Duration = 300.0
+
+    @field_validator("outlook_local_time", "morning_summary_local_time")
+    @classmethod
+    def _hhmm(cls, value: str | None) -> str | None:
+        if value is not None and not re.match(r"^([01]?\d|2[0-3]):[0-5]\d$", value):
+            raise ValueError(f"expected a local time HH:MM, got: {value!r}")
+        return value
+
+
+class StoreSettings(_Model):
+    url: str | None = None
+    window: Duration = 48 * 3600.0
+    keep_deliveries: Duration = 14 * 86400.0
+
+
+#: The ids of subscribers made by following a site through the bot start so
+#: (``service.bot_subscriber_id``); configured subscribers may not.
+BOT_SUBSCRIBER_PREFIX = "bot-"
+
+
+class AlertSettings(_Model):
+    clearing_time: Duration = 45 * 60.0
+    reminder_every: Duration = 3 * 3600.0
+    cooldown: Duration = 60 * 60.0
+    max_delivery_age: Duration = 12 * 3600.0
+    stale_after: Duration = 90 * 60.0
+    # how long a dispatcher's claim on what it is sending lasts (wall-clock time); it
+    # should be well above the longest single send (the channels' timeouts)
+    claim_lease: Duration = 15 * 60.0
+
+    @field_validator("claim_lease")
+    @classmethod
+    def _lease_positive(cls, value: float) -> float:
+        if value <= 0:
+            raise ValueError(f"claim_lease must be positive, got: {value}")
+        return value
+
+
+class BotSettings(_Model):
+    secret: str | None = None
+    allow: tuple[str, ...] = ()  # sender ids allowed without a join code
+    join_codes: dict[str, str] = {}  # code → site id
+    rate_per_minute: int = Field(default=20, gt=0)
+    channel: str = "stdout"  # where alerts for people who follow a site through the bot go
+
+
+class Config(_Model):
+    version: int = CONFIG_VERSION
+    sites: tuple[Site, ...]
+    sources: tuple[Source, ...] = ()
+    rules: tuple[Path, ...] = ()
+    channels: tuple[Channel, ...] = ()
+    subscribers: tuple[Subscriber, ...] = ()
+    schedule: Schedule = Schedule()
+    store: StoreSettings = StoreSettings()
+    alerts: AlertSettings = AlertSettings()
+    bot: BotSettings = BotSettings()
+    path: Path | None = None  # the file this came from (set by load_config)
+
+    @field_validator("version")
+    @classmethod
+    def _version(cls, value: int) -> int:
+        if value != CONFIG_VERSION:
+            raise ValueError(f"unsupported config version {value} (expected {CONFIG_VERSION})")
+        return value
+
+    @property
+    def base_dir(self) -> Path:
+        return self.path.parent if self.path else Path.cwd()
+
+    @property
+    def store_url(self) -> str:
+        if self.store.url:
+            return self.store.url
+        stem = self.path.stem if self.path else "fogwatch"
+        return f"sqlite:///{self.base_dir / (stem + '.sqlite')}"
+
+    def site(self, site_id: str) -> Site:
+        for site in self.sites:
+            if site.id == site_id:
+                return site
+        raise KeyError(site_id)
+
+    def channel(self, channel_id: str) -> Any:
+        for channel in self.channels:
+            if channel.id == channel_id:
+                return channel
+        raise KeyError(channel_id)
+
+    def rule_paths(self) -> tuple[Path, ...]:
+        return self.rules or (default_rules_dir(),)
+
+    def sites_matching(self, selectors: tuple[str, ...]) -> tuple[Site, ...]:
+        """Sites chosen by ids, ``tag:NAME`` or ``all``."""
+        chosen = []
+        for site in self.sites:
+            for sel in selectors:
+                if (
+                    sel == "all"
+                    or sel == site.id
+                    or (sel.startswith("tag:") and sel[4:] in site.tags)
+                ):
+                    chosen.append(site)
+                    break
+        return tuple(chosen)
+
+
+def default_rules_dir() -> Path:
+    """The ``rules/`` folder shipped beside the package."""
+    return Path(__file__).resolve().parents[2] / "rules"
+
+
+# ---------------------------------------------------------------------------------------
+# loading
+
+
+def _expand_all(
+    node: Any,
+    loc: tuple[Any, ...],
+    missing: list[tuple[tuple[Any, ...], str]],
+    expanded: set[tuple[Any, ...]],
+) -> Any:
+    if isinstance(node, MarkedDict):
+        for key in list(node):
+            node[key] = _expand_all(node[key], (*loc, key), missing, expanded)
+    elif isinstance(node, MarkedList):
+        for i, item in enumerate(node):
+            node[i] = _expand_all(item, (*loc, i), missing, expanded)
+    elif isinstance(node, str) and "${" in node:
+        try:
+            value = expand_env(node)
+        except KeyError as exc:
+            missing.append((loc, exc.args[0]))
+        else:
+            expanded.add(loc)
+            return value
+    return node
+
+
+def _resolve(base: Path, value: Path) -> Path:
+    return value if value.is_absolute() else (base / value).resolve()
+
+
+def _loc_text(loc: tuple[Any, ...]) -> str:
+    parts = []
+    for part in loc:
+        if isinstance(part, int):
+            parts.append(f"[{part}]")
+        else:
+            parts.append(("." if parts else "") + str(part))
+    return "".join(parts)
+
+
+def _raw_loc(raw: Any, loc: tuple[Any, ...]) -> tuple[Any, ...]:
+    """``loc`` without the validator's own labels (union tags), as keys of the file."""
+    out: list[Any] = []
+    node: Any = raw
+    for k, part in enumerate(loc):
+        if isinstance(node, dict) and part not in node:
+            nxt = loc[k + 1] if k + 1 < len(loc) else None
+            if nxt is not None and nxt in node:
+                continue  # a tag pydantic adds for the member of a union
+            out.extend(loc[k:])  # a missing key: name it as it is
+            break
+        if isinstance(node, dict | list):
+            try:
+                node = node[part]
+            except (KeyError, IndexError, TypeError):
+                node = None
+        out.append(part)
+    return tuple(out)
+
+
+def problems_from_validation(
+    path: str,
+    raw: Any,
+    exc: ValidationError,
+    prefix: str = "",
+    secret_locs: set[tuple[Any, ...]] = frozenset(),  # type: ignore[assignment]
+) -> list[ConfigProblem]:
+    """Turn pydantic's errors into located problems, one per error.
+
+    A value that came from the environment is never echoed: it may be a secret.
+    """
+    out = []
+    for err in exc.errors(include_url=False):
+        loc = tuple(p for p in err["loc"] if p not in ("function-after", "function-before"))
+        shown = _raw_loc(raw, loc)
+        msg = err["msg"].removeprefix("Value error, ")
+        where = _loc_text(shown)
+        got = ""
+        if err["type"] not in ("missing",) and not isinstance(err.get("input"), dict | list):
+            got = f" (got {err.get('input')!r})"
+        if err["type"] == "extra_forbidden":
+            msg = "unknown key"
+            got = ""
+        if _raw_loc(raw, loc) in secret_locs:
+            got = " (value from the environment, not shown)"
+        out.append(ConfigProblem(path, line_of(raw, loc), f"{prefix}{where}: {msg}{got}"))
+    return out
+
+
+def load_config(path: str | Path) -> Config:
+    """Load and validate a config file; raise ``ConfigError`` listing every problem."""
+    path = Path(path).resolve()
+    raw = load_yaml(path)
+    if raw is None:
+        raw = MarkedDict()
+        raw.key_lines = {}
+    if not isinstance(raw, dict):
+        raise ConfigError(ConfigProblem(str(path), 1, "expected a mapping at the top level"))
+    missing: list[tuple[tuple[Any, ...], str]] = []
+    expanded: set[tuple[Any, ...]] = set()
+    _expand_all(raw, (), missing, expanded)
+    problems = [
+        ConfigProblem(
+            str(path),
+            line_of(raw, loc),
+            f"{_loc_text(loc)}: environment variable {name} is not set",
+        )
+        for loc, name in missing
+    ]
+    if problems:
+        raise ConfigError(problems)
+    try:
+        config = Config.model_validate({**raw, "path": path})
+    except ValidationError as exc:
+        raise ConfigError(
+            problems_from_validation(str(path), raw, exc, secret_locs=expanded)
+        ) from exc
+    config = _resolve_paths(config)
+    problems = _cross_check(config, raw)
+    if problems:
+        raise ConfigError(problems)
+    return config
+
+
+def _resolve_paths(config: Config) -> Config:
+    base = config.base_dir
+    sources = tuple(
+        s.model_copy(update={"path": _resolve(base, s.path)})
+        if isinstance(s, FileDropSource)
+        else s
+        for s in config.sources
+    )
+    channels = []
+    for ch in config.channels:
+        if isinstance(ch, FolderChannel):
+            ch = ch.model_copy(update={"path": _resolve(base, ch.path)})
+        elif isinstance(ch, TextChannel) and ch.file is not None:
+            ch = ch.model_copy(update={"file": _resolve(base, ch.file)})
+        channels.append(ch)
+    rules = tuple(_resolve(base, r) for r in config.rules)
+    store = config.store
+    if store.url and store.url.startswith("sqlite:///") and not store.url.startswith("sqlite:////"):
+        rel = store.url.removeprefix("sqlite:///")
+        if rel and rel != ":memory:":
+            store = store.model_copy(update={"url": f"sqlite:///{_resolve(base, Path(rel))}"})
+    return config.model_copy(
+        update={"sources": sources, "channels": tuple(channels), "rules": rules, "store": store}
+    )
+
+
+def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
+    path = str(config.path)
+    problems: list[ConfigProblem] = []
+
+    def add(loc: tuple[Any, ...], msg: str) -> None:
+        problems.append(ConfigProblem(path, line_of(raw, loc), f"{_loc_text(loc)}: {msg}"))
+
+    if not config.sites:
+        add(("sites",), "at least one site is needed")
+    site_ids = [s.id for s in config.sites]
+    tags = {t for s in config.sites for t in s.tags}
+    for kind, items in (
+        ("site", config.sites),
+        ("source", config.sources),
+        ("channel", config.channels),
+        ("subscriber", config.subscribers),
+    ):
+        seen: set[str] = set()
+        for i, item in enumerate(items):
+            if item.id in seen:
+                add((kind + "s", i, "id"), f"duplicate {kind} id {item.id!r}")
+            seen.add(item.id)
+
+    def check_site_ref(loc: tuple[Any, ...], ref: str) -> None:
+        if ref not in site_ids:
+            add(loc, f"unknown site {ref!r} (known: {', '.join(site_ids)})")
+
+    for i, src in enumerate(config.sources):
+        if isinstance(src, FileDropSource):
+            if src.site is not None:
+                check_site_ref(("sources", i, "site"), src.site)
+            for station, site_id in src.stations.items():
+                check_site_ref(("sources", i, "stations", station), site_id)
+        elif src.sites != "all":
+            for site_id in src.sites:
+                check_site_ref(("sources", i, "sites"), site_id)
+    channel_ids = {c.id for c in config.channels} | {"stdout"}
+    for i, sub in enumerate(config.subscribers):
+        if sub.id.startswith(BOT_SUBSCRIBER_PREFIX):
+            add(
+                ("subscribers", i, "id"),
+                f"ids starting {BOT_SUBSCRIBER_PREFIX!r} are kept for the bot's followers "
+                f"(got {sub.id!r})",
+            )
+        if sub.channel not in channel_ids:
+            add(
+                ("subscribers", i, "channel"),
+                f"unknown channel {sub.channel!r} (known: {', '.join(sorted(channel_ids))})",
+            )
+        else:
+            ch = next((c for c in config.channels if c.id == sub.channel), None)
+            if isinstance(ch, EmailChannel | FolderChannel) and not sub.address:
+                add(("subscribers", i, "address"), "an email address is needed for this channel")
+            if sub.address and ch is not None and isinstance(ch, EmailChannel | FolderChannel):
+                if not re.match(r"^[^@\s<>,;]+@[^@\s<>,;]+\.[^@\s<>,;]+$", sub.address):
+                    add(("subscribers", i, "address"), f"not an email address: {sub.address!r}")
+        for sel in sub.sites:
+            if sel == "all":
+                continue
+            if sel.startswith("tag:"):
+                if sel[4:] not in tags:
+                    add(("subscribers", i, "sites"), f"no site has tag {sel[4:]!r}")
+            else:
+                check_site_ref(("subscribers", i, "sites"), sel)
+    for code, site_id in config.bot.join_codes.items():
+        check_site_ref(("bot", "join_codes", code), site_id)
+    if config.bot.channel not in channel_ids:
+        add(
+            ("bot", "channel"),
+            f"unknown channel {config.bot.channel!r} (known: {', '.join(sorted(channel_ids))})",
+        )
+    for i, rule_path in enumerate(config.rules):
+        if not rule_path.exists():
+            add(("rules", i), f"rule path not found: {rule_path}")
+    return problems

@@ -1,0 +1,123 @@
+"""YAML loading that remembers where each value came from.
+
+``load_yaml`` returns plain dicts and lists (subclasses ``MarkedDict`` / ``MarkedList``)
+that carry the 1-based line of every key and item, so that validation errors can be
+reported as ``path:line: ...``. Only ``yaml.SafeLoader`` is used: no tags, no objects.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from notifier.core.errors import ConfigError, ConfigProblem
+
+__all__ = ["MarkedDict", "MarkedList", "expand_env", "line_of", "load_yaml"]
+
+
+class MarkedDict(dict):  # type: ignore[type-arg]
+    """A dict that knows the line of itself (``line``) and of each key (``key_lines``)."""
+
+    line: int | None = None
+    key_lines: dict[Any, int]
+
+
+class MarkedList(list):  # type: ignore[type-arg]
+    """A list that knows the line of itself and of each item."""
+
+    line: int | None = None
+    item_lines: list[int]
+
+
+class _Loader(yaml.SafeLoader):
+    pass
+
+
+def _construct_mapping(loader: _Loader, node: yaml.MappingNode) -> MarkedDict:
+    loader.flatten_mapping(node)
+    out = MarkedDict()
+    out.line = node.start_mark.line + 1
+    out.key_lines = {}
+    for key_node, value_node in node.value:
+        key = loader.construct_object(key_node, deep=True)
+        if key in out:
+            raise yaml.constructor.ConstructorError(
+                None, None, f"duplicate key {key!r}", key_node.start_mark
+            )
+        out[key] = loader.construct_object(value_node, deep=True)
+        out.key_lines[key] = key_node.start_mark.line + 1
+    return out
+
+
+def _construct_sequence(loader: _Loader, node: yaml.SequenceNode) -> MarkedList:
+    out = MarkedList(loader.construct_object(child, deep=True) for child in node.value)
+    out.line = node.start_mark.line + 1
+    out.item_lines = [child.start_mark.line + 1 for child in node.value]
+    return out
+
+
+_Loader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping)
+_Loader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_SEQUENCE_TAG, _construct_sequence)
+
+
+def load_yaml(path: str | os.PathLike[str]) -> Any:
+    """Read ``path`` with line marks; a syntax error becomes a ``ConfigError`` at its line."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError as exc:
+        raise ConfigError(ConfigProblem(str(path), None, "file not found")) from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(ConfigProblem(str(path), None, f"cannot read: {exc}")) from exc
+    try:
+        return yaml.load(text, Loader=_Loader)  # noqa: S506 - _Loader is a SafeLoader
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line = mark.line + 1 if mark else None
+        what = exc.problem or str(exc)
+        raise ConfigError(ConfigProblem(str(path), line, f"YAML syntax: {what}")) from exc
+    except yaml.YAMLError as exc:
+        raise ConfigError(ConfigProblem(str(path), None, f"YAML: {exc}")) from exc
+
+
+def line_of(data: Any, loc: Sequence[Any]) -> int | None:
+    """The line of the deepest element of ``data`` reached by the path ``loc``."""
+    line = getattr(data, "line", None)
+    node = data
+    for part in loc:
+        if isinstance(node, MarkedDict):
+            if part not in node:
+                continue  # a validator's own label (e.g. a union tag), not a key
+            line = node.key_lines.get(part, line)
+            node = node[part]
+        elif isinstance(node, MarkedList) and isinstance(part, int) and 0 <= part < len(node):
+            line = node.item_lines[part]
+            node = node[part]
+        else:
+            break
+    return line
+
+
+_ENV = re.compile(r"\$\{([A-Za-z_][A-Za-z0-9_]*)\}")
+
+
+def expand_env(value: str, environ: dict[str, str] | None = None) -> str:
+    """Replace each ``${NAME}`` with the environment variable; a missing one is an error.
+
+    Raises ``KeyError`` naming the variable, which config validation turns into a
+    located problem.
+    """
+    env = os.environ if environ is None else environ
+
+    def repl(match: re.Match[str]) -> str:
+        name = match.group(1)
+        if name not in env:
+            raise KeyError(name)
+        return env[name]
+
+    return _ENV.sub(repl, value)

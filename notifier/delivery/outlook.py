@@ -1,0 +1,91 @@
+"""The evening outlook: tonight's fog and icing prospects for one site, as an event.
+
+Sent once each evening at the configured local time to subscribers who take watch-level
+news. It is built from the same features as the alerts: the projected minimum against
+the dew point (the crossover method's question), the cooling potential, when fog could
+start, and whether it would freeze.
+"""
+
+from __future__ import annotations
+
+import math
+from datetime import datetime, timedelta
+
+from notifier.cli.views import local_time
+from notifier.engine.assess import SiteAssessment
+from notifier.engine.lifecycle import Event, event_id
+
+__all__ = ["outlook_event", "outlook_lines"]
+
+
+def _finite(v: float | None) -> bool:
+    return v is not None and math.isfinite(v)
+
+
+def outlook_lines(sa: SiteAssessment, now: datetime) -> tuple[list[str], str]:
+    """The outlook's sentences and its one-word fog chance (low | some | high | unknown)."""
+    f = sa.features
+    zone = sa.site.timezone
+    pm, td = f.get("projected_min_temp_c"), f.get("dewpoint_c")
+    cp = f.get("cooling_potential")
+    lines = []
+    chance = "unknown"
+    if _finite(pm) and _finite(td):
+        margin = pm - td  # type: ignore[operator]
+        lines.append(
+            f"Projected minimum {pm:.1f} °C against a dew point of {td:.1f} °C "
+            f"(margin {margin:+.1f} °C)."
+        )
+        # within ~1 °C of the dew point fog is likely (crossover method, common practice)
+        chance = "high" if margin <= 1.0 else "some" if margin <= 3.0 else "low"
+    else:
+        lines.append("Not enough data tonight to project the minimum.")
+    if _finite(cp):
+        word = "strong" if cp >= 0.7 else "moderate" if cp >= 0.4 else "weak"  # type: ignore[operator]
+        lines.append(f"Cooling potential {cp:.2f} ({word}).")
+    hours = f.get("hours_to_fog")
+    to_sunrise = f.get("hours_to_sunrise")
+    if chance in ("high", "some"):
+        if _finite(hours):
+            start = now + timedelta(hours=float(hours))  # type: ignore[arg-type]
+            lines.append(
+                f"Onset window: {local_time(start - timedelta(hours=1), zone)} to "
+                f"{local_time(start + timedelta(hours=1), zone)}."
+            )
+        elif _finite(to_sunrise):
+            # radiation fog most often forms in the last hours before dawn (common practice)
+            sunrise = now + timedelta(hours=float(to_sunrise))  # type: ignore[arg-type]
+            early = local_time(sunrise - timedelta(hours=4), zone)
+            late = local_time(sunrise + timedelta(hours=1), zone)
+            lines.append(f"Onset window: most likely {early} to {late} (around dawn).")
+    if _finite(pm):
+        if pm <= 0.0 and chance in ("high", "some"):  # type: ignore[operator]
+            lines.append("Icing: likely — fog would form below 0 °C and deposit rime.")
+        elif pm <= 1.0:  # type: ignore[operator]
+            lines.append("Icing: possible — frost on exposed surfaces.")
+        else:
+            lines.append("Icing: unlikely.")
+    lines.append(f"Fog chance tonight: {chance}.")
+    return lines, chance
+
+
+def outlook_event(sa: SiteAssessment, now: datetime) -> Event:
+    lines, chance = outlook_lines(sa, now)
+    return Event(
+        id=event_id(sa.site.id, "fog", None, "outlook", "watch", now),
+        type="outlook",
+        site_id=sa.site.id,
+        hazard="fog",
+        level="watch",
+        previous_level=sa.level,
+        time=now,
+        kind=f"chance {chance}",
+        explanations=tuple(lines),
+        features={
+            k: v
+            for k, v in sa.features.items()
+            if k in ("temp_c", "dewpoint_c", "projected_min_temp_c", "cooling_potential")
+        },
+        data_age_min=sa.age_min if math.isfinite(sa.age_min) else None,
+        projection_method=sa.projection_method,
+    )

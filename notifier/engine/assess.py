@@ -1,0 +1,413 @@
+"""Rule results → hazards, levels and reasons per site (pure: no I/O, no clock).
+
+For each site and hazard the level is the highest level among the rules that fired.
+``sustain`` is the highest level whose rules still hold once their clearing margins are
+applied; the lifecycle keeps an active alert at that level instead of dropping it the
+moment a value touches its threshold.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from functools import partial
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from notifier.engine.features import FEATURES, FeatureSettings, FeatureTable, compute_features_at
+from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from notifier.core.config import Site
+
+__all__ = [
+    "HazardAssessment",
+    "SiteAssessment",
+    "assess",
+    "assess_times",
+    "iso_z",
+    "level_rank",
+    "to_json",
+]
+
+HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
+STALE_AFTER_MIN = 90.0
+ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
+
+
+_LEVEL_RANK = {level: rank for rank, level in enumerate(LEVELS)}
+
+
+def level_rank(level: str) -> int:
+    """0 for none, then watch, warning (the order of ``rules.LEVELS``)."""
+    rank = _LEVEL_RANK.get(level)
+    if rank is None:
+        raise ValueError(f"unknown level {level!r} (known: {', '.join(LEVELS)})")
+    return rank
+
+
+class LazyTexts(Sequence[str]):
+    """Text worked out only when read: most assessments are never shown to anyone."""
+
+    __slots__ = ("_make", "_items")
+
+    def __init__(self, make: Callable[[], list[str]]):
+        self._make = make
+        self._items: list[str] | None = None
+
+    def _all(self) -> list[str]:
+        if self._items is None:
+            self._items = self._make()
+        return self._items
+
+    def __getitem__(self, k):  # type: ignore[no-untyped-def, override]
+        return self._all()[k]
+
+    def __len__(self) -> int:
+        return len(self._all())
+
+    def __eq__(self, other: object) -> bool:
+        return list(self) == list(other) if isinstance(other, Sequence) else NotImplemented
+
+    def __repr__(self) -> str:
+        return repr(self._all())
+
+
+@dataclass
+class HazardAssessment:
+    hazard: str
+    level: str  # watch | warning
+    kind: str
+    eta: datetime | None
+    rules: list[str]
+    reasons: Sequence[str]
+    explanations: Sequence[str]
+    safety_refs: list[str]
+
+
+class FeatureRow(Mapping[str, float]):
+    """One site's features, read from the table's arrays on demand."""
+
+    __slots__ = ("_table", "_i")
+
+    def __init__(self, table: FeatureTable, i: int):
+        self._table = table
+        self._i = i
+
+    def __getitem__(self, name: str) -> float:
+        return float(self._table.values[name][self._i])
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._table.values)
+
+    def __len__(self) -> int:
+        return len(self._table.values)
+
+
+class SiteResults(Sequence[RuleResult]):
+    """One site's result for every rule, built from the rule evaluations on demand."""
+
+    __slots__ = ("_evals", "_i", "_cache")
+
+    def __init__(self, evals: Sequence[RuleEvaluation], i: int):
+        self._evals = evals
+        self._i = i
+        self._cache: list[RuleResult] | None = None
+
+    def _all(self) -> list[RuleResult]:
+        if self._cache is None:
+            self._cache = [ev[self._i] for ev in self._evals]
+        return self._cache
+
+    def __getitem__(self, k: int) -> RuleResult:  # type: ignore[override]
+        return self._all()[k]
+
+    def __len__(self) -> int:
+        return len(self._evals)
+
+    def where(self, keep: Callable[[Rule], bool]) -> list[RuleResult]:
+        """The results of the rules ``keep`` accepts; the others are not built."""
+        if self._cache is not None:
+            return [r for r in self._cache if keep(r.rule)]
+        return [ev[self._i] for ev in self._evals if keep(ev.rule)]
+
+
+def results_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[RuleResult]:
+    """``sa``'s results for the rules ``keep`` accepts (built lazily where they can be)."""
+    if isinstance(sa.results, SiteResults):
+        return sa.results.where(keep)
+    return [r for r in sa.results if keep(r.rule)]
+
+
+@dataclass
+class SiteAssessment:
+    site: Site
+    time: datetime
+    features: Mapping[str, float]
+    projection_method: str
+    last_time: datetime | None
+    results: Sequence[RuleResult]
+    hazards: dict[str, HazardAssessment] = field(default_factory=dict)
+    sustain: dict[str, str] = field(default_factory=dict)  # hazard → level with margins
+    stale_after_min: float = STALE_AFTER_MIN
+    # tonight's cooling curve (T0 °C, k K/h^½, sunset) when fitted, for charts
+    projection: tuple[float, float, datetime] | None = None
+
+    @property
+    def level(self) -> str:
+        ranks = [level_rank(h.level) for h in self.hazards.values()]
+        return LEVELS[max(ranks)] if ranks else "none"
+
+    @property
+    def age_min(self) -> float:
+        return self.features["data_age_min"]
+
+    @property
+    def stale(self) -> bool:
+        return not (self.age_min <= self.stale_after_min)
+
+
+def assess(
+    rules: RuleSet,
+    sites: Sequence[Site],
+    obs: pd.DataFrame,
+    at: datetime,
+    settings: FeatureSettings | None = None,
+    stale_after_min: float = STALE_AFTER_MIN,
+    cache: dict[float, FeatureTable] | None = None,
+) -> list[SiteAssessment]:
+    """Evaluate every rule for every site at ``at``.
+
+    ``cache`` (keyed by POSIX seconds) lets a caller stepping through time reuse the
+    feature tables of earlier evaluation times for the hold windows; it must only be
+    shared between calls over the same sites and the same observations.
+    """
+    return assess_times(rules, sites, obs, [at], settings, stale_after_min, cache)[0]
+
+
+def assess_times(
+    rules: RuleSet,
+    sites: Sequence[Site],
+    obs: pd.DataFrame,
+    times: Sequence[datetime],
+    settings: FeatureSettings | None = None,
+    stale_after_min: float = STALE_AFTER_MIN,
+    cache: dict[float, FeatureTable] | None = None,
+) -> list[list[SiteAssessment]]:
+    """``assess`` at each of ``times``, with the rules evaluated once for them all.
+
+    The feature tables of every time (and of their hold windows) are stacked, so each
+    rule is one vectorised pass over sites × times; ``result[k]`` equals
+    ``assess(..., times[k])``.
+    """
+    if any(t.tzinfo is None for t in times):
+        raise ValueError("evaluation time must be timezone-aware")
+    times = [t.astimezone(UTC) for t in times]
+    tables: dict[float, FeatureTable] = {} if cache is None else cache
+    max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
+    wanted = sorted(
+        {t.timestamp() - j * HOLD_STEP_S for t in times for j in range(max_hold + 1)} - set(tables)
+    )
+    if wanted:
+        found = compute_features_at(
+            obs, sites, [datetime.fromtimestamp(w, UTC) for w in wanted], settings
+        )
+        tables.update(zip(wanted, found, strict=True))
+    n, k_times = len(sites), len(times)
+
+    def stacked(j: int) -> dict[str, np.ndarray]:
+        parts = [tables[t.timestamp() - j * HOLD_STEP_S].values for t in times]
+        if k_times == 1:
+            return parts[0]
+        return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
+
+    feats = [stacked(j) for j in range(max_hold + 1)]
+    evals: list[RuleEvaluation] = []
+    for rule in rules.rules:
+        steps = math.ceil(rule.hold_s / HOLD_STEP_S)
+        applies = np.tile(rule.sites.mask(sites), k_times)
+        evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
+
+    # only sites where some rule fires or holds with its margins need a closer look;
+    # their flags come out of numpy once, as plain lists, for the per-site step below
+    fires = np.stack([ev.fires for ev in evals]) if evals else np.zeros((0, n * k_times), bool)
+    sustains = np.stack([ev.sustains for ev in evals]) if evals else fires
+    busy = (fires | sustains).any(axis=0)
+    busy_idx = np.flatnonzero(busy)
+    flags = dict(
+        zip(
+            busy_idx.tolist(),
+            zip(fires[:, busy_idx].T.tolist(), sustains[:, busy_idx].T.tolist(), strict=True),
+            strict=True,
+        )
+    )
+    ranked = [(ev, level_rank(ev.rule.level)) for ev in evals]
+    moments: dict[float, datetime] = {}  # last readings and sunsets repeat: one object each
+
+    def moment(seconds: float) -> datetime:
+        found = moments.get(seconds)
+        if found is None:
+            found = moments[seconds] = datetime.fromtimestamp(seconds, UTC)
+        return found
+
+    out = []
+    for k, at in enumerate(times):
+        now = tables[at.timestamp()]
+        last_times = now.last_time.tolist()
+        methods = now.projection_method.tolist()
+        fits = (now.fit_t0_c.tolist(), now.fit_k_per_sqrt_h.tolist(), now.last_sunset.tolist())
+        per_time = []
+        for i, site in enumerate(sites):
+            flat = k * n + i
+            last = last_times[i]
+            sa = SiteAssessment(
+                site=site,
+                time=at,
+                features=FeatureRow(now, i),
+                projection_method=str(methods[i] or ""),
+                last_time=None if last != last else moment(last),
+                results=SiteResults(evals, flat),
+                stale_after_min=stale_after_min,
+                projection=_projection(fits, i, moment) if methods[i] == "cooling-fit" else None,
+            )
+            if flat in flags:
+                _aggregate(sa, at, ranked, flat, *flags[flat])
+            per_time.append(sa)
+        out.append(per_time)
+    return out
+
+
+def _projection(
+    fits: tuple[list[float], list[float], list[float]],
+    i: int,
+    moment: Callable[[float], datetime],
+) -> tuple[float, float, datetime] | None:
+    """(T0, k, sunset) of site ``i``'s cooling fit, from the table's columns as lists."""
+    t0, k, sunset = fits[0][i], fits[1][i], fits[2][i]
+    if t0 != t0 or k != k or sunset != sunset:  # NaN
+        return None
+    return t0, k, moment(sunset)
+
+
+def _aggregate(
+    sa: SiteAssessment,
+    at: datetime,
+    ranked: Sequence[tuple[RuleEvaluation, int]],
+    i: int,
+    fires: Sequence[bool],
+    sustains: Sequence[bool],
+) -> None:
+    by_hazard: dict[str, list[tuple[RuleEvaluation, int]]] = {}
+    sustain_rank: dict[str, int] = {}
+    for (ev, rank), fired, held in zip(ranked, fires, sustains, strict=True):
+        if not (fired or held):
+            continue
+        hazard = ev.rule.hazard
+        if fired:
+            by_hazard.setdefault(hazard, []).append((ev, rank))
+        if held and rank > sustain_rank.get(hazard, 0):
+            sustain_rank[hazard] = rank
+    for hazard, fired_evals in by_hazard.items():
+        fired_evals.sort(key=lambda er: -er[1])
+        top = fired_evals[0][1]
+        lead = fired_evals[0][0].rule
+        # the rules at the top level explain the alert; the lower ones are listed only
+        top_evals = [ev for ev, rank in fired_evals if rank == top]
+        refs = list(dict.fromkeys(x for ev, _ in fired_evals for x in ev.rule.safety))
+        sa.hazards[hazard] = HazardAssessment(
+            hazard=hazard,
+            level=LEVELS[top],
+            kind=lead.kind,
+            eta=_eta(hazard, lead, sa.features, at),
+            rules=[ev.rule.id for ev, _ in fired_evals],
+            reasons=LazyTexts(partial(_reasons, top_evals, i)),
+            explanations=LazyTexts(partial(_explanations, top_evals, i, sa.features)),
+            safety_refs=refs,
+        )
+        sustain_rank[hazard] = max(sustain_rank.get(hazard, 0), top)
+    sa.sustain.update({h: LEVELS[r] for h, r in sustain_rank.items() if r > 0})
+
+
+def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
+    out: list[str] = []
+    for ev in evals:
+        for text in ev[i].reasons():
+            if text not in out:
+                out.append(text)
+    return out
+
+
+def _explanations(
+    evals: Sequence[RuleEvaluation], i: int, features: Mapping[str, float]
+) -> list[str]:
+    return [ev[i].explanation(features) for ev in evals if ev.rule.explain]
+
+
+def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -> datetime | None:
+    """When the hazard is expected: now if observed, else the projected time of fog."""
+    if hazard == "data_gap":
+        return None
+    if lead.kind == "observed" or features.get("observed_fog") == 1.0:
+        return at
+    hours = features.get("hours_to_fog", float("nan"))
+    if hours is None or not np.isfinite(hours) or hours > ETA_HORIZON_H:
+        return None
+    return at + timedelta(hours=float(hours))
+
+
+def iso_z(t: datetime | None) -> str | None:
+    """``2026-11-07T02:00:00Z`` (UTC, seconds), or None: the times in JSON output."""
+    return None if t is None else t.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _json_number(v: float) -> Any:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return None
+    if isinstance(v, float) and math.isinf(v):
+        return None
+    return round(float(v), 3)
+
+
+def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
+    """DESIGN.md's ``assess --json`` shape."""
+    out = []
+    for sa in assessments:
+        feats: dict[str, Any] = {}
+        for name, value in sa.features.items():
+            if FEATURES[name].kind == "bool":
+                feats[name] = None if math.isnan(value) else bool(value)
+            else:
+                feats[name] = _json_number(value)
+        feats["projection_method"] = sa.projection_method or None
+        hazards = [
+            {
+                "hazard": h.hazard,
+                "level": h.level,
+                "kind": h.kind,
+                "eta": iso_z(h.eta),
+                "rules": h.rules,
+                "reasons": list(h.reasons),
+            }
+            for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
+        ]
+        age = sa.age_min
+        out.append(
+            {
+                "site": sa.site.id,
+                "time": iso_z(sa.time),
+                "level": sa.level,
+                "hazards": hazards,
+                "features": feats,
+                "data": {
+                    "last_time": iso_z(sa.last_time),
+                    "age_min": None if not np.isfinite(age) else round(age, 1),
+                    "stale": sa.stale,
+                },
+            }
+        )
+    return out

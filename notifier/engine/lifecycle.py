@@ -1,0 +1,565 @@
+"""Alert lifecycle: previous state + assessment + now → new state + events (pure).
+
+One :class:`AlertState` per (site, hazard). :func:`step` compares it with the newest
+:class:`~notifier.engine.assess.SiteAssessment` and returns the next states and the
+:class:`Event` objects a person should hear about. No file, network, clock or logging:
+``now`` is passed in, and the same inputs always give the same outputs (and event ids).
+
+Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
+
+- **Up at once.** When the assessed level rises above the current one: ``raised``
+  (none → watch or warning) or ``escalated`` (watch → warning). The hazard
+  ``data_gap`` says ``data_gap`` instead of ``raised``.
+- **Down only when it has really eased.** The level used for dropping is the
+  assessment's *sustain* level (each rule re-tested with its clearing margin). Only when
+  that has stayed below the current level *continuously* for ``clearing_time`` (45 min)
+  does the alert drop: ``downgraded`` (warning → watch) or ``cleared`` (the all-clear;
+  it needs the sustain level at none for the whole ``clearing_time``). Any return to the
+  current level restarts the clock, so a value hovering at a threshold never flaps.
+  ``data_gap`` ends with ``data_back`` as soon as fresh data returns.
+- **Reminders.** Still at warning ``reminder_every`` (3 h) after the warning began or
+  after the last reminder: ``reminder``. None is sent while the warning is easing
+  (its clearing clock is running) or while the site's data is stale.
+- **Cooldown** (``cooldown``, 60 min): a level is not announced again (``raised``,
+  ``escalated`` or ``data_gap`` to that level) within ``cooldown`` of the last time it
+  was announced for the same site and hazard. A rise that falls inside the cooldown is
+  *held, not dropped*: the state stays where it is and the rise is announced on the first
+  step after the cooldown ends, if the assessment still shows it. Because an alert can
+  only end after ``clearing_time``, with the defaults a held rise waits at most
+  ``cooldown - clearing_time`` = 15 min after an all-clear; a blip shorter than that is
+  never announced.
+- **Stale data is not an all-clear.** While a site's data is stale, its fog and icing
+  alerts keep their level: their clearing clock is reset and no reminder is sent. The
+  data gap is reported by the ``data_gap`` hazard itself.
+- **Idempotent.** ``step(new_states, same assessments, same now)`` returns no events,
+  and event ids are a hash of site, hazard, episode start, type, level and the minute
+  of the event, so a re-run cycle makes the very same ids (the outbox dedupes on them).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime, timedelta
+from typing import TYPE_CHECKING, Any
+
+from notifier.engine.assess import level_rank, results_where
+from notifier.engine.features import FEATURES
+from notifier.engine.rules import HAZARDS, format_value
+
+if TYPE_CHECKING:  # pragma: no cover
+    from notifier.core.config import AlertSettings
+    from notifier.engine.assess import SiteAssessment
+
+__all__ = [
+    "EVENT_TYPES",
+    "STATE_VERSION",
+    "AlertState",
+    "Event",
+    "StateKey",
+    "event_id",
+    "iso_text",
+    "step",
+]
+
+STATE_VERSION = 1
+EVENT_TYPES = ("raised", "escalated", "downgraded", "cleared", "reminder", "data_gap", "data_back")
+DATA_GAP = "data_gap"
+
+StateKey = tuple[str, str]  # (site id, hazard)
+
+# Features worth showing beside any alert; the rules' own features are added to them.
+SHOWN_FEATURES = (
+    "temp_c",
+    "dewpoint_c",
+    "dewpoint_depression_c",
+    "surface_temp_c",
+    "visibility_m",
+    "wind_ms",
+    "cloud_pct",
+    "projected_min_temp_c",
+    "hours_to_fog",
+)
+
+
+def iso_text(t: datetime | None) -> str | None:
+    """An instant as ISO 8601 in UTC (``2026-11-20T03:00:00+00:00``), or None: the times
+    of stored states and of event payloads."""
+    return None if t is None else t.astimezone(UTC).isoformat()
+
+
+def _parse(text: str | None) -> datetime | None:
+    return None if text is None else datetime.fromisoformat(text)
+
+
+@dataclass(frozen=True)
+class AlertState:
+    """Where one (site, hazard) stands. Times are aware UTC datetimes."""
+
+    site_id: str
+    hazard: str
+    level: str = "none"
+    since: datetime | None = None  # when the current level began
+    episode_start: datetime | None = None  # when the episode left "none"
+    below_since: datetime | None = None  # sustain level first fell below ``level``
+    clear_since: datetime | None = None  # sustain level first fell to none
+    last_event_at: datetime | None = None
+    last_reminder_at: datetime | None = None
+    last_raised: tuple[tuple[str, datetime], ...] = ()  # level → last announced (cooldown)
+    rules: tuple[str, ...] = ()  # rules behind the current level
+    reasons: tuple[str, ...] = ()  # the reasons last announced
+
+    @property
+    def key(self) -> StateKey:
+        return (self.site_id, self.hazard)
+
+    def raised_at(self, level: str) -> datetime | None:
+        return dict(self.last_raised).get(level)
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready form with a schema version, for the store."""
+        return {
+            "version": STATE_VERSION,
+            "site_id": self.site_id,
+            "hazard": self.hazard,
+            "level": self.level,
+            "since": iso_text(self.since),
+            "episode_start": iso_text(self.episode_start),
+            "below_since": iso_text(self.below_since),
+            "clear_since": iso_text(self.clear_since),
+            "last_event_at": iso_text(self.last_event_at),
+            "last_reminder_at": iso_text(self.last_reminder_at),
+            "last_raised": {lvl: iso_text(t) for lvl, t in self.last_raised},
+            "rules": list(self.rules),
+            "reasons": list(self.reasons),
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> AlertState:
+        version = data.get("version")
+        if version != STATE_VERSION:
+            raise ValueError(f"unsupported alert state version {version!r}")
+        raised = sorted(
+            ((lvl, _parse(t)) for lvl, t in data.get("last_raised", {}).items()),
+            key=lambda p: level_rank(p[0]),
+        )
+        return cls(
+            site_id=data["site_id"],
+            hazard=data["hazard"],
+            level=data["level"],
+            since=_parse(data.get("since")),
+            episode_start=_parse(data.get("episode_start")),
+            below_since=_parse(data.get("below_since")),
+            clear_since=_parse(data.get("clear_since")),
+            last_event_at=_parse(data.get("last_event_at")),
+            last_reminder_at=_parse(data.get("last_reminder_at")),
+            last_raised=tuple((lvl, t) for lvl, t in raised if t is not None),
+            rules=tuple(data.get("rules", ())),
+            reasons=tuple(data.get("reasons", ())),
+        )
+
+
+@dataclass(frozen=True)
+class Event:
+    """Something a person should hear about one site and hazard.
+
+    ``level`` is the level after the event (``none`` for cleared and data_back);
+    ``previous_level`` the level before it. For ``downgraded``, ``cleared`` and
+    ``data_back``, ``changes`` says what is no longer true, value against the threshold
+    the alert needed; ``previous_reasons`` what was announced before.
+    """
+
+    id: str
+    type: str
+    site_id: str
+    hazard: str
+    level: str
+    previous_level: str
+    time: datetime
+    episode_start: datetime | None = None
+    level_since: datetime | None = None  # for reminders: when the level began
+    eased_since: datetime | None = None  # for endings: since when below the ended level
+    kind: str = ""
+    eta: datetime | None = None
+    rules: tuple[str, ...] = ()
+    reasons: tuple[str, ...] = ()
+    explanations: tuple[str, ...] = ()
+    safety_refs: tuple[str, ...] = ()
+    changes: tuple[str, ...] = ()
+    previous_reasons: tuple[str, ...] = ()
+    features: Mapping[str, float] = field(default_factory=dict)
+    data_age_min: float | None = None
+    projection_method: str = ""
+
+    @property
+    def news_level(self) -> str:
+        """The level this news is about: the one it ends, for an ending."""
+        if self.type in ("downgraded", "cleared", "data_back"):
+            return self.previous_level
+        return self.level
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready form for the outbox (NaN and ±inf become null)."""
+        age = self.data_age_min
+        return {
+            "version": STATE_VERSION,
+            "id": self.id,
+            "type": self.type,
+            "site_id": self.site_id,
+            "hazard": self.hazard,
+            "level": self.level,
+            "previous_level": self.previous_level,
+            "time": iso_text(self.time),
+            "episode_start": iso_text(self.episode_start),
+            "level_since": iso_text(self.level_since),
+            "eased_since": iso_text(self.eased_since),
+            "kind": self.kind,
+            "eta": iso_text(self.eta),
+            "rules": list(self.rules),
+            "reasons": list(self.reasons),
+            "explanations": list(self.explanations),
+            "safety_refs": list(self.safety_refs),
+            "changes": list(self.changes),
+            "previous_reasons": list(self.previous_reasons),
+            "features": dict(self.features),
+            "data_age_min": age if age is not None and math.isfinite(age) else None,
+            "projection_method": self.projection_method,
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Event:
+        time = _parse(data["time"])
+        assert time is not None
+        age = data.get("data_age_min")
+        return cls(
+            id=data["id"],
+            type=data["type"],
+            site_id=data["site_id"],
+            hazard=data["hazard"],
+            level=data["level"],
+            previous_level=data["previous_level"],
+            time=time,
+            episode_start=_parse(data.get("episode_start")),
+            level_since=_parse(data.get("level_since")),
+            eased_since=_parse(data.get("eased_since")),
+            kind=data.get("kind", ""),
+            eta=_parse(data.get("eta")),
+            rules=tuple(data.get("rules", ())),
+            reasons=tuple(data.get("reasons", ())),
+            explanations=tuple(data.get("explanations", ())),
+            safety_refs=tuple(data.get("safety_refs", ())),
+            changes=tuple(data.get("changes", ())),
+            previous_reasons=tuple(data.get("previous_reasons", ())),
+            features=dict(data.get("features", {})),
+            data_age_min=math.inf if age is None else float(age),
+            projection_method=data.get("projection_method", ""),
+        )
+
+
+def event_id(
+    site_id: str,
+    hazard: str,
+    episode_start: datetime | None,
+    type_: str,
+    level: str,
+    time: datetime,
+) -> str:
+    """Stable id: sha256 over site|hazard|episode start|type|level|minute of the event."""
+    bucket = time.astimezone(UTC).replace(second=0, microsecond=0)
+    text = "|".join(
+        (site_id, hazard, iso_text(episode_start) or "-", type_, level, iso_text(bucket) or "-")
+    )
+    return hashlib.sha256(text.encode()).hexdigest()[:32]
+
+
+def _rank(level: str) -> int:
+    return level_rank(level)
+
+
+def _shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
+    names = list(SHOWN_FEATURES)
+    for result in results_where(sa, lambda rule: rule.id in rule_ids):
+        names.extend(sorted(result.rule.features()))
+    out: dict[str, float] = {}
+    for name in names:
+        value = sa.features.get(name)
+        if name in out or value is None or name == "data_age_min":
+            continue
+        if FEATURES.get(name) is not None and FEATURES[name].kind == "bool":
+            continue
+        value = float(value)
+        if math.isfinite(value):
+            out[name] = value
+    return out
+
+
+def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
+    """What is no longer true: each test of the ended rules that does not hold now."""
+    lines: list[str] = []
+    unknown: list[str] = []
+    for result in results_where(sa, lambda rule: rule.id in state.rules):
+        if not result.applies:
+            continue
+        for outcome in result.outcomes:
+            if outcome.held:
+                continue
+            spec = FEATURES[outcome.test.feature]
+            if not outcome.known:
+                if f"{spec.label} now unknown" not in unknown:
+                    unknown.append(f"{spec.label} now unknown")
+                continue
+            if outcome.test.op == "is":
+                text = f"{spec.label} now {format_value(outcome.test.feature, outcome.value)}"
+            else:
+                value = format_value(outcome.test.feature, outcome.value)
+                text = f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
+            if text not in lines:
+                lines.append(text)
+    lines += unknown
+    if not lines:
+        lines.append(f"no {state.hazard.replace('_', ' ')} rule at {state.level} holds now")
+    return tuple(lines)
+
+
+def _sustaining_rules(sa: SiteAssessment, hazard: str, level: str) -> tuple[str, ...]:
+    same = results_where(sa, lambda rule: rule.hazard == hazard and rule.level == level)
+    return tuple(r.rule.id for r in same if r.applies and r.sustains)
+
+
+def _make_event(
+    type_: str,
+    state: AlertState,
+    new_level: str,
+    sa: SiteAssessment,
+    now: datetime,
+    episode_start: datetime | None,
+    **extra: Any,
+) -> Event:
+    hazard = sa.hazards.get(state.hazard)
+    if new_level == "none":
+        hazard = None  # an ending: the rules are those of the alert that ended
+        rules = state.rules
+    else:
+        rules = tuple(hazard.rules) if hazard else _sustaining_rules(sa, state.hazard, new_level)
+    age = sa.features.get("data_age_min")
+    return Event(
+        id=event_id(state.site_id, state.hazard, episode_start, type_, new_level, now),
+        type=type_,
+        site_id=state.site_id,
+        hazard=state.hazard,
+        level=new_level,
+        previous_level=state.level,
+        time=now,
+        episode_start=episode_start,
+        kind=hazard.kind if hazard else "",
+        eta=hazard.eta if hazard else None,
+        rules=rules,
+        reasons=tuple(hazard.reasons) if hazard else (),
+        explanations=tuple(hazard.explanations) if hazard else (),
+        safety_refs=tuple(hazard.safety_refs) if hazard else (),
+        previous_reasons=state.reasons,
+        features=_shown_features(sa, rules + state.rules),
+        data_age_min=None if age is None else float(age),
+        projection_method=sa.projection_method,
+        **extra,
+    )
+
+
+def _step_one(
+    state: AlertState, sa: SiteAssessment, now: datetime, settings: AlertSettings
+) -> tuple[AlertState, list[Event]]:
+    hazard = sa.hazards.get(state.hazard)
+    assessed = hazard.level if hazard else "none"
+    sustain = sa.sustain.get(state.hazard, "none")
+    if _rank(sustain) < _rank(assessed):
+        sustain = assessed
+    is_data = state.hazard == DATA_GAP
+    cooldown = timedelta(seconds=settings.cooldown)
+    clearing = timedelta(seconds=settings.clearing_time)
+
+    if _rank(assessed) > _rank(state.level):
+        announced = state.raised_at(assessed)
+        if announced is None or now - announced >= cooldown:
+            if is_data:
+                type_ = "data_gap"
+            else:
+                type_ = "raised" if state.level == "none" else "escalated"
+            episode = now if state.level == "none" else state.episode_start
+            event = _make_event(type_, state, assessed, sa, now, episode)
+            raised = dict(state.last_raised)
+            raised[assessed] = now
+            new = replace(
+                state,
+                level=assessed,
+                since=now,
+                episode_start=episode,
+                below_since=None,
+                clear_since=None,
+                last_event_at=now,
+                last_reminder_at=None,
+                last_raised=tuple(sorted(raised.items(), key=lambda p: _rank(p[0]))),
+                rules=event.rules,
+                reasons=event.reasons,
+            )
+            return new, [event]
+        # inside the cooldown: hold the rise, announce it when the cooldown ends
+
+    if state.level == "none":
+        return state, []
+
+    if sa.stale and not is_data:
+        # unknown is not "below threshold": no clearing and no reminder on stale data
+        return _with_since(state, None, None), []
+
+    below_since = None
+    if _rank(sustain) < _rank(state.level):
+        below_since = state.below_since or now
+    clear_since = (state.clear_since or now) if sustain == "none" else None
+
+    if is_data and sustain == "none":
+        event = _make_event(
+            "data_back",
+            state,
+            "none",
+            sa,
+            now,
+            state.episode_start,
+            changes=_changes(sa, state),
+            eased_since=now,
+        )
+        return _ended(state, now), [event]
+
+    if below_since is not None and now - below_since >= clearing:
+        if clear_since is not None and now - clear_since >= clearing:
+            event = _make_event(
+                "cleared",
+                state,
+                "none",
+                sa,
+                now,
+                state.episode_start,
+                changes=_changes(sa, state),
+                eased_since=clear_since,
+            )
+            return _ended(state, now), [event]
+        target = "watch"  # the only level between warning and none
+        event = _make_event(
+            "downgraded",
+            state,
+            target,
+            sa,
+            now,
+            state.episode_start,
+            changes=_changes(sa, state),
+            eased_since=below_since,
+        )
+        new = replace(
+            state,
+            level=target,
+            since=now,
+            below_since=clear_since,
+            clear_since=clear_since,
+            last_event_at=now,
+            last_reminder_at=None,
+            rules=event.rules or state.rules,
+            reasons=event.reasons or state.reasons,
+        )
+        return new, [event]
+
+    new = _with_since(state, below_since, clear_since)
+    every = timedelta(seconds=settings.reminder_every)
+    last = state.last_reminder_at or state.since
+    if (
+        state.level == "warning"
+        and below_since is None
+        and every > timedelta(0)
+        and last is not None
+        and now - last >= every
+    ):
+        event = _make_event(
+            "reminder", state, state.level, sa, now, state.episode_start, level_since=state.since
+        )
+        new = replace(
+            new,
+            last_event_at=now,
+            last_reminder_at=now,
+            rules=event.rules or state.rules,
+            reasons=event.reasons or state.reasons,
+        )
+        return new, [event]
+    return new, []
+
+
+def _with_since(
+    state: AlertState, below_since: datetime | None, clear_since: datetime | None
+) -> AlertState:
+    """``state`` with these easing times; itself when they are its own already (most
+    cycles change nothing, and a replay steps through a great many)."""
+    if state.below_since == below_since and state.clear_since == clear_since:
+        return state
+    return replace(state, below_since=below_since, clear_since=clear_since)
+
+
+def _ended(state: AlertState, now: datetime) -> AlertState:
+    return replace(
+        state,
+        level="none",
+        since=now,
+        episode_start=None,
+        below_since=None,
+        clear_since=None,
+        last_event_at=now,
+        last_reminder_at=None,
+        rules=(),
+        reasons=(),
+    )
+
+
+def _prunable(state: AlertState, now: datetime, settings: AlertSettings) -> bool:
+    """A quiet state whose cooldowns are over carries nothing worth keeping."""
+    if state.level != "none":
+        return False
+    cooldown = timedelta(seconds=settings.cooldown)
+    return all(now - t >= cooldown for _, t in state.last_raised)
+
+
+def _hazard_order(hazard: str) -> tuple[int, str]:
+    return (HAZARDS.index(hazard) if hazard in HAZARDS else len(HAZARDS), hazard)
+
+
+def step(
+    previous: Mapping[StateKey, AlertState],
+    assessments: Sequence[SiteAssessment],
+    now: datetime,
+    settings: AlertSettings,
+) -> tuple[dict[StateKey, AlertState], list[Event]]:
+    """Advance every (site, hazard) state by one cycle; see the module docstring.
+
+    States of sites not in ``assessments`` are returned unchanged. A state back at none
+    is dropped once no cooldown depends on it.
+    """
+    if now.tzinfo is None:
+        raise ValueError("now must be timezone-aware")
+    now = now.astimezone(UTC)
+    states: dict[StateKey, AlertState] = dict(previous)
+    events: list[Event] = []
+    by_site: dict[str, set[str]] = {}
+    for s, h in previous:
+        by_site.setdefault(s, set()).add(h)
+    for sa in assessments:
+        site_id = sa.site.id
+        hazards = by_site.get(site_id, set()) | set(sa.hazards) | set(sa.sustain)
+        if not hazards:
+            continue  # nothing active, nothing remembered: nothing can happen here
+        for hazard in sorted(hazards, key=_hazard_order):
+            key = (site_id, hazard)
+            state = previous.get(key) or AlertState(site_id=site_id, hazard=hazard)
+            new, found = _step_one(state, sa, now, settings)
+            events.extend(found)
+            if _prunable(new, now, settings):
+                states.pop(key, None)
+            else:
+                states[key] = new
+    return states, events

@@ -1,0 +1,111 @@
+"""The bot's view of the running service: sites, stored status, follows and mutes."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from datetime import datetime
+
+from notifier.bot.grammar import SiteStatus
+from notifier.service.cycle import Service
+
+__all__ = ["ServiceBackend"]
+
+
+class ServiceBackend:
+    """``BotBackend`` over a ``Service``: reads the last stored assessment of each site."""
+
+    def __init__(self, service: Service, now: datetime):
+        self.service = service
+        self.now = now
+
+    @property
+    def config(self):  # type: ignore[no-untyped-def]
+        return self.service.config
+
+    def site_names(self) -> dict[str, str]:
+        return {s.id: s.name for s in self.config.sites}
+
+    def site_timezone(self, site_id: str) -> str:
+        return self.config.site(site_id).timezone
+
+    def _config_senders(self) -> set[str]:
+        senders = set(self.config.bot.allow)
+        for sub in self.config.subscribers:
+            senders.update(sub.senders)
+        return senders
+
+    def is_known(self, sender: str) -> bool:
+        return sender in self._config_senders() or self.service.outbox.is_member(sender)
+
+    def is_operator(self, sender: str) -> bool:
+        return any(sub.operator and sender in sub.senders for sub in self.config.subscribers)
+
+    def join(self, sender: str, code: str) -> str | None:
+        site = self.config.bot.join_codes.get(code)
+        if site is None:
+            return None
+        self.service.outbox.add_member(sender, self.now, via=f"code for {site}")
+        self.service.outbox.follow(sender, site, "watch", self.now)
+        return site
+
+    def status(self, site_ids: Sequence[str]) -> list[SiteStatus]:
+        from notifier.cli.views import local_time
+
+        snaps = self.service.outbox.snapshots()
+        names = self.site_names()
+        out = []
+        for sid in site_ids:
+            snap = snaps.get(sid)
+            if snap is None:
+                out.append(SiteStatus(sid, names[sid], "none", "not assessed yet", None))
+                continue
+            when, level, payload = snap
+            parts = []
+            for h in payload.get("hazards", []):
+                eta = h.get("eta")
+                text = f"{h['hazard']} {h['level']} ({h['kind']})"
+                if eta:
+                    t = datetime.fromisoformat(eta.replace("Z", "+00:00"))
+                    text += f" from {local_time(t, self.config.site(sid).timezone)}"
+                parts.append(text)
+            f = payload.get("features", {})
+            if f.get("temp_c") is not None and f.get("dewpoint_c") is not None:
+                parts.append(f"T {f['temp_c']:.1f} °C, dew point {f['dewpoint_c']:.1f} °C")
+            if payload.get("data", {}).get("stale"):
+                parts.append("DATA STALE")
+            age = payload.get("data", {}).get("age_min")
+            if age is not None:
+                # the age was taken when the snapshot was stored; show it as of now
+                age = max(0.0, age + (self.now - when).total_seconds() / 60.0)
+            summary = "; ".join(parts) or "nothing expected"
+            out.append(SiteStatus(sid, names[sid], level, summary, age))
+        return out
+
+    def reasons(self, site_id: str) -> list[str]:
+        snap = self.service.outbox.snapshots().get(site_id)
+        if snap is None:
+            return []
+        out: list[str] = []
+        for h in snap[2].get("hazards", []):
+            out.extend(f"{h['hazard']}: {r}" for r in h.get("reasons", []))
+        return out
+
+    def followed(self, sender: str) -> list[str]:
+        ids = [site for _, site, _ in self.service.outbox.follows(sender)]
+        for sub in self.config.subscribers:
+            if sender in sub.senders:
+                ids.extend(s.id for s in self.config.sites_matching(sub.sites))
+        known = self.site_names()  # a follow of a site since removed from the config
+        return [sid for sid in dict.fromkeys(ids) if sid in known]
+
+    def follow(self, sender: str, site_id: str, min_level: str) -> None:
+        self.service.outbox.follow(sender, site_id, min_level, self.now)
+
+    def unfollow(self, sender: str, site_id: str) -> bool:
+        return self.service.outbox.unfollow(sender, site_id)
+
+    def mute(self, who: str, site_id: str, until: datetime) -> None:
+        self.service.outbox.mute(who, site_id, until, self.now)
+
+    def unmute(self, who: str, site_id: str) -> bool:
+        return self.service.outbox.unmute(who, site_id, self.now)

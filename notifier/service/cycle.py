@@ -1,0 +1,430 @@
+"""One cycle of the service, and the command handlers built on it.
+
+``evaluate`` is the shared middle: observations in, assessments out. The live service,
+``once``, ``assess`` and the demo call it with different clocks and data edges.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import random
+import threading
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Literal, cast
+
+from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber, load_config
+from notifier.core.errors import FogwatchError, UsageError
+from notifier.engine.rules import RuleSet, load_rule_set
+from notifier.storage.outbox import Outbox
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from notifier.delivery.dispatch import DispatchReport
+    from notifier.delivery.routing import Delivery
+    from notifier.engine.assess import SiteAssessment
+    from notifier.engine.features import FeatureTable
+    from notifier.engine.lifecycle import Event
+    from notifier.ingest.base import ObservationSource, PollResult
+    from notifier.storage.store import Store
+    from notifier.storage.window import RollingWindow
+
+__all__ = ["CycleReport", "Loaded", "Service", "evaluate", "load", "observations_for", "parse_time"]
+
+log = logging.getLogger(__name__)
+
+FORECAST_HORIZON = timedelta(hours=36)
+
+
+@dataclass
+class Loaded:
+    """A validated config with its rule set."""
+
+    config: Config
+    rules: RuleSet
+
+
+def load(config_path: str | Path) -> Loaded:
+    config = load_config(config_path)
+    return Loaded(config, load_rule_set(config.rule_paths()))
+
+
+def parse_time(text: str | None, default: datetime | None = None) -> datetime:
+    """ISO 8601 with offset or Z; a naive time is taken as UTC."""
+    if text is None:
+        return default if default is not None else datetime.now(UTC)
+    try:
+        t = datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError as exc:
+        raise UsageError(
+            f"--at: expected an ISO 8601 time such as 2026-11-20T03:00Z, got: {text!r}"
+        ) from exc
+    return (t if t.tzinfo else t.replace(tzinfo=UTC)).astimezone(UTC)
+
+
+def open_store(config: Config) -> Store:
+    from notifier.storage.store import Store
+
+    return Store(config.store_url)
+
+
+def observations_for(config: Config, store: Store, at: datetime) -> pd.DataFrame:
+    """The rolling window for every site: observed rows up to ``at``, forecasts ahead."""
+    start = at - timedelta(seconds=config.store.window)
+    return store.window([s.id for s in config.sites], start, at + FORECAST_HORIZON)
+
+
+def evaluate(
+    loaded: Loaded,
+    obs: pd.DataFrame,
+    at: datetime,
+    cache: dict[float, FeatureTable] | None = None,
+) -> list[SiteAssessment]:
+    """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
+    from notifier.engine.assess import assess
+
+    return assess(
+        loaded.rules,
+        loaded.config.sites,
+        obs,
+        at,
+        stale_after_min=loaded.config.alerts.stale_after / 60.0,
+        cache=cache,
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# the running service
+
+
+@dataclass
+class CycleReport:
+    """What one poll-and-assess cycle did."""
+
+    at: datetime
+    assessments: list[SiteAssessment]
+    events: list[Event]
+    deliveries_added: int
+    polls: list[PollResult] = field(default_factory=list)
+
+
+class Service:
+    """The service's state between cycles: config, rules, store and injected edges.
+
+    ``clock`` is only used by callers that do not pass ``now``; every method takes the
+    time explicitly so that the demo and replay can drive it with a simulated clock.
+    """
+
+    def __init__(
+        self,
+        config_path: str | Path,
+        *,
+        store: Store | None = None,
+        session: Any = None,
+        channel_kwargs: Mapping[str, Mapping[str, Any]] | None = None,
+        sources: Sequence[ObservationSource] | None = None,
+        rng: random.Random | None = None,
+    ):
+        self.config_path = Path(config_path)
+        self.loaded = load(self.config_path)
+        self.store = store or open_store(self.loaded.config)
+        self.outbox = Outbox(
+            self.store, lease=timedelta(seconds=self.loaded.config.alerts.claim_lease)
+        )
+        self.session = session
+        self.channel_kwargs = dict(channel_kwargs or {})
+        self._fixed_sources = sources
+        self.rng = rng or random.Random()
+        self._mtimes = self._file_mtimes()
+        # The hold windows look 10, 20 … minutes back: times the previous cycles already
+        # evaluated. Their feature tables are kept, so a cycle computes only its own time
+        # (they say what was known then, as a person on watch would have seen it).
+        self._features: dict[float, FeatureTable] = {}
+        # the rolling window, kept in memory: each cycle reads only the rows written since
+        self._window: RollingWindow | None = None
+        self._stop = threading.Event()
+        self._lock = threading.Lock()  # one cycle or delivery at a time
+
+    @property
+    def config(self) -> Config:
+        return self.loaded.config
+
+    @property
+    def rules(self) -> RuleSet:
+        return self.loaded.rules
+
+    # -- files and reload --------------------------------------------------------------
+
+    def _watched_files(self) -> list[Path]:
+        from notifier.engine.rules import rule_files
+
+        return [self.config_path, *rule_files(self.loaded.config.rule_paths())]
+
+    def _file_mtimes(self) -> dict[Path, float]:
+        out = {}
+        for path in self._watched_files():
+            try:
+                out[path] = path.stat().st_mtime
+            except OSError:
+                out[path] = -1.0
+        return out
+
+    def files_changed(self) -> bool:
+        return self._file_mtimes() != self._mtimes
+
+    def reload(self) -> tuple[bool, str]:
+        """Load config and rules again; on any error keep the running ones."""
+        try:
+            loaded = load(self.config_path)
+        except FogwatchError as exc:
+            self._mtimes = self._file_mtimes()  # do not retry the same broken files
+            return False, str(exc)
+        with self._lock:
+            self.loaded = loaded
+            self._features.clear()
+            self._window = None  # the sites or the window's length may have changed
+            self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
+            self._mtimes = self._file_mtimes()
+        return True, "reloaded"
+
+    # -- the cycle ---------------------------------------------------------------------
+
+    def poll(self, now: datetime, source_ids: Sequence[str] | None = None) -> list[PollResult]:
+        from notifier.ingest.poll import build_sources, poll_sources
+
+        sources = self._fixed_sources
+        if sources is None:
+            sources = build_sources(self.config, self.store, session=self.session)
+        if source_ids is not None:
+            sources = [s for s in sources if s.id in source_ids]
+        return poll_sources(sources, self.store, now)
+
+    def poll_and_assess(
+        self, now: datetime, source_ids: Sequence[str] | None = None
+    ) -> CycleReport:
+        """Poll (all sources, or the given ones), assess, run the lifecycle, queue."""
+        with self._lock:
+            polls = self.poll(now, source_ids)
+            obs = self._observations(now)
+            assessments = evaluate(self.loaded, obs, now, self._remembered(now))
+            return self._advance(now, assessments, obs, polls)
+
+    def _observations(self, now: datetime) -> pd.DataFrame:
+        """The rolling window at ``now`` (as :func:`observations_for` reads it)."""
+        if self._window is None:
+            from notifier.storage.window import RollingWindow
+
+            self._window = RollingWindow(
+                self.store,
+                [s.id for s in self.config.sites],
+                back=timedelta(seconds=self.config.store.window),
+                ahead=FORECAST_HORIZON,
+            )
+        return self._window.frame(now)
+
+    def _remembered(self, now: datetime) -> dict[float, FeatureTable]:
+        """The feature cache, without what no hold window can reach from ``now``.
+
+        The table for ``now`` itself is always worked out afresh, from the newest data.
+        """
+        reach = max((r.hold_s for r in self.rules.rules), default=0.0) + 3600.0
+        for t in [t for t in self._features if t < now.timestamp() - reach or t >= now.timestamp()]:
+            del self._features[t]
+        return self._features
+
+    def _advance(
+        self,
+        now: datetime,
+        assessments: list[SiteAssessment],
+        obs: pd.DataFrame,
+        polls: list[PollResult],
+    ) -> CycleReport:
+        from notifier.delivery.routing import route
+        from notifier.engine.lifecycle import step
+
+        previous = self.outbox.states()
+        states, events = step(previous, assessments, now, self.config.alerts)
+        deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
+        charts = self._charts(events, deliveries, assessments, obs, now)
+        snapshots = {sa.site.id: (sa.level, _snapshot(sa)) for sa in assessments}
+        added = self.outbox.commit_cycle(
+            previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
+        )
+        for ev in events:
+            log.info("%s %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
+        return CycleReport(now, assessments, events, added, polls)
+
+    def _charts(
+        self,
+        events: Sequence[Event],
+        deliveries: Sequence[Delivery],
+        assessments: Sequence[SiteAssessment],
+        obs: pd.DataFrame,
+        now: datetime,
+    ) -> dict[str, bytes]:
+        """A chart for each event that goes to an email channel with charts on."""
+        from notifier.core.config import EmailChannel, FolderChannel
+        from notifier.delivery.charts import chart_png
+
+        wanted = set()
+        for d in deliveries:
+            ch = next((c for c in self.config.channels if c.id == d.channel_id), None)
+            if isinstance(ch, FolderChannel) or (isinstance(ch, EmailChannel) and ch.chart):
+                wanted.add(d.event_id)
+        by_site = {sa.site.id: sa for sa in assessments}
+        out = {}
+        for ev in events:
+            if ev.id not in wanted or ev.hazard == "data_gap":
+                continue
+            sa = by_site[ev.site_id]
+            frame = obs[obs["site"] == ev.site_id] if len(obs) else obs
+            try:
+                out[ev.id] = chart_png(
+                    frame,
+                    now,
+                    projection=sa.projection,
+                    dewpoint=sa.features.get("dewpoint_c"),
+                    title=sa.site.name,
+                    tz_name=sa.site.timezone,
+                )
+            except Exception:  # a chart is a nicety; the alert must go without it
+                log.exception("chart for %s failed", ev.site_id)
+        return out
+
+    def deliver(self, now: datetime) -> DispatchReport:
+        from notifier.delivery.dispatch import dispatch
+
+        with self._lock:
+            return dispatch(
+                self.outbox,
+                self.config,
+                self.rules,
+                now,
+                channel_kwargs=self.channel_kwargs,
+                rng=self.rng,
+                should_stop=self._stop.is_set,
+                mutes=self.mutes(now),
+                subscribers={s.id for s in self.subscribers()},
+            )
+
+    def cycle(self, now: datetime) -> tuple[CycleReport, DispatchReport]:
+        """One full cycle: poll → assess → lifecycle → outbox → dispatch (``once``)."""
+        report = self.poll_and_assess(now)
+        return report, self.deliver(now)
+
+    # -- subscribers and mutes -----------------------------------------------------------
+
+    def subscribers(self) -> tuple[Subscriber, ...]:
+        """Configured subscribers plus everyone following a site through the bot."""
+        from notifier.delivery.routing import default_subscribers
+
+        subs = list(default_subscribers(self.config))
+        channel = self.config.bot.channel
+        for sender, site, level in self.outbox.follows():
+            subs.append(
+                Subscriber(
+                    id=bot_subscriber_id(sender, site),
+                    name=sender,
+                    channel=channel,
+                    address=sender,
+                    sites=(site,),
+                    # the bot stores only levels a Subscriber accepts
+                    min_level=cast(Literal["watch", "warning"], level),
+                )
+            )
+        return tuple(subs)
+
+    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
+        """Stored mutes, with a sender's mute applied to every subscriber they speak for."""
+        out: list[tuple[str, str, datetime]] = []
+        for who, site, until in self.outbox.mutes(now):
+            if who == "*":
+                out.append(("*", site, until))
+                continue
+            for sub in self.config.subscribers:
+                if who in sub.senders:
+                    out.append((sub.id, site, until))
+            for sender, followed, _ in self.outbox.follows(who):
+                out.append((bot_subscriber_id(sender, followed), site, until))
+        return out
+
+    # -- outlook, health, housekeeping -----------------------------------------------------
+
+    def outlook(self, now: datetime, site_ids: Sequence[str]) -> int:
+        """The evening outlook for these sites, queued like any other message."""
+        from notifier.delivery.outlook import outlook_event
+        from notifier.delivery.routing import route
+
+        with self._lock:
+            obs = self._observations(now)
+            wanted = set(site_ids)
+            sites = [a for a in evaluate(self.loaded, obs, now) if a.site.id in wanted]
+            events = [outlook_event(sa, now) for sa in sites]
+            deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
+            states = self.outbox.states()
+            return self.outbox.commit_cycle(states, states, events, deliveries, now)
+
+    def health(self, now: datetime) -> list[str]:
+        """Problems worth a log line: failing sources and an outbox that does not drain."""
+        problems = []
+        for h in self.store.source_health():
+            if h["last_error_at"] and (
+                not h["last_success"] or h["last_error_at"] > h["last_success"]
+            ):
+                problems.append(f"source {h['source_id']} failing: {h['last_error']}")
+        backlog = self.outbox.backlog()
+        if backlog.get("expired"):
+            problems.append(f"{backlog['expired']} delivery(ies) expired undelivered")
+        for p in problems:
+            log.warning("health: %s", p)
+        return problems
+
+    def housekeeping(self, now: datetime) -> tuple[int, int]:
+        """Trim the rolling window and old finished deliveries."""
+        trimmed = self.store.trim_observations(now - timedelta(seconds=self.config.store.window))
+        forgotten = self.outbox.trim(now - timedelta(seconds=self.config.store.keep_deliveries))
+        return trimmed, forgotten
+
+    def stop(self) -> None:
+        self._stop.set()
+
+    def close(self) -> None:
+        self._stop.set()
+        with self._lock:
+            self.store.close()
+
+
+def bot_subscriber_id(sender: str, site: str) -> str:
+    digest = hashlib.sha256(f"{sender}|{site}".encode()).hexdigest()[:12]
+    return f"{BOT_SUBSCRIBER_PREFIX}{digest}"
+
+
+def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
+    """What the bot and ``status`` show without recomputing."""
+    import math
+
+    from notifier.engine.assess import to_json
+
+    (data,) = to_json([sa])
+    data["features"] = {
+        k: v
+        for k, v in data["features"].items()
+        if k
+        in (
+            "temp_c",
+            "dewpoint_c",
+            "dewpoint_depression_c",
+            "projected_min_temp_c",
+            "visibility_m",
+            "wind_ms",
+            "cloud_pct",
+            "hours_to_fog",
+        )
+    }
+    age = sa.age_min
+    data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
+    return data

@@ -1,0 +1,590 @@
+"""Alert states, events and the durable delivery outbox, plus the bot's follows and mutes.
+
+The tables are created by the store's migration ``0002_alerts``. ``commit_cycle`` writes
+a cycle's new states, its events and their deliveries in ONE transaction, so a state
+change is never recorded without the messages it owes, nor the other way round.
+
+A delivery row moves ``pending`` → ``sent`` | ``failed`` (permanent) | ``expired`` (gave
+up at the maximum age). Its ``key`` is the idempotency key, so writing the same
+delivery twice is a no-op.
+"""
+
+from __future__ import annotations
+
+import json
+import uuid
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from typing import Any
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Connection
+
+from notifier.delivery.routing import Delivery
+from notifier.engine.lifecycle import AlertState, Event, StateKey
+from notifier.storage.store import Store, iso_utc, metadata
+
+__all__ = ["CLAIM_LEASE", "DeliveryRow", "Outbox"]
+
+#: How long a dispatcher's claim on the deliveries it is sending lasts, in wall-clock
+#: time (``alerts.claim_lease``). The dispatcher renews it while it works through a long
+#: run; a claim left to lapse belongs to a dispatcher that died, and its rows go out again.
+CLAIM_LEASE = timedelta(minutes=15)
+
+alert_states = sa.Table(
+    "alert_states",
+    metadata,
+    sa.Column("site", sa.Text, primary_key=True),
+    sa.Column("hazard", sa.Text, primary_key=True),
+    sa.Column("state", sa.Text, nullable=False),
+    sa.Column("updated_at", sa.Text, nullable=False),
+)
+events = sa.Table(
+    "events",
+    metadata,
+    sa.Column("id", sa.Text, primary_key=True),
+    sa.Column("site", sa.Text, nullable=False),
+    sa.Column("hazard", sa.Text, nullable=False),
+    sa.Column("type", sa.Text, nullable=False),
+    sa.Column("level", sa.Text, nullable=False),
+    sa.Column("time", sa.Text, nullable=False),
+    sa.Column("payload", sa.Text, nullable=False),
+    sa.Column("chart", sa.LargeBinary),
+    sa.Column("created_at", sa.Text, nullable=False),
+)
+deliveries = sa.Table(
+    "deliveries",
+    metadata,
+    sa.Column("key", sa.Text, primary_key=True),
+    sa.Column("event_id", sa.Text, nullable=False),
+    sa.Column("subscriber", sa.Text, nullable=False),
+    sa.Column("channel", sa.Text, nullable=False),
+    sa.Column("address", sa.Text),
+    sa.Column("status", sa.Text, nullable=False),
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("next_attempt_at", sa.Text, nullable=False),
+    sa.Column("not_before", sa.Text),
+    sa.Column("summary", sa.Integer, nullable=False),
+    sa.Column("created_at", sa.Text, nullable=False),
+    sa.Column("sent_at", sa.Text),
+    sa.Column("last_error", sa.Text),
+    sa.Column("claimed_until", sa.Text),
+    sa.Column("claimed_by", sa.Text),  # the claim's own token (see Outbox.claim)
+)
+site_status = sa.Table(
+    "site_status",
+    metadata,
+    sa.Column("site", sa.Text, primary_key=True),
+    sa.Column("time", sa.Text, nullable=False),
+    sa.Column("level", sa.Text, nullable=False),
+    sa.Column("payload", sa.Text, nullable=False),
+)
+follows = sa.Table(
+    "follows",
+    metadata,
+    sa.Column("sender", sa.Text, primary_key=True),
+    sa.Column("site", sa.Text, primary_key=True),
+    sa.Column("min_level", sa.Text, nullable=False),
+    sa.Column("created_at", sa.Text, nullable=False),
+)
+mutes = sa.Table(
+    "mutes",
+    metadata,
+    sa.Column("who", sa.Text, primary_key=True),
+    sa.Column("site", sa.Text, primary_key=True),
+    sa.Column("until", sa.Text, nullable=False),
+    sa.Column("created_at", sa.Text, nullable=False),
+)
+members = sa.Table(
+    "members",
+    metadata,
+    sa.Column("sender", sa.Text, primary_key=True),
+    sa.Column("joined_at", sa.Text, nullable=False),
+    sa.Column("via", sa.Text),
+)
+
+
+def _dt(text: str | None) -> datetime | None:
+    if text is None:
+        return None
+    return datetime.strptime(text, "%Y-%m-%dT%H:%M:%SZ").replace(tzinfo=UTC)
+
+
+@dataclass(frozen=True)
+class DeliveryRow:
+    key: str
+    event_id: str
+    subscriber: str
+    channel: str
+    address: str | None
+    status: str
+    attempts: int
+    next_attempt_at: datetime
+    not_before: datetime | None
+    summary: bool
+    created_at: datetime
+    sent_at: datetime | None
+    last_error: str | None
+
+    @classmethod
+    def from_row(cls, row: Mapping[str, Any] | sa.RowMapping) -> DeliveryRow:
+        return cls(
+            key=row["key"],
+            event_id=row["event_id"],
+            subscriber=row["subscriber"],
+            channel=row["channel"],
+            address=row["address"],
+            status=row["status"],
+            attempts=int(row["attempts"]),
+            next_attempt_at=_dt(row["next_attempt_at"]),  # type: ignore[arg-type]
+            not_before=_dt(row["not_before"]),
+            summary=bool(row["summary"]),
+            created_at=_dt(row["created_at"]),  # type: ignore[arg-type]
+            sent_at=_dt(row["sent_at"]),
+            last_error=row["last_error"],
+        )
+
+    def as_delivery(self) -> Delivery:
+        return Delivery(
+            self.event_id,
+            self.subscriber,
+            self.channel,
+            self.address,
+            self.not_before,
+            self.summary,
+        )
+
+
+def _claim_time(moment: datetime) -> str:
+    """Claim times to the microsecond, fixed width so that they compare as text (a lease
+    of a second or two must not lose most of itself to rounding)."""
+    return moment.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+class Outbox:
+    """Queries over the alert and outbox tables of a ``Store``."""
+
+    def __init__(
+        self,
+        store: Store,
+        *,
+        lease: timedelta = CLAIM_LEASE,
+        wall_clock: Callable[[], datetime] = lambda: datetime.now(UTC),
+    ):
+        """``lease`` and ``wall_clock`` are for claims (see :meth:`claim`): a claim is
+        about a dispatcher being alive, so it runs on real time even when the service is
+        driven by a simulated clock (the demo, replays, ``once --at``)."""
+        self.store = store
+        self.engine = store.engine
+        self.lease = lease
+        self.wall_clock = wall_clock
+
+    # -- alert states ----------------------------------------------------------------
+
+    def states(self) -> dict[StateKey, AlertState]:
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(alert_states.c.state)).scalars()
+            out = {}
+            for text in rows:
+                state = AlertState.from_dict(json.loads(text))
+                out[state.key] = state
+            return out
+
+    def commit_cycle(
+        self,
+        previous: Mapping[StateKey, AlertState],
+        new_states: Mapping[StateKey, AlertState],
+        new_events: Sequence[Event],
+        new_deliveries: Sequence[Delivery],
+        now: datetime,
+        charts: Mapping[str, bytes] | None = None,
+        snapshots: Mapping[str, tuple[str, dict[str, Any]]] | None = None,
+    ) -> int:
+        """States, events and deliveries of one cycle, together. Returns deliveries added."""
+        when = iso_utc(now)
+        charts = charts or {}
+        added = 0
+        with self.store.atomic() as conn:
+            for key in previous.keys() - new_states.keys():
+                conn.execute(
+                    alert_states.delete().where(
+                        (alert_states.c.site == key[0]) & (alert_states.c.hazard == key[1])
+                    )
+                )
+            for key, state in new_states.items():
+                if previous.get(key) == state:
+                    continue
+                stmt = self.store._insert(alert_states).values(
+                    site=key[0], hazard=key[1], state=json.dumps(state.to_dict()), updated_at=when
+                )
+                conn.execute(
+                    stmt.on_conflict_do_update(
+                        index_elements=["site", "hazard"],
+                        set_={"state": stmt.excluded.state, "updated_at": stmt.excluded.updated_at},
+                    )
+                )
+            for ev in new_events:
+                conn.execute(
+                    self.store._insert(events)
+                    .values(
+                        id=ev.id,
+                        site=ev.site_id,
+                        hazard=ev.hazard,
+                        type=ev.type,
+                        level=ev.level,
+                        time=iso_utc(ev.time),
+                        payload=json.dumps(ev.to_dict()),
+                        chart=charts.get(ev.id),
+                        created_at=when,
+                    )
+                    .on_conflict_do_nothing(index_elements=["id"])
+                )
+            for d in new_deliveries:
+                result = conn.execute(
+                    self.store._insert(deliveries)
+                    .values(
+                        key=d.key,
+                        event_id=d.event_id,
+                        subscriber=d.subscriber_id,
+                        channel=d.channel_id,
+                        address=d.address,
+                        status="pending",
+                        attempts=0,
+                        next_attempt_at=when,
+                        not_before=iso_utc(d.not_before) if d.not_before else None,
+                        summary=int(d.summary),
+                        created_at=when,
+                    )
+                    .on_conflict_do_nothing(index_elements=["key"])
+                    # counted by what comes back: PostgreSQL's driver reports no rowcount
+                    # for an INSERT that SQLAlchemy has given a RETURNING of its own
+                    .returning(deliveries.c.key)
+                )
+                added += len(result.fetchall())
+            for site, (level, payload) in (snapshots or {}).items():
+                stmt = self.store._insert(site_status).values(
+                    site=site, time=when, level=level, payload=json.dumps(payload)
+                )
+                conn.execute(
+                    stmt.on_conflict_do_update(
+                        index_elements=["site"],
+                        set_={
+                            "time": stmt.excluded.time,
+                            "level": stmt.excluded.level,
+                            "payload": stmt.excluded.payload,
+                        },
+                    )
+                )
+        return added
+
+    def event(self, event_id: str) -> tuple[Event, bytes | None]:
+        with self.engine.connect() as conn:
+            row = conn.execute(
+                sa.select(events.c.payload, events.c.chart).where(events.c.id == event_id)
+            ).first()
+        if row is None:
+            raise KeyError(event_id)
+        return Event.from_dict(json.loads(row[0])), row[1]
+
+    def event_sites(self, event_ids: Iterable[str]) -> dict[str, str]:
+        """The site of each of these events (those still stored)."""
+        ids = list(event_ids)
+        if not ids:
+            return {}
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(events.c.id, events.c.site).where(events.c.id.in_(ids)))
+            return {event_id: site for event_id, site in rows}
+
+    def events_between(self, start: datetime, end: datetime) -> list[Event]:
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(events.c.payload)
+                .where((events.c.time >= iso_utc(start)) & (events.c.time <= iso_utc(end)))
+                .order_by(events.c.time, events.c.id)
+            ).scalars()
+            return [Event.from_dict(json.loads(p)) for p in rows]
+
+    # -- deliveries ------------------------------------------------------------------
+
+    def _unclaimed(self) -> Any:
+        """Rows no dispatcher holds a live claim on."""
+        d = deliveries.c
+        return d.claimed_until.is_(None) | (d.claimed_until <= _claim_time(self.wall_clock()))
+
+    def _due(self, when: str) -> Any:
+        d = deliveries.c
+        return (
+            (d.status == "pending")
+            & (d.next_attempt_at <= when)
+            & (d.not_before.is_(None) | (d.not_before <= when))
+            & self._unclaimed()
+        )
+
+    def due(self, now: datetime, limit: int = 500) -> list[DeliveryRow]:
+        """Pending deliveries whose retry time and quiet-hours hold have passed and that
+        no dispatcher holds a claim on."""
+        d = deliveries.c
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(deliveries)
+                .where(self._due(iso_utc(now)))
+                .order_by(d.created_at, d.key)
+                .limit(limit)
+            ).mappings()
+            return [DeliveryRow.from_row(r) for r in rows]
+
+    def claim(self, now: datetime, limit: int = 500) -> tuple[list[DeliveryRow], str]:
+        """The deliveries due at ``now``, claimed for :attr:`lease` of wall-clock time so
+        that no other dispatcher sends them meanwhile; returns them (oldest first) and
+        the claim's token.
+
+        The claim is one UPDATE that checks again that each row is still due: of two
+        dispatchers, the second gets only what the first did not take (SQLite serialises
+        the write transactions; PostgreSQL re-checks a row it had to wait for). Marking a
+        row ends its claim; :meth:`release` hands back what was not sent; a crashed
+        dispatcher's claims simply lapse.
+        """
+        when, until = iso_utc(now), _claim_time(self.wall_clock() + self.lease)
+        token = uuid.uuid4().hex
+        d = deliveries.c
+        with self.store.atomic() as conn:
+            keys = [
+                r[0]
+                for r in conn.execute(
+                    sa.select(d.key)
+                    .where(self._due(when))
+                    .order_by(d.created_at, d.key)
+                    .limit(limit)
+                )
+            ]
+            if not keys:
+                return [], token
+            rows = conn.execute(
+                deliveries.update()
+                .where(d.key.in_(keys) & self._due(when))
+                .values(claimed_until=until, claimed_by=token)
+                .returning(*deliveries.c)
+            ).mappings()
+            claimed = [DeliveryRow.from_row(r) for r in rows]
+        claimed.sort(key=lambda r: (r.created_at, r.key))
+        return claimed, token
+
+    def renew(self, keys: Iterable[str], token: str) -> set[str]:
+        """Extend the claim ``token`` on these rows by another lease from now; returns
+        the keys it still held (a row already marked, or whose claim lapsed and was
+        taken by another dispatcher, is not among them)."""
+        keys = list(keys)
+        if not keys:
+            return set()
+        with self.store.atomic() as conn:
+            held = conn.execute(
+                deliveries.update()
+                .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
+                .values(claimed_until=_claim_time(self.wall_clock() + self.lease))
+                .returning(deliveries.c.key)
+            )
+            return set(held.scalars())
+
+    def release(self, keys: Iterable[str], token: str) -> None:
+        """End the claim ``token`` on these rows where it still holds (unsent rows go
+        back to the queue at once rather than when the lease runs out)."""
+        keys = list(keys)
+        if keys:
+            with self.store.atomic() as conn:
+                conn.execute(
+                    deliveries.update()
+                    .where(deliveries.c.key.in_(keys) & (deliveries.c.claimed_by == token))
+                    .values(claimed_until=None, claimed_by=None)
+                )
+
+    def mark(
+        self,
+        keys: Iterable[str],
+        status: str,
+        now: datetime,
+        *,
+        error: str | None = None,
+        next_attempt_at: datetime | None = None,
+        conn: Connection | None = None,
+        claim: str | None = None,
+    ) -> None:
+        """Record an outcome. With ``claim`` (a dispatcher's token), only rows that
+        claim still holds are changed: one whose claim lapsed and passed to another
+        dispatcher is that one's to record."""
+        keys = list(keys)
+        if not keys:
+            return
+        values: dict[str, Any] = {"status": status, "last_error": error}
+        values.update(claimed_until=None, claimed_by=None)  # marked: no longer anyone's
+        if status == "sent":
+            values["sent_at"] = iso_utc(now)
+        if status in ("sent", "failed") or next_attempt_at is not None:
+            values["attempts"] = deliveries.c.attempts + 1
+        if next_attempt_at is not None:
+            values["next_attempt_at"] = iso_utc(next_attempt_at)
+        where: Any = deliveries.c.key.in_(keys)
+        if claim is not None:
+            where &= deliveries.c.claimed_by == claim
+        with self.store._write(conn) as c:
+            c.execute(deliveries.update().where(where).values(**values))
+
+    def expire(self, older_than: datetime, now: datetime, reason: str) -> list[str]:
+        """Give up pending deliveries due since before ``older_than``; their keys.
+
+        A delivery is due from its creation, or, when held for quiet hours, from the end
+        of the hold: held news is late on purpose, and a long quiet window must not use
+        up its time to be delivered before the morning summary is even sent.
+        """
+        d = deliveries.c
+        due_since = sa.func.coalesce(d.not_before, d.created_at)
+        # a row another dispatcher holds a live claim on is that one's to record
+        unclaimed = self._unclaimed()
+        with self.store.atomic() as conn:
+            keys = list(
+                conn.execute(
+                    sa.select(d.key).where(
+                        (d.status == "pending") & (due_since < iso_utc(older_than)) & unclaimed
+                    )
+                ).scalars()
+            )
+            if keys:
+                # checked again in the UPDATE: on PostgreSQL another dispatcher may have
+                # sent or claimed one of them since the SELECT
+                done = set(
+                    conn.execute(
+                        deliveries.update()
+                        .where(d.key.in_(keys) & (d.status == "pending") & unclaimed)
+                        .values(
+                            status="expired", last_error=reason, claimed_until=None, claimed_by=None
+                        )
+                        .returning(d.key)
+                    ).scalars()
+                )
+                keys = [k for k in keys if k in done]
+        return keys
+
+    def deliveries(self, statuses: Sequence[str] | None = None) -> list[DeliveryRow]:
+        with self.engine.connect() as conn:
+            q = sa.select(deliveries).order_by(deliveries.c.created_at, deliveries.c.key)
+            if statuses:
+                q = q.where(deliveries.c.status.in_(list(statuses)))
+            return [DeliveryRow.from_row(r) for r in conn.execute(q).mappings()]
+
+    def backlog(self) -> dict[str, int]:
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(deliveries.c.status, sa.func.count()).group_by(deliveries.c.status)
+            )
+            return {status: int(n) for status, n in rows}
+
+    def trim(self, before: datetime) -> int:
+        """Forget finished deliveries and unreferenced events older than ``before``."""
+        d = deliveries.c
+        cut = iso_utc(before)
+        with self.store.atomic() as conn:
+            n = conn.execute(
+                deliveries.delete().where(
+                    d.status.in_(["sent", "failed", "expired", "cancelled"]) & (d.created_at < cut)
+                )
+            ).rowcount
+            conn.execute(
+                events.delete().where(
+                    (events.c.created_at < cut)
+                    & ~events.c.id.in_(sa.select(d.event_id).where(d.status == "pending"))
+                )
+            )
+        return int(n or 0)
+
+    # -- site snapshots ---------------------------------------------------------------
+
+    def snapshots(self) -> dict[str, tuple[datetime, str, dict[str, Any]]]:
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(site_status))
+            return {
+                r.site: (_dt(r.time), r.level, json.loads(r.payload))  # type: ignore[misc]
+                for r in rows
+            }
+
+    # -- bot: members, follows, mutes ------------------------------------------------------
+
+    def add_member(self, sender: str, now: datetime, via: str | None) -> None:
+        with self.store.atomic() as conn:
+            conn.execute(
+                self.store._insert(members)
+                .values(
+                    sender=sender,
+                    joined_at=iso_utc(now),
+                    via=via,
+                )
+                .on_conflict_do_nothing(index_elements=["sender"])
+            )
+
+    def is_member(self, sender: str) -> bool:
+        with self.engine.connect() as conn:
+            return (
+                conn.execute(sa.select(members.c.sender).where(members.c.sender == sender)).first()
+                is not None
+            )
+
+    def follow(self, sender: str, site: str, min_level: str, now: datetime) -> None:
+        with self.store.atomic() as conn:
+            stmt = self.store._insert(follows).values(
+                sender=sender, site=site, min_level=min_level, created_at=iso_utc(now)
+            )
+            conn.execute(
+                stmt.on_conflict_do_update(
+                    index_elements=["sender", "site"], set_={"min_level": stmt.excluded.min_level}
+                )
+            )
+
+    def unfollow(self, sender: str, site: str) -> bool:
+        with self.store.atomic() as conn:
+            return bool(
+                conn.execute(
+                    follows.delete().where((follows.c.sender == sender) & (follows.c.site == site))
+                ).rowcount
+            )
+
+    def follows(self, sender: str | None = None) -> list[tuple[str, str, str]]:
+        """(sender, site, min_level) rows."""
+        with self.engine.connect() as conn:
+            q = sa.select(follows.c.sender, follows.c.site, follows.c.min_level).order_by(
+                follows.c.sender, follows.c.site
+            )
+            if sender is not None:
+                q = q.where(follows.c.sender == sender)
+            return [tuple(r) for r in conn.execute(q)]  # type: ignore[misc]
+
+    def mute(self, who: str, site: str, until: datetime, now: datetime) -> None:
+        with self.store.atomic() as conn:
+            stmt = self.store._insert(mutes).values(
+                who=who, site=site, until=iso_utc(until), created_at=iso_utc(now)
+            )
+            conn.execute(
+                stmt.on_conflict_do_update(
+                    index_elements=["who", "site"], set_={"until": stmt.excluded.until}
+                )
+            )
+
+    def unmute(self, who: str, site: str, now: datetime) -> bool:
+        with self.store.atomic() as conn:
+            return bool(
+                conn.execute(
+                    mutes.delete().where(
+                        (mutes.c.who == who)
+                        & (mutes.c.site == site)
+                        & (mutes.c.until > iso_utc(now))
+                    )
+                ).rowcount
+            )
+
+    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
+        """Mutes still in force: (who, site, until)."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(mutes.c.who, mutes.c.site, mutes.c.until).where(
+                    mutes.c.until > iso_utc(now)
+                )
+            )
+            return [(w, s, _dt(u)) for w, s, u in rows]  # type: ignore[misc]

@@ -1,0 +1,768 @@
+"""SQLite (SQLAlchemy Core) store: the rolling observation window, source health, files.
+
+Schema changes are named migrations, applied in order, each once and in its own
+transaction, and recorded in ``schema_migrations`` (its row count is the schema
+version). To add one:
+
+1. write ``def _m0002_outbox(conn: Connection) -> None`` issuing plain DDL with
+   ``conn.exec_driver_sql(...)`` (a migration is a frozen snapshot: never build it from
+   the current ``Table`` objects, which describe the newest shape and may change later);
+2. append ``Migration("0002_outbox", _m0002_outbox)`` to :data:`MIGRATIONS` — never
+   reorder, rename or edit a migration that has shipped;
+3. add or update the ``Table`` objects below that the queries use.
+
+Times: ``observations.time`` is integer seconds since the Unix epoch (UTC), which keeps
+the window queries and bulk inserts cheap; the small bookkeeping tables hold ISO 8601
+UTC text (``2024-01-05T03:00:00Z``) so that they read well in the sqlite shell.
+
+SQLite connections get WAL journaling (readers do not block the writer), a busy timeout
+(a second process waits rather than failing), and explicit ``BEGIN`` so that DDL runs
+inside the migration's transaction (the sqlite3 module would otherwise autocommit it).
+Write transactions use ``BEGIN IMMEDIATE`` so two writers queue instead of deadlocking.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import math
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any, cast
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+from sqlalchemy import event
+from sqlalchemy.engine import Connection, Engine
+from sqlalchemy.pool import StaticPool
+
+from notifier.core.errors import FogwatchError
+from notifier.core.observations import (
+    CANONICAL_COLUMNS,
+    FLOAT_COLUMNS,
+    TEXT_COLUMNS,
+    text_columns_as_objects,
+)
+
+__all__ = ["MIGRATIONS", "Migration", "Store", "StoreError"]
+
+log = logging.getLogger(__name__)
+
+BUSY_TIMEOUT_MS = 10_000
+_BATCH_ROWS = 50_000
+_FETCH_ROWS = 20_000  # rows per fetch: a smaller transient, as fast
+
+
+class StoreError(FogwatchError):
+    """The database could not be opened, migrated or written."""
+
+
+@dataclass(frozen=True)
+class Migration:
+    name: str
+    apply: Callable[[Connection], None]
+
+
+def _m0001_initial(conn: Connection) -> None:
+    conn.exec_driver_sql(
+        """
+        CREATE TABLE observations (
+            site TEXT NOT NULL,
+            time INTEGER NOT NULL,
+            kind TEXT NOT NULL,
+            temp_c REAL, dewpoint_c REAL, rh_pct REAL, wind_ms REAL, wind_dir_deg REAL,
+            cloud_pct REAL, surface_temp_c REAL, water_temp_c REAL, visibility_m REAL,
+            pressure_hpa REAL, weather TEXT, source TEXT,
+            received_at INTEGER NOT NULL,
+            PRIMARY KEY (site, time, kind)
+        )
+        """
+    )
+    # The primary key's index (site, time, kind) serves the per-site window queries;
+    # trimming by time alone scans, which is cheap for a 48-hour window.
+    conn.exec_driver_sql(
+        """
+        CREATE TABLE source_health (
+            source_id TEXT PRIMARY KEY,
+            last_success TEXT,
+            last_error TEXT,
+            last_error_at TEXT,
+            rows_ok INTEGER NOT NULL DEFAULT 0,
+            rows_rejected INTEGER NOT NULL DEFAULT 0,
+            polls INTEGER NOT NULL DEFAULT 0,
+            failures INTEGER NOT NULL DEFAULT 0
+        )
+        """
+    )
+    conn.exec_driver_sql(
+        """
+        CREATE TABLE seen_files (
+            sha256 TEXT PRIMARY KEY,
+            name TEXT NOT NULL,
+            status TEXT NOT NULL,
+            taken_at TEXT NOT NULL,
+            source_id TEXT
+        )
+        """
+    )
+
+
+def _m0002_alerts(conn: Connection) -> None:
+    """Alert states, events, the delivery outbox, site snapshots, and the bot's tables."""
+    # PostgreSQL has no BLOB. This migration could never run there before this choice of
+    # type was added, so no database holds the other spelling: SQLite keeps BLOB.
+    binary = "BYTEA" if conn.dialect.name == "postgresql" else "BLOB"
+    for ddl in (
+        """CREATE TABLE alert_states (
+            site TEXT NOT NULL, hazard TEXT NOT NULL, state TEXT NOT NULL,
+            updated_at TEXT NOT NULL, PRIMARY KEY (site, hazard))""",
+        f"""CREATE TABLE events (
+            id TEXT PRIMARY KEY, site TEXT NOT NULL, hazard TEXT NOT NULL,
+            type TEXT NOT NULL, level TEXT NOT NULL, time TEXT NOT NULL,
+            payload TEXT NOT NULL, chart {binary}, created_at TEXT NOT NULL)""",
+        """CREATE TABLE deliveries (
+            key TEXT PRIMARY KEY, event_id TEXT NOT NULL, subscriber TEXT NOT NULL,
+            channel TEXT NOT NULL, address TEXT, status TEXT NOT NULL,
+            attempts INTEGER NOT NULL DEFAULT 0, next_attempt_at TEXT NOT NULL,
+            not_before TEXT, summary INTEGER NOT NULL DEFAULT 0, created_at TEXT NOT NULL,
+            sent_at TEXT, last_error TEXT)""",
+        "CREATE INDEX deliveries_due ON deliveries (status, next_attempt_at)",
+        """CREATE TABLE site_status (
+            site TEXT PRIMARY KEY, time TEXT NOT NULL, level TEXT NOT NULL,
+            payload TEXT NOT NULL)""",
+        """CREATE TABLE follows (
+            sender TEXT NOT NULL, site TEXT NOT NULL, min_level TEXT NOT NULL,
+            created_at TEXT NOT NULL, PRIMARY KEY (sender, site))""",
+        """CREATE TABLE mutes (
+            who TEXT NOT NULL, site TEXT NOT NULL, until TEXT NOT NULL,
+            created_at TEXT NOT NULL, PRIMARY KEY (who, site))""",
+        """CREATE TABLE members (
+            sender TEXT PRIMARY KEY, joined_at TEXT NOT NULL, via TEXT)""",
+    ):
+        conn.exec_driver_sql(ddl)
+
+
+def _m0003_observation_batches(conn: Connection) -> None:
+    """Number the write batches of observations, so that a reader holding the window in
+    memory can fetch only what changed since it last looked (``Store.window(after=…)``).
+
+    ``received_at`` cannot serve: it is the writer's clock, which the demo and replay
+    set themselves, and two writers' clocks need not agree. Rows written before this
+    migration are batch 0.
+    """
+    for ddl in (
+        "ALTER TABLE observations ADD COLUMN batch INTEGER NOT NULL DEFAULT 0",
+        "CREATE INDEX observations_batch ON observations (batch)",
+        "CREATE TABLE counters (name TEXT PRIMARY KEY, value INTEGER NOT NULL)",
+        "INSERT INTO counters (name, value) VALUES ('observation_batch', 0)",
+    ):
+        conn.exec_driver_sql(ddl)
+
+
+def _m0004_postgresql_widths(conn: Connection) -> None:
+    """On PostgreSQL, the widths SQLite gives these columns anyway: REAL and INTEGER are
+    4 bytes there (7 digits; seconds that run out in 2038), 8 bytes in SQLite. Nothing
+    to do on SQLite."""
+    if conn.dialect.name != "postgresql":
+        return
+    floats = ", ".join(
+        f"ALTER COLUMN {c} TYPE DOUBLE PRECISION"
+        for c in (
+            "temp_c", "dewpoint_c", "rh_pct", "wind_ms", "wind_dir_deg", "cloud_pct",
+            "surface_temp_c", "water_temp_c", "visibility_m", "pressure_hpa",
+        )
+    )  # fmt: skip
+    wide = ", ".join(f"ALTER COLUMN {c} TYPE BIGINT" for c in ("time", "received_at", "batch"))
+    conn.exec_driver_sql(f"ALTER TABLE observations {floats}, {wide}")
+    conn.exec_driver_sql("ALTER TABLE counters ALTER COLUMN value TYPE BIGINT")
+
+
+def _m0005_delivery_claims(conn: Connection) -> None:
+    """A dispatcher claims the deliveries it is about to send until ``claimed_until``, so
+    that two dispatchers sharing one store (PostgreSQL, several instances) do not both
+    send them; a crashed one's claims lapse and the rows go out again."""
+    conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_until TEXT")
+    conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_by TEXT")
+
+
+#: Every schema change, in order. Append only.
+MIGRATIONS: list[Migration] = [
+    Migration("0001_initial", _m0001_initial),
+    Migration("0002_alerts", _m0002_alerts),
+    Migration("0003_observation_batches", _m0003_observation_batches),
+    Migration("0004_postgresql_widths", _m0004_postgresql_widths),
+    Migration("0005_delivery_claims", _m0005_delivery_claims),
+]
+
+metadata = sa.MetaData()
+schema_migrations = sa.Table(
+    "schema_migrations",
+    metadata,
+    sa.Column("version", sa.Integer, primary_key=True, autoincrement=False),
+    sa.Column("name", sa.Text, nullable=False, unique=True),
+    sa.Column("applied_at", sa.Text, nullable=False),
+)
+observations = sa.Table(
+    "observations",
+    metadata,
+    sa.Column("site", sa.Text, primary_key=True),
+    sa.Column("time", sa.Integer, primary_key=True),
+    sa.Column("kind", sa.Text, primary_key=True),
+    *(sa.Column(column, sa.Float) for column in FLOAT_COLUMNS),
+    sa.Column("weather", sa.Text),
+    sa.Column("source", sa.Text),
+    sa.Column("received_at", sa.Integer, nullable=False),
+    sa.Column("batch", sa.Integer, nullable=False),
+)
+counters = sa.Table(
+    "counters",
+    metadata,
+    sa.Column("name", sa.Text, primary_key=True),
+    sa.Column("value", sa.Integer, nullable=False),
+)
+source_health = sa.Table(
+    "source_health",
+    metadata,
+    sa.Column("source_id", sa.Text, primary_key=True),
+    sa.Column("last_success", sa.Text),
+    sa.Column("last_error", sa.Text),
+    sa.Column("last_error_at", sa.Text),
+    sa.Column("rows_ok", sa.Integer, nullable=False),
+    sa.Column("rows_rejected", sa.Integer, nullable=False),
+    sa.Column("polls", sa.Integer, nullable=False),
+    sa.Column("failures", sa.Integer, nullable=False),
+)
+seen_files = sa.Table(
+    "seen_files",
+    metadata,
+    sa.Column("sha256", sa.Text, primary_key=True),
+    sa.Column("name", sa.Text, nullable=False),
+    sa.Column("status", sa.Text, nullable=False),
+    sa.Column("taken_at", sa.Text, nullable=False),
+    sa.Column("source_id", sa.Text),
+)
+
+
+def iso_utc(moment: datetime) -> str:
+    """``2024-01-05T03:00:00Z`` (seconds kept; a naive time is taken as UTC)."""
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    return moment.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _from_iso(text: str | None) -> datetime | None:
+    if text is None:
+        return None
+    return datetime.fromisoformat(text.replace("Z", "+00:00"))
+
+
+def _epoch_s(moment: datetime, *, ceil: bool = False) -> int:
+    """Seconds since the epoch; a naive time is taken as UTC."""
+    if moment.tzinfo is None:
+        moment = moment.replace(tzinfo=UTC)
+    seconds = moment.timestamp()
+    return math.ceil(seconds) if ceil else math.floor(seconds)
+
+
+class Store:
+    """The fogwatch database. ``Store(url)``; ``Store.memory()`` for tests.
+
+    Opening a store applies any pending migrations. Every method that writes takes an
+    optional ``conn`` so that several writes can share one transaction::
+
+        with store.atomic() as conn:
+            store.add_observations(frame, conn=conn)
+            store.mark_file(sha, name, "processed", source_id, now, conn=conn)
+    """
+
+    def __init__(self, url: str, *, engine: Engine | None = None):
+        self.url = url
+        try:
+            self.engine = engine or _make_engine(url)
+            try:
+                self._migrate()
+            except StoreError:
+                self.engine.dispose()
+                raise
+        except sa.exc.SQLAlchemyError as exc:
+            raise StoreError(f"cannot open store {url}: {exc}") from exc
+
+    @classmethod
+    def memory(cls) -> Store:
+        """A private in-memory database (one shared connection, so it persists)."""
+        engine = sa.create_engine(
+            "sqlite://", poolclass=StaticPool, connect_args={"check_same_thread": False}
+        )
+        _sqlite_events(engine)
+        return cls("sqlite://", engine=engine)
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @contextlib.contextmanager
+    def atomic(self) -> Iterator[Connection]:
+        """One write transaction (``BEGIN IMMEDIATE`` on SQLite), committed on success."""
+        with self.engine.connect().execution_options(fogwatch_begin="IMMEDIATE") as conn:
+            with conn.begin():
+                yield conn
+
+    @contextlib.contextmanager
+    def _write(self, conn: Connection | None) -> Iterator[Connection]:
+        if conn is not None:
+            yield conn
+        else:
+            with self.atomic() as own:
+                yield own
+
+    # -- migrations ----------------------------------------------------------------
+
+    def _migrate(self) -> None:
+        with self.atomic() as conn:
+            schema_migrations.create(conn, checkfirst=True)
+            # A newer fogwatch has changed this database in ways this one does not know
+            # (rows it writes could go unseen by the newer one): refuse rather than guess.
+            newer = conn.execute(
+                sa.select(schema_migrations.c.name)
+                .where(schema_migrations.c.version > len(MIGRATIONS))
+                .order_by(schema_migrations.c.version)
+            ).first()
+        if newer is not None:
+            raise StoreError(
+                f"the store was upgraded by a newer fogwatch (migration {newer[0]!r}); "
+                f"this version knows {len(MIGRATIONS)} migrations: upgrade it to use this store"
+            )
+        for version, migration in enumerate(MIGRATIONS, start=1):
+            with self.atomic() as conn:
+                # Checked inside the write lock: a second process may have just applied it.
+                done = conn.execute(
+                    sa.select(schema_migrations.c.name).where(
+                        schema_migrations.c.version == version
+                    )
+                ).scalar()
+                if done is not None:
+                    if done != migration.name:
+                        raise StoreError(
+                            f"migration {version} in the database is {done!r}, "
+                            f"expected {migration.name!r}: was a migration reordered?"
+                        )
+                    continue
+                log.info("applying store migration %s", migration.name)
+                try:
+                    migration.apply(conn)
+                except Exception as exc:  # rolled back with its transaction as it leaves
+                    raise StoreError(f"store migration {migration.name} failed: {exc}") from exc
+                conn.execute(
+                    schema_migrations.insert().values(
+                        version=version,
+                        name=migration.name,
+                        applied_at=iso_utc(datetime.now(UTC)),
+                    )
+                )
+
+    @property
+    def schema_version(self) -> int:
+        with self.engine.connect() as conn:
+            return int(
+                conn.execute(sa.select(sa.func.count()).select_from(schema_migrations)).scalar_one()
+            )
+
+    def applied_migrations(self) -> list[str]:
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(schema_migrations.c.name).order_by(schema_migrations.c.version)
+            )
+            return [r[0] for r in rows]
+
+    # -- observations --------------------------------------------------------------
+
+    def add_observations(
+        self,
+        frame: pd.DataFrame,
+        *,
+        conn: Connection | None = None,
+        received_at: datetime | None = None,
+    ) -> int:
+        """Upsert canonical rows; a row with the same (site, time, kind) is replaced
+        whole, so the newest input wins. Returns the number of rows written."""
+        if frame.empty:
+            return 0
+        received = _epoch_s(received_at or datetime.now(UTC))
+        nan_is_null = self.engine.dialect.name == "sqlite"
+        with self._write(conn) as c:
+            batch = self._next_batch(c)
+            # Straight to the DB-API cursor: SQLAlchemy's per-row parameter handling would
+            # triple the cost of a million-row batch.
+            cursor = c.connection.cursor()
+            try:
+                for (kind, source), part in _by_kind_and_source(frame):
+                    present = [
+                        name
+                        for name in (*FLOAT_COLUMNS, "weather")
+                        if bool(part[name].notna().any())
+                    ]
+                    sql = self._upsert_sql(present, kind, source, received, batch)
+                    rows = _rows(part, present, nan_is_null=nan_is_null)
+                    for start in range(0, len(rows), _BATCH_ROWS):
+                        cursor.executemany(sql, rows[start : start + _BATCH_ROWS])
+            finally:
+                cursor.close()
+        return len(frame)
+
+    def _insert(self, table: sa.Table) -> Any:
+        """The dialect's INSERT, which knows ON CONFLICT (SQLite and PostgreSQL)."""
+        if self.engine.dialect.name == "postgresql":
+            from sqlalchemy.dialects.postgresql import insert as pg_insert
+
+            return pg_insert(table)
+        from sqlalchemy.dialects.sqlite import insert as sqlite_insert
+
+        return sqlite_insert(table)
+
+    def _mark(self) -> str:
+        return "?" if self.engine.dialect.paramstyle == "qmark" else "%s"
+
+    def _next_batch(self, conn: Connection) -> int:
+        """The number of a new write batch. The counter row stays locked until the
+        batch commits, so batches commit in the order of their numbers."""
+        return int(
+            conn.execute(
+                counters.update()
+                .where(counters.c.name == "observation_batch")
+                .values(value=counters.c.value + 1)
+                .returning(counters.c.value)
+            ).scalar_one()
+        )
+
+    def last_batch(self) -> int:
+        """The number of the newest committed write batch of observations (0: none)."""
+        with self.engine.connect() as conn:
+            return int(
+                conn.execute(
+                    sa.select(counters.c.value).where(counters.c.name == "observation_batch")
+                ).scalar_one()
+            )
+
+    def _upsert_sql(
+        self, present: list[str], kind: str, source: Any, received: int, batch: int
+    ) -> str:
+        """Only the columns this batch fills are bound, and the batch-wide values are
+        written into the statement: each bound column costs time on every row."""
+        names = ["site", "time", *present, "kind", "source", "received_at", "batch"]
+        values = [self._mark()] * (2 + len(present))
+        values += [_sql_text(kind), _sql_text(source), str(int(received)), str(int(batch))]
+        updates = [
+            f"{name} = excluded.{name}" if name in present else f"{name} = NULL"
+            for name in (*FLOAT_COLUMNS, "weather")
+        ]
+        updates += [
+            "source = excluded.source",
+            "received_at = excluded.received_at",
+            "batch = excluded.batch",
+        ]
+        return (
+            f"INSERT INTO observations ({', '.join(names)}) VALUES ({', '.join(values)}) "
+            f"ON CONFLICT (site, time, kind) DO UPDATE SET {', '.join(updates)}"
+        )
+
+    def window(
+        self,
+        site_ids: Sequence[str] | None,
+        start: datetime,
+        end: datetime | None,
+        kinds: Sequence[str] = ("obs", "forecast"),
+        *,
+        after: int | None = None,
+        categorical: bool = False,
+    ) -> pd.DataFrame:
+        """Rows with ``start <= time <= end``, as a canonical table sorted by site, time.
+
+        ``end=None``: no upper bound. ``after``: only rows written by batches after that
+        one (see :meth:`last_batch`). ``categorical``: the text columns as categoricals
+        (one string per distinct value) instead of ``str`` objects.
+        """
+        mark = self._mark()
+        kinds = list(kinds)
+        if not kinds or (site_ids is not None and not list(site_ids)):
+            return _frame([], shared_text=categorical)
+        sql = (
+            f"SELECT {', '.join(CANONICAL_COLUMNS)} FROM observations "
+            f"WHERE time >= {mark} AND kind IN ({', '.join([mark] * len(kinds))})"
+        )
+        params: list[Any] = [_epoch_s(start, ceil=True), *kinds]
+        if end is not None:
+            sql += f" AND time <= {mark}"
+            params.append(_epoch_s(end))
+        if after is not None:
+            sql += f" AND batch > {mark}"
+            params.append(int(after))
+        if site_ids is not None:
+            site_ids = list(site_ids)
+            sql += f" AND site IN ({', '.join([mark] * len(site_ids))})"
+            params += site_ids
+        if after is not None and self.engine.dialect.name == "sqlite":
+            # "+site": SQLite would otherwise walk the whole primary-key index to save the
+            # sort, rather than take the few rows of the latest batches by their index
+            sql += " ORDER BY +site, time, kind"
+        else:
+            sql += " ORDER BY site, time, kind"
+        # Fetched in chunks, each turned into columns at once, and the text columns
+        # (site, kind, source, weather: few distinct values) share one string object per
+        # value: a 10,000-site window then costs a fraction of the memory of 1.4 M tuples.
+        chunks: list[dict[str, Any]] = []
+        with self.engine.connect() as conn:
+            cursor = conn.connection.cursor()
+            try:
+                cursor.execute(sql, params)
+                while True:
+                    records = cursor.fetchmany(_FETCH_ROWS)
+                    if not records:
+                        break
+                    frame = _frame(records, shared_text=True)
+                    del records
+                    chunks.append({c: frame[c].array for c in CANONICAL_COLUMNS})
+                    del frame
+            finally:
+                cursor.close()
+        if not chunks:
+            return _frame([], shared_text=categorical)
+        joined = _join_columns(chunks)
+        return joined if categorical else text_columns_as_objects(joined)
+
+    def trim_observations(self, before: datetime, *, conn: Connection | None = None) -> int:
+        """Delete rows older than ``before``; returns how many."""
+        with self._write(conn) as c:
+            result = c.execute(observations.delete().where(observations.c.time < _epoch_s(before)))
+            return int(result.rowcount or 0)
+
+    # -- source health -------------------------------------------------------------
+
+    def record_poll(
+        self,
+        source_id: str,
+        at: datetime,
+        ok: bool,
+        rows_ok: int,
+        rows_rejected: int,
+        error: str | None,
+        *,
+        conn: Connection | None = None,
+    ) -> None:
+        """Count one poll of a source: its rows, and its success or its error."""
+        when = iso_utc(at)
+        h = source_health.c
+        with self._write(conn) as c:
+            c.execute(
+                self._insert(source_health)
+                .values(source_id=source_id, rows_ok=0, rows_rejected=0, polls=0, failures=0)
+                .on_conflict_do_nothing(index_elements=["source_id"])
+            )
+            values: dict[str, Any] = {
+                "polls": h.polls + 1,
+                "failures": h.failures + (0 if ok else 1),
+                "rows_ok": h.rows_ok + int(rows_ok),
+                "rows_rejected": h.rows_rejected + int(rows_rejected),
+            }
+            if ok:
+                values["last_success"] = when
+            if error:
+                values["last_error"] = error
+                values["last_error_at"] = when
+            c.execute(source_health.update().where(h.source_id == source_id).values(**values))
+
+    def source_health(self) -> list[dict[str, Any]]:
+        """One dict per source that has been polled, by source id; times as datetimes."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(source_health).order_by(source_health.c.source_id))
+            out = []
+            for row in rows.mappings():
+                item = dict(row)
+                for key in ("last_success", "last_error_at"):
+                    item[key] = _from_iso(item[key])
+                out.append(item)
+            return out
+
+    # -- seen files ----------------------------------------------------------------
+
+    def file_seen(self, sha256: str) -> bool:
+        return self.seen_file(sha256) is not None
+
+    def seen_file(self, sha256: str) -> dict[str, Any] | None:
+        """What was recorded when a file with this content was taken, or None."""
+        with self.engine.connect() as conn:
+            row = (
+                conn.execute(sa.select(seen_files).where(seen_files.c.sha256 == sha256))
+                .mappings()
+                .first()
+            )
+        if row is None:
+            return None
+        item = dict(row)
+        item["taken_at"] = _from_iso(item["taken_at"])
+        return item
+
+    def mark_file(
+        self,
+        sha256: str,
+        name: str,
+        status: str,
+        source_id: str | None,
+        at: datetime,
+        *,
+        conn: Connection | None = None,
+    ) -> None:
+        """Record that a file with this content was taken (first record wins)."""
+        with self._write(conn) as c:
+            c.execute(
+                self._insert(seen_files)
+                .values(
+                    sha256=sha256,
+                    name=name,
+                    status=status,
+                    taken_at=iso_utc(at),
+                    source_id=source_id,
+                )
+                .on_conflict_do_nothing(index_elements=["sha256"])
+            )
+
+
+#: ``INSERT … RETURNING`` and ``UPDATE … RETURNING`` (the outbox's counts and claims).
+SQLITE_AT_LEAST = (3, 35)
+
+
+def _make_engine(url: str) -> Engine:
+    engine = sa.create_engine(url)
+    if engine.dialect.name == "sqlite":
+        _sqlite_events(engine)
+    return engine
+
+
+def _sqlite_events(engine: Engine) -> None:
+    import sqlite3
+
+    if sqlite3.sqlite_version_info < SQLITE_AT_LEAST:
+        raise StoreError(
+            f"SQLite {'.'.join(map(str, SQLITE_AT_LEAST))} or newer is needed; this Python "
+            f"has {sqlite3.sqlite_version}"
+        )
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+        # Let SQLAlchemy's "begin" event issue BEGIN itself (see the module docstring).
+        dbapi_conn.isolation_level = None
+        cursor = dbapi_conn.cursor()
+        cursor.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        cursor.execute("PRAGMA journal_mode = WAL")
+        # NORMAL is safe with WAL: a power cut may lose the last commits, never corrupt.
+        cursor.execute("PRAGMA synchronous = NORMAL")
+        # A bigger page cache (16 MiB, eight times the default) keeps bulk upserts into the
+        # primary-key index fast; 64 MiB stored a million rows no faster (bench/README.md)
+        # and held 50 MB more for the life of a service.
+        cursor.execute("PRAGMA cache_size = -16384")
+        cursor.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn: Connection) -> None:
+        mode = conn.get_execution_options().get("fogwatch_begin", "")
+        conn.exec_driver_sql(f"BEGIN {mode}".strip())
+
+
+def _sql_text(value: Any) -> str:
+    """A text literal, quotes doubled (standard SQL); NULL for a missing value."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "NULL"
+    return "'" + str(value).replace("'", "''") + "'"
+
+
+def _by_kind_and_source(frame: pd.DataFrame) -> Iterator[tuple[tuple[Any, Any], pd.DataFrame]]:
+    kinds = frame["kind"]
+    sources = frame["source"]
+    if kinds.nunique(dropna=False) == 1 and sources.nunique(dropna=False) == 1:
+        yield (kinds.iloc[0], sources.iloc[0]), frame
+        return
+    yield from frame.groupby(["kind", "source"], sort=False, dropna=False)
+
+
+def _rows(frame: pd.DataFrame, present: list[str], *, nan_is_null: bool) -> list[tuple[Any, ...]]:
+    """Frame → tuples for executemany, built column-wise (no per-row pandas access).
+
+    Rows go in primary-key order: appending to the index is much cheaper than inserting
+    all over it (about a quarter off a million-row batch).
+    """
+    times = pd.DatetimeIndex(frame["time"])
+    if times.tz is None:
+        times = times.tz_localize("UTC")
+    seconds = times.as_unit("ns").asi8 // 1_000_000_000
+    site_codes, site_names = pd.factorize(frame["site"], sort=True)
+    order = np.lexsort((seconds, site_codes))
+    columns: list[list[Any]] = [
+        np.asarray(site_names, dtype=object)[site_codes[order]].tolist(),
+        seconds[order].tolist(),
+    ]
+    for name in present:
+        if name in FLOAT_COLUMNS:
+            values = frame[name].to_numpy(dtype="float64", na_value=np.nan)[order]
+            # SQLite stores a bound NaN as NULL already; other databases need None.
+            columns.append(values.tolist() if nan_is_null else _nan_to_none(values))
+        else:
+            series = frame[name]
+            text = series.astype(object).where(series.notna(), None).to_numpy(dtype=object)
+            columns.append(text[order].tolist())
+    return list(zip(*columns, strict=True))
+
+
+def _nan_to_none(values: np.ndarray) -> list[Any]:
+    # numpy's stubs leave None out of the scalars np.where takes; object arrays hold it
+    return np.where(np.isnan(values), cast(Any, None), values.astype(object)).tolist()
+
+
+def _frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame:
+    from notifier.core.observations import empty_frame
+
+    if not records:
+        empty = empty_frame()
+        if shared_text:
+            for column in TEXT_COLUMNS:
+                empty[column] = empty[column].astype("category")
+        return empty
+    frame = pd.DataFrame.from_records(records, columns=CANONICAL_COLUMNS)
+    frame["time"] = pd.to_datetime(frame["time"].astype("int64"), unit="s", utc=True).astype(
+        "datetime64[ns, UTC]"
+    )
+    for column in FLOAT_COLUMNS:
+        frame[column] = frame[column].astype("float64")
+    if shared_text:
+        for column in TEXT_COLUMNS:
+            frame[column] = frame[column].astype("category")
+        return frame
+    return text_columns_as_objects(frame)
+
+
+def _join_columns(chunks: list[dict[str, Any]]) -> pd.DataFrame:
+    """One frame from per-chunk columns, a column at a time, freeing chunks as it goes.
+
+    Text columns are categoricals (one string object per distinct value); at most one
+    column is held twice at any moment.
+    """
+    from pandas.api.types import union_categoricals
+
+    out = pd.DataFrame(index=pd.RangeIndex(sum(len(c["site"]) for c in chunks)))
+    for column in CANONICAL_COLUMNS:
+        parts = [c.pop(column) for c in chunks]
+        if column in TEXT_COLUMNS:
+            joined: Any = union_categoricals(parts)
+        elif column == "time":  # tz-aware: join the underlying nanoseconds, not objects
+            ns = np.concatenate([np.asarray(p.asi8) for p in parts])
+            joined = pd.to_datetime(ns, unit="ns", utc=True).astype("datetime64[ns, UTC]")
+        else:
+            joined = pd.array(np.concatenate([np.asarray(p) for p in parts]), dtype=parts[0].dtype)
+        del parts
+        out[column] = joined
+    return out

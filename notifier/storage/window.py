@@ -1,0 +1,296 @@
+"""The running service's rolling window of observations, held in memory between cycles.
+
+Reading 48 hours of 10,000 stations back out of the store takes seconds (1.4 M rows
+turned into Python objects and back); a running service needs the same rows every
+cycle, and only a poll's worth of them are new. :class:`RollingWindow` therefore reads
+the window whole once, then on each cycle only the rows written since (the store numbers
+its write batches, see ``Store.last_batch``), merges them in — a row with the same
+(site, time, kind) replaces the one held, as in the store — and drops what fell out of
+the back of the window.
+
+It holds every row of the configured sites from ``at - back`` on, however far ahead a
+forecast reaches, so that forecasts come into view as time moves on without another
+read, and hands out the rows ``Store.window(sites, at - back, at + ahead)`` would
+return, as a canonical table with categorical text columns. The rows are grouped by
+site in the order of ``site_ids`` (the ``site`` categories are that list, so a site's
+code is its index in the configuration, which ``notifier.engine.features`` reads directly),
+each site's rows by time, then kind. A test holds it to that after random writes.
+
+An evaluation time earlier than the last one (a simulated clock going back, or a
+``--at`` in the past) reads the window whole again: the rows it needs may already have
+been dropped.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from datetime import datetime, timedelta
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from notifier.core.observations import CANONICAL_COLUMNS, FLOAT_COLUMNS
+
+if TYPE_CHECKING:
+    from notifier.storage.store import Store
+
+__all__ = ["RollingWindow"]
+
+_NS = 1_000_000_000
+_KINDS = ("forecast", "obs")  # sorted, as the store's ORDER BY kind puts them
+_TIME_BITS = 36  # seconds after the window's first start: over 2,000 years
+_KIND_BITS = 2
+
+
+class RollingWindow:
+    """Observations of ``site_ids`` from ``at - back`` to ``at + ahead``, kept up to date
+    from ``store`` with one small read per call of :meth:`frame`."""
+
+    def __init__(self, store: Store, site_ids: Sequence[str], *, back: timedelta, ahead: timedelta):
+        self.store = store
+        self.sites = pd.Index(list(dict.fromkeys(site_ids)), dtype=object)
+        self.back = back
+        self.ahead = ahead
+        self._site_dtype = pd.CategoricalDtype(self.sites)
+        self._kind_dtype = pd.CategoricalDtype(pd.Index(_KINDS, dtype=object))
+        self._columns: dict[str, Any] | None = None
+        self._keys = np.zeros(0, dtype=np.int64)
+        self._batch = 0
+        self._start_s = 0
+        self._base_s = 0
+        #: rows read from the store by the last call (the whole window, or what changed)
+        self.last_read = 0
+
+    def frame(self, at: datetime) -> pd.DataFrame:
+        """The window for an evaluation at ``at`` (tz-aware).
+
+        The table shares its memory with the window (a copy each cycle would cost as
+        much as the merge), so its values are read-only: setting a cell raises, and a
+        caller that wants to change it works on ``.copy()``. New columns are fine."""
+        start_s = _ceil_s(at - self.back)
+        if self._columns is None or start_s < self._start_s:
+            self._load(start_s)
+        else:
+            self._update(start_s)
+        return self._view(_floor_s(at + self.ahead))
+
+    def __len__(self) -> int:
+        return int(self._keys.size)
+
+    # -- reading ---------------------------------------------------------------------------
+
+    def _read(self, start_s: int, after: int | None) -> pd.DataFrame:
+        from datetime import UTC
+
+        start = datetime.fromtimestamp(start_s, tz=UTC)
+        return self.store.window(None, start, None, after=after, categorical=True)
+
+    def _load(self, start_s: int) -> None:
+        batch = self.store.last_batch()  # first: a batch committed meanwhile is read again
+        self._columns, self._keys = None, np.zeros(0, dtype=np.int64)  # release the old
+        table = self._read(start_s, None)
+        self.last_read = len(table)
+        prepared = self._prepared(table)
+        del table
+        self._base_s = start_s
+        self._columns, self._keys = self._merged(prepared, start_s)
+        self._batch, self._start_s = batch, start_s
+        del prepared
+        _release_freed_heap()
+
+    def _update(self, start_s: int) -> None:
+        batch = self.store.last_batch()
+        new = self._read(start_s, self._batch) if batch != self._batch else None
+        self.last_read = 0 if new is None else len(new)
+        if new is not None and len(new):
+            self._columns, self._keys = self._merged(self._prepared(new), start_s)
+        elif start_s > self._start_s:
+            self._trim(start_s)
+        self._batch, self._start_s = batch, start_s
+
+    # -- the columns -----------------------------------------------------------------------
+
+    def _prepared(self, table: pd.DataFrame) -> dict[str, Any]:
+        """A store table as plain arrays: floats, nanoseconds, and text as (codes,
+        categories); rows of sites not in the window are left out."""
+        site = _codes(table["site"], self._site_dtype)
+        known = site >= 0
+        every = bool(known.all())
+
+        def rows(values: np.ndarray) -> np.ndarray:  # no copy when every row is kept
+            return values if every else values[known]
+
+        out: dict[str, Any] = {"site": rows(site)}
+        out["time"] = rows(_nanoseconds(table["time"]))
+        out["kind"] = rows(_codes(table["kind"], self._kind_dtype).astype(np.int8))
+        for name in FLOAT_COLUMNS:
+            column = table[name]
+            # the store's float64 columns are taken as they are (a view, not a copy)
+            values = column.to_numpy() if column.dtype == np.float64 else None
+            if values is None:
+                values = column.to_numpy(dtype=np.float64, na_value=np.nan)
+            out[name] = rows(values)
+        for name in ("weather", "source"):
+            text = table[name].astype("category")
+            out[name] = (rows(text.cat.codes.to_numpy().astype(np.int32)), text.cat.categories)
+        return out
+
+    def _key(self, columns: dict[str, Any]) -> np.ndarray:
+        """One sortable integer per row: site, then time, then kind."""
+        seconds = columns["time"] // _NS - self._base_s
+        return (
+            (columns["site"].astype(np.int64) << (_TIME_BITS + _KIND_BITS))
+            | (seconds.astype(np.int64) << _KIND_BITS)
+            | columns["kind"].astype(np.int64)
+        )
+
+    def _merged(self, new: dict[str, Any], start_s: int) -> tuple[dict[str, Any], np.ndarray]:
+        """The held rows and ``new`` in key order; of equal keys the new row stays; rows
+        before ``start_s`` go. Each column is taken once from the held one (the few new
+        rows are then written into their places), and the held one released."""
+        old = self._columns or {}
+        n_old = self._keys.size
+        keys = np.concatenate([self._keys, self._key(new)]) if n_old else self._key(new)
+        order = np.argsort(keys, kind="stable")  # two sorted runs: a merge, not a sort
+        sorted_keys = keys[order]
+        last = np.ones(sorted_keys.size, dtype=bool)
+        last[:-1] = sorted_keys[1:] != sorted_keys[:-1]
+        times = np.concatenate([old["time"], new["time"]]) if old else new["time"]
+        keep = order[last & (times[order] >= start_s * _NS)]
+        is_new = keep >= n_old
+        new_at = np.flatnonzero(is_new)
+        new_rows = keep[new_at] - n_old
+        from_old = np.where(is_new, 0, keep) if n_old else None
+        out: dict[str, Any] = {}
+        if not n_old and np.array_equal(keep, np.arange(len(new["site"]))):
+            return new, keys  # a first read already in order: nothing to move
+        for name in CANONICAL_COLUMNS:  # a column at a time, each input one released
+            mine, theirs = old.pop(name, None), new.pop(name)
+            if name in ("weather", "source"):
+                codes, categories = _with_categories(mine, theirs)
+                out[name] = (_placed(codes[0], codes[1], from_old, new_at, new_rows), categories)
+            else:
+                out[name] = _placed(mine, theirs, from_old, new_at, new_rows)
+            del mine, theirs
+        return out, keys[keep]
+
+    def _trim(self, start_s: int) -> None:
+        assert self._columns is not None
+        keep = self._columns["time"] >= start_s * _NS
+        if keep.all():
+            return
+        self._keys = self._keys[keep]
+        for name, values in self._columns.items():
+            if isinstance(values, tuple):
+                self._columns[name] = (values[0][keep], values[1])
+            else:
+                self._columns[name] = values[keep]
+
+    def _view(self, end_s: int) -> pd.DataFrame:
+        """The held rows up to ``end_s`` as a canonical table (no copy if all are)."""
+        assert self._columns is not None
+        columns = self._columns
+        times = columns["time"]
+        rows = None if not times.size or times.max() <= end_s * _NS else times <= end_s * _NS
+
+        def cut(values: np.ndarray) -> np.ndarray:
+            out = values if rows is None else values[rows]
+            out.flags.writeable = False  # shared with the window: see frame()
+            return out
+
+        data: dict[str, Any] = {}
+        for name in CANONICAL_COLUMNS:
+            values = columns[name]
+            if name == "site":
+                data[name] = pd.Categorical.from_codes(
+                    cut(values), dtype=self._site_dtype, validate=False
+                )
+            elif name == "kind":
+                data[name] = pd.Categorical.from_codes(
+                    cut(values), dtype=self._kind_dtype, validate=False
+                )
+            elif name == "time":
+                data[name] = pd.Series(cut(values).view("M8[ns]"), copy=False).dt.tz_localize("UTC")
+            elif isinstance(values, tuple):
+                codes, categories = values
+                data[name] = pd.Categorical.from_codes(
+                    cut(codes), dtype=pd.CategoricalDtype(categories), validate=False
+                )
+            else:
+                data[name] = cut(values)
+        return pd.DataFrame(data, copy=False)
+
+
+def _release_freed_heap() -> None:
+    """Hand the memory freed by a whole read back to the operating system.
+
+    Reading the window whole makes millions of short-lived row objects and chunk
+    arrays; glibc keeps the freed heap for reuse rather than returning it, so a
+    10,000-site service would sit some 150 MB above what it holds for the rest of its
+    life. ``malloc_trim`` (glibc) returns it; elsewhere this does nothing.
+    """
+    import ctypes
+
+    try:
+        trim = getattr(ctypes.CDLL(None), "malloc_trim", None)  # the process's own libc
+    except (OSError, TypeError):  # TypeError: Windows cannot open "no library"
+        trim = None
+    if trim is not None:
+        trim(0)
+
+
+def _ceil_s(moment: datetime) -> int:
+    return int(np.ceil(moment.timestamp()))
+
+
+def _floor_s(moment: datetime) -> int:
+    return int(np.floor(moment.timestamp()))
+
+
+def _codes(values: pd.Series, dtype: pd.CategoricalDtype) -> np.ndarray:
+    """Codes of ``values`` in the fixed categories of ``dtype`` (-1: not among them)."""
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        lookup = np.array(
+            [*dtype.categories.get_indexer(values.cat.categories), -1], dtype=np.int32
+        )
+        return lookup[values.cat.codes.to_numpy()]
+    return dtype.categories.get_indexer(values.to_numpy(dtype=object)).astype(np.int32)
+
+
+def _nanoseconds(times: pd.Series) -> np.ndarray:
+    index = pd.DatetimeIndex(times)
+    if index.tz is None:
+        index = index.tz_localize("UTC")
+    return index.tz_convert("UTC").as_unit("ns").asi8
+
+
+def _placed(
+    held: np.ndarray | None,
+    new: np.ndarray,
+    from_held: np.ndarray | None,
+    new_at: np.ndarray,
+    new_rows: np.ndarray,
+) -> np.ndarray:
+    """A merged column: held rows taken by ``from_held``, new rows written at ``new_at``."""
+    if held is None or from_held is None:
+        return new[new_rows]
+    out = held.take(from_held)
+    out[new_at] = new[new_rows]
+    return out
+
+
+def _with_categories(
+    mine: tuple[np.ndarray, pd.Index] | None, new: tuple[np.ndarray, pd.Index]
+) -> tuple[tuple[np.ndarray | None, np.ndarray], pd.Index]:
+    """(held codes, new codes recoded into the held categories), and those categories,
+    extended by any new values."""
+    new_codes, new_categories = new
+    if mine is None:
+        return (None, new_codes.astype(np.int32)), new_categories
+    codes, categories = mine
+    added = new_categories.difference(categories, sort=False)
+    if len(added):
+        categories = categories.append(added)
+    lookup = np.array([*categories.get_indexer(new_categories), -1], dtype=np.int32)
+    return (codes, lookup[new_codes]), categories

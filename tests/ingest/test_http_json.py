@@ -1,0 +1,278 @@
+"""HTTP JSON feeds: a real loopback server for the happy paths and retries; `responses`
+for timeouts, cut-off and oversize bodies, bad JSON and schema mismatches."""
+
+from __future__ import annotations
+
+import json
+import socket
+from collections.abc import Callable, Iterator
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import pytest
+import requests
+import responses
+
+from notifier.core.config import Config, HttpJsonSource
+from notifier.core.errors import SourceUnavailable
+from notifier.ingest.http_json import HttpJsonFeed, fetch_json, records_at, safe_url
+from tests.conftest import LoopbackJson
+
+DATA = Path(__file__).resolve().parent.parent / "data" / "ingest"
+NOW = datetime(2024, 1, 12, 7, 0, tzinfo=UTC)
+FEED = json.loads((DATA / "quay_feed.json").read_text())
+FIELDS: dict[str, Any] = {
+    "time": "at",
+    "temp_c": {"key": "air.t_f", "unit": "degF"},
+    "dewpoint_f": "air.td_f",
+    "wind_ms": {"key": "wind.kt", "unit": "knot"},
+}
+
+
+@pytest.fixture
+def session() -> Iterator[requests.Session]:
+    with requests.Session() as s:
+        yield s
+
+
+@pytest.fixture
+def feed(make_config: Callable[..., Config], session: requests.Session):
+    def build(**source: Any) -> HttpJsonFeed:
+        spec = {"id": "feed", "type": "http_json", "retries": 0, "backoff": 0, **source}
+        config = make_config(sources=[spec])
+        http = config.sources[0]
+        assert isinstance(http, HttpJsonSource)
+        return HttpJsonFeed(http, sites={s.id: s for s in config.sites}, session=session)
+
+    return build
+
+
+@pytest.fixture
+def mocked() -> Iterator[responses.RequestsMock]:
+    with responses.RequestsMock(assert_all_requests_are_fired=False) as rsps:
+        yield rsps
+
+
+# -- a real server on 127.0.0.1 ------------------------------------------------------------
+
+
+def test_per_site_template_nested_records_and_feed_units(feed, loopback_json: LoopbackJson):
+    loopback_json.json("/obs/zz-quay", FEED)
+    loopback_json.json("/obs/zz-vale", {"data": {"readings": FEED["data"]["readings"][:1]}})
+    source = feed(url=loopback_json.url("/obs/{site}?lat={lat}&lon={lon}"),
+                  records="data.readings", fields=FIELDS)  # fmt: skip
+    result = source.poll(NOW)
+    assert result.ok, result.error
+    assert result.rejections == []
+    quay = result.frame[result.frame["site"] == "zz-quay"].reset_index(drop=True)
+    assert len(quay) == 3 and (result.frame["site"] == "zz-vale").sum() == 1
+    assert quay.loc[0, "temp_c"] == pytest.approx((35.6 - 32) * 5 / 9)
+    assert quay.loc[0, "dewpoint_c"] == pytest.approx((35.1 - 32) * 5 / 9)
+    assert quay.loc[0, "wind_ms"] == pytest.approx(2 * 1852 / 3600)
+    assert set(result.frame["kind"]) == {"obs"}
+    paths = sorted(r.path for r in loopback_json.requests)
+    assert paths == ["/obs/zz-quay?lat=53.02&lon=-3.11", "/obs/zz-vale?lat=52.41&lon=-2.37"]
+
+
+def test_one_url_for_many_sites_with_a_site_key_and_forecast_rows(
+    feed, loopback_json: LoopbackJson
+):
+    doc = {
+        "points": [
+            {"where": {"id": "zz-vale"}, "valid": "2024-01-12T18:00:00Z", "t": 1.0, "rh": 96},
+            {"where": {"id": "zz-quay"}, "valid": "2024-01-12T18:00:00Z", "t": 3.0, "rh": 88},
+            {"where": {"id": "zz-elsewhere"}, "valid": "2024-01-12T18:00:00Z", "t": 3, "rh": 8},
+        ]
+    }
+    loopback_json.json("/forecast", doc)
+    fields = {"time": "valid", "temp_c": "t", "rh_pct": "rh"}
+    source = feed(url=loopback_json.url("/forecast"), kind="forecast", records="points",
+                  site_key="where.id", fields=fields)  # fmt: skip
+    result = source.poll(NOW)
+    assert result.ok
+    assert sorted(result.frame["site"]) == ["zz-quay", "zz-vale"]
+    assert set(result.frame["kind"]) == {"forecast"}, "forecast rows may lie ahead of now"
+    assert [(r.line, r.column) for r in result.rejections] == [(3, "site")]
+
+
+def test_headers_carry_secrets_from_the_environment(feed, loopback_json, monkeypatch):
+    monkeypatch.setenv("ZZ_FEED_TOKEN", "not-a-real-token")
+    loopback_json.json("/obs", [])
+    source = feed(
+        url=loopback_json.url("/obs"), headers={"Authorization": "Bearer ${ZZ_FEED_TOKEN}"}
+    )
+    source.poll(NOW)
+    assert loopback_json.requests[0].headers["authorization"] == "Bearer not-a-real-token"
+    assert loopback_json.requests[0].headers["user-agent"].startswith("fogwatch/")
+
+
+def test_server_errors_are_retried_then_succeed(feed, loopback_json: LoopbackJson):
+    ok = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
+    loopback_json.sequence("/obs", [(500, {}), (503, {}), (200, ok)])
+    result = feed(url=loopback_json.url("/obs"), retries=3).poll(NOW)
+    assert result.ok, result.error
+    assert len(result.frame) == 1
+    assert len(loopback_json.requests) == 3
+
+
+def test_persistent_server_errors_fail_the_poll_with_the_status(feed, loopback_json):
+    loopback_json.json("/obs", {"error": "down"}, status=500)
+    result = feed(url=loopback_json.url("/obs"), retries=2).poll(NOW)
+    assert not result.ok
+    assert (
+        result.error
+        == f"{loopback_json.url('/obs')}: HTTP 500 Internal Server Error after 2 retries"
+    )
+    assert len(loopback_json.requests) == 3
+
+
+def test_a_client_error_is_not_retried(feed, loopback_json: LoopbackJson):
+    result = feed(url=loopback_json.url("/missing"), retries=3).poll(NOW)
+    assert result.error == f"{loopback_json.url('/missing')}: HTTP 404 Not Found"
+    assert len(loopback_json.requests) == 1
+
+
+def test_a_refused_connection_is_a_clear_reason(feed):
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]  # closed again when the block ends: nothing listens
+    result = feed(url=f"http://127.0.0.1:{port}/obs", connect_timeout=2).poll(NOW)
+    assert not result.ok
+    assert (
+        result.error
+        == f"http://127.0.0.1:{port}/obs: cannot connect: [Errno 111] Connection refused"
+    )
+
+
+# -- injected failures ----------------------------------------------------------------------
+
+URL = "http://feed.invalid/obs"
+
+
+@pytest.mark.parametrize(
+    ("body", "expected"),
+    [
+        (requests.exceptions.ConnectTimeout("slow"), "no connection within 5 s to http://feed.invalid/obs"),
+        (requests.exceptions.ReadTimeout("slow"), "no answer within the 15 s read timeout"),
+        (requests.exceptions.ConnectionError("reset"), "cannot connect: reset"),
+        (requests.exceptions.SSLError("bad cert"), "TLS failed: bad cert"),
+        (requests.exceptions.TooManyRedirects("loop"), "request failed: TooManyRedirects: loop"),
+    ],
+    ids=["connect-timeout", "read-timeout", "connection", "tls", "other"],
+)  # fmt: skip
+def test_request_errors_become_source_unavailable(mocked, session, body, expected):
+    mocked.add(responses.GET, URL, body=body)
+    with pytest.raises(SourceUnavailable) as caught:
+        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=1000)
+    assert str(caught.value) == expected
+    assert isinstance(caught.value.__cause__, requests.exceptions.RequestException)
+    assert caught.value.exit_code == 3
+
+
+def test_a_timeout_fails_the_poll_and_the_next_poll_goes_on(mocked, feed):
+    ok = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
+    mocked.add(responses.GET, URL, body=requests.exceptions.ReadTimeout("slow"))
+    mocked.add(responses.GET, URL, json=ok)
+    source = feed(url=URL, read_timeout=3)
+    first = source.poll(NOW)
+    assert not first.ok and first.error == f"{URL}: no answer within the 3 s read timeout"
+    assert source.poll(NOW).ok
+
+
+def test_injected_500s_then_success_are_retried(feed):
+    ok = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
+    registry = responses.registries.OrderedRegistry
+    with responses.RequestsMock(registry=registry) as rsps:
+        rsps.add(responses.GET, URL, status=500)
+        rsps.add(responses.GET, URL, status=502)
+        rsps.add(responses.GET, URL, json=ok)
+        result = feed(url=URL, retries=2).poll(NOW)
+        assert len(rsps.calls) == 3
+    assert result.ok, result.error
+    assert len(result.frame) == 1
+
+
+def test_a_cut_off_body_is_reported(mocked, session):
+    mocked.add(responses.GET, URL, body=b'[{"site": "zz-vale"', headers={"Content-Length": "900"})
+    with pytest.raises(SourceUnavailable, match=r"response cut off or garbled: Connection broken: "
+                       r"IncompleteRead\(19 bytes read, 881 more expected\)"):  # fmt: skip
+        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=10_000)
+
+
+def test_a_declared_oversize_body_is_refused_before_reading(mocked, session):
+    mocked.add(responses.GET, URL, body=b"[]", headers={"Content-Length": "5000001"})
+    with pytest.raises(SourceUnavailable, match="response of 5000001 bytes is over the "
+                       "5000000-byte limit"):  # fmt: skip
+        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=5_000_000)
+
+
+def test_an_undeclared_oversize_body_is_cut_while_streaming(mocked, feed):
+    mocked.add(responses.GET, URL, body=b"[" + b" " * 200_000 + b"]")
+    result = feed(url=URL, max_bytes=100_000).poll(NOW)
+    assert result.error == f"{URL}: response is over the 100000-byte limit"
+
+
+@pytest.mark.parametrize(
+    ("body", "expected"),
+    [
+        (b"<html>maintenance</html>", "not valid JSON: Expecting value (line 1, column 1)"),
+        (b'{"data": [1, 2', "not valid JSON: Expecting ',' delimiter (line 1, column 15)"),
+        (b"", "empty response (expected JSON)"),
+        (b"\xff\xfe\x00{", "not valid JSON: Expecting value (line 1, column 1)"),
+    ],
+    ids=["html", "truncated-json", "empty", "bad-encoding"],
+)
+def test_bad_json_fails_the_poll_with_the_parsers_reason(mocked, feed, body, expected):
+    mocked.add(responses.GET, URL, body=body)
+    result = feed(url=URL).poll(NOW)
+    assert not result.ok
+    assert result.error == f"{URL}: {expected}"
+
+
+@pytest.mark.parametrize(
+    ("doc", "options", "expected"),
+    [
+        ({"meta": {}, "rows": []}, {"records": "data.readings"},
+         "schema mismatch: no records at 'data.readings' in the response ('data' is not among the "
+         "keys there: meta, rows)"),
+        ({"data": {"readings": {"at": 1}}}, {"records": "data.readings"},
+         "schema mismatch: expected a list of records at 'data.readings', got dict"),
+        (FEED, {"records": "data.readings", "fields": {**FIELDS, "temp_c": "air.t"}},
+         "schema mismatch: no record has temp_c (key 'air.t') (3 records)"),
+        ([{"site": "zz-vale", "temp_c": 1, "rh_pct": 90}], {},
+         "schema mismatch: no time column"),
+    ],
+    ids=["records-path", "records-not-a-list", "field-key", "required-column"],
+)  # fmt: skip
+def test_a_schema_mismatch_fails_the_poll_with_what_was_expected(
+    mocked, feed, doc, options, expected
+):
+    mocked.add(responses.GET, URL, json=doc)
+    result = feed(url=URL, **options).poll(NOW)
+    assert not result.ok
+    assert result.error == f"{URL}: {expected}"
+    assert result.frame.empty
+
+
+def test_field_map_problems_are_reported_on_every_poll(feed):
+    bad_unit = feed(url=URL, fields={"temp_c": {"key": "t", "unit": "furlong"}})
+    assert bad_unit.poll(NOW).error.startswith(
+        "fields.temp_c: unit 'furlong' does not convert to degC"
+    )
+    unknown = feed(url=URL, fields={"temperature": "t"})
+    assert unknown.poll(NOW).error == (
+        "fields: unknown column 'temperature' (expected a canonical column name)"
+    )
+
+
+def test_secrets_in_the_query_string_stay_out_of_messages(mocked, feed):
+    mocked.add(responses.GET, "http://feed.invalid/obs", status=502)
+    result = feed(url="http://feed.invalid/obs?key=not-a-real-key").poll(NOW)
+    assert result.error == "http://feed.invalid/obs?…: HTTP 502 Bad Gateway"
+    assert safe_url("https://u:pw@feed.invalid:8443/a/b?x=1") == "https://feed.invalid:8443/a/b?…"
+
+
+def test_records_path_indexes_lists():
+    assert records_at({"a": [{"b": [1, 2]}]}, "a.0.b") == [1, 2]
+    assert records_at([3], "") == [3]
