@@ -141,7 +141,7 @@ def cli_run(args: argparse.Namespace) -> int:
 
 
 def cli_status(args: argparse.Namespace) -> int:
-    from notifier.cli.views import local_time
+    from notifier.core.timefmt import local_time
     from notifier.ingest.poll import health_report
     from notifier.storage.outbox import Outbox
 

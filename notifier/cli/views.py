@@ -4,24 +4,16 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from datetime import UTC, datetime
+from datetime import UTC
 
+from notifier.core.timefmt import local_time
 from notifier.engine.assess import SiteAssessment, level_rank
 from notifier.engine.features import FEATURES
 from notifier.engine.rules import Comparison, Condition, Group, Outcome, RuleSet, format_value
 
-__all__ = ["assessment_table", "explanation", "local_time"]
+__all__ = ["assessment_table", "explanation"]
 
 _LEVEL_MARK = {"none": "·", "watch": "WATCH", "warning": "WARNING"}
-
-
-def local_time(t: datetime | None, zone_name: str, with_date: bool = False) -> str:
-    if t is None:
-        return "—"
-    from zoneinfo import ZoneInfo
-
-    local = t.astimezone(ZoneInfo(zone_name))
-    return local.strftime("%a %d %b %H:%M %Z" if with_date else "%H:%M %Z")
 
 
 def _fmt(name: str, value: float) -> str:

@@ -25,9 +25,8 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
-from notifier.cli.views import local_time
+from notifier.core.timefmt import iso_text, local_time
 from notifier.engine.features import FEATURES
-from notifier.engine.lifecycle import iso_text
 from notifier.engine.rules import format_value
 
 if TYPE_CHECKING:  # pragma: no cover

@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from datetime import datetime, timedelta
 
-from notifier.cli.views import local_time
+from notifier.core.timefmt import local_time
 from notifier.engine.assess import SiteAssessment
 from notifier.engine.lifecycle import Event, event_id
 

@@ -24,15 +24,14 @@ change lasts an hour longer or shorter in UTC, as a person would expect.
 
 from __future__ import annotations
 
-import hashlib
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 from notifier.core.config import Subscriber
 from notifier.engine.assess import level_rank
+from notifier.storage.outbox import Delivery
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Config
@@ -40,10 +39,8 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = [
     "DEFAULT_SUBSCRIBER",
-    "Delivery",
     "Mute",
     "default_subscribers",
-    "delivery_key",
     "quiet_until",
     "route",
 ]
@@ -52,28 +49,6 @@ Mute = tuple[str, str, datetime]  # (subscriber id or "*", site id or "*", until
 
 # With no subscribers configured, everything is printed (DESIGN.md: "text to stdout").
 DEFAULT_SUBSCRIBER = Subscriber(id="console", name="console", channel="stdout")
-
-
-def delivery_key(event_id: str, subscriber_id: str, channel_id: str) -> str:
-    """The idempotency key of one delivery: the same on every retry and every re-run."""
-    text = f"{event_id}|{subscriber_id}|{channel_id}"
-    return "fw-" + hashlib.sha256(text.encode()).hexdigest()[:32]
-
-
-@dataclass(frozen=True)
-class Delivery:
-    """One event for one subscriber on one channel."""
-
-    event_id: str
-    subscriber_id: str
-    channel_id: str
-    address: str | None
-    not_before: datetime | None = None  # held for quiet hours until then (UTC)
-    summary: bool = False  # part of the morning summary rather than a message of its own
-
-    @property
-    def key(self) -> str:
-        return delivery_key(self.event_id, self.subscriber_id, self.channel_id)
 
 
 def default_subscribers(config: Config) -> tuple[Subscriber, ...]:

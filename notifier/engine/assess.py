@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from notifier.core.timefmt import iso_z
 from notifier.engine.features import FEATURES, FeatureSettings, FeatureTable, compute_features_at
 from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
 
@@ -30,7 +31,6 @@ __all__ = [
     "SiteAssessment",
     "assess",
     "assess_times",
-    "iso_z",
     "level_rank",
     "to_json",
 ]
@@ -358,11 +358,6 @@ def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -
     if hours is None or not np.isfinite(hours) or hours > ETA_HORIZON_H:
         return None
     return at + timedelta(hours=float(hours))
-
-
-def iso_z(t: datetime | None) -> str | None:
-    """``2026-11-07T02:00:00Z`` (UTC, seconds), or None: the times in JSON output."""
-    return None if t is None else t.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _json_number(v: float) -> Any:

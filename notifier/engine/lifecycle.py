@@ -45,6 +45,7 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
+from notifier.core.timefmt import iso_text, parse_iso
 from notifier.engine.assess import level_rank, results_where
 from notifier.engine.features import FEATURES
 from notifier.engine.rules import HAZARDS, format_value
@@ -60,7 +61,6 @@ __all__ = [
     "Event",
     "StateKey",
     "event_id",
-    "iso_text",
     "step",
 ]
 
@@ -82,16 +82,6 @@ SHOWN_FEATURES = (
     "projected_min_temp_c",
     "hours_to_fog",
 )
-
-
-def iso_text(t: datetime | None) -> str | None:
-    """An instant as ISO 8601 in UTC (``2026-11-20T03:00:00+00:00``), or None: the times
-    of stored states and of event payloads."""
-    return None if t is None else t.astimezone(UTC).isoformat()
-
-
-def _parse(text: str | None) -> datetime | None:
-    return None if text is None else datetime.fromisoformat(text)
 
 
 @dataclass(frozen=True)
@@ -142,19 +132,19 @@ class AlertState:
         if version != STATE_VERSION:
             raise ValueError(f"unsupported alert state version {version!r}")
         raised = sorted(
-            ((lvl, _parse(t)) for lvl, t in data.get("last_raised", {}).items()),
+            ((lvl, parse_iso(t)) for lvl, t in data.get("last_raised", {}).items()),
             key=lambda p: level_rank(p[0]),
         )
         return cls(
             site_id=data["site_id"],
             hazard=data["hazard"],
             level=data["level"],
-            since=_parse(data.get("since")),
-            episode_start=_parse(data.get("episode_start")),
-            below_since=_parse(data.get("below_since")),
-            clear_since=_parse(data.get("clear_since")),
-            last_event_at=_parse(data.get("last_event_at")),
-            last_reminder_at=_parse(data.get("last_reminder_at")),
+            since=parse_iso(data.get("since")),
+            episode_start=parse_iso(data.get("episode_start")),
+            below_since=parse_iso(data.get("below_since")),
+            clear_since=parse_iso(data.get("clear_since")),
+            last_event_at=parse_iso(data.get("last_event_at")),
+            last_reminder_at=parse_iso(data.get("last_reminder_at")),
             last_raised=tuple((lvl, t) for lvl, t in raised if t is not None),
             rules=tuple(data.get("rules", ())),
             reasons=tuple(data.get("reasons", ())),
@@ -230,7 +220,7 @@ class Event:
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> Event:
-        time = _parse(data["time"])
+        time = parse_iso(data["time"])
         assert time is not None
         age = data.get("data_age_min")
         return cls(
@@ -241,11 +231,11 @@ class Event:
             level=data["level"],
             previous_level=data["previous_level"],
             time=time,
-            episode_start=_parse(data.get("episode_start")),
-            level_since=_parse(data.get("level_since")),
-            eased_since=_parse(data.get("eased_since")),
+            episode_start=parse_iso(data.get("episode_start")),
+            level_since=parse_iso(data.get("level_since")),
+            eased_since=parse_iso(data.get("eased_since")),
             kind=data.get("kind", ""),
-            eta=_parse(data.get("eta")),
+            eta=parse_iso(data.get("eta")),
             rules=tuple(data.get("rules", ())),
             reasons=tuple(data.get("reasons", ())),
             explanations=tuple(data.get("explanations", ())),

@@ -42,6 +42,7 @@ import numpy as np
 
 from notifier.core.config import parse_duration_s
 from notifier.core.errors import ConfigError, ConfigProblem
+from notifier.core.timefmt import quantity_text, unit_suffix
 from notifier.core.yamlio import MarkedDict, MarkedList, load_yaml
 from notifier.engine.features import FEATURES
 
@@ -85,8 +86,8 @@ class Comparison:
             return f"is {str(self.value).lower()}"
         if self.op == "between":
             lo, hi = self._bounds(relaxed)
-            return f"{sym} {_num(lo)}…{_num(hi)}{_unit(unit)}"
-        return f"{sym} {_num(self._bounds(relaxed))}{_unit(unit)}"
+            return f"{sym} {_num(lo)}…{_num(hi)}{unit_suffix(unit)}"
+        return f"{sym} {_num(self._bounds(relaxed))}{unit_suffix(unit)}"
 
     def _bounds(self, relaxed: bool) -> Any:
         m = self.margin if relaxed else 0.0
@@ -393,19 +394,9 @@ def _num(v: float) -> str:
     return f"{v:g}"
 
 
-def _unit(unit: str) -> str:
-    if not unit:
-        return ""
-    return unit if unit in ("%",) else f" {unit}"
-
-
 def format_value(feature: str, value: float) -> str:
     spec = FEATURES[feature]
-    if np.isnan(value):
-        return "unknown"
-    if spec.kind == "bool":
-        return "yes" if value else "no"
-    return f"{value:.{spec.decimals}f}{_unit(spec.unit)}"
+    return quantity_text(value, spec.unit, decimals=spec.decimals, kind=spec.kind)
 
 
 def _reason(o: Outcome) -> str:

@@ -18,7 +18,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from notifier.engine.assess import iso_z, results_where
+from notifier.core.timefmt import iso_z
+from notifier.engine.assess import results_where
 from notifier.engine.features import epoch_seconds
 from notifier.history.verify import (
     Contingency,
@@ -259,7 +260,7 @@ def _write_messages(loaded: Loaded, events: Sequence[Event], folder: Path) -> in
     from notifier.core.config import FolderChannel
     from notifier.delivery.channels import build_channel
     from notifier.delivery.messages import render
-    from notifier.delivery.routing import Delivery
+    from notifier.storage.outbox import Delivery
 
     channel = build_channel(FolderChannel(id="replay", type="folder", path=folder))
     with channel:

@@ -35,7 +35,7 @@ class ServiceBackend:
         return senders
 
     def is_known(self, sender: str) -> bool:
-        return sender in self._config_senders() or self.service.outbox.is_member(sender)
+        return sender in self._config_senders() or self.service.bot_state.is_member(sender)
 
     def is_operator(self, sender: str) -> bool:
         return any(sub.operator and sender in sub.senders for sub in self.config.subscribers)
@@ -44,12 +44,12 @@ class ServiceBackend:
         site = self.config.bot.join_codes.get(code)
         if site is None:
             return None
-        self.service.outbox.add_member(sender, self.now, via=f"code for {site}")
-        self.service.outbox.follow(sender, site, "watch", self.now)
+        self.service.bot_state.add_member(sender, self.now, via=f"code for {site}")
+        self.service.bot_state.follow(sender, site, "watch", self.now)
         return site
 
     def status(self, site_ids: Sequence[str]) -> list[SiteStatus]:
-        from notifier.cli.views import local_time
+        from notifier.core.timefmt import local_time
 
         snaps = self.service.outbox.snapshots()
         names = self.site_names()
@@ -91,7 +91,7 @@ class ServiceBackend:
         return out
 
     def followed(self, sender: str) -> list[str]:
-        ids = [site for _, site, _ in self.service.outbox.follows(sender)]
+        ids = [site for _, site, _ in self.service.bot_state.follows(sender)]
         for sub in self.config.subscribers:
             if sender in sub.senders:
                 ids.extend(s.id for s in self.config.sites_matching(sub.sites))
@@ -99,13 +99,13 @@ class ServiceBackend:
         return [sid for sid in dict.fromkeys(ids) if sid in known]
 
     def follow(self, sender: str, site_id: str, min_level: str) -> None:
-        self.service.outbox.follow(sender, site_id, min_level, self.now)
+        self.service.bot_state.follow(sender, site_id, min_level, self.now)
 
     def unfollow(self, sender: str, site_id: str) -> bool:
-        return self.service.outbox.unfollow(sender, site_id)
+        return self.service.bot_state.unfollow(sender, site_id)
 
     def mute(self, who: str, site_id: str, until: datetime) -> None:
-        self.service.outbox.mute(who, site_id, until, self.now)
+        self.service.bot_state.mute(who, site_id, until, self.now)
 
     def unmute(self, who: str, site_id: str) -> bool:
-        return self.service.outbox.unmute(who, site_id, self.now)
+        return self.service.bot_state.unmute(who, site_id, self.now)

@@ -19,17 +19,18 @@ from typing import TYPE_CHECKING, Any, Literal, cast
 from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber, load_config
 from notifier.core.errors import FogwatchError, UsageError
 from notifier.engine.rules import RuleSet, load_rule_set
+from notifier.storage.botstate import BotState
 from notifier.storage.outbox import Outbox
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.delivery.dispatch import DispatchReport
-    from notifier.delivery.routing import Delivery
     from notifier.engine.assess import SiteAssessment
     from notifier.engine.features import FeatureTable
     from notifier.engine.lifecycle import Event
     from notifier.ingest.base import ObservationSource, PollResult
+    from notifier.storage.outbox import Delivery
     from notifier.storage.store import Store
     from notifier.storage.window import RollingWindow
 
@@ -135,6 +136,7 @@ class Service:
         self.outbox = Outbox(
             self.store, lease=timedelta(seconds=self.loaded.config.alerts.claim_lease)
         )
+        self.bot_state = BotState(self.store)
         self.session = session
         self.channel_kwargs = dict(channel_kwargs or {})
         self._fixed_sources = sources
@@ -324,7 +326,7 @@ class Service:
 
         subs = list(default_subscribers(self.config))
         channel = self.config.bot.channel
-        for sender, site, level in self.outbox.follows():
+        for sender, site, level in self.bot_state.follows():
             subs.append(
                 Subscriber(
                     id=bot_subscriber_id(sender, site),
@@ -341,14 +343,14 @@ class Service:
     def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
         """Stored mutes, with a sender's mute applied to every subscriber they speak for."""
         out: list[tuple[str, str, datetime]] = []
-        for who, site, until in self.outbox.mutes(now):
+        for who, site, until in self.bot_state.mutes(now):
             if who == "*":
                 out.append(("*", site, until))
                 continue
             for sub in self.config.subscribers:
                 if who in sub.senders:
                     out.append((sub.id, site, until))
-            for sender, followed, _ in self.outbox.follows(who):
+            for sender, followed, _ in self.bot_state.follows(who):
                 out.append((bot_subscriber_id(sender, followed), site, until))
         return out
 

@@ -1,4 +1,5 @@
-"""Alert states, events and the durable delivery outbox, plus the bot's follows and mutes.
+"""Alert states, events and the durable delivery outbox (the bot's members, follows and
+mutes are in :mod:`notifier.storage.botstate`).
 
 The tables are created by the store's migration ``0002_alerts``. ``commit_cycle`` writes
 a cycle's new states, its events and their deliveries in ONE transaction, so a state
@@ -11,6 +12,7 @@ delivery twice is a no-op.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import uuid
 from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -21,94 +23,39 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
-from notifier.delivery.routing import Delivery
+from notifier.core.timefmt import iso_z, parse_iso
 from notifier.engine.lifecycle import AlertState, Event, StateKey
-from notifier.storage.store import Store, iso_utc, metadata
+from notifier.storage.migrations import alert_states, deliveries, events, site_status
+from notifier.storage.store import Store
 
-__all__ = ["CLAIM_LEASE", "DeliveryRow", "Outbox"]
+__all__ = ["CLAIM_LEASE", "Delivery", "DeliveryRow", "Outbox", "delivery_key"]
 
 #: How long a dispatcher's claim on the deliveries it is sending lasts, in wall-clock
 #: time (``alerts.claim_lease``). The dispatcher renews it while it works through a long
 #: run; a claim left to lapse belongs to a dispatcher that died, and its rows go out again.
 CLAIM_LEASE = timedelta(minutes=15)
 
-alert_states = sa.Table(
-    "alert_states",
-    metadata,
-    sa.Column("site", sa.Text, primary_key=True),
-    sa.Column("hazard", sa.Text, primary_key=True),
-    sa.Column("state", sa.Text, nullable=False),
-    sa.Column("updated_at", sa.Text, nullable=False),
-)
-events = sa.Table(
-    "events",
-    metadata,
-    sa.Column("id", sa.Text, primary_key=True),
-    sa.Column("site", sa.Text, nullable=False),
-    sa.Column("hazard", sa.Text, nullable=False),
-    sa.Column("type", sa.Text, nullable=False),
-    sa.Column("level", sa.Text, nullable=False),
-    sa.Column("time", sa.Text, nullable=False),
-    sa.Column("payload", sa.Text, nullable=False),
-    sa.Column("chart", sa.LargeBinary),
-    sa.Column("created_at", sa.Text, nullable=False),
-)
-deliveries = sa.Table(
-    "deliveries",
-    metadata,
-    sa.Column("key", sa.Text, primary_key=True),
-    sa.Column("event_id", sa.Text, nullable=False),
-    sa.Column("subscriber", sa.Text, nullable=False),
-    sa.Column("channel", sa.Text, nullable=False),
-    sa.Column("address", sa.Text),
-    sa.Column("status", sa.Text, nullable=False),
-    sa.Column("attempts", sa.Integer, nullable=False),
-    sa.Column("next_attempt_at", sa.Text, nullable=False),
-    sa.Column("not_before", sa.Text),
-    sa.Column("summary", sa.Integer, nullable=False),
-    sa.Column("created_at", sa.Text, nullable=False),
-    sa.Column("sent_at", sa.Text),
-    sa.Column("last_error", sa.Text),
-    sa.Column("claimed_until", sa.Text),
-    sa.Column("claimed_by", sa.Text),  # the claim's own token (see Outbox.claim)
-)
-site_status = sa.Table(
-    "site_status",
-    metadata,
-    sa.Column("site", sa.Text, primary_key=True),
-    sa.Column("time", sa.Text, nullable=False),
-    sa.Column("level", sa.Text, nullable=False),
-    sa.Column("payload", sa.Text, nullable=False),
-)
-follows = sa.Table(
-    "follows",
-    metadata,
-    sa.Column("sender", sa.Text, primary_key=True),
-    sa.Column("site", sa.Text, primary_key=True),
-    sa.Column("min_level", sa.Text, nullable=False),
-    sa.Column("created_at", sa.Text, nullable=False),
-)
-mutes = sa.Table(
-    "mutes",
-    metadata,
-    sa.Column("who", sa.Text, primary_key=True),
-    sa.Column("site", sa.Text, primary_key=True),
-    sa.Column("until", sa.Text, nullable=False),
-    sa.Column("created_at", sa.Text, nullable=False),
-)
-members = sa.Table(
-    "members",
-    metadata,
-    sa.Column("sender", sa.Text, primary_key=True),
-    sa.Column("joined_at", sa.Text, nullable=False),
-    sa.Column("via", sa.Text),
-)
+
+def delivery_key(event_id: str, subscriber_id: str, channel_id: str) -> str:
+    """The idempotency key of one delivery: the same on every retry and every re-run."""
+    text = f"{event_id}|{subscriber_id}|{channel_id}"
+    return "fw-" + hashlib.sha256(text.encode()).hexdigest()[:32]
 
 
-def _dt(text: str | None) -> datetime | None:
-    if text is None:
-        return None
-    return datetime.strptime(text, "%Y-%m-%dT%H:%M:%SZ").replace(tzinfo=UTC)
+@dataclass(frozen=True)
+class Delivery:
+    """One event for one subscriber on one channel."""
+
+    event_id: str
+    subscriber_id: str
+    channel_id: str
+    address: str | None
+    not_before: datetime | None = None  # held for quiet hours until then (UTC)
+    summary: bool = False  # part of the morning summary rather than a message of its own
+
+    @property
+    def key(self) -> str:
+        return delivery_key(self.event_id, self.subscriber_id, self.channel_id)
 
 
 @dataclass(frozen=True)
@@ -137,11 +84,11 @@ class DeliveryRow:
             address=row["address"],
             status=row["status"],
             attempts=int(row["attempts"]),
-            next_attempt_at=_dt(row["next_attempt_at"]),  # type: ignore[arg-type]
-            not_before=_dt(row["not_before"]),
+            next_attempt_at=parse_iso(row["next_attempt_at"]),  # type: ignore[arg-type]
+            not_before=parse_iso(row["not_before"]),
             summary=bool(row["summary"]),
-            created_at=_dt(row["created_at"]),  # type: ignore[arg-type]
-            sent_at=_dt(row["sent_at"]),
+            created_at=parse_iso(row["created_at"]),  # type: ignore[arg-type]
+            sent_at=parse_iso(row["sent_at"]),
             last_error=row["last_error"],
         )
 
@@ -202,7 +149,7 @@ class Outbox:
         snapshots: Mapping[str, tuple[str, dict[str, Any]]] | None = None,
     ) -> int:
         """States, events and deliveries of one cycle, together. Returns deliveries added."""
-        when = iso_utc(now)
+        when = iso_z(now)
         charts = charts or {}
         added = 0
         with self.store.atomic() as conn:
@@ -233,7 +180,7 @@ class Outbox:
                         hazard=ev.hazard,
                         type=ev.type,
                         level=ev.level,
-                        time=iso_utc(ev.time),
+                        time=iso_z(ev.time),
                         payload=json.dumps(ev.to_dict()),
                         chart=charts.get(ev.id),
                         created_at=when,
@@ -252,7 +199,7 @@ class Outbox:
                         status="pending",
                         attempts=0,
                         next_attempt_at=when,
-                        not_before=iso_utc(d.not_before) if d.not_before else None,
+                        not_before=iso_z(d.not_before) if d.not_before else None,
                         summary=int(d.summary),
                         created_at=when,
                     )
@@ -300,7 +247,7 @@ class Outbox:
         with self.engine.connect() as conn:
             rows = conn.execute(
                 sa.select(events.c.payload)
-                .where((events.c.time >= iso_utc(start)) & (events.c.time <= iso_utc(end)))
+                .where((events.c.time >= iso_z(start)) & (events.c.time <= iso_z(end)))
                 .order_by(events.c.time, events.c.id)
             ).scalars()
             return [Event.from_dict(json.loads(p)) for p in rows]
@@ -328,7 +275,7 @@ class Outbox:
         with self.engine.connect() as conn:
             rows = conn.execute(
                 sa.select(deliveries)
-                .where(self._due(iso_utc(now)))
+                .where(self._due(iso_z(now)))
                 .order_by(d.created_at, d.key)
                 .limit(limit)
             ).mappings()
@@ -345,7 +292,7 @@ class Outbox:
         row ends its claim; :meth:`release` hands back what was not sent; a crashed
         dispatcher's claims simply lapse.
         """
-        when, until = iso_utc(now), _claim_time(self.wall_clock() + self.lease)
+        when, until = iso_z(now), _claim_time(self.wall_clock() + self.lease)
         token = uuid.uuid4().hex
         d = deliveries.c
         with self.store.atomic() as conn:
@@ -418,11 +365,11 @@ class Outbox:
         values: dict[str, Any] = {"status": status, "last_error": error}
         values.update(claimed_until=None, claimed_by=None)  # marked: no longer anyone's
         if status == "sent":
-            values["sent_at"] = iso_utc(now)
+            values["sent_at"] = iso_z(now)
         if status in ("sent", "failed") or next_attempt_at is not None:
             values["attempts"] = deliveries.c.attempts + 1
         if next_attempt_at is not None:
-            values["next_attempt_at"] = iso_utc(next_attempt_at)
+            values["next_attempt_at"] = iso_z(next_attempt_at)
         where: Any = deliveries.c.key.in_(keys)
         if claim is not None:
             where &= deliveries.c.claimed_by == claim
@@ -444,7 +391,7 @@ class Outbox:
             keys = list(
                 conn.execute(
                     sa.select(d.key).where(
-                        (d.status == "pending") & (due_since < iso_utc(older_than)) & unclaimed
+                        (d.status == "pending") & (due_since < iso_z(older_than)) & unclaimed
                     )
                 ).scalars()
             )
@@ -481,7 +428,7 @@ class Outbox:
     def trim(self, before: datetime) -> int:
         """Forget finished deliveries and unreferenced events older than ``before``."""
         d = deliveries.c
-        cut = iso_utc(before)
+        cut = iso_z(before)
         with self.store.atomic() as conn:
             n = conn.execute(
                 deliveries.delete().where(
@@ -502,89 +449,6 @@ class Outbox:
         with self.engine.connect() as conn:
             rows = conn.execute(sa.select(site_status))
             return {
-                r.site: (_dt(r.time), r.level, json.loads(r.payload))  # type: ignore[misc]
+                r.site: (parse_iso(r.time), r.level, json.loads(r.payload))  # type: ignore[misc]
                 for r in rows
             }
-
-    # -- bot: members, follows, mutes ------------------------------------------------------
-
-    def add_member(self, sender: str, now: datetime, via: str | None) -> None:
-        with self.store.atomic() as conn:
-            conn.execute(
-                self.store._insert(members)
-                .values(
-                    sender=sender,
-                    joined_at=iso_utc(now),
-                    via=via,
-                )
-                .on_conflict_do_nothing(index_elements=["sender"])
-            )
-
-    def is_member(self, sender: str) -> bool:
-        with self.engine.connect() as conn:
-            return (
-                conn.execute(sa.select(members.c.sender).where(members.c.sender == sender)).first()
-                is not None
-            )
-
-    def follow(self, sender: str, site: str, min_level: str, now: datetime) -> None:
-        with self.store.atomic() as conn:
-            stmt = self.store._insert(follows).values(
-                sender=sender, site=site, min_level=min_level, created_at=iso_utc(now)
-            )
-            conn.execute(
-                stmt.on_conflict_do_update(
-                    index_elements=["sender", "site"], set_={"min_level": stmt.excluded.min_level}
-                )
-            )
-
-    def unfollow(self, sender: str, site: str) -> bool:
-        with self.store.atomic() as conn:
-            return bool(
-                conn.execute(
-                    follows.delete().where((follows.c.sender == sender) & (follows.c.site == site))
-                ).rowcount
-            )
-
-    def follows(self, sender: str | None = None) -> list[tuple[str, str, str]]:
-        """(sender, site, min_level) rows."""
-        with self.engine.connect() as conn:
-            q = sa.select(follows.c.sender, follows.c.site, follows.c.min_level).order_by(
-                follows.c.sender, follows.c.site
-            )
-            if sender is not None:
-                q = q.where(follows.c.sender == sender)
-            return [tuple(r) for r in conn.execute(q)]  # type: ignore[misc]
-
-    def mute(self, who: str, site: str, until: datetime, now: datetime) -> None:
-        with self.store.atomic() as conn:
-            stmt = self.store._insert(mutes).values(
-                who=who, site=site, until=iso_utc(until), created_at=iso_utc(now)
-            )
-            conn.execute(
-                stmt.on_conflict_do_update(
-                    index_elements=["who", "site"], set_={"until": stmt.excluded.until}
-                )
-            )
-
-    def unmute(self, who: str, site: str, now: datetime) -> bool:
-        with self.store.atomic() as conn:
-            return bool(
-                conn.execute(
-                    mutes.delete().where(
-                        (mutes.c.who == who)
-                        & (mutes.c.site == site)
-                        & (mutes.c.until > iso_utc(now))
-                    )
-                ).rowcount
-            )
-
-    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
-        """Mutes still in force: (who, site, until)."""
-        with self.engine.connect() as conn:
-            rows = conn.execute(
-                sa.select(mutes.c.who, mutes.c.site, mutes.c.until).where(
-                    mutes.c.until > iso_utc(now)
-                )
-            )
-            return [(w, s, _dt(u)) for w, s, u in rows]  # type: ignore[misc]

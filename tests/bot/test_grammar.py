@@ -209,10 +209,10 @@ def test_handle_over_a_service_backend_stores_follows_and_mutes(assessed: Scene)
     assert handle(backend, "guest-cy", "follow zz-vale from warning", AT).endswith(
         "from warning level up."
     )
-    assert service.outbox.follows("guest-cy") == [("guest-cy", "zz-vale", "warning")]
+    assert service.bot_state.follows("guest-cy") == [("guest-cy", "zz-vale", "warning")]
     handle(backend, "op-ash", "hush zz-quay for 2h for everyone", AT)
     handle(backend, "crew-bo", "hush zz-vale for 30min", AT)
-    stored = {(who, site): until for who, site, until in service.outbox.mutes(AT)}
+    stored = {(who, site): until for who, site, until in service.bot_state.mutes(AT)}
     assert stored == {
         ("*", "zz-quay"): utc(2026, 11, 21, 1, 10),
         ("crew-bo", "zz-vale"): utc(2026, 11, 20, 23, 40),
@@ -222,15 +222,15 @@ def test_handle_over_a_service_backend_stores_follows_and_mutes(assessed: Scene)
     assert ("crew", "zz-vale", utc(2026, 11, 20, 23, 40)) in expanded
     assert ("*", "zz-quay", utc(2026, 11, 21, 1, 10)) in expanded
     # and it lapses on its own
-    assert service.outbox.mutes(utc(2026, 11, 20, 23, 40)) == [
+    assert service.bot_state.mutes(utc(2026, 11, 20, 23, 40)) == [
         ("*", "zz-quay", utc(2026, 11, 21, 1, 10))
     ]
 
 
 def test_a_follow_of_a_site_since_removed_from_the_config_is_skipped(assessed: Scene):
     service = assessed.service()
-    service.outbox.follow("guest-cy", "zz-gone", "watch", AT)
-    service.outbox.follow("guest-cy", "zz-quay", "watch", AT)
+    service.bot_state.follow("guest-cy", "zz-gone", "watch", AT)
+    service.bot_state.follow("guest-cy", "zz-quay", "watch", AT)
     reply = handle(ServiceBackend(service, AT), "guest-cy", "status", AT)
     assert reply.splitlines()[0].startswith("North Quay Basin: NONE")
     assert "zz-gone" not in handle(ServiceBackend(service, AT), "guest-cy", "sites", AT)

@@ -19,8 +19,9 @@ from typing import Any
 import yaml
 
 from notifier.delivery.channels.webhook import DELIVERY_HEADER, verify_signature
-from notifier.delivery.routing import Delivery, route
+from notifier.delivery.routing import route
 from notifier.engine.lifecycle import Event
+from notifier.storage.outbox import Delivery
 from tests.delivery.conftest import SMTP_PASSWORD, SMTP_USER, WEBHOOK_SECRET
 
 SMTP_ENV = "FOGWATCH_TEST_SMTP_PASSWORD"

@@ -52,8 +52,8 @@ def outlook_rows(service: Service) -> list[tuple[str, str, str]]:
 
 def test_the_outlook_goes_per_site_to_watch_level_subscribers(evening: Scene):
     service = evening.service()
-    service.outbox.follow("guest-cy", "zz-quay", "watch", OUTLOOK_AT)
-    service.outbox.follow("op-ash", "zz-vale", "warning", OUTLOOK_AT)
+    service.bot_state.follow("guest-cy", "zz-quay", "watch", OUTLOOK_AT)
+    service.bot_state.follow("op-ash", "zz-vale", "warning", OUTLOOK_AT)
     service.poll_and_assess(OUTLOOK_AT)
     queued = service.outlook(OUTLOOK_AT, ["zz-vale", "zz-quay"])
     rows = outlook_rows(service)
@@ -110,7 +110,7 @@ def test_a_quiet_sites_outlook_says_low_chance_without_an_onset(evening: Scene):
 
 def test_the_outlook_respects_a_hush(evening: Scene):
     service = evening.service()
-    service.outbox.mute("crew-bo", "zz-vale", OUTLOOK_AT + timedelta(hours=1), OUTLOOK_AT)
+    service.bot_state.mute("crew-bo", "zz-vale", OUTLOOK_AT + timedelta(hours=1), OUTLOOK_AT)
     service.poll_and_assess(OUTLOOK_AT)
     service.outlook(OUTLOOK_AT, ["zz-vale"])
     assert [sub for sub, _, _ in outlook_rows(service)] == ["desk"]

@@ -267,7 +267,6 @@ def test_public_names():
         "Event",
         "StateKey",
         "event_id",
-        "iso_text",
         "step",
     }
     for name in lifecycle_module.__all__:

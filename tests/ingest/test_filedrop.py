@@ -16,8 +16,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from notifier.core.config import Config, FileDropSource, Site
-from notifier.ingest.filedrop import FileDrop, parse_file
 from notifier.ingest import filedrop
+from notifier.ingest.filedrop import FileDrop, parse_file
 from notifier.storage.store import Store
 from tests.conftest import SITES
 

@@ -116,7 +116,7 @@ def test_follows_and_mutes_outlive_the_process(scene: Scene):
     say(first, "crew-bo", "hush vale for 3h", at)
     first.close()
     second = scene.service()
-    assert second.outbox.follows() == [("guest-cy", "zz-quay", "warning")]
+    assert second.bot_state.follows() == [("guest-cy", "zz-quay", "warning")]
     subs = {s.id: s for s in second.subscribers()}
     follower = subs[bot_subscriber_id("guest-cy", "zz-quay")]
     assert (follower.channel, follower.address, follower.sites, follower.min_level) == (

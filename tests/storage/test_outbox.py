@@ -9,10 +9,11 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
-from notifier.delivery.routing import Delivery
 from notifier.engine.lifecycle import AlertState
 from notifier.storage import outbox as outbox_module
-from notifier.storage.outbox import Outbox, deliveries, events
+from notifier.storage.botstate import BotState
+from notifier.storage.migrations import deliveries, events
+from notifier.storage.outbox import Delivery, Outbox
 from notifier.storage.store import Store
 from tests.delivery.scenes import event, utc
 
@@ -53,7 +54,13 @@ def counts(box: Outbox) -> tuple[int, int, int]:
 
 
 def test_public_names():
-    assert set(outbox_module.__all__) == {"CLAIM_LEASE", "DeliveryRow", "Outbox"}
+    assert set(outbox_module.__all__) == {
+        "CLAIM_LEASE",
+        "Delivery",
+        "DeliveryRow",
+        "Outbox",
+        "delivery_key",
+    }
 
 
 def test_commit_cycle_writes_states_events_and_deliveries_together(box):
@@ -234,40 +241,6 @@ def test_events_between(box):
     assert [e.id for e in got] == [evs[1].id, evs[2].id]
 
 
-def test_members_follows_and_mutes_round_trip(box):
-    assert not box.is_member("+440000001")
-    box.add_member("+440000001", T0, "code")
-    box.add_member("+440000001", T0 + timedelta(days=1), "again")  # first join kept
-    assert box.is_member("+440000001")
-
-    box.follow("+440000001", "quay-two", "watch", T0)
-    box.follow("+440000001", "north-field", "warning", T0)
-    box.follow("+440000002", "quay-two", "warning", T0)
-    box.follow("+440000001", "quay-two", "warning", T0)  # changes the level
-    assert box.follows() == [
-        ("+440000001", "north-field", "warning"),
-        ("+440000001", "quay-two", "warning"),
-        ("+440000002", "quay-two", "warning"),
-    ]
-    assert box.follows("+440000002") == [("+440000002", "quay-two", "warning")]
-    assert box.unfollow("+440000002", "quay-two") is True
-    assert box.unfollow("+440000002", "quay-two") is False
-
-    until = T0 + timedelta(hours=2)
-    box.mute("harbour-ops", "quay-two", T0 + timedelta(hours=1), T0)
-    box.mute("harbour-ops", "quay-two", until, T0)  # extends
-    box.mute("*", "north-field", T0 + timedelta(minutes=30), T0)
-    half_hour = T0 + timedelta(minutes=30)
-    assert sorted(box.mutes(T0)) == [
-        ("*", "north-field", half_hour),
-        ("harbour-ops", "quay-two", until),
-    ]
-    assert box.mutes(T0 + timedelta(hours=1)) == [("harbour-ops", "quay-two", until)]
-    assert box.unmute("*", "north-field", T0 + timedelta(hours=1)) is False  # already over
-    assert box.unmute("harbour-ops", "quay-two", T0) is True
-    assert box.mutes(T0) == [("*", "north-field", T0 + timedelta(minutes=30))]
-
-
 def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
     url = f"sqlite:///{tmp_path / 'fogwatch.sqlite'}"
     ev = event(at=T0)
@@ -276,7 +249,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
     )
     new = {QUAY: state(), FIELD: state(FIELD, "warning")}
     with Store(url) as store:
-        box = Outbox(store)
+        box, bot = Outbox(store), BotState(store)
         box.commit_cycle(
             {},
             new,
@@ -287,10 +260,10 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             snapshots={"quay-two": ("watch", {"n": 1})},
         )
         box.mark([rows[0].key], "sent", T0 + timedelta(seconds=5))
-        box.follow("+440000001", "quay-two", "watch", T0)
-        box.mute("harbour-ops", "*", T0 + timedelta(hours=3), T0)
-        box.add_member("+440000001", T0, None)
-        before = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))
+        bot.follow("+440000001", "quay-two", "watch", T0)
+        bot.mute("harbour-ops", "*", T0 + timedelta(hours=3), T0)
+        bot.add_member("+440000001", T0, None)
+        before = (box.states(), box.deliveries(), box.snapshots(), bot.follows(), bot.mutes(T0))
     with Store(url) as store:
         assert store.applied_migrations() == [
             "0001_initial",
@@ -299,12 +272,12 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0004_postgresql_widths",
             "0005_delivery_claims",
         ]
-        box = Outbox(store)
-        after = (box.states(), box.deliveries(), box.snapshots(), box.follows(), box.mutes(T0))
+        box, bot = Outbox(store), BotState(store)
+        after = (box.states(), box.deliveries(), box.snapshots(), bot.follows(), bot.mutes(T0))
         assert after == before
         assert box.states() == new
         assert box.event(ev.id) == (ev, b"\x89PNG")
-        assert box.is_member("+440000001")
+        assert bot.is_member("+440000001")
         assert [r.subscriber for r in box.due(T0 + timedelta(minutes=1))] == ["duty-lead"]
 
 
