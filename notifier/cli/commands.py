@@ -260,7 +260,7 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
 def cli_replay(args: argparse.Namespace) -> int:
     """Run the rules over history and score them; optionally a second rule set too."""
     from notifier.core.config import parse_duration_s
-    from notifier.engine.rules import load_rule_set
+    from notifier.engine.rule_files import load_rule_set
     from notifier.history import replay as rp
     from notifier.ingest.poll import read_files
 

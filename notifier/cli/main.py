@@ -41,7 +41,7 @@ class _Parser(argparse.ArgumentParser):
 
 def _cmd_check(args: argparse.Namespace) -> int:
     from notifier.core.config import load_config
-    from notifier.engine.rules import load_rule_set
+    from notifier.engine.rule_files import load_rule_set
 
     config = load_config(args.config)
     rules = load_rule_set(config.rule_paths())

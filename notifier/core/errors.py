@@ -7,6 +7,7 @@
     ├── ConfigError (exit 2)          invalid config or rule file; holds every problem
     ├── DataError (exit 2)            input data that cannot be used at all
     ├── SourceUnavailable (exit 3)    a data source could not be reached or read
+    ├── StoreError (exit 1)           the database could not be opened, migrated or written
     └── DeliveryError (exit 4)        a message could not be delivered
         ├── TransientDeliveryError    worth retrying later
         └── PermanentDeliveryError    retrying will not help
@@ -27,6 +28,7 @@ __all__ = [
     "FogwatchError",
     "PermanentDeliveryError",
     "SourceUnavailable",
+    "StoreError",
     "TransientDeliveryError",
     "UsageError",
 ]
@@ -87,3 +89,7 @@ class TransientDeliveryError(DeliveryError):
 
 class PermanentDeliveryError(DeliveryError):
     """Delivery failed in a way a retry cannot fix (bad address, webhook 4xx)."""
+
+
+class StoreError(FogwatchError):
+    """The database could not be opened, migrated or written."""

@@ -18,7 +18,8 @@ from typing import TYPE_CHECKING, Any, Literal, cast
 
 from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber, load_config
 from notifier.core.errors import FogwatchError, UsageError
-from notifier.engine.rules import RuleSet, load_rule_set
+from notifier.engine.rule_files import load_rule_set
+from notifier.engine.rules import RuleSet
 from notifier.storage.botstate import BotState
 from notifier.storage.outbox import Outbox
 
@@ -162,7 +163,7 @@ class Service:
     # -- files and reload --------------------------------------------------------------
 
     def _watched_files(self) -> list[Path]:
-        from notifier.engine.rules import rule_files
+        from notifier.engine.rule_files import rule_files
 
         return [self.config_path, *rule_files(self.loaded.config.rule_paths())]
 

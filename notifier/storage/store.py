@@ -5,37 +5,29 @@ The schema and its migrations are in :mod:`notifier.storage.migrations`.
 Times: ``observations.time`` is integer seconds since the Unix epoch (UTC), which keeps
 the window queries and bulk inserts cheap; the small bookkeeping tables hold ISO 8601
 UTC text (``2024-01-05T03:00:00Z``) so that they read well in the sqlite shell.
-
-SQLite connections get WAL journaling (readers do not block the writer), a busy timeout
-(a second process waits rather than failing), and explicit ``BEGIN`` so that DDL runs
-inside the migration's transaction (the sqlite3 module would otherwise autocommit it).
-Write transactions use ``BEGIN IMMEDIATE`` so two writers queue instead of deadlocking.
 """
 
 from __future__ import annotations
 
 import contextlib
 import logging
-import math
 from collections.abc import Iterator, Sequence
 from datetime import UTC, datetime
-from typing import Any, cast
+from typing import Any
 
-import numpy as np
 import pandas as pd
 import sqlalchemy as sa
-from sqlalchemy import event
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.pool import StaticPool
 
-from notifier.core.errors import FogwatchError
+from notifier.core.errors import StoreError
 from notifier.core.observations import (
     CANONICAL_COLUMNS,
     FLOAT_COLUMNS,
-    TEXT_COLUMNS,
     text_columns_as_objects,
 )
 from notifier.core.timefmt import iso_z, parse_iso
+from notifier.storage.connect import make_engine, sqlite_events
 from notifier.storage.migrations import (
     MIGRATIONS,
     counters,
@@ -44,26 +36,21 @@ from notifier.storage.migrations import (
     seen_files,
     source_health,
 )
+from notifier.storage.rows import (
+    by_kind_and_source,
+    epoch_s,
+    frame_rows,
+    join_columns,
+    records_frame,
+    sql_text,
+)
 
-__all__ = ["Store", "StoreError"]
+__all__ = ["Store"]
 
 log = logging.getLogger(__name__)
 
-BUSY_TIMEOUT_MS = 10_000
 _BATCH_ROWS = 50_000
 _FETCH_ROWS = 20_000  # rows per fetch: a smaller transient, as fast
-
-
-class StoreError(FogwatchError):
-    """The database could not be opened, migrated or written."""
-
-
-def _epoch_s(moment: datetime, *, ceil: bool = False) -> int:
-    """Seconds since the epoch; a naive time is taken as UTC."""
-    if moment.tzinfo is None:
-        moment = moment.replace(tzinfo=UTC)
-    seconds = moment.timestamp()
-    return math.ceil(seconds) if ceil else math.floor(seconds)
 
 
 class Store:
@@ -80,7 +67,7 @@ class Store:
     def __init__(self, url: str, *, engine: Engine | None = None):
         self.url = url
         try:
-            self.engine = engine or _make_engine(url)
+            self.engine = engine or make_engine(url)
             try:
                 self._migrate()
             except StoreError:
@@ -95,7 +82,7 @@ class Store:
         engine = sa.create_engine(
             "sqlite://", poolclass=StaticPool, connect_args={"check_same_thread": False}
         )
-        _sqlite_events(engine)
+        sqlite_events(engine)
         return cls("sqlite://", engine=engine)
 
     def close(self) -> None:
@@ -194,7 +181,7 @@ class Store:
         whole, so the newest input wins. Returns the number of rows written."""
         if frame.empty:
             return 0
-        received = _epoch_s(received_at or datetime.now(UTC))
+        received = epoch_s(received_at or datetime.now(UTC))
         nan_is_null = self.engine.dialect.name == "sqlite"
         with self._write(conn) as c:
             batch = self._next_batch(c)
@@ -202,14 +189,14 @@ class Store:
             # triple the cost of a million-row batch.
             cursor = c.connection.cursor()
             try:
-                for (kind, source), part in _by_kind_and_source(frame):
+                for (kind, source), part in by_kind_and_source(frame):
                     present = [
                         name
                         for name in (*FLOAT_COLUMNS, "weather")
                         if bool(part[name].notna().any())
                     ]
                     sql = self._upsert_sql(present, kind, source, received, batch)
-                    rows = _rows(part, present, nan_is_null=nan_is_null)
+                    rows = frame_rows(part, present, nan_is_null=nan_is_null)
                     for start in range(0, len(rows), _BATCH_ROWS):
                         cursor.executemany(sql, rows[start : start + _BATCH_ROWS])
             finally:
@@ -257,7 +244,7 @@ class Store:
         written into the statement: each bound column costs time on every row."""
         names = ["site", "time", *present, "kind", "source", "received_at", "batch"]
         values = [self._mark()] * (2 + len(present))
-        values += [_sql_text(kind), _sql_text(source), str(int(received)), str(int(batch))]
+        values += [sql_text(kind), sql_text(source), str(int(received)), str(int(batch))]
         updates = [
             f"{name} = excluded.{name}" if name in present else f"{name} = NULL"
             for name in (*FLOAT_COLUMNS, "weather")
@@ -291,15 +278,15 @@ class Store:
         mark = self._mark()
         kinds = list(kinds)
         if not kinds or (site_ids is not None and not list(site_ids)):
-            return _frame([], shared_text=categorical)
+            return records_frame([], shared_text=categorical)
         sql = (
             f"SELECT {', '.join(CANONICAL_COLUMNS)} FROM observations "
             f"WHERE time >= {mark} AND kind IN ({', '.join([mark] * len(kinds))})"
         )
-        params: list[Any] = [_epoch_s(start, ceil=True), *kinds]
+        params: list[Any] = [epoch_s(start, ceil=True), *kinds]
         if end is not None:
             sql += f" AND time <= {mark}"
-            params.append(_epoch_s(end))
+            params.append(epoch_s(end))
         if after is not None:
             sql += f" AND batch > {mark}"
             params.append(int(after))
@@ -325,21 +312,21 @@ class Store:
                     records = cursor.fetchmany(_FETCH_ROWS)
                     if not records:
                         break
-                    frame = _frame(records, shared_text=True)
+                    frame = records_frame(records, shared_text=True)
                     del records
                     chunks.append({c: frame[c].array for c in CANONICAL_COLUMNS})
                     del frame
             finally:
                 cursor.close()
         if not chunks:
-            return _frame([], shared_text=categorical)
-        joined = _join_columns(chunks)
+            return records_frame([], shared_text=categorical)
+        joined = join_columns(chunks)
         return joined if categorical else text_columns_as_objects(joined)
 
     def trim_observations(self, before: datetime, *, conn: Connection | None = None) -> int:
         """Delete rows older than ``before``; returns how many."""
         with self._write(conn) as c:
-            result = c.execute(observations.delete().where(observations.c.time < _epoch_s(before)))
+            result = c.execute(observations.delete().where(observations.c.time < epoch_s(before)))
             return int(result.rowcount or 0)
 
     # -- source health -------------------------------------------------------------
@@ -431,138 +418,3 @@ class Store:
                 )
                 .on_conflict_do_nothing(index_elements=["sha256"])
             )
-
-
-#: ``INSERT … RETURNING`` and ``UPDATE … RETURNING`` (the outbox's counts and claims).
-SQLITE_AT_LEAST = (3, 35)
-
-
-def _make_engine(url: str) -> Engine:
-    engine = sa.create_engine(url)
-    if engine.dialect.name == "sqlite":
-        _sqlite_events(engine)
-    return engine
-
-
-def _sqlite_events(engine: Engine) -> None:
-    import sqlite3
-
-    if sqlite3.sqlite_version_info < SQLITE_AT_LEAST:
-        raise StoreError(
-            f"SQLite {'.'.join(map(str, SQLITE_AT_LEAST))} or newer is needed; this Python "
-            f"has {sqlite3.sqlite_version}"
-        )
-
-    @event.listens_for(engine, "connect")
-    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
-        # Let SQLAlchemy's "begin" event issue BEGIN itself (see the module docstring).
-        dbapi_conn.isolation_level = None
-        cursor = dbapi_conn.cursor()
-        cursor.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
-        cursor.execute("PRAGMA journal_mode = WAL")
-        # NORMAL is safe with WAL: a power cut may lose the last commits, never corrupt.
-        cursor.execute("PRAGMA synchronous = NORMAL")
-        # A bigger page cache (16 MiB, eight times the default) keeps bulk upserts into the
-        # primary-key index fast; 64 MiB stored a million rows no faster (bench/README.md)
-        # and held 50 MB more for the life of a service.
-        cursor.execute("PRAGMA cache_size = -16384")
-        cursor.close()
-
-    @event.listens_for(engine, "begin")
-    def _on_begin(conn: Connection) -> None:
-        mode = conn.get_execution_options().get("fogwatch_begin", "")
-        conn.exec_driver_sql(f"BEGIN {mode}".strip())
-
-
-def _sql_text(value: Any) -> str:
-    """A text literal, quotes doubled (standard SQL); NULL for a missing value."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "NULL"
-    return "'" + str(value).replace("'", "''") + "'"
-
-
-def _by_kind_and_source(frame: pd.DataFrame) -> Iterator[tuple[tuple[Any, Any], pd.DataFrame]]:
-    kinds = frame["kind"]
-    sources = frame["source"]
-    if kinds.nunique(dropna=False) == 1 and sources.nunique(dropna=False) == 1:
-        yield (kinds.iloc[0], sources.iloc[0]), frame
-        return
-    yield from frame.groupby(["kind", "source"], sort=False, dropna=False)
-
-
-def _rows(frame: pd.DataFrame, present: list[str], *, nan_is_null: bool) -> list[tuple[Any, ...]]:
-    """Frame → tuples for executemany, built column-wise (no per-row pandas access).
-
-    Rows go in primary-key order: appending to the index is much cheaper than inserting
-    all over it (about a quarter off a million-row batch).
-    """
-    times = pd.DatetimeIndex(frame["time"])
-    if times.tz is None:
-        times = times.tz_localize("UTC")
-    seconds = times.as_unit("ns").asi8 // 1_000_000_000
-    site_codes, site_names = pd.factorize(frame["site"], sort=True)
-    order = np.lexsort((seconds, site_codes))
-    columns: list[list[Any]] = [
-        np.asarray(site_names, dtype=object)[site_codes[order]].tolist(),
-        seconds[order].tolist(),
-    ]
-    for name in present:
-        if name in FLOAT_COLUMNS:
-            values = frame[name].to_numpy(dtype="float64", na_value=np.nan)[order]
-            # SQLite stores a bound NaN as NULL already; other databases need None.
-            columns.append(values.tolist() if nan_is_null else _nan_to_none(values))
-        else:
-            series = frame[name]
-            text = series.astype(object).where(series.notna(), None).to_numpy(dtype=object)
-            columns.append(text[order].tolist())
-    return list(zip(*columns, strict=True))
-
-
-def _nan_to_none(values: np.ndarray) -> list[Any]:
-    # numpy's stubs leave None out of the scalars np.where takes; object arrays hold it
-    return np.where(np.isnan(values), cast(Any, None), values.astype(object)).tolist()
-
-
-def _frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame:
-    from notifier.core.observations import empty_frame
-
-    if not records:
-        empty = empty_frame()
-        if shared_text:
-            for column in TEXT_COLUMNS:
-                empty[column] = empty[column].astype("category")
-        return empty
-    frame = pd.DataFrame.from_records(records, columns=CANONICAL_COLUMNS)
-    frame["time"] = pd.to_datetime(frame["time"].astype("int64"), unit="s", utc=True).astype(
-        "datetime64[ns, UTC]"
-    )
-    for column in FLOAT_COLUMNS:
-        frame[column] = frame[column].astype("float64")
-    if shared_text:
-        for column in TEXT_COLUMNS:
-            frame[column] = frame[column].astype("category")
-        return frame
-    return text_columns_as_objects(frame)
-
-
-def _join_columns(chunks: list[dict[str, Any]]) -> pd.DataFrame:
-    """One frame from per-chunk columns, a column at a time, freeing chunks as it goes.
-
-    Text columns are categoricals (one string object per distinct value); at most one
-    column is held twice at any moment.
-    """
-    from pandas.api.types import union_categoricals
-
-    out = pd.DataFrame(index=pd.RangeIndex(sum(len(c["site"]) for c in chunks)))
-    for column in CANONICAL_COLUMNS:
-        parts = [c.pop(column) for c in chunks]
-        if column in TEXT_COLUMNS:
-            joined: Any = union_categoricals(parts)
-        elif column == "time":  # tz-aware: join the underlying nanoseconds, not objects
-            ns = np.concatenate([np.asarray(p.asi8) for p in parts])
-            joined = pd.to_datetime(ns, unit="ns", utc=True).astype("datetime64[ns, UTC]")
-        else:
-            joined = pd.array(np.concatenate([np.asarray(p) for p in parts]), dtype=parts[0].dtype)
-        del parts
-        out[column] = joined
-    return out

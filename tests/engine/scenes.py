@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 
 from notifier.core.config import Site, default_rules_dir
-from notifier.engine.rules import load_rule_set
+from notifier.engine.rule_files import load_rule_set
 
 RULES = load_rule_set([default_rules_dir()])
 EVENING = date(2026, 10, 14)

@@ -11,7 +11,8 @@ import pytest
 
 from notifier.core.config import default_rules_dir
 from notifier.core.errors import ConfigError
-from notifier.engine.rules import evaluate_rule, load_rule_set
+from notifier.engine.rule_files import load_rule_set
+from notifier.engine.rules import evaluate_rule
 from tests.engine.scenes import site
 
 SAFETY = """\

@@ -11,11 +11,12 @@ import pytest
 import sqlalchemy as sa
 
 from notifier.core.config import Site
+from notifier.core.errors import StoreError
 from notifier.core.observations import CANONICAL_COLUMNS, normalize
 from notifier.storage import migrations as migrations_module
 from notifier.storage import store as store_module
 from notifier.storage.migrations import MIGRATIONS, Migration
-from notifier.storage.store import Store, StoreError
+from notifier.storage.store import Store
 from tests.conftest import SITES
 
 NOW = datetime(2024, 1, 12, 7, 0, tzinfo=UTC)
@@ -47,7 +48,7 @@ def db(any_store: Store) -> Store:
 
 
 def test_public_names():
-    assert set(store_module.__all__) == {"Store", "StoreError"}
+    assert set(store_module.__all__) == {"Store"}
     assert set(migrations_module.__all__) == {"MIGRATIONS", "Migration", "metadata"}
 
 
