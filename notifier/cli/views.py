@@ -8,7 +8,7 @@ from datetime import UTC
 
 from notifier.core.timefmt import local_time
 from notifier.engine.assess import SiteAssessment, level_rank
-from notifier.engine.features import FEATURES
+from notifier.engine.catalog import FEATURES
 from notifier.engine.rules import Comparison, Condition, Group, Outcome, RuleSet, format_value
 
 __all__ = ["assessment_table", "explanation"]

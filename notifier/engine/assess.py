@@ -18,7 +18,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from notifier.core.timefmt import iso_z
-from notifier.engine.features import FEATURES, FeatureSettings, FeatureTable, compute_features_at
+from notifier.engine.catalog import FEATURES, FeatureSettings, FeatureTable
+from notifier.engine.features import FeatureCache, compute_features_at
 from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -180,6 +181,7 @@ def assess(
     settings: FeatureSettings | None = None,
     stale_after_min: float = STALE_AFTER_MIN,
     cache: dict[float, FeatureTable] | None = None,
+    feature_cache: FeatureCache | None = None,  # kept by the caller between calls
 ) -> list[SiteAssessment]:
     """Evaluate every rule for every site at ``at``.
 
@@ -187,7 +189,9 @@ def assess(
     feature tables of earlier evaluation times for the hold windows; it must only be
     shared between calls over the same sites and the same observations.
     """
-    return assess_times(rules, sites, obs, [at], settings, stale_after_min, cache)[0]
+    return assess_times(
+        rules, sites, obs, [at], settings, stale_after_min, cache, feature_cache=feature_cache
+    )[0]
 
 
 def assess_times(
@@ -198,6 +202,7 @@ def assess_times(
     settings: FeatureSettings | None = None,
     stale_after_min: float = STALE_AFTER_MIN,
     cache: dict[float, FeatureTable] | None = None,
+    feature_cache: FeatureCache | None = None,  # kept by the caller between calls
 ) -> list[list[SiteAssessment]]:
     """``assess`` at each of ``times``, with the rules evaluated once for them all.
 
@@ -215,7 +220,11 @@ def assess_times(
     )
     if wanted:
         found = compute_features_at(
-            obs, sites, [datetime.fromtimestamp(w, UTC) for w in wanted], settings
+            obs,
+            sites,
+            [datetime.fromtimestamp(w, UTC) for w in wanted],
+            settings,
+            cache=feature_cache,
         )
         tables.update(zip(wanted, found, strict=True))
     n, k_times = len(sites), len(times)

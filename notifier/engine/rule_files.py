@@ -38,7 +38,7 @@ from typing import Any
 from notifier.core.config import parse_duration_s
 from notifier.core.errors import ConfigError, ConfigProblem
 from notifier.core.yamlio import MarkedDict, MarkedList, load_yaml
-from notifier.engine.features import FEATURES
+from notifier.engine.catalog import FEATURES
 from notifier.engine.rules import (
     EXPOSURES,
     HAZARDS,

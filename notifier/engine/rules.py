@@ -20,7 +20,7 @@ from typing import Any, cast
 import numpy as np
 
 from notifier.core.timefmt import quantity_text, unit_suffix
-from notifier.engine.features import FEATURES
+from notifier.engine.catalog import FEATURES
 
 __all__ = [
     "HAZARDS",

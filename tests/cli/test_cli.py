@@ -152,7 +152,7 @@ def test_explain_lists_every_feature_and_rule(capsys, night_csv):
         "2026-11-07T02:00Z",
     )
     assert code == 0
-    from notifier.engine.features import FEATURES
+    from notifier.engine.catalog import FEATURES
 
     for name in FEATURES:
         assert name in out

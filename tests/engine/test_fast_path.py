@@ -18,7 +18,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from notifier.engine.features import FEATURES, compute_features, compute_features_at
+from notifier.engine.catalog import FEATURES
+from notifier.engine.features import FeatureCache, compute_features, compute_features_at
 from tests.engine.scenes import site, utc
 
 ZONES = ("Europe/London", "America/New_York", "Asia/Tokyo", "Australia/Sydney", "UTC")
@@ -255,17 +256,76 @@ def test_no_times_and_no_data():
     assert table.values["data_age_min"][0] == np.inf
 
 
-def test_public_names():
-    import notifier.engine.features as features
+def test_a_kept_cache_gives_what_a_fresh_one_gives(world):
+    # A service keeps one cache from cycle to cycle: the next cycle's sun is carried
+    # from the cycle before (to within the last bits of a sunrise, see the sun test in
+    # test_features.py) and a repeated time is answered from the cache.
+    sites, obs = world
+    cache = FeatureCache()
+    ids = [s.id for s in sites]
+    times = [AT - timedelta(minutes=m) for m in (30, 20, 10, 0, 10)]
+    for when in times:
+        kept = compute_features(obs, sites, when, cache=cache)
+        fresh = compute_features(obs, sites, when)
+        _assert_same(_columns(kept), _columns(fresh), ids, 1e-5)
+        np.testing.assert_array_equal(kept.values["is_night"], fresh.values["is_night"])
+    assert cache.site_arrays(sites) is cache.site_arrays(list(sites))
 
-    assert set(features.__all__) == {
+
+def test_a_cache_shared_between_threads(world):
+    # the service's cycle and a command may run on different threads
+    from concurrent.futures import ThreadPoolExecutor
+
+    sites, obs = world
+    cache = FeatureCache()
+    times = [AT - timedelta(minutes=10 * k) for k in range(6)]
+    alone = {t: compute_features(obs, sites, t) for t in times}
+    with ThreadPoolExecutor(4) as pool:
+        shared = list(pool.map(lambda t: compute_features(obs, sites, t, cache=cache), times * 2))
+    ids = [s.id for s in sites]
+    for t, table in zip(times * 2, shared, strict=True):
+        _assert_same(_columns(table), _columns(alone[t]), ids, 1e-5)
+
+
+def test_the_cache_keeps_only_a_few_entries(world):
+    sites, _ = world
+    cache = FeatureCache()
+    for k in range(1, 8):
+        cache.site_arrays(sites[:k])
+    st = cache.site_arrays(sites)
+    for k in range(40):
+        cache.night_bounds(st, AT.timestamp() + 600.0 * k)
+    assert len(cache._sites) == 4 and len(cache._sun) == 16
+
+
+def test_no_module_level_mutable_state():
+    # what is remembered between calls is the caller's (a FeatureCache), not the module's
+    import threading
+    from collections import OrderedDict
+
+    from notifier.engine import block, catalog, columns, families, features, projection
+
+    lock_type = type(threading.Lock())
+    for module in (block, catalog, columns, families, features, projection):
+        for name, value in vars(module).items():
+            assert not isinstance(value, OrderedDict | lock_type), f"{module.__name__}.{name}"
+            if isinstance(value, dict | list | set) and not name.startswith("__"):
+                # the catalogue of features and exposures is read, never written
+                assert name in ("FEATURES", "EXPOSURE_EFFECTS"), f"{module.__name__}.{name}"
+
+
+def test_public_names():
+    from notifier.engine import block, catalog, columns, families, features, projection
+
+    assert set(features.__all__) == {"FeatureCache", "compute_features", "compute_features_at"}
+    assert set(catalog.__all__) == {
         "EXPOSURE_EFFECTS",
         "FEATURES",
+        "ExposureEffect",
         "FeatureSettings",
         "FeatureSpec",
         "FeatureTable",
-        "compute_features",
-        "compute_features_at",
     }
-    for name in features.__all__:
-        assert hasattr(features, name), name
+    for module in (block, catalog, columns, families, features, projection):
+        for name in module.__all__:
+            assert hasattr(module, name), f"{module.__name__}.{name}"

@@ -9,7 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from notifier.engine.features import FEATURES, compute_features
+from notifier.engine.catalog import FEATURES
+from notifier.engine.features import compute_features
 from tests.engine.scenes import site, steady, utc
 
 
@@ -336,7 +337,8 @@ def test_the_sun_carried_from_another_time_equals_the_sun_worked_out(seed):
     # physics.night_bounds_utc at the new time, itself checked against astral
     # (tests/physics/test_sun.py). Offsets span sunsets and sunrises in both directions.
     from notifier import physics
-    from notifier.engine.features import _carried, _Sites
+    from notifier.engine.block import SiteArrays
+    from notifier.engine.features import _carried
 
     rng = np.random.default_rng(seed)
     n = 400
@@ -344,7 +346,7 @@ def test_the_sun_carried_from_another_time_equals_the_sun_worked_out(seed):
         site(f"s{i}", lat=float(rng.uniform(-60.0, 66.0)), lon=float(rng.uniform(-180, 180)))
         for i in range(n)
     ]
-    st = _Sites.of(sites)
+    st = SiteArrays.of(sites)
     t_known = utc(2026, 11, 20, 3).timestamp() + float(rng.uniform(0, 86400))
     known = physics.night_bounds_utc(st.lat, st.lon, np.full(n, t_known))
     for hours in (-14.0, -5.0, -0.5, 0.0, 0.2, 3.0, 9.0, 16.0, 30.0):

@@ -1,0 +1,189 @@
+"""The features: what each one is, how it is shown, and how a site's exposure shapes them.
+
+``FEATURES`` names every feature a rule can test and ``explain`` can show, with its
+label, unit and a short description; a :class:`FeatureTable` holds their values for a
+list of sites at one evaluation time. ``FeatureSettings`` are the windows and limits
+the features are computed with (see ``notifier.engine.features``).
+
+A feature that cannot be computed from the data present is NaN ("unknown"); rules that
+need it do not fire and ``explain`` says so. The one exception is ``data_age_min``,
+which is +inf for a site that has never reported: no data is the loudest kind of stale.
+
+How site exposure shapes the physics (each factor is deliberately simple and shown in
+``explain``):
+
+- valley: cold air drains downslope and pools on calm clear nights, so the floor cools
+  more than open ground (2–5 K colder is typical — Whiteman 2000, *Mountain
+  Meteorology*, from memory); walls also hide part of the sky (sky view 0.85).
+  Fog forms first and thickest in the lowest ground.
+- forest: the canopy returns long-wave radiation, so the sky view is small (0.45) and
+  the air under it cools less (Oke 1987, *Boundary Layer Climates*, from memory).
+- waterside: moist air, and water that cools far more slowly than land, moderate the
+  night's fall (cooling ×0.8, +1 K on a projected minimum; common practice).
+- coast: like waterside for cooling; sea and advection fog rules apply.
+- urban: stored heat and reduced sky view keep nights 1–3 K warmer (Oke 1982, QJRMS
+  108, from memory): sky view 0.7, cooling ×0.75, +1.5 K.
+
+>>> EXPOSURE_EFFECTS["valley"].sky_view
+0.85
+>>> FEATURES["dewpoint_depression_c"].unit
+'°C'
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+
+import numpy as np
+
+__all__ = [
+    "EXPOSURE_EFFECTS",
+    "FEATURES",
+    "ExposureEffect",
+    "FeatureSettings",
+    "FeatureSpec",
+    "FeatureTable",
+]
+
+
+@dataclass(frozen=True)
+class FeatureSpec:
+    label: str
+    unit: str
+    kind: str = "number"  # number | bool
+    decimals: int = 1
+    description: str = ""
+
+
+FEATURES: dict[str, FeatureSpec] = {
+    "temp_c": FeatureSpec("air temperature", "°C", description="latest screen temperature"),
+    "dewpoint_c": FeatureSpec("dew point", "°C"),
+    "rh_pct": FeatureSpec("relative humidity", "%", decimals=0),
+    "dewpoint_depression_c": FeatureSpec(
+        "dew-point depression", "°C", description="air temperature minus dew point"
+    ),
+    "depression_trend_c_per_h": FeatureSpec(
+        "depression trend",
+        "°C/h",
+        decimals=2,
+        description="Theil–Sen slope of the depression over the last 3 h; negative = closing",
+    ),
+    "hours_to_saturation": FeatureSpec(
+        "time to saturation", "h", description="depression ÷ closing rate (trend)"
+    ),
+    "hours_to_crossing": FeatureSpec(
+        "time to dew-point crossing",
+        "h",
+        description="when the night's cooling curve reaches the dew point",
+    ),
+    "hours_to_fog": FeatureSpec(
+        "time to fog", "h", description="the sooner of saturation and crossing"
+    ),
+    "projected_min_temp_c": FeatureSpec(
+        "projected minimum",
+        "°C",
+        description="forecast rows, else the square-root cooling fit since sunset, "
+        "else Craddock–Pritchard from midday values",
+    ),
+    "min_margin_c": FeatureSpec(
+        "projected minimum above dew point", "°C", description="projected minimum minus dew point"
+    ),
+    "crossover_temp_c": FeatureSpec(
+        "crossover temperature", "°C", description="lowest dew point of the afternoon"
+    ),
+    "min_minus_crossover_c": FeatureSpec("projected minimum above crossover", "°C"),
+    "cloud_pct": FeatureSpec("cloud cover", "%", decimals=0),
+    "wind_ms": FeatureSpec("wind", "m/s"),
+    "net_longwave_wm2": FeatureSpec(
+        "net long-wave loss",
+        "W/m²",
+        decimals=0,
+        description="Brutsaert clear sky, Unsworth–Monteith cloud, sky view by exposure",
+    ),
+    "cooling_potential": FeatureSpec(
+        "cooling potential",
+        "",
+        decimals=2,
+        description="0–1: radiative loss × light-wind factor × exposure factor",
+    ),
+    "is_night": FeatureSpec("night", "", kind="bool"),
+    "hours_to_sunrise": FeatureSpec("time to sunrise", "h"),
+    "hours_since_sunset": FeatureSpec("time since sunset", "h"),
+    "surface_temp_c": FeatureSpec("surface temperature", "°C"),
+    "frost_point_c": FeatureSpec("frost point", "°C"),
+    "surface_minus_frost_point_c": FeatureSpec(
+        "surface above frost point",
+        "°C",
+        description="surface temperature minus frost point (minus dew point above 0 °C)",
+    ),
+    "water_temp_c": FeatureSpec("water temperature", "°C"),
+    "dewpoint_minus_water_c": FeatureSpec("dew point above water temperature", "°C"),
+    "water_minus_air_c": FeatureSpec("water above air temperature", "°C"),
+    "onshore": FeatureSpec("onshore wind", "", kind="bool"),
+    "visibility_m": FeatureSpec("visibility", "m", decimals=0),
+    "observed_fog": FeatureSpec("fog observed", "", kind="bool"),
+    "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
+    "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),
+    "data_age_min": FeatureSpec("data age", "min", decimals=0),
+}
+
+
+@dataclass(frozen=True)
+class ExposureEffect:
+    sky_view: float
+    cooling_factor: float
+    min_offset_c: float  # added to projections not made from the site's own night curve
+
+
+EXPOSURE_EFFECTS: dict[str, ExposureEffect] = {
+    "open": ExposureEffect(1.0, 1.0, 0.0),
+    "valley": ExposureEffect(0.85, 1.2, -2.0),
+    "forest": ExposureEffect(0.45, 1.0, 0.5),
+    "waterside": ExposureEffect(1.0, 0.8, 1.0),
+    "coast": ExposureEffect(1.0, 0.85, 0.5),
+    "urban": ExposureEffect(0.7, 0.75, 1.5),
+}
+
+
+@dataclass(frozen=True)
+class FeatureSettings:
+    current_max_age_h: float = 3.0  # older readings are not "current"
+    trend_window_h: float = 3.0
+    trend_min_span_h: float = 0.75
+    fit_min_span_h: float = 0.75
+    evening_transition_h: float = 1.5
+    min_closing_c_per_h: float = 0.02
+    water_max_age_h: float = 24.0  # water temperature changes slowly
+    block_hours: float = 24.0
+    # Radiation fog needs light wind: calm to ~3 m/s is typical, stronger wind mixes the
+    # cooled layer away (EUMETrain / UCAR MetEd conceptual models; numbers common practice).
+    wind_full_cooling_ms: float = 2.5
+    wind_no_cooling_ms: float = 7.0
+    # Clear-sky net loss on a calm night is ~70–100 W/m² (REFERENCES: 82.5 W/m² at 10 °C);
+    # 80 W/m² is taken as "full" radiative cooling.
+    full_loss_wm2: float = 80.0
+    surface_emissivity: float = 0.98
+
+
+@dataclass
+class FeatureTable:
+    """Features for ``site_ids`` at ``at``: ``values[name]`` is an array over sites."""
+
+    at: datetime
+    site_ids: list[str]
+    values: dict[str, np.ndarray]
+    projection_method: np.ndarray  # str per site: forecast | cooling-fit | midday-estimate
+    last_time: np.ndarray  # POSIX seconds of the newest observation, NaN if none
+    fit_t0_c: np.ndarray  # tonight's square-root cooling fit (NaN where none)
+    fit_k_per_sqrt_h: np.ndarray
+    last_sunset: np.ndarray  # POSIX seconds
+
+    def row(self, i: int) -> dict[str, float]:
+        return {name: float(arr[i]) for name, arr in self.values.items()}
+
+    def index(self, site_id: str) -> int:
+        return self.site_ids.index(site_id)
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.values[name]

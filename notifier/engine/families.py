@@ -1,0 +1,299 @@
+"""Feature families, part one: what the readings say now.
+
+Each family works on every site at once, over one evaluation time's view of the block
+(:class:`Window`: each site's observed readings are the columns ``lo:hi`` of its row,
+found by :meth:`Block.bounds`): the current values, moisture and the depression's
+trend, radiation and cooling potential, surfaces, water and wind sector, and the
+weather being observed. The night ahead (sun, projected minimum, time to fog) is
+``notifier.engine.projection``; ``notifier.engine.features`` puts them together.
+
+>>> import numpy as np
+>>> _onshore(np.array([300.0]), np.array([60.0]), np.array([10.0]), np.array([3.0]))
+array([1.])
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from notifier import physics
+from notifier.engine.block import (
+    FORECAST_BEFORE_S,
+    Block,
+    SiteArrays,
+    column_span,
+    in_range,
+    latest,
+)
+from notifier.engine.catalog import FeatureSettings
+
+__all__ = [
+    "SUBSET_SHARE",
+    "Current",
+    "Window",
+    "current_values",
+    "moisture",
+    "observed_weather",
+    "observed_window",
+    "radiation",
+    "surfaces_and_water",
+]
+
+_OBS_COLUMNS = (
+    "temp_c",
+    "dewpoint_c",
+    "rh_pct",
+    "wind_ms",
+    "wind_dir_deg",
+    "cloud_pct",
+    "surface_temp_c",
+    "water_temp_c",
+    "visibility_m",
+)
+# Below this share of sites needing a per-row fit, only those rows are passed on (copying
+# the rows out costs more than it saves when nearly all need it).
+SUBSET_SHARE = 0.6
+
+
+@dataclass(frozen=True)
+class Window:
+    """One evaluation time's columns of the block, per site: the observed readings are
+    ``lo:hi``, the last hours of each kind start at the ``*_lo`` columns."""
+
+    blk: Block
+    t_at: float  # POSIX seconds
+    hours: np.ndarray  # each cell's hours from t_at
+    lo: np.ndarray
+    hi: np.ndarray
+    recent_lo: np.ndarray  # current values (current_max_age_h)
+    trend_lo: np.ndarray  # trend_window_h
+    water_lo: np.ndarray  # water_max_age_h
+    report_lo: np.ndarray  # weather and visibility reports (current_max_age_h)
+    last_any: np.ndarray  # hours from t_at of the newest reading, NaN if none
+
+
+def observed_window(blk: Block, t_at: float, settings: FeatureSettings) -> Window:
+    """The observed window of each row at ``t_at``, and where its last hours begin."""
+    hours = (blk.t - t_at) / 3600.0
+    hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(
+        t_at,
+        [
+            ("t", 0.0, ">", t_at),
+            ("t", 0.0, ">", t_at - settings.block_hours * 3600),
+            ("h", 0.0, ">=", -settings.current_max_age_h),
+            ("h", 0.0, ">=", -settings.trend_window_h),
+            ("h", 0.0, ">=", -settings.water_max_age_h),
+            ("t", 0.0, ">=", t_at - settings.current_max_age_h * 3600),
+        ],
+    )
+    lo = np.minimum(lo, hi)
+    recent_lo, trend_lo, water_lo, report_lo = (
+        np.maximum(lo, bound) for bound in (recent_lo, trend_lo, water_lo, report_lo)
+    )
+    present_any = lo < hi
+    last_col = np.maximum(hi - 1, 0)
+    last_any = np.where(present_any, hours[blk.rows, last_col], np.nan)
+    return Window(blk, t_at, hours, lo, hi, recent_lo, trend_lo, water_lo, report_lo, last_any)
+
+
+@dataclass(frozen=True)
+class Current:
+    """The newest reading of each observed column in the last hours (``values``), and
+    the newest temperature and dew point read together."""
+
+    values: dict[str, np.ndarray]
+    temp_c: np.ndarray
+    dewpoint_c: np.ndarray
+
+
+def current_values(w: Window) -> Current:
+    """Current values, with forecast cloud and wind where the station reports none."""
+    blk, n, rows = w.blk, w.blk.n, w.blk.rows
+    a, b = column_span(w.recent_lo, w.hi)
+    recent = in_range(a, b, w.recent_lo, w.hi)
+    cur: dict[str, np.ndarray] = {}
+    for name in _OBS_COLUMNS:
+        if name != "water_temp_c":
+            cur[name] = blk.newest(name, a, b, w.recent_lo, w.hi, recent)
+    # water changes slowly: its newest reading in the whole window, if young enough;
+    # only the sites with a water sensor at all are looked at
+    cur["water_temp_c"] = np.full(n, np.nan)
+    wet = blk.reports("water_temp_c")
+    if wet.size:
+        water_lo = w.water_lo[wet]
+        wa, wb = column_span(water_lo, w.hi[wet])
+        cur["water_temp_c"][wet], _ = latest(
+            blk.block("water_temp_c")[wet, wa:wb], in_range(wa, wb, water_lo, w.hi[wet])
+        )
+
+    # a reading with both temperature and dew point is the basis for moisture features
+    temp_recent = blk.block("temp_c", a, b)
+    dew_recent = blk.block("dewpoint_c", a, b)
+    pair = recent & ~np.isnan(temp_recent) & ~np.isnan(dew_recent)
+    temp_c, pair_col = latest(temp_recent, pair)
+    if b > a:
+        dewpoint_c = np.where(pair_col >= 0, dew_recent[rows, np.maximum(pair_col, 0)], np.nan)
+    else:
+        dewpoint_c = np.full(n, np.nan)
+
+    # fall back to forecast rows for cloud and wind when the station has none
+    fsidx, ft, fcols = blk.forecast
+    near = (ft >= w.t_at - FORECAST_BEFORE_S) & (ft <= w.t_at + 3 * 3600)
+    for name in ("cloud_pct", "wind_ms"):
+        fill = _first_per_site(fsidx[near], ft[near], fcols[name][near], n)
+        cur[name] = np.where(np.isnan(cur[name]), fill, cur[name])
+    return Current(cur, temp_c, dewpoint_c)
+
+
+def moisture(w: Window, now: Current, settings: FeatureSettings) -> dict[str, np.ndarray]:
+    """Depression, relative humidity, the depression's trend and the time to saturation."""
+    with np.errstate(invalid="ignore"):
+        depression = now.temp_c - now.dewpoint_c
+        rh_pct = physics.relative_humidity_pct(now.temp_c, now.dewpoint_c)
+        rh_pct = np.where(np.isnan(rh_pct), now.values["rh_pct"], rh_pct)
+    trend = _depression_trend(w, settings)
+    # A slope below the sensors' resolution over the window is no trend (0.06 °C in
+    # 3 h, common practice): without this a flat series reads as "saturation in 10^15 h".
+    closing = np.where(trend <= -settings.min_closing_c_per_h, trend, 0.0)
+    closing = np.where(np.isnan(trend), np.nan, closing)
+    return {
+        "rh_pct": rh_pct,
+        "dewpoint_depression_c": depression,
+        "depression_trend_c_per_h": trend,
+        "hours_to_saturation": physics.hours_to_zero(depression, closing),
+    }
+
+
+def _depression_trend(w: Window, settings: FeatureSettings) -> np.ndarray:
+    """Theil–Sen slope of the depression over the last hours (°C/h, NaN if too few)."""
+    blk = w.blk
+    a, b = column_span(w.trend_lo, w.hi)
+    h_tail = w.hours[:, a:b]
+    d_tail = blk.block("temp_c", a, b) - blk.block("dewpoint_c", a, b)
+    m_tail = in_range(a, b, w.trend_lo, w.hi) & ~np.isnan(d_tail)
+    h_use = np.where(m_tail, h_tail, np.nan)
+    span = np.nanmax(h_use, axis=1, initial=-np.inf) - np.nanmin(h_use, axis=1, initial=np.inf)
+    usable = (m_tail.sum(axis=1) >= 3) & (span >= settings.trend_min_span_h)
+    trend = np.full(blk.n, np.nan)
+    if h_tail.shape[1] >= 2 and usable.any():
+        # the slope is per row: when few rows will use it, only those are worked out
+        pick = usable if usable.mean() < SUBSET_SHARE else slice(None)
+        d_use = np.where(m_tail[pick], d_tail[pick], np.nan)
+        trend[pick] = physics.robust_slope_per_h(h_use[pick], d_use)
+        trend = np.where(usable, trend, np.nan)
+    return trend
+
+
+def radiation(
+    now: Current, st: SiteArrays, settings: FeatureSettings
+) -> tuple[np.ndarray, np.ndarray]:
+    """Net long-wave loss (W/m²) and the cooling potential (0–1) it gives in this wind."""
+    temp_c, cur = now.temp_c, now.values
+    vp = physics.vapor_pressure_hpa(now.dewpoint_c)
+    eps_clear = physics.clear_sky_emissivity(temp_c, vp)
+    eps = physics.cloudy_sky_emissivity(eps_clear, cur["cloud_pct"])
+    net_lw = physics.net_longwave_loss_wm2(
+        temp_c,
+        eps,
+        surface_temp_c=np.where(np.isnan(cur["surface_temp_c"]), temp_c, cur["surface_temp_c"]),
+        surface_emissivity=settings.surface_emissivity,
+        sky_view_factor=st.sky_view,
+    )
+    wind = cur["wind_ms"]
+    with np.errstate(invalid="ignore"):
+        wind_factor = np.clip(
+            (settings.wind_no_cooling_ms - wind)
+            / (settings.wind_no_cooling_ms - settings.wind_full_cooling_ms),
+            0.0,
+            1.0,
+        )
+        cooling_potential = np.clip(
+            np.clip(net_lw / settings.full_loss_wm2, 0.0, 1.0) * wind_factor * st.cooling_factor,
+            0.0,
+            1.0,
+        )
+    return np.asarray(net_lw), cooling_potential
+
+
+def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
+    """Frost point and the surface above it, water against dew point and air, onshore."""
+    dewpoint_c, cur = now.dewpoint_c, now.values
+    frost_point = physics.frost_point_from_dewpoint_c(dewpoint_c)
+    with np.errstate(invalid="ignore"):
+        deposit_ref = np.where(dewpoint_c <= 0, frost_point, dewpoint_c)
+        surface_margin = cur["surface_temp_c"] - deposit_ref
+        dew_minus_water = dewpoint_c - cur["water_temp_c"]
+        water_minus_air = cur["water_temp_c"] - now.temp_c
+    return {
+        "frost_point_c": frost_point,
+        "surface_minus_frost_point_c": surface_margin,
+        "dewpoint_minus_water_c": dew_minus_water,
+        "water_minus_air_c": water_minus_air,
+        "onshore": _onshore(st.onshore_lo, st.onshore_hi, cur["wind_dir_deg"], cur["wind_ms"]),
+    }
+
+
+def observed_weather(w: Window, now: Current, rh_pct: np.ndarray) -> dict[str, np.ndarray]:
+    """Fog, mist and freezing fog from the newest report that carries weather or visibility.
+
+    Fog is visibility below 1000 m or a reported FG; mist is BR, or 1–5 km with RH ≥ 95 %
+    (WMO-No. 8 / WMO-No. 306 FM 15); freezing fog is FZFG, or fog below 0 °C.
+    """
+    blk, start, hi = w.blk, w.report_lo, w.hi
+    n = blk.n
+    fog = np.full(n, np.nan)
+    mist = np.full(n, np.nan)
+    fzfg = np.full(n, np.nan)
+    found = {"observed_fog": fog, "observed_mist": mist, "observed_freezing_fog": fzfg}
+    if "visibility_m" not in blk.obs and "weather" not in blk.obs:
+        return found
+    a, b = column_span(start, hi)  # the reports of the last hours (current_max_age_h)
+    if b <= a:
+        return found
+    vis_band = blk.block("visibility_m", a, b)
+    code = blk.weather(a, b)
+    reported = blk.weather_flags[:, 0][code]
+    has = in_range(a, b, start, hi) & (~np.isnan(vis_band) | reported)
+    any_report = has.any(axis=1)
+    if not any_report.any():
+        return found
+    sidx = np.flatnonzero(any_report)
+    col = (b - a) - 1 - np.argmax(has[sidx, ::-1], axis=1)
+    vis = vis_band[sidx, col]
+    flags = blk.weather_flags[code[sidx, col]]
+    has_fg, has_fz, has_br = flags[:, 1], flags[:, 2], flags[:, 3]
+    temp_c = now.values["temp_c"]  # the newest temperature, with or without a dew point
+    with np.errstate(invalid="ignore"):
+        fog_now = has_fg | (vis < 1000)
+        mist_now = ~fog_now & (has_br | ((vis >= 1000) & (vis < 5000) & (rh_pct[sidx] >= 95)))
+        fz_now = has_fz | (fog_now & (temp_c[sidx] < 0))
+    fog[sidx] = fog_now
+    mist[sidx] = mist_now
+    fzfg[sidx] = fz_now
+    return found
+
+
+def _first_per_site(sidx: np.ndarray, t: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
+    """The earliest finite value per site (NaN where none)."""
+    out = np.full(n, np.nan)
+    ok = ~np.isnan(v)
+    if not ok.any():
+        return out
+    s, tt, vv = sidx[ok], t[ok], v[ok]
+    order = np.lexsort((-tt, s))  # latest first per site, so the earliest is written last
+    out[s[order]] = vv[order]
+    return out
+
+
+def _onshore(
+    lo: np.ndarray, hi: np.ndarray, wind_dir: np.ndarray, wind_ms: np.ndarray
+) -> np.ndarray:
+    with np.errstate(invalid="ignore"):
+        d = np.mod(wind_dir, 360.0)
+        inside = np.where(lo <= hi, (d >= lo) & (d <= hi), (d >= lo) | (d <= hi))
+        # a calm wind has no direction to come from (below 0.5 m/s, common practice)
+        out = np.where(wind_ms < 0.5, 0.0, inside.astype(float))
+    unknown = np.isnan(lo) | np.isnan(d) | np.isnan(wind_ms)
+    return np.where(unknown, np.nan, out)

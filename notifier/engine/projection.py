@@ -1,0 +1,297 @@
+"""Feature families, part two: the night ahead.
+
+The sun sets the windows (tonight since sunset, around local midday, the afternoon);
+in them the night's minimum is projected — from forecast rows, else Brunt's square-root
+law fitted to tonight's own readings, else Craddock & Pritchard (1951) from the
+readings nearest midday — beside the crossover temperature and the time to fog. Every
+step works on all sites at once, on the narrowest column slice that holds its window.
+
+>>> import numpy as np
+>>> _min_per_site(np.array([0, 0, 1]), np.array([4.0, 2.0, 7.0]), np.array([1.0, 0.5, 3.0]), 3)
+(array([ 2.,  7., nan]), array([0.5, 3. , nan]))
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+
+import numpy as np
+
+from notifier import physics
+from notifier.engine.block import SiteArrays, column_span, in_range
+from notifier.engine.catalog import FeatureSettings
+from notifier.engine.families import SUBSET_SHARE, Current, Window
+
+__all__ = [
+    "Night",
+    "Projection",
+    "crossover",
+    "data_age_min",
+    "hours_to_fog",
+    "night_windows",
+    "projected_minimum",
+]
+
+
+@dataclass(frozen=True)
+class Night:
+    """Each site's sun at an evaluation time, and the windows it sets (columns)."""
+
+    night: np.ndarray  # bool
+    last_sunset: np.ndarray  # POSIX seconds
+    next_sunrise: np.ndarray
+    is_night: np.ndarray  # 1.0 / 0.0, NaN where the sun is unknown
+    hours_to_sunrise: np.ndarray
+    hours_since_sunset: np.ndarray  # NaN by day
+    sunset_h: np.ndarray  # relative to at; negative at night
+    noon_h: np.ndarray  # local midday of the day the coming or current night began
+    since_lo: np.ndarray  # tonight's readings: columns since_lo:hi
+    noon_lo: np.ndarray  # within 1.5 h of midday: noon_lo:noon_hi
+    noon_hi: np.ndarray
+    aft_start: np.ndarray  # the afternoon (midday + 6 h): aft_start:aft_stop
+    aft_stop: np.ndarray
+
+
+def night_windows(
+    w: Window,
+    st: SiteArrays,
+    at: datetime,
+    last_sunset: np.ndarray,
+    next_sunrise: np.ndarray,
+    night: np.ndarray,
+) -> Night:
+    """Sun and night timing, and tonight's, midday's and the afternoon's columns."""
+    t_at = w.t_at
+    is_night = np.where(np.isnan(next_sunrise), np.nan, night.astype(float))
+    hours_to_sunrise = (next_sunrise - t_at) / 3600.0
+    hours_since_sunset = np.where(night, (t_at - last_sunset) / 3600.0, np.nan)
+    sunset_h = (last_sunset - t_at) / 3600.0  # relative to at; negative at night
+    # local midday of the day the coming or current night began (for Craddock–Pritchard
+    # and the crossover temperature)
+    offsets = st.zone_offsets_s(at)
+    ref = np.where(np.isnan(last_sunset), t_at, np.where(night, last_sunset, t_at))
+    local_midnight = np.floor((ref + offsets) / 86400.0) * 86400.0 - offsets
+    noon_h = (local_midnight + 12 * 3600 - t_at) / 3600.0
+    aft_lo = noon_h
+    aft_hi = noon_h + 6.0
+    since_lo, noon_lo, noon_hi, aft_start, aft_stop = w.blk.bounds(
+        t_at,
+        [
+            ("h", 0.0, ">=", sunset_h),
+            ("h", noon_h, ">=", -1.5),
+            ("h", noon_h, ">", 1.5),
+            ("h", 0.0, ">=", aft_lo),
+            ("h", 0.0, ">=", aft_hi),
+        ],
+    )
+    since_lo = np.where(night, np.maximum(w.lo, since_lo), w.hi)
+    return Night(
+        night=night,
+        last_sunset=last_sunset,
+        next_sunrise=next_sunrise,
+        is_night=is_night,
+        hours_to_sunrise=hours_to_sunrise,
+        hours_since_sunset=hours_since_sunset,
+        sunset_h=sunset_h,
+        noon_h=noon_h,
+        since_lo=since_lo,
+        noon_lo=noon_lo,
+        noon_hi=noon_hi,
+        aft_start=aft_start,
+        aft_stop=aft_stop,
+    )
+
+
+@dataclass
+class Projection:
+    """The projected minimum, built in steps: each step fills only the sites the steps
+    before it left unknown (``proj`` NaN) and says how (``method``)."""
+
+    method: np.ndarray  # str per site: forecast | cooling-fit | midday-estimate
+    proj: np.ndarray
+    proj_dew: np.ndarray  # the dew point the minimum is compared with
+    hours_to_crossing: np.ndarray
+    fit_t0: np.ndarray  # tonight's square-root cooling fit (NaN where none)
+    fit_k: np.ndarray
+
+    @property
+    def min_margin(self) -> np.ndarray:
+        with np.errstate(invalid="ignore"):
+            return self.proj - self.proj_dew
+
+
+def projected_minimum(
+    w: Window,
+    sun: Night,
+    now: Current,
+    cooling_potential: np.ndarray,
+    st: SiteArrays,
+    settings: FeatureSettings,
+) -> Projection:
+    """The night's minimum: forecast, else the cooling fit, else the midday estimate."""
+    n = w.blk.n
+    p = Projection(
+        method=np.full(n, "", dtype=object),
+        proj=np.full(n, np.nan),
+        proj_dew=now.dewpoint_c.copy(),
+        hours_to_crossing=np.full(n, np.nan),
+        fit_t0=np.full(n, np.nan),
+        fit_k=np.full(n, np.nan),
+    )
+    _from_forecast(p, w, sun, cooling_potential, st.min_offset)
+    _from_cooling_fit(p, w, sun, now, settings)
+    _from_midday(p, w, sun, now, cooling_potential, st.min_offset)
+    return p
+
+
+def _from_forecast(
+    p: Projection, w: Window, sun: Night, cooling_potential: np.ndarray, min_offset: np.ndarray
+) -> None:
+    """(1) forecast rows for the coming or current night"""
+    fsidx, ft, fcols = w.blk.forecast
+    if not fsidx.size:
+        return
+    horizon = sun.next_sunrise[fsidx] + 3600.0
+    inwin = (ft >= w.t_at) & (ft <= horizon) & ~np.isnan(fcols["temp_c"])
+    fmin, fdew = _min_per_site(
+        fsidx[inwin], fcols["temp_c"][inwin], fcols["dewpoint_c"][inwin], w.blk.n
+    )
+    has_fc = ~np.isnan(fmin)
+    with np.errstate(invalid="ignore"):
+        shifted = fmin + min_offset * np.nan_to_num(cooling_potential)
+    p.proj = np.where(has_fc, shifted, p.proj)
+    p.proj_dew = np.where(has_fc & ~np.isnan(fdew), fdew, p.proj_dew)
+    p.method[has_fc] = "forecast"
+
+
+def _from_cooling_fit(
+    p: Projection, w: Window, sun: Night, now: Current, settings: FeatureSettings
+) -> None:
+    """(2) Brunt's square-root law fitted to tonight's own readings"""
+    blk, n = w.blk, w.blk.n
+    temp_c, dewpoint_c = now.temp_c, now.dewpoint_c
+    a, b = column_span(sun.since_lo, w.hi)
+    h_tail = w.hours[:, a:b]
+    tc_tail = blk.block("temp_c", a, b)
+    m_tail = in_range(a, b, sun.since_lo, w.hi) & ~np.isnan(tc_tail)
+    x = np.where(m_tail, h_tail - sun.sunset_h[:, None], np.nan)
+    y = np.where(m_tail, tc_tail, np.nan)
+    if x.shape[1] < 3:
+        return
+    # per row again: a site with a forecast minimum or too few points needs no fit
+    t0 = np.full(n, np.nan)
+    k = np.full(n, np.nan)
+    need = np.isnan(p.proj) & (m_tail.sum(axis=1) >= 3)
+    if need.any():
+        pick = need if need.mean() < SUBSET_SHARE else slice(None)
+        t0[pick], k[pick] = physics.fit_sqrt_cooling(x[pick], y[pick])
+    fit_span = np.nanmax(x, axis=1, initial=-np.inf) - np.nanmin(x, axis=1, initial=np.inf)
+    fit_ok = ~np.isnan(k) & (fit_span >= settings.fit_min_span_h) & np.isnan(p.proj)
+    night_len = (sun.next_sunrise - sun.last_sunset) / 3600.0
+    with np.errstate(invalid="ignore"):
+        at_sunrise = physics.project_sqrt_cooling_c(t0, np.maximum(k, 0.0), night_len)
+        fitted = np.fmin(at_sunrise, temp_c)
+        cross_h = np.where(
+            (k > 0) & (temp_c > dewpoint_c),
+            ((t0 - dewpoint_c) / np.where(k > 0, k, np.nan)) ** 2,
+            np.nan,
+        )
+        cross_from_now = cross_h - sun.hours_since_sunset
+        cross_ok = fit_ok & (cross_from_now >= 0) & (cross_h <= night_len)
+    p.proj = np.where(fit_ok, fitted, p.proj)
+    p.method[fit_ok] = "cooling-fit"
+    p.fit_t0 = np.where(fit_ok, t0, np.nan)
+    p.fit_k = np.where(fit_ok, k, np.nan)
+    p.hours_to_crossing = np.where(cross_ok, cross_from_now, np.nan)
+
+
+def _from_midday(
+    p: Projection,
+    w: Window,
+    sun: Night,
+    now: Current,
+    cooling_potential: np.ndarray,
+    min_offset: np.ndarray,
+) -> None:
+    """(3) Craddock & Pritchard (1951) from the readings nearest local midday"""
+    blk, n, rows = w.blk, w.blk.n, w.blk.rows
+    noon_lo = np.maximum(w.lo, sun.noon_lo)
+    noon_hi = np.minimum(w.hi, sun.noon_hi)
+    a, b = column_span(noon_lo, noon_hi)
+    t12 = np.full(n, np.nan)
+    td12 = np.full(n, np.nan)
+    if b > a:
+        h_band = w.hours[:, a:b]
+        temp_band = blk.block("temp_c", a, b)
+        dew_band = blk.block("dewpoint_c", a, b)
+        near_noon = in_range(a, b, noon_lo, noon_hi) & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+        dist = np.where(near_noon, np.abs(h_band - sun.noon_h[:, None]), np.inf)
+        best = np.argmin(dist, axis=1)
+        has_noon = np.isfinite(dist[rows, best])
+        t12 = np.where(has_noon, temp_band[rows, best], np.nan)
+        td12 = np.where(has_noon, dew_band[rows, best], np.nan)
+    # K from −2.2 (calm, clear) to +2.5 (windy, cloudy) — the published end members,
+    # interpolated by cooling potential (our choice).
+    k_cp = 2.5 - 4.7 * cooling_potential
+    with np.errstate(invalid="ignore"):
+        cp_min = physics.craddock_pritchard_min_c(t12, td12, k_cp) + min_offset * np.nan_to_num(
+            cooling_potential
+        )
+        cp_min = np.fmin(cp_min, np.where(sun.night, now.temp_c, np.nan))
+    use_cp = np.isnan(p.proj) & ~np.isnan(cp_min)
+    p.proj = np.where(use_cp, cp_min, p.proj)
+    p.method[use_cp] = "midday-estimate"
+
+
+def crossover(w: Window, sun: Night) -> np.ndarray:
+    """The crossover temperature: the afternoon's lowest dew point (NaN if none)."""
+    aft_start = np.maximum(w.lo, sun.aft_start)
+    aft_stop = np.minimum(w.hi, sun.aft_stop)
+    a, b = column_span(aft_start, aft_stop)
+    out = np.full(w.blk.n, np.nan)
+    if b > a:
+        dew_band = w.blk.block("dewpoint_c", a, b)
+        aft = in_range(a, b, aft_start, aft_stop) & ~np.isnan(dew_band)
+        lowest = np.where(aft, dew_band, np.inf).min(axis=1)
+        # none in the window (or an infinite reading) is unknown
+        out = np.where(np.isinf(lowest), np.nan, lowest)
+    return out
+
+
+def hours_to_fog(
+    p: Projection, sun: Night, hours_to_saturation: np.ndarray, settings: FeatureSettings
+) -> np.ndarray:
+    """The sooner of saturation and crossing, as far as each can be trusted now."""
+    with np.errstate(invalid="ignore"):
+        # Once tonight's cooling curve is fitted it says when the air meets the dew point
+        # (NaN: not before sunrise); a straight-line trend over the first hours after
+        # sunset would overshoot, as cooling is fastest then (Brunt's law), so the trend
+        # is used only before sunset or once the evening transition is over.
+        has_fit = ~np.isnan(p.fit_k)
+        transition = sun.night & (sun.hours_since_sunset < settings.evening_transition_h)
+        out = np.where(
+            has_fit, p.hours_to_crossing, np.where(transition, np.nan, hours_to_saturation)
+        )
+        # a closed depression is saturation now, whatever the curve says
+        return np.where(hours_to_saturation == 0.0, 0.0, out)
+
+
+def data_age_min(w: Window) -> np.ndarray:
+    """Minutes since the newest reading; +inf for a site that has never reported."""
+    with np.errstate(invalid="ignore"):
+        return np.where(np.isnan(w.last_any), np.inf, 0.0 - w.last_any * 60.0)
+
+
+def _min_per_site(
+    sidx: np.ndarray, temp: np.ndarray, dew: np.ndarray, n: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per site: the lowest temperature, and the dew point on that same row."""
+    tmin = np.full(n, np.nan)
+    dmin = np.full(n, np.nan)
+    if sidx.size == 0:
+        return tmin, dmin
+    order = np.lexsort((-temp, sidx))  # per site, coldest last so it is written last
+    tmin[sidx[order]] = temp[order]
+    dmin[sidx[order]] = dew[order]
+    return tmin, dmin
