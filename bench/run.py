@@ -108,11 +108,11 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     import numpy as np
 
     import notifier.engine.assess as assess_module
+    from notifier.core.columns import text_columns_as_objects
     from notifier.core.config import AlertSettings, default_rules_dir
-    from notifier.core.observations import text_columns_as_objects
     from notifier.engine import lifecycle
     from notifier.engine.features import FeatureCache, compute_features, compute_features_at
-    from notifier.engine.rules import load_rule_set
+    from notifier.engine.rule_files import load_rule_set
     from notifier.storage.store import Store
 
     sites = generate.sites(n_sites, seed)
@@ -478,7 +478,7 @@ def run_email_dispatch(tmp: Path, seed: int) -> dict[str, Any]:
     from notifier.delivery.routing import route
     from notifier.engine.assess import assess
     from notifier.engine.lifecycle import step
-    from notifier.engine.rules import load_rule_set
+    from notifier.engine.rule_files import load_rule_set
     from notifier.storage.outbox import Outbox
     from notifier.storage.store import Store
 
@@ -528,7 +528,7 @@ def run_email_channel() -> dict[str, Any]:
     """1,000 messages straight through notifier.delivery.channels.email.EmailSender."""
     from notifier.delivery.channels.email import EmailSender
     from notifier.delivery.messages import Message
-    from notifier.delivery.routing import Delivery
+    from notifier.storage.outbox import Delivery
 
     controller, inbox = _smtp_server()
     try:
@@ -570,7 +570,7 @@ def run_replay(seed: int) -> dict[str, Any]:
     import pandas as pd
 
     from notifier.core.config import Config, default_rules_dir
-    from notifier.engine.rules import load_rule_set
+    from notifier.engine.rule_files import load_rule_set
     from notifier.history.replay import replay
     from notifier.service.cycle import Loaded
 

@@ -17,7 +17,8 @@ from typing import Any
 import pytest
 import yaml
 
-from notifier.core.config import Config, load_config
+from notifier.core.config import Config
+from notifier.core.config_file import load_config
 
 SITES: list[dict[str, Any]] = [
     {

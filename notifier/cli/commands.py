@@ -13,7 +13,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, cast
 
-from notifier.core.config import load_config
+from notifier.core.config_file import load_config
 from notifier.core.errors import FogwatchError, UsageError
 from notifier.service.cycle import Loaded, evaluate, load, observations_for, open_store, parse_time
 

@@ -40,7 +40,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from notifier.core.config import load_config
+    from notifier.core.config_file import load_config
     from notifier.engine.rule_files import load_rule_set
 
     config = load_config(args.config)

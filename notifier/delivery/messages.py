@@ -26,12 +26,12 @@ from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.core.timefmt import iso_text, local_time
-from notifier.engine.features import FEATURES
+from notifier.engine.catalog import FEATURES
 from notifier.engine.rules import format_value
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Site
-    from notifier.engine.lifecycle import Event
+    from notifier.engine.alerts import Event
     from notifier.engine.rules import RuleSet
 
 __all__ = ["CAUTION", "WIDTH", "Message", "headline", "render", "render_summary"]

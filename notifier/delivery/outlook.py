@@ -12,8 +12,8 @@ import math
 from datetime import datetime, timedelta
 
 from notifier.core.timefmt import local_time
+from notifier.engine.alerts import Event, event_id
 from notifier.engine.assess import SiteAssessment
-from notifier.engine.lifecycle import Event, event_id
 
 __all__ = ["outlook_event", "outlook_lines"]
 

@@ -35,7 +35,7 @@ from notifier.storage.outbox import Delivery
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Config
-    from notifier.engine.lifecycle import Event
+    from notifier.engine.alerts import Event
 
 __all__ = [
     "DEFAULT_SUBSCRIBER",

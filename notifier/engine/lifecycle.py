@@ -38,37 +38,25 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
 
 from __future__ import annotations
 
-import hashlib
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
-from notifier.core.timefmt import iso_text, parse_iso
+from notifier.engine.alerts import AlertState, Event, StateKey, event_id
 from notifier.engine.assess import level_rank, results_where
-from notifier.engine.features import FEATURES
+from notifier.engine.catalog import FEATURES
 from notifier.engine.rules import HAZARDS, format_value
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
     from notifier.engine.assess import SiteAssessment
 
-__all__ = [
-    "EVENT_TYPES",
-    "STATE_VERSION",
-    "AlertState",
-    "Event",
-    "StateKey",
-    "event_id",
-    "step",
-]
+__all__ = ["step"]
 
-STATE_VERSION = 1
-EVENT_TYPES = ("raised", "escalated", "downgraded", "cleared", "reminder", "data_gap", "data_back")
+
 DATA_GAP = "data_gap"
-
-StateKey = tuple[str, str]  # (site id, hazard)
 
 # Features worth showing beside any alert; the rules' own features are added to them.
 SHOWN_FEATURES = (
@@ -82,186 +70,6 @@ SHOWN_FEATURES = (
     "projected_min_temp_c",
     "hours_to_fog",
 )
-
-
-@dataclass(frozen=True)
-class AlertState:
-    """Where one (site, hazard) stands. Times are aware UTC datetimes."""
-
-    site_id: str
-    hazard: str
-    level: str = "none"
-    since: datetime | None = None  # when the current level began
-    episode_start: datetime | None = None  # when the episode left "none"
-    below_since: datetime | None = None  # sustain level first fell below ``level``
-    clear_since: datetime | None = None  # sustain level first fell to none
-    last_event_at: datetime | None = None
-    last_reminder_at: datetime | None = None
-    last_raised: tuple[tuple[str, datetime], ...] = ()  # level → last announced (cooldown)
-    rules: tuple[str, ...] = ()  # rules behind the current level
-    reasons: tuple[str, ...] = ()  # the reasons last announced
-
-    @property
-    def key(self) -> StateKey:
-        return (self.site_id, self.hazard)
-
-    def raised_at(self, level: str) -> datetime | None:
-        return dict(self.last_raised).get(level)
-
-    def to_dict(self) -> dict[str, Any]:
-        """A JSON-ready form with a schema version, for the store."""
-        return {
-            "version": STATE_VERSION,
-            "site_id": self.site_id,
-            "hazard": self.hazard,
-            "level": self.level,
-            "since": iso_text(self.since),
-            "episode_start": iso_text(self.episode_start),
-            "below_since": iso_text(self.below_since),
-            "clear_since": iso_text(self.clear_since),
-            "last_event_at": iso_text(self.last_event_at),
-            "last_reminder_at": iso_text(self.last_reminder_at),
-            "last_raised": {lvl: iso_text(t) for lvl, t in self.last_raised},
-            "rules": list(self.rules),
-            "reasons": list(self.reasons),
-        }
-
-    @classmethod
-    def from_dict(cls, data: Mapping[str, Any]) -> AlertState:
-        version = data.get("version")
-        if version != STATE_VERSION:
-            raise ValueError(f"unsupported alert state version {version!r}")
-        raised = sorted(
-            ((lvl, parse_iso(t)) for lvl, t in data.get("last_raised", {}).items()),
-            key=lambda p: level_rank(p[0]),
-        )
-        return cls(
-            site_id=data["site_id"],
-            hazard=data["hazard"],
-            level=data["level"],
-            since=parse_iso(data.get("since")),
-            episode_start=parse_iso(data.get("episode_start")),
-            below_since=parse_iso(data.get("below_since")),
-            clear_since=parse_iso(data.get("clear_since")),
-            last_event_at=parse_iso(data.get("last_event_at")),
-            last_reminder_at=parse_iso(data.get("last_reminder_at")),
-            last_raised=tuple((lvl, t) for lvl, t in raised if t is not None),
-            rules=tuple(data.get("rules", ())),
-            reasons=tuple(data.get("reasons", ())),
-        )
-
-
-@dataclass(frozen=True)
-class Event:
-    """Something a person should hear about one site and hazard.
-
-    ``level`` is the level after the event (``none`` for cleared and data_back);
-    ``previous_level`` the level before it. For ``downgraded``, ``cleared`` and
-    ``data_back``, ``changes`` says what is no longer true, value against the threshold
-    the alert needed; ``previous_reasons`` what was announced before.
-    """
-
-    id: str
-    type: str
-    site_id: str
-    hazard: str
-    level: str
-    previous_level: str
-    time: datetime
-    episode_start: datetime | None = None
-    level_since: datetime | None = None  # for reminders: when the level began
-    eased_since: datetime | None = None  # for endings: since when below the ended level
-    kind: str = ""
-    eta: datetime | None = None
-    rules: tuple[str, ...] = ()
-    reasons: tuple[str, ...] = ()
-    explanations: tuple[str, ...] = ()
-    safety_refs: tuple[str, ...] = ()
-    changes: tuple[str, ...] = ()
-    previous_reasons: tuple[str, ...] = ()
-    features: Mapping[str, float] = field(default_factory=dict)
-    data_age_min: float | None = None
-    projection_method: str = ""
-
-    @property
-    def news_level(self) -> str:
-        """The level this news is about: the one it ends, for an ending."""
-        if self.type in ("downgraded", "cleared", "data_back"):
-            return self.previous_level
-        return self.level
-
-    def to_dict(self) -> dict[str, Any]:
-        """A JSON-ready form for the outbox (NaN and ±inf become null)."""
-        age = self.data_age_min
-        return {
-            "version": STATE_VERSION,
-            "id": self.id,
-            "type": self.type,
-            "site_id": self.site_id,
-            "hazard": self.hazard,
-            "level": self.level,
-            "previous_level": self.previous_level,
-            "time": iso_text(self.time),
-            "episode_start": iso_text(self.episode_start),
-            "level_since": iso_text(self.level_since),
-            "eased_since": iso_text(self.eased_since),
-            "kind": self.kind,
-            "eta": iso_text(self.eta),
-            "rules": list(self.rules),
-            "reasons": list(self.reasons),
-            "explanations": list(self.explanations),
-            "safety_refs": list(self.safety_refs),
-            "changes": list(self.changes),
-            "previous_reasons": list(self.previous_reasons),
-            "features": dict(self.features),
-            "data_age_min": age if age is not None and math.isfinite(age) else None,
-            "projection_method": self.projection_method,
-        }
-
-    @classmethod
-    def from_dict(cls, data: Mapping[str, Any]) -> Event:
-        time = parse_iso(data["time"])
-        assert time is not None
-        age = data.get("data_age_min")
-        return cls(
-            id=data["id"],
-            type=data["type"],
-            site_id=data["site_id"],
-            hazard=data["hazard"],
-            level=data["level"],
-            previous_level=data["previous_level"],
-            time=time,
-            episode_start=parse_iso(data.get("episode_start")),
-            level_since=parse_iso(data.get("level_since")),
-            eased_since=parse_iso(data.get("eased_since")),
-            kind=data.get("kind", ""),
-            eta=parse_iso(data.get("eta")),
-            rules=tuple(data.get("rules", ())),
-            reasons=tuple(data.get("reasons", ())),
-            explanations=tuple(data.get("explanations", ())),
-            safety_refs=tuple(data.get("safety_refs", ())),
-            changes=tuple(data.get("changes", ())),
-            previous_reasons=tuple(data.get("previous_reasons", ())),
-            features=dict(data.get("features", {})),
-            data_age_min=math.inf if age is None else float(age),
-            projection_method=data.get("projection_method", ""),
-        )
-
-
-def event_id(
-    site_id: str,
-    hazard: str,
-    episode_start: datetime | None,
-    type_: str,
-    level: str,
-    time: datetime,
-) -> str:
-    """Stable id: sha256 over site|hazard|episode start|type|level|minute of the event."""
-    bucket = time.astimezone(UTC).replace(second=0, microsecond=0)
-    text = "|".join(
-        (site_id, hazard, iso_text(episode_start) or "-", type_, level, iso_text(bucket) or "-")
-    )
-    return hashlib.sha256(text.encode()).hexdigest()[:32]
 
 
 def _rank(level: str) -> int:
@@ -365,40 +173,17 @@ def _step_one(
     sustain = sa.sustain.get(state.hazard, "none")
     if _rank(sustain) < _rank(assessed):
         sustain = assessed
-    is_data = state.hazard == DATA_GAP
-    cooldown = timedelta(seconds=settings.cooldown)
-    clearing = timedelta(seconds=settings.clearing_time)
 
     if _rank(assessed) > _rank(state.level):
         announced = state.raised_at(assessed)
-        if announced is None or now - announced >= cooldown:
-            if is_data:
-                type_ = "data_gap"
-            else:
-                type_ = "raised" if state.level == "none" else "escalated"
-            episode = now if state.level == "none" else state.episode_start
-            event = _make_event(type_, state, assessed, sa, now, episode)
-            raised = dict(state.last_raised)
-            raised[assessed] = now
-            new = replace(
-                state,
-                level=assessed,
-                since=now,
-                episode_start=episode,
-                below_since=None,
-                clear_since=None,
-                last_event_at=now,
-                last_reminder_at=None,
-                last_raised=tuple(sorted(raised.items(), key=lambda p: _rank(p[0]))),
-                rules=event.rules,
-                reasons=event.reasons,
-            )
-            return new, [event]
+        if announced is None or now - announced >= timedelta(seconds=settings.cooldown):
+            return _rise(state, assessed, sa, now)
         # inside the cooldown: hold the rise, announce it when the cooldown ends
 
     if state.level == "none":
         return state, []
 
+    is_data = state.hazard == DATA_GAP
     if sa.stale and not is_data:
         # unknown is not "below threshold": no clearing and no reminder on stale data
         return _with_since(state, None, None), []
@@ -409,61 +194,104 @@ def _step_one(
     clear_since = (state.clear_since or now) if sustain == "none" else None
 
     if is_data and sustain == "none":
-        event = _make_event(
-            "data_back",
-            state,
-            "none",
-            sa,
-            now,
-            state.episode_start,
-            changes=_changes(sa, state),
-            eased_since=now,
-        )
-        return _ended(state, now), [event]
+        return _end("data_back", state, sa, now, eased_since=now)
 
+    clearing = timedelta(seconds=settings.clearing_time)
     if below_since is not None and now - below_since >= clearing:
         if clear_since is not None and now - clear_since >= clearing:
-            event = _make_event(
-                "cleared",
-                state,
-                "none",
-                sa,
-                now,
-                state.episode_start,
-                changes=_changes(sa, state),
-                eased_since=clear_since,
-            )
-            return _ended(state, now), [event]
-        target = "watch"  # the only level between warning and none
-        event = _make_event(
-            "downgraded",
-            state,
-            target,
-            sa,
-            now,
-            state.episode_start,
-            changes=_changes(sa, state),
-            eased_since=below_since,
-        )
-        new = replace(
-            state,
-            level=target,
-            since=now,
-            below_since=clear_since,
-            clear_since=clear_since,
-            last_event_at=now,
-            last_reminder_at=None,
-            rules=event.rules or state.rules,
-            reasons=event.reasons or state.reasons,
-        )
-        return new, [event]
+            return _end("cleared", state, sa, now, eased_since=clear_since)
+        return _downgrade(state, sa, now, below_since, clear_since)
 
-    new = _with_since(state, below_since, clear_since)
+    return _remind(_with_since(state, below_since, clear_since), sa, now, settings)
+
+
+def _rise(
+    state: AlertState, assessed: str, sa: SiteAssessment, now: datetime
+) -> tuple[AlertState, list[Event]]:
+    """``raised``, ``escalated`` or ``data_gap``: the level goes up at once."""
+    if state.hazard == DATA_GAP:
+        type_ = "data_gap"
+    else:
+        type_ = "raised" if state.level == "none" else "escalated"
+    episode = now if state.level == "none" else state.episode_start
+    event = _make_event(type_, state, assessed, sa, now, episode)
+    raised = dict(state.last_raised)
+    raised[assessed] = now
+    new = replace(
+        state,
+        level=assessed,
+        since=now,
+        episode_start=episode,
+        below_since=None,
+        clear_since=None,
+        last_event_at=now,
+        last_reminder_at=None,
+        last_raised=tuple(sorted(raised.items(), key=lambda p: _rank(p[0]))),
+        rules=event.rules,
+        reasons=event.reasons,
+    )
+    return new, [event]
+
+
+def _end(
+    type_: str, state: AlertState, sa: SiteAssessment, now: datetime, eased_since: datetime
+) -> tuple[AlertState, list[Event]]:
+    """``cleared`` or ``data_back``: the alert is over."""
+    event = _make_event(
+        type_,
+        state,
+        "none",
+        sa,
+        now,
+        state.episode_start,
+        changes=_changes(sa, state),
+        eased_since=eased_since,
+    )
+    return _ended(state, now), [event]
+
+
+def _downgrade(
+    state: AlertState,
+    sa: SiteAssessment,
+    now: datetime,
+    below_since: datetime,
+    clear_since: datetime | None,
+) -> tuple[AlertState, list[Event]]:
+    """``downgraded``: warning eased to watch, the only level between warning and none."""
+    target = "watch"
+    event = _make_event(
+        "downgraded",
+        state,
+        target,
+        sa,
+        now,
+        state.episode_start,
+        changes=_changes(sa, state),
+        eased_since=below_since,
+    )
+    new = replace(
+        state,
+        level=target,
+        since=now,
+        below_since=clear_since,
+        clear_since=clear_since,
+        last_event_at=now,
+        last_reminder_at=None,
+        rules=event.rules or state.rules,
+        reasons=event.reasons or state.reasons,
+    )
+    return new, [event]
+
+
+def _remind(
+    state: AlertState, sa: SiteAssessment, now: datetime, settings: AlertSettings
+) -> tuple[AlertState, list[Event]]:
+    """A ``reminder`` when a warning that is not easing has run ``reminder_every``."""
     every = timedelta(seconds=settings.reminder_every)
     last = state.last_reminder_at or state.since
     if (
         state.level == "warning"
-        and below_since is None
+        and state.below_since is None
         and every > timedelta(0)
         and last is not None
         and now - last >= every
@@ -472,14 +300,14 @@ def _step_one(
             "reminder", state, state.level, sa, now, state.episode_start, level_since=state.since
         )
         new = replace(
-            new,
+            state,
             last_event_at=now,
             last_reminder_at=now,
             rules=event.rules or state.rules,
             reasons=event.reasons or state.reasons,
         )
         return new, [event]
-    return new, []
+    return state, []
 
 
 def _with_since(

@@ -20,7 +20,8 @@ import numpy as np
 
 from notifier.core.timefmt import iso_z
 from notifier.engine.assess import results_where
-from notifier.engine.features import epoch_seconds
+from notifier.engine.columns import epoch_seconds
+from notifier.engine.features import FeatureCache
 from notifier.history.verify import (
     Contingency,
     NightOutcome,
@@ -33,7 +34,7 @@ from notifier.history.verify import (
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-    from notifier.engine.lifecycle import Event
+    from notifier.engine.alerts import Event
     from notifier.service.cycle import Loaded
 
 __all__ = ["ReplayResult", "replay", "to_json"]
@@ -168,6 +169,7 @@ def replay(
     states: dict[Any, Any] = {}
     events: list[Event] = []
     cache: dict[float, Any] = {}
+    features = FeatureCache()  # the feature code's cache, kept from batch to batch
     stale = config.alerts.stale_after / 60.0
     hold_s = max((r.hold_s for r in loaded.rules.rules), default=0.0) + HOLD_STEP_S
     batch: list[list[Any]] = []
@@ -192,6 +194,7 @@ def replay(
                 [datetime.fromtimestamp(float(t), UTC) for t in batch_times],
                 stale_after_min=stale,
                 cache=cache,
+                feature_cache=features,
             )
         assessments = batch[k % BATCH]
         states, found = step(states, assessments, now, config.alerts)

@@ -14,7 +14,7 @@ from typing import Protocol, runtime_checkable
 
 import pandas as pd
 
-from notifier.core.observations import Rejection, empty_frame
+from notifier.core.columns import Rejection, empty_frame
 
 __all__ = ["FileOutcome", "ObservationSource", "PollResult"]
 

@@ -42,16 +42,10 @@ from requests.adapters import HTTPAdapter
 from urllib3.util.retry import Retry
 
 from notifier import __version__
+from notifier.core.columns import ALTERNATIVES, INPUT_COLUMNS, UNITS, missing_columns, unit_registry
 from notifier.core.config import FieldSpec
 from notifier.core.errors import SourceUnavailable
-from notifier.core.observations import (
-    ALTERNATIVES,
-    INPUT_COLUMNS,
-    UNITS,
-    missing_columns,
-    normalize,
-    unit_registry,
-)
+from notifier.core.observations import normalize
 from notifier.ingest.base import PollResult
 
 if TYPE_CHECKING:

@@ -30,7 +30,7 @@ from typing import Any, cast
 
 from metar import Metar
 
-from notifier.core.observations import Rejection
+from notifier.core.columns import Rejection
 
 __all__ = ["MetarError", "decode_report", "parse_metar_text", "report_month", "split_reports"]
 

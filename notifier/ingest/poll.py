@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from notifier.core.observations import Rejection, empty_frame
+from notifier.core.columns import Rejection, empty_frame
 from notifier.ingest.base import ObservationSource, PollResult
 
 if TYPE_CHECKING:
@@ -122,7 +122,7 @@ def read_files(
     and a config with a single site lends it to rows that name none.
     """
     from notifier.core.config import FileDropSource
-    from notifier.ingest.filedrop import format_for, parse_file
+    from notifier.ingest.file_formats import format_for, parse_file
 
     sites = {site.id: site for site in config.sites}
     drops = [s for s in config.sources if isinstance(s, FileDropSource)]

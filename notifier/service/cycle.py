@@ -16,7 +16,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal, cast
 
-from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber, load_config
+from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber
+from notifier.core.config_file import load_config
 from notifier.core.errors import FogwatchError, UsageError
 from notifier.engine.rule_files import load_rule_set
 from notifier.engine.rules import RuleSet
@@ -27,9 +28,10 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.delivery.dispatch import DispatchReport
+    from notifier.engine.alerts import Event
     from notifier.engine.assess import SiteAssessment
-    from notifier.engine.features import FeatureTable
-    from notifier.engine.lifecycle import Event
+    from notifier.engine.catalog import FeatureTable
+    from notifier.engine.features import FeatureCache
     from notifier.ingest.base import ObservationSource, PollResult
     from notifier.storage.outbox import Delivery
     from notifier.storage.store import Store
@@ -85,6 +87,7 @@ def evaluate(
     obs: pd.DataFrame,
     at: datetime,
     cache: dict[float, FeatureTable] | None = None,
+    feature_cache: FeatureCache | None = None,  # the caller's, kept between cycles
 ) -> list[SiteAssessment]:
     """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
     from notifier.engine.assess import assess
@@ -96,6 +99,7 @@ def evaluate(
         at,
         stale_after_min=loaded.config.alerts.stale_after / 60.0,
         cache=cache,
+        feature_cache=feature_cache,
     )
 
 
@@ -147,6 +151,10 @@ class Service:
         # evaluated. Their feature tables are kept, so a cycle computes only its own time
         # (they say what was known then, as a person on watch would have seen it).
         self._features: dict[float, FeatureTable] = {}
+        from notifier.engine.features import FeatureCache
+
+        # the sites as arrays and the sun of recent cycles (the feature code's cache)
+        self._feature_cache = FeatureCache()
         # the rolling window, kept in memory: each cycle reads only the rows written since
         self._window: RollingWindow | None = None
         self._stop = threading.Event()
@@ -213,7 +221,9 @@ class Service:
         with self._lock:
             polls = self.poll(now, source_ids)
             obs = self._observations(now)
-            assessments = evaluate(self.loaded, obs, now, self._remembered(now))
+            assessments = evaluate(
+                self.loaded, obs, now, self._remembered(now), self._feature_cache
+            )
             return self._advance(now, assessments, obs, polls)
 
     def _observations(self, now: datetime) -> pd.DataFrame:
@@ -365,7 +375,8 @@ class Service:
         with self._lock:
             obs = self._observations(now)
             wanted = set(site_ids)
-            sites = [a for a in evaluate(self.loaded, obs, now) if a.site.id in wanted]
+            found = evaluate(self.loaded, obs, now, feature_cache=self._feature_cache)
+            sites = [a for a in found if a.site.id in wanted]
             events = [outlook_event(sa, now) for sa in sites]
             deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
             states = self.outbox.states()

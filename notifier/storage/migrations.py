@@ -27,7 +27,7 @@ from dataclasses import dataclass
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
-from notifier.core.observations import FLOAT_COLUMNS
+from notifier.core.columns import FLOAT_COLUMNS
 
 __all__ = ["MIGRATIONS", "Migration", "metadata"]
 

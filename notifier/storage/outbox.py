@@ -24,7 +24,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from notifier.core.timefmt import iso_z, parse_iso
-from notifier.engine.lifecycle import AlertState, Event, StateKey
+from notifier.engine.alerts import AlertState, Event, StateKey
 from notifier.storage.migrations import alert_states, deliveries, events, site_status
 from notifier.storage.store import Store
 

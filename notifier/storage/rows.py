@@ -13,7 +13,7 @@ from typing import Any, cast
 import numpy as np
 import pandas as pd
 
-from notifier.core.observations import (
+from notifier.core.columns import (
     CANONICAL_COLUMNS,
     FLOAT_COLUMNS,
     TEXT_COLUMNS,
@@ -90,7 +90,7 @@ def nan_to_none(values: np.ndarray) -> list[Any]:
 
 
 def records_frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.DataFrame:
-    from notifier.core.observations import empty_frame
+    from notifier.core.columns import empty_frame
 
     if not records:
         empty = empty_frame()

@@ -20,12 +20,8 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.pool import StaticPool
 
+from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS, text_columns_as_objects
 from notifier.core.errors import StoreError
-from notifier.core.observations import (
-    CANONICAL_COLUMNS,
-    FLOAT_COLUMNS,
-    text_columns_as_objects,
-)
 from notifier.core.timefmt import iso_z, parse_iso
 from notifier.storage.connect import make_engine, sqlite_events
 from notifier.storage.migrations import (

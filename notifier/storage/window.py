@@ -30,7 +30,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from notifier.core.observations import CANONICAL_COLUMNS, FLOAT_COLUMNS
+from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS
 
 if TYPE_CHECKING:
     from notifier.storage.store import Store

@@ -8,7 +8,8 @@ from pathlib import Path
 
 import pytest
 
-from notifier.core.config import default_rules_dir, load_config, parse_duration_s
+from notifier.core.config import default_rules_dir, parse_duration_s
+from notifier.core.config_file import load_config
 from notifier.core.errors import ConfigError
 
 MINIMAL = """\

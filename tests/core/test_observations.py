@@ -12,16 +12,16 @@ import pandas as pd
 import pytest
 
 from notifier import physics
-from notifier.core import observations
-from notifier.core.config import Site
-from notifier.core.observations import (
+from notifier.core import columns, observations, row_checks
+from notifier.core.columns import (
     ALTERNATIVES,
     CANONICAL_COLUMNS,
     Rejection,
     missing_columns,
-    normalize,
     unit_registry,
 )
+from notifier.core.config import Site
+from notifier.core.observations import normalize
 from tests.conftest import SITES
 
 NOW = datetime(2024, 1, 12, 7, 0, tzinfo=UTC)
@@ -48,7 +48,8 @@ def row(**values: Any) -> dict[str, Any]:
 
 
 def test_public_names():
-    assert set(observations.__all__) >= {"CANONICAL_COLUMNS", "Rejection", "normalize"}
+    assert set(observations.__all__) == {"normalize", "normalize_frame"}
+    assert set(columns.__all__) >= {"CANONICAL_COLUMNS", "Rejection", "empty_frame"}
     assert CANONICAL_COLUMNS == [
         "site", "time", "kind", "temp_c", "dewpoint_c", "rh_pct", "wind_ms", "wind_dir_deg",
         "cloud_pct", "surface_temp_c", "water_temp_c", "visibility_m", "pressure_hpa",
@@ -61,7 +62,7 @@ def test_output_has_exactly_the_canonical_columns_and_dtypes():
     assert rejections == []
     assert list(frame.columns) == CANONICAL_COLUMNS
     assert str(frame["time"].dtype) == "datetime64[ns, UTC]"
-    for column in observations.FLOAT_COLUMNS:
+    for column in columns.FLOAT_COLUMNS:
         assert frame[column].dtype == np.float64, column
     assert frame.loc[0, "site"] == "zz-vale"
     assert frame.loc[0, "kind"] == "obs"
@@ -110,20 +111,20 @@ def test_alternative_column_converts_to_exact_definition_and_pint(column):
     frame, rejections, _ = run([record])
     assert rejections == []
     assert frame.loc[0, target] == pytest.approx(expected, abs=1e-3)
-    by_pint = unit_registry().Quantity(given, unit).to(observations.UNITS[target]).magnitude
+    by_pint = unit_registry().Quantity(given, unit).to(columns.UNITS[target]).magnitude
     assert frame.loc[0, target] == pytest.approx(by_pint, rel=1e-12)
     assert column not in frame.columns
 
 
 def test_one_pint_call_per_column_not_per_row(monkeypatch):
     calls = []
-    real = observations._convert
+    real = row_checks._convert
 
     def counting(values, unit_in, unit_out):
         calls.append((len(values), unit_in))
         return real(values, unit_in, unit_out)
 
-    monkeypatch.setattr(observations, "_convert", counting)
+    monkeypatch.setattr(row_checks, "_convert", counting)
     records = [row(temp_c=..., temp_f=40.0 + i / 10, wind_kt=5.0) for i in range(500)]
     frame, rejections, _ = run(records)
     assert rejections == [] and len(frame) == 1  # same time: the last wins

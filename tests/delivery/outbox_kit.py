@@ -20,7 +20,7 @@ import yaml
 
 from notifier.delivery.channels.webhook import DELIVERY_HEADER, verify_signature
 from notifier.delivery.routing import route
-from notifier.engine.lifecycle import Event
+from notifier.engine.alerts import Event
 from notifier.storage.outbox import Delivery
 from tests.delivery.conftest import SMTP_PASSWORD, SMTP_USER, WEBHOOK_SECRET
 

@@ -9,8 +9,9 @@ from datetime import timedelta
 import pytest
 
 from notifier.delivery.messages import CAUTION, WIDTH, headline, render, render_summary
+from notifier.engine.alerts import Event
 from notifier.engine.assess import assess
-from notifier.engine.lifecycle import Event, step
+from notifier.engine.lifecycle import step
 from tests.delivery.scenes import RULES, SETTINGS, clear_night, event, site, utc
 
 USES = ("farm", "port", "venue", "other")

@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 
 from notifier.cli import main as cli
+from notifier.core.columns import text_columns_as_objects
 from notifier.core.config import Site
-from notifier.core.observations import text_columns_as_objects
 from notifier.delivery.channels.webhook import DELIVERY_HEADER
 from notifier.delivery.messages import CAUTION
 from notifier.service.cycle import Service, observations_for

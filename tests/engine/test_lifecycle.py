@@ -9,8 +9,9 @@ from zoneinfo import ZoneInfo
 import pytest
 
 from notifier.core.config import AlertSettings
+from notifier.engine.alerts import AlertState, Event, event_id
 from notifier.engine.assess import assess
-from notifier.engine.lifecycle import AlertState, Event, event_id, step
+from notifier.engine.lifecycle import step
 from tests.delivery.scenes import SETTINGS, assessment, clear_night, site, utc
 from tests.engine.scenes import RULES
 
@@ -258,16 +259,18 @@ def test_event_dataclass_is_frozen():
 
 
 def test_public_names():
+    import notifier.engine.alerts as alerts_module
     import notifier.engine.lifecycle as lifecycle_module
 
-    assert set(lifecycle_module.__all__) == {
+    assert set(lifecycle_module.__all__) == {"step"}
+    assert set(alerts_module.__all__) == {
         "EVENT_TYPES",
         "STATE_VERSION",
         "AlertState",
         "Event",
         "StateKey",
         "event_id",
-        "step",
     }
-    for name in lifecycle_module.__all__:
-        assert hasattr(lifecycle_module, name)
+    for module in (lifecycle_module, alerts_module):
+        for name in module.__all__:
+            assert hasattr(module, name)

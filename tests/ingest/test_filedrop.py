@@ -17,7 +17,8 @@ from hypothesis import strategies as st
 
 from notifier.core.config import Config, FileDropSource, Site
 from notifier.ingest import filedrop
-from notifier.ingest.filedrop import FileDrop, parse_file
+from notifier.ingest.file_formats import parse_file
+from notifier.ingest.filedrop import FileDrop
 from notifier.storage.store import Store
 from tests.conftest import SITES
 

@@ -14,8 +14,8 @@ import pandas as pd
 import pytest
 import requests
 
+from notifier.core.columns import CANONICAL_COLUMNS
 from notifier.core.config import Config
-from notifier.core.observations import CANONICAL_COLUMNS
 from notifier.ingest import poll as sources
 from notifier.ingest.filedrop import FileDrop
 from notifier.ingest.http_json import HttpJsonFeed

@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
-from notifier.engine.lifecycle import AlertState
+from notifier.engine.alerts import AlertState
 from notifier.storage import outbox as outbox_module
 from notifier.storage.botstate import BotState
 from notifier.storage.migrations import deliveries, events

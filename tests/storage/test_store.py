@@ -10,9 +10,10 @@ import pandas as pd
 import pytest
 import sqlalchemy as sa
 
+from notifier.core.columns import CANONICAL_COLUMNS
 from notifier.core.config import Site
 from notifier.core.errors import StoreError
-from notifier.core.observations import CANONICAL_COLUMNS, normalize
+from notifier.core.observations import normalize
 from notifier.storage import migrations as migrations_module
 from notifier.storage import store as store_module
 from notifier.storage.migrations import MIGRATIONS, Migration
@@ -285,7 +286,7 @@ def test_a_hundred_thousand_csv_rows_are_parsed_and_stored_quickly(tmp_path):
 
     import numpy as np
 
-    from notifier.ingest.filedrop import parse_file
+    from notifier.ingest.file_formats import parse_file
 
     n = 100_000
     rng = np.random.default_rng(7)

@@ -16,7 +16,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from notifier.core.observations import CANONICAL_COLUMNS, FLOAT_COLUMNS, text_columns_as_objects
+from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS, text_columns_as_objects
 from notifier.storage.store import Store
 from notifier.storage.window import RollingWindow
 

@@ -1,0 +1,210 @@
+"""The records of the alert lifecycle: one :class:`AlertState` per (site, hazard), and the
+:class:`Event` a person hears about. Both round-trip through plain dicts (the store keeps
+them as JSON; ``STATE_VERSION`` marks their shape). Event ids are stable: a hash of site,
+hazard, episode start, type, level and the minute of the event, so a re-run cycle makes
+the very same ids.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from typing import TYPE_CHECKING, Any
+
+from notifier.core.timefmt import iso_text, parse_iso
+from notifier.engine.assess import level_rank
+
+if TYPE_CHECKING:  # pragma: no cover
+    pass
+
+__all__ = ["AlertState", "EVENT_TYPES", "Event", "STATE_VERSION", "StateKey", "event_id"]
+
+
+STATE_VERSION = 1
+
+EVENT_TYPES = ("raised", "escalated", "downgraded", "cleared", "reminder", "data_gap", "data_back")
+
+StateKey = tuple[str, str]  # (site id, hazard)
+
+
+@dataclass(frozen=True)
+class AlertState:
+    """Where one (site, hazard) stands. Times are aware UTC datetimes."""
+
+    site_id: str
+    hazard: str
+    level: str = "none"
+    since: datetime | None = None  # when the current level began
+    episode_start: datetime | None = None  # when the episode left "none"
+    below_since: datetime | None = None  # sustain level first fell below ``level``
+    clear_since: datetime | None = None  # sustain level first fell to none
+    last_event_at: datetime | None = None
+    last_reminder_at: datetime | None = None
+    last_raised: tuple[tuple[str, datetime], ...] = ()  # level → last announced (cooldown)
+    rules: tuple[str, ...] = ()  # rules behind the current level
+    reasons: tuple[str, ...] = ()  # the reasons last announced
+
+    @property
+    def key(self) -> StateKey:
+        return (self.site_id, self.hazard)
+
+    def raised_at(self, level: str) -> datetime | None:
+        return dict(self.last_raised).get(level)
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready form with a schema version, for the store."""
+        return {
+            "version": STATE_VERSION,
+            "site_id": self.site_id,
+            "hazard": self.hazard,
+            "level": self.level,
+            "since": iso_text(self.since),
+            "episode_start": iso_text(self.episode_start),
+            "below_since": iso_text(self.below_since),
+            "clear_since": iso_text(self.clear_since),
+            "last_event_at": iso_text(self.last_event_at),
+            "last_reminder_at": iso_text(self.last_reminder_at),
+            "last_raised": {lvl: iso_text(t) for lvl, t in self.last_raised},
+            "rules": list(self.rules),
+            "reasons": list(self.reasons),
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> AlertState:
+        version = data.get("version")
+        if version != STATE_VERSION:
+            raise ValueError(f"unsupported alert state version {version!r}")
+        raised = sorted(
+            ((lvl, parse_iso(t)) for lvl, t in data.get("last_raised", {}).items()),
+            key=lambda p: level_rank(p[0]),
+        )
+        return cls(
+            site_id=data["site_id"],
+            hazard=data["hazard"],
+            level=data["level"],
+            since=parse_iso(data.get("since")),
+            episode_start=parse_iso(data.get("episode_start")),
+            below_since=parse_iso(data.get("below_since")),
+            clear_since=parse_iso(data.get("clear_since")),
+            last_event_at=parse_iso(data.get("last_event_at")),
+            last_reminder_at=parse_iso(data.get("last_reminder_at")),
+            last_raised=tuple((lvl, t) for lvl, t in raised if t is not None),
+            rules=tuple(data.get("rules", ())),
+            reasons=tuple(data.get("reasons", ())),
+        )
+
+
+@dataclass(frozen=True)
+class Event:
+    """Something a person should hear about one site and hazard.
+
+    ``level`` is the level after the event (``none`` for cleared and data_back);
+    ``previous_level`` the level before it. For ``downgraded``, ``cleared`` and
+    ``data_back``, ``changes`` says what is no longer true, value against the threshold
+    the alert needed; ``previous_reasons`` what was announced before.
+    """
+
+    id: str
+    type: str
+    site_id: str
+    hazard: str
+    level: str
+    previous_level: str
+    time: datetime
+    episode_start: datetime | None = None
+    level_since: datetime | None = None  # for reminders: when the level began
+    eased_since: datetime | None = None  # for endings: since when below the ended level
+    kind: str = ""
+    eta: datetime | None = None
+    rules: tuple[str, ...] = ()
+    reasons: tuple[str, ...] = ()
+    explanations: tuple[str, ...] = ()
+    safety_refs: tuple[str, ...] = ()
+    changes: tuple[str, ...] = ()
+    previous_reasons: tuple[str, ...] = ()
+    features: Mapping[str, float] = field(default_factory=dict)
+    data_age_min: float | None = None
+    projection_method: str = ""
+
+    @property
+    def news_level(self) -> str:
+        """The level this news is about: the one it ends, for an ending."""
+        if self.type in ("downgraded", "cleared", "data_back"):
+            return self.previous_level
+        return self.level
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready form for the outbox (NaN and ±inf become null)."""
+        age = self.data_age_min
+        return {
+            "version": STATE_VERSION,
+            "id": self.id,
+            "type": self.type,
+            "site_id": self.site_id,
+            "hazard": self.hazard,
+            "level": self.level,
+            "previous_level": self.previous_level,
+            "time": iso_text(self.time),
+            "episode_start": iso_text(self.episode_start),
+            "level_since": iso_text(self.level_since),
+            "eased_since": iso_text(self.eased_since),
+            "kind": self.kind,
+            "eta": iso_text(self.eta),
+            "rules": list(self.rules),
+            "reasons": list(self.reasons),
+            "explanations": list(self.explanations),
+            "safety_refs": list(self.safety_refs),
+            "changes": list(self.changes),
+            "previous_reasons": list(self.previous_reasons),
+            "features": dict(self.features),
+            "data_age_min": age if age is not None and math.isfinite(age) else None,
+            "projection_method": self.projection_method,
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Event:
+        time = parse_iso(data["time"])
+        assert time is not None
+        age = data.get("data_age_min")
+        return cls(
+            id=data["id"],
+            type=data["type"],
+            site_id=data["site_id"],
+            hazard=data["hazard"],
+            level=data["level"],
+            previous_level=data["previous_level"],
+            time=time,
+            episode_start=parse_iso(data.get("episode_start")),
+            level_since=parse_iso(data.get("level_since")),
+            eased_since=parse_iso(data.get("eased_since")),
+            kind=data.get("kind", ""),
+            eta=parse_iso(data.get("eta")),
+            rules=tuple(data.get("rules", ())),
+            reasons=tuple(data.get("reasons", ())),
+            explanations=tuple(data.get("explanations", ())),
+            safety_refs=tuple(data.get("safety_refs", ())),
+            changes=tuple(data.get("changes", ())),
+            previous_reasons=tuple(data.get("previous_reasons", ())),
+            features=dict(data.get("features", {})),
+            data_age_min=math.inf if age is None else float(age),
+            projection_method=data.get("projection_method", ""),
+        )
+
+
+def event_id(
+    site_id: str,
+    hazard: str,
+    episode_start: datetime | None,
+    type_: str,
+    level: str,
+    time: datetime,
+) -> str:
+    """Stable id: sha256 over site|hazard|episode start|type|level|minute of the event."""
+    bucket = time.astimezone(UTC).replace(second=0, microsecond=0)
+    text = "|".join(
+        (site_id, hazard, iso_text(episode_start) or "-", type_, level, iso_text(bucket) or "-")
+    )
+    return hashlib.sha256(text.encode()).hexdigest()[:32]
