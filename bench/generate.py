@@ -27,8 +27,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from notifier.core.config import Site
 from notifier.core.columns import CANONICAL_COLUMNS, text_columns_as_objects
+from notifier.core.config import Site
 
 __all__ = ["AT", "SEED", "last_poll_path", "load_store", "observations", "sites"]
 

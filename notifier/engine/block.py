@@ -30,7 +30,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from notifier.engine.catalog import EXPOSURE_EFFECTS
-from notifier.engine.columns import (
+from notifier.engine.readings import (
     epoch_seconds,
     float_column,
     row_kinds,

@@ -2,7 +2,7 @@
 
 Everything is computed for all sites at once, with no Python loop over sites: the
 recent observations are laid out as a sites × times block (``notifier.engine.block``,
-reading the table with ``notifier.engine.columns``), and every feature is a masked
+reading the table with ``notifier.engine.readings``), and every feature is a masked
 reduction over that block, in families (``notifier.engine.families``: what the
 readings say now; ``notifier.engine.projection``: the night ahead). What the features
 are, how they are shown and how exposure shapes them is ``notifier.engine.catalog``.

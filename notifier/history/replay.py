@@ -20,8 +20,8 @@ import numpy as np
 
 from notifier.core.timefmt import iso_z
 from notifier.engine.assess import results_where
-from notifier.engine.columns import epoch_seconds
 from notifier.engine.features import FeatureCache
+from notifier.engine.readings import epoch_seconds
 from notifier.history.verify import (
     Contingency,
     NightOutcome,

@@ -13,7 +13,7 @@ forecast reaches, so that forecasts come into view as time moves on without anot
 read, and hands out the rows ``Store.window(sites, at - back, at + ahead)`` would
 return, as a canonical table with categorical text columns. The rows are grouped by
 site in the order of ``site_ids`` (the ``site`` categories are that list, so a site's
-code is its index in the configuration, which ``notifier.engine.features`` reads directly),
+code is its index in the configuration, which ``notifier.engine.readings`` reads directly),
 each site's rows by time, then kind. A test holds it to that after random writes.
 
 An evaluation time earlier than the last one (a simulated clock going back, or a

@@ -1,6 +1,6 @@
 """Columns of the canonical observation table read as numpy arrays.
 
-The table (see ``notifier.core.observations``) comes either plain, with text in object
+The table (see ``notifier.core.columns``) comes either plain, with text in object
 columns, or from the service's rolling window and the replay, with ``site``, ``kind``
 and ``weather`` as categoricals. Each reader here takes either and gives the same
 arrays; the coded form is only faster. ``notifier.engine.block`` lays the rows out
