@@ -8,8 +8,8 @@ from datetime import UTC
 
 from notifier.core.timefmt import local_time
 from notifier.engine.assess import SiteAssessment, level_rank
-from notifier.engine.catalog import FEATURES
-from notifier.engine.rules import Comparison, Condition, Group, Outcome, RuleSet, format_value
+from notifier.engine.catalog import FEATURES, format_value
+from notifier.engine.rules import Comparison, Condition, Group, Outcome, RuleSet
 
 __all__ = ["assessment_table", "explanation"]
 

@@ -40,7 +40,8 @@ from notifier.delivery.channels.base import RetryLater
 from notifier.delivery.messages import Message, render, render_summary
 from notifier.delivery.routing import Mute, muted
 from notifier.engine.rules import RuleSet
-from notifier.storage.outbox import DeliveryRow, Outbox
+from notifier.storage.deliveries import DeliveryRow
+from notifier.storage.outbox import Outbox
 
 __all__ = ["DispatchReport", "backoff_s", "dispatch"]
 

@@ -26,8 +26,7 @@ from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.core.timefmt import iso_text, local_time
-from notifier.engine.catalog import FEATURES
-from notifier.engine.rules import format_value
+from notifier.engine.catalog import FEATURES, NOW_FEATURES, format_value
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Site
@@ -50,15 +49,6 @@ PROJECTIONS = {
     "cooling-fit": "fit to tonight's cooling so far",
     "midday-estimate": "estimate from the afternoon's values",
 }
-NOW_FEATURES = (
-    "temp_c",
-    "dewpoint_c",
-    "dewpoint_depression_c",
-    "surface_temp_c",
-    "visibility_m",
-    "wind_ms",
-    "cloud_pct",
-)
 
 
 @dataclass(frozen=True)

@@ -31,7 +31,7 @@ from zoneinfo import ZoneInfo
 
 from notifier.core.config import Subscriber
 from notifier.engine.assess import level_rank
-from notifier.storage.outbox import Delivery
+from notifier.storage.deliveries import Delivery
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Config

@@ -215,46 +215,9 @@ def assess_times(
     times = [t.astimezone(UTC) for t in times]
     tables: dict[float, FeatureTable] = {} if cache is None else cache
     max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
-    wanted = sorted(
-        {t.timestamp() - j * HOLD_STEP_S for t in times for j in range(max_hold + 1)} - set(tables)
-    )
-    if wanted:
-        found = compute_features_at(
-            obs,
-            sites,
-            [datetime.fromtimestamp(w, UTC) for w in wanted],
-            settings,
-            cache=feature_cache,
-        )
-        tables.update(zip(wanted, found, strict=True))
-    n, k_times = len(sites), len(times)
-
-    def stacked(j: int) -> dict[str, np.ndarray]:
-        parts = [tables[t.timestamp() - j * HOLD_STEP_S].values for t in times]
-        if k_times == 1:
-            return parts[0]
-        return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
-
-    feats = [stacked(j) for j in range(max_hold + 1)]
-    evals: list[RuleEvaluation] = []
-    for rule in rules.rules:
-        steps = math.ceil(rule.hold_s / HOLD_STEP_S)
-        applies = np.tile(rule.sites.mask(sites), k_times)
-        evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
-
-    # only sites where some rule fires or holds with its margins need a closer look;
-    # their flags come out of numpy once, as plain lists, for the per-site step below
-    fires = np.stack([ev.fires for ev in evals]) if evals else np.zeros((0, n * k_times), bool)
-    sustains = np.stack([ev.sustains for ev in evals]) if evals else fires
-    busy = (fires | sustains).any(axis=0)
-    busy_idx = np.flatnonzero(busy)
-    flags = dict(
-        zip(
-            busy_idx.tolist(),
-            zip(fires[:, busy_idx].T.tolist(), sustains[:, busy_idx].T.tolist(), strict=True),
-            strict=True,
-        )
-    )
+    _add_feature_tables(tables, obs, sites, times, max_hold, settings, feature_cache)
+    evals = _evaluate_rules(rules, sites, tables, times, max_hold)
+    flags = _busy_flags(evals, len(sites) * len(times))
     ranked = [(ev, level_rank(ev.rule.level)) for ev in evals]
     moments: dict[float, datetime] = {}  # last readings and sunsets repeat: one object each
 
@@ -265,6 +228,7 @@ def assess_times(
         return found
 
     out = []
+    n = len(sites)
     for k, at in enumerate(times):
         now = tables[at.timestamp()]
         last_times = now.last_time.tolist()
@@ -289,6 +253,75 @@ def assess_times(
             per_time.append(sa)
         out.append(per_time)
     return out
+
+
+def _add_feature_tables(
+    tables: dict[float, FeatureTable],
+    obs: pd.DataFrame,
+    sites: Sequence[Site],
+    times: Sequence[datetime],
+    max_hold: int,
+    settings: FeatureSettings | None,
+    feature_cache: FeatureCache | None,
+) -> None:
+    """Compute, in one call, the feature tables of ``times`` and of their hold windows
+    that ``tables`` does not hold yet."""
+    wanted = sorted(
+        {t.timestamp() - j * HOLD_STEP_S for t in times for j in range(max_hold + 1)} - set(tables)
+    )
+    if wanted:
+        found = compute_features_at(
+            obs,
+            sites,
+            [datetime.fromtimestamp(w, UTC) for w in wanted],
+            settings,
+            cache=feature_cache,
+        )
+        tables.update(zip(wanted, found, strict=True))
+
+
+def _evaluate_rules(
+    rules: RuleSet,
+    sites: Sequence[Site],
+    tables: Mapping[float, FeatureTable],
+    times: Sequence[datetime],
+    max_hold: int,
+) -> list[RuleEvaluation]:
+    """Each rule in one vectorised pass over sites × times (the times stacked), with the
+    tables of its hold window behind it."""
+    k_times = len(times)
+
+    def stacked(j: int) -> dict[str, np.ndarray]:
+        parts = [tables[t.timestamp() - j * HOLD_STEP_S].values for t in times]
+        if k_times == 1:
+            return parts[0]
+        return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
+
+    feats = [stacked(j) for j in range(max_hold + 1)]
+    evals: list[RuleEvaluation] = []
+    for rule in rules.rules:
+        steps = math.ceil(rule.hold_s / HOLD_STEP_S)
+        applies = np.tile(rule.sites.mask(sites), k_times)
+        evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
+    return evals
+
+
+def _busy_flags(
+    evals: Sequence[RuleEvaluation], cells: int
+) -> dict[int, tuple[list[bool], list[bool]]]:
+    """(fires, sustains) per rule for the sites × times cells where some rule fires or
+    holds with its margins: only those need a closer look. The flags come out of numpy
+    once, as plain lists, for the per-site step."""
+    fires = np.stack([ev.fires for ev in evals]) if evals else np.zeros((0, cells), bool)
+    sustains = np.stack([ev.sustains for ev in evals]) if evals else fires
+    busy_idx = np.flatnonzero((fires | sustains).any(axis=0))
+    return dict(
+        zip(
+            busy_idx.tolist(),
+            zip(fires[:, busy_idx].T.tolist(), sustains[:, busy_idx].T.tolist(), strict=True),
+            strict=True,
+        )
+    )
 
 
 def _projection(

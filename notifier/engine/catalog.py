@@ -37,13 +37,18 @@ from datetime import datetime
 
 import numpy as np
 
+from notifier.core.timefmt import quantity_text
+
 __all__ = [
     "EXPOSURE_EFFECTS",
     "FEATURES",
+    "NOW_FEATURES",
+    "SHOWN_FEATURES",
     "ExposureEffect",
     "FeatureSettings",
     "FeatureSpec",
     "FeatureTable",
+    "format_value",
 ]
 
 
@@ -127,6 +132,31 @@ FEATURES: dict[str, FeatureSpec] = {
     "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),
     "data_age_min": FeatureSpec("data age", "min", decimals=0),
 }
+
+
+#: What a person is shown of a site's measurements now, beside any alert.
+NOW_FEATURES = (
+    "temp_c",
+    "dewpoint_c",
+    "dewpoint_depression_c",
+    "surface_temp_c",
+    "visibility_m",
+    "wind_ms",
+    "cloud_pct",
+)
+#: What an event keeps of the features: the measurements and the night's projections
+#: (the features its rules test are added to these).
+SHOWN_FEATURES = (*NOW_FEATURES, "projected_min_temp_c", "hours_to_fog")
+
+
+def format_value(feature: str, value: float) -> str:
+    """A feature's value as a person reads it: its decimals and unit from :data:`FEATURES`.
+
+    >>> format_value("dewpoint_depression_c", 0.84), format_value("rh_pct", 97.2)
+    ('0.8 °C', '97%')
+    """
+    spec = FEATURES[feature]
+    return quantity_text(value, spec.unit, decimals=spec.decimals, kind=spec.kind)
 
 
 @dataclass(frozen=True)

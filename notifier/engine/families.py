@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from notifier import physics
+from notifier.core import columns
 from notifier.engine.block import (
     FORECAST_BEFORE_S,
     Block,
@@ -41,17 +42,8 @@ __all__ = [
     "surfaces_and_water",
 ]
 
-_OBS_COLUMNS = (
-    "temp_c",
-    "dewpoint_c",
-    "rh_pct",
-    "wind_ms",
-    "wind_dir_deg",
-    "cloud_pct",
-    "surface_temp_c",
-    "water_temp_c",
-    "visibility_m",
-)
+# every measured column of the canonical table but pressure, which no feature reads
+_OBS_COLUMNS = tuple(c for c in columns.FLOAT_COLUMNS if c != "pressure_hpa")
 # Below this share of sites needing a per-row fit, only those rows are passed on (copying
 # the rows out costs more than it saves when nearly all need it).
 SUBSET_SHARE = 0.6

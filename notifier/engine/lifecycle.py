@@ -46,8 +46,8 @@ from typing import TYPE_CHECKING, Any
 
 from notifier.engine.alerts import AlertState, Event, StateKey, event_id
 from notifier.engine.assess import level_rank, results_where
-from notifier.engine.catalog import FEATURES
-from notifier.engine.rules import HAZARDS, format_value
+from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
+from notifier.engine.rules import HAZARDS
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
@@ -57,19 +57,6 @@ __all__ = ["step"]
 
 
 DATA_GAP = "data_gap"
-
-# Features worth showing beside any alert; the rules' own features are added to them.
-SHOWN_FEATURES = (
-    "temp_c",
-    "dewpoint_c",
-    "dewpoint_depression_c",
-    "surface_temp_c",
-    "visibility_m",
-    "wind_ms",
-    "cloud_pct",
-    "projected_min_temp_c",
-    "hours_to_fog",
-)
 
 
 def _rank(level: str) -> int:

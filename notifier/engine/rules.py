@@ -19,8 +19,8 @@ from typing import Any, cast
 
 import numpy as np
 
-from notifier.core.timefmt import quantity_text, unit_suffix
-from notifier.engine.catalog import FEATURES
+from notifier.core.timefmt import unit_suffix
+from notifier.engine.catalog import FEATURES, format_value
 
 __all__ = [
     "HAZARDS",
@@ -366,11 +366,6 @@ def _isnan(values: np.ndarray) -> np.ndarray:
 
 def _num(v: float) -> str:
     return f"{v:g}"
-
-
-def format_value(feature: str, value: float) -> str:
-    spec = FEATURES[feature]
-    return quantity_text(value, spec.unit, decimals=spec.decimals, kind=spec.kind)
 
 
 def _reason(o: Outcome) -> str:

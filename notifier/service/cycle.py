@@ -33,7 +33,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.catalog import FeatureTable
     from notifier.engine.features import FeatureCache
     from notifier.ingest.base import ObservationSource, PollResult
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
     from notifier.storage.store import Store
     from notifier.storage.window import RollingWindow
 

@@ -5,18 +5,17 @@ The tables are created by the store's migration ``0002_alerts``. ``commit_cycle`
 a cycle's new states, its events and their deliveries in ONE transaction, so a state
 change is never recorded without the messages it owes, nor the other way round.
 
-A delivery row moves ``pending`` → ``sent`` | ``failed`` (permanent) | ``expired`` (gave
-up at the maximum age). Its ``key`` is the idempotency key, so writing the same
-delivery twice is a no-op.
+A delivery row (:mod:`notifier.storage.deliveries`) moves ``pending`` → ``sent`` |
+``failed`` (permanent) | ``expired`` (gave up at the maximum age), or ``cancelled`` (a
+hush or an unfollow). Its ``key`` is the idempotency key, so writing the same delivery
+twice is a no-op.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import uuid
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
 
@@ -25,82 +24,17 @@ from sqlalchemy.engine import Connection
 
 from notifier.core.timefmt import iso_z, parse_iso
 from notifier.engine.alerts import AlertState, Event, StateKey
+from notifier.storage.deliveries import Delivery, DeliveryRow
 from notifier.storage.migrations import alert_states, deliveries, events, site_status
 from notifier.storage.store import Store
 
-__all__ = ["CLAIM_LEASE", "Delivery", "DeliveryRow", "Outbox", "delivery_key"]
+__all__ = ["CLAIM_LEASE", "Outbox"]
+
 
 #: How long a dispatcher's claim on the deliveries it is sending lasts, in wall-clock
 #: time (``alerts.claim_lease``). The dispatcher renews it while it works through a long
 #: run; a claim left to lapse belongs to a dispatcher that died, and its rows go out again.
 CLAIM_LEASE = timedelta(minutes=15)
-
-
-def delivery_key(event_id: str, subscriber_id: str, channel_id: str) -> str:
-    """The idempotency key of one delivery: the same on every retry and every re-run."""
-    text = f"{event_id}|{subscriber_id}|{channel_id}"
-    return "fw-" + hashlib.sha256(text.encode()).hexdigest()[:32]
-
-
-@dataclass(frozen=True)
-class Delivery:
-    """One event for one subscriber on one channel."""
-
-    event_id: str
-    subscriber_id: str
-    channel_id: str
-    address: str | None
-    not_before: datetime | None = None  # held for quiet hours until then (UTC)
-    summary: bool = False  # part of the morning summary rather than a message of its own
-
-    @property
-    def key(self) -> str:
-        return delivery_key(self.event_id, self.subscriber_id, self.channel_id)
-
-
-@dataclass(frozen=True)
-class DeliveryRow:
-    key: str
-    event_id: str
-    subscriber: str
-    channel: str
-    address: str | None
-    status: str
-    attempts: int
-    next_attempt_at: datetime
-    not_before: datetime | None
-    summary: bool
-    created_at: datetime
-    sent_at: datetime | None
-    last_error: str | None
-
-    @classmethod
-    def from_row(cls, row: Mapping[str, Any] | sa.RowMapping) -> DeliveryRow:
-        return cls(
-            key=row["key"],
-            event_id=row["event_id"],
-            subscriber=row["subscriber"],
-            channel=row["channel"],
-            address=row["address"],
-            status=row["status"],
-            attempts=int(row["attempts"]),
-            next_attempt_at=parse_iso(row["next_attempt_at"]),  # type: ignore[arg-type]
-            not_before=parse_iso(row["not_before"]),
-            summary=bool(row["summary"]),
-            created_at=parse_iso(row["created_at"]),  # type: ignore[arg-type]
-            sent_at=parse_iso(row["sent_at"]),
-            last_error=row["last_error"],
-        )
-
-    def as_delivery(self) -> Delivery:
-        return Delivery(
-            self.event_id,
-            self.subscriber,
-            self.channel,
-            self.address,
-            self.not_before,
-            self.summary,
-        )
 
 
 def _claim_time(moment: datetime) -> str:
@@ -150,80 +84,104 @@ class Outbox:
     ) -> int:
         """States, events and deliveries of one cycle, together. Returns deliveries added."""
         when = iso_z(now)
-        charts = charts or {}
-        added = 0
         with self.store.atomic() as conn:
-            for key in previous.keys() - new_states.keys():
-                conn.execute(
-                    alert_states.delete().where(
-                        (alert_states.c.site == key[0]) & (alert_states.c.hazard == key[1])
-                    )
-                )
-            for key, state in new_states.items():
-                if previous.get(key) == state:
-                    continue
-                stmt = self.store._insert(alert_states).values(
-                    site=key[0], hazard=key[1], state=json.dumps(state.to_dict()), updated_at=when
-                )
-                conn.execute(
-                    stmt.on_conflict_do_update(
-                        index_elements=["site", "hazard"],
-                        set_={"state": stmt.excluded.state, "updated_at": stmt.excluded.updated_at},
-                    )
-                )
-            for ev in new_events:
-                conn.execute(
-                    self.store._insert(events)
-                    .values(
-                        id=ev.id,
-                        site=ev.site_id,
-                        hazard=ev.hazard,
-                        type=ev.type,
-                        level=ev.level,
-                        time=iso_z(ev.time),
-                        payload=json.dumps(ev.to_dict()),
-                        chart=charts.get(ev.id),
-                        created_at=when,
-                    )
-                    .on_conflict_do_nothing(index_elements=["id"])
-                )
-            for d in new_deliveries:
-                result = conn.execute(
-                    self.store._insert(deliveries)
-                    .values(
-                        key=d.key,
-                        event_id=d.event_id,
-                        subscriber=d.subscriber_id,
-                        channel=d.channel_id,
-                        address=d.address,
-                        status="pending",
-                        attempts=0,
-                        next_attempt_at=when,
-                        not_before=iso_z(d.not_before) if d.not_before else None,
-                        summary=int(d.summary),
-                        created_at=when,
-                    )
-                    .on_conflict_do_nothing(index_elements=["key"])
-                    # counted by what comes back: PostgreSQL's driver reports no rowcount
-                    # for an INSERT that SQLAlchemy has given a RETURNING of its own
-                    .returning(deliveries.c.key)
-                )
-                added += len(result.fetchall())
-            for site, (level, payload) in (snapshots or {}).items():
-                stmt = self.store._insert(site_status).values(
-                    site=site, time=when, level=level, payload=json.dumps(payload)
-                )
-                conn.execute(
-                    stmt.on_conflict_do_update(
-                        index_elements=["site"],
-                        set_={
-                            "time": stmt.excluded.time,
-                            "level": stmt.excluded.level,
-                            "payload": stmt.excluded.payload,
-                        },
-                    )
-                )
+            self._write_states(conn, previous, new_states, when)
+            self._write_events(conn, new_events, charts or {}, when)
+            added = self._write_deliveries(conn, new_deliveries, when)
+            self._write_snapshots(conn, snapshots or {}, when)
         return added
+
+    def _write_states(
+        self,
+        conn: Connection,
+        previous: Mapping[StateKey, AlertState],
+        new_states: Mapping[StateKey, AlertState],
+        when: str,
+    ) -> None:
+        for key in previous.keys() - new_states.keys():
+            conn.execute(
+                alert_states.delete().where(
+                    (alert_states.c.site == key[0]) & (alert_states.c.hazard == key[1])
+                )
+            )
+        for key, state in new_states.items():
+            if previous.get(key) == state:
+                continue
+            stmt = self.store._insert(alert_states).values(
+                site=key[0], hazard=key[1], state=json.dumps(state.to_dict()), updated_at=when
+            )
+            conn.execute(
+                stmt.on_conflict_do_update(
+                    index_elements=["site", "hazard"],
+                    set_={"state": stmt.excluded.state, "updated_at": stmt.excluded.updated_at},
+                )
+            )
+
+    def _write_events(
+        self, conn: Connection, new_events: Sequence[Event], charts: Mapping[str, bytes], when: str
+    ) -> None:
+        for ev in new_events:
+            conn.execute(
+                self.store._insert(events)
+                .values(
+                    id=ev.id,
+                    site=ev.site_id,
+                    hazard=ev.hazard,
+                    type=ev.type,
+                    level=ev.level,
+                    time=iso_z(ev.time),
+                    payload=json.dumps(ev.to_dict()),
+                    chart=charts.get(ev.id),
+                    created_at=when,
+                )
+                .on_conflict_do_nothing(index_elements=["id"])
+            )
+
+    def _write_deliveries(
+        self, conn: Connection, new_deliveries: Sequence[Delivery], when: str
+    ) -> int:
+        added = 0
+        for d in new_deliveries:
+            result = conn.execute(
+                self.store._insert(deliveries)
+                .values(
+                    key=d.key,
+                    event_id=d.event_id,
+                    subscriber=d.subscriber_id,
+                    channel=d.channel_id,
+                    address=d.address,
+                    status="pending",
+                    attempts=0,
+                    next_attempt_at=when,
+                    not_before=iso_z(d.not_before) if d.not_before else None,
+                    summary=int(d.summary),
+                    created_at=when,
+                )
+                .on_conflict_do_nothing(index_elements=["key"])
+                # counted by what comes back: PostgreSQL's driver reports no rowcount
+                # for an INSERT that SQLAlchemy has given a RETURNING of its own
+                .returning(deliveries.c.key)
+            )
+            added += len(result.fetchall())
+        return added
+
+    def _write_snapshots(
+        self, conn: Connection, snapshots: Mapping[str, tuple[str, dict[str, Any]]], when: str
+    ) -> None:
+        for site, (level, payload) in snapshots.items():
+            stmt = self.store._insert(site_status).values(
+                site=site, time=when, level=level, payload=json.dumps(payload)
+            )
+            conn.execute(
+                stmt.on_conflict_do_update(
+                    index_elements=["site"],
+                    set_={
+                        "time": stmt.excluded.time,
+                        "level": stmt.excluded.level,
+                        "payload": stmt.excluded.payload,
+                    },
+                )
+            )
 
     def event(self, event_id: str) -> tuple[Event, bytes | None]:
         with self.engine.connect() as conn:

@@ -21,7 +21,7 @@ import yaml
 from notifier.delivery.channels.webhook import DELIVERY_HEADER, verify_signature
 from notifier.delivery.routing import route
 from notifier.engine.alerts import Event
-from notifier.storage.outbox import Delivery
+from notifier.storage.deliveries import Delivery
 from tests.delivery.conftest import SMTP_PASSWORD, SMTP_USER, WEBHOOK_SECRET
 
 SMTP_ENV = "FOGWATCH_TEST_SMTP_PASSWORD"

@@ -19,7 +19,7 @@ from notifier.delivery.channels.webhook import DELIVERY_HEADER
 from notifier.delivery.dispatch import MAX_TRANSIENT_IN_A_ROW, backoff_s
 from notifier.delivery.messages import CAUTION
 from notifier.service.cycle import Service
-from notifier.storage.outbox import DeliveryRow
+from notifier.storage.deliveries import DeliveryRow
 from tests.delivery.outbox_kit import (
     SITES,
     email_channel,

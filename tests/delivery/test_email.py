@@ -15,7 +15,7 @@ from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
 from notifier.delivery.channels import build_channel
 from notifier.delivery.channels.email import EmailSender, build_email
 from notifier.delivery.messages import render
-from notifier.storage.outbox import Delivery
+from notifier.storage.deliveries import Delivery
 from tests.delivery.conftest import SMTP_PASSWORD, SMTP_USER
 from tests.delivery.scenes import RULES, event, site, utc
 

@@ -19,7 +19,7 @@ from notifier.delivery.channels import (
     channel_config_for,
 )
 from notifier.delivery.messages import render
-from notifier.storage.outbox import Delivery
+from notifier.storage.deliveries import Delivery
 from tests.delivery.scenes import RULES, config_with, event, site, utc
 
 PNG = b"\x89PNG\r\n\x1a\n" + b"\x01" * 32

@@ -20,7 +20,7 @@ from notifier.delivery.channels.webhook import (
     sign,
 )
 from notifier.delivery.messages import render
-from notifier.storage.outbox import Delivery
+from notifier.storage.deliveries import Delivery
 from tests.delivery.conftest import WEBHOOK_SECRET
 from tests.delivery.scenes import RULES, event, site
 

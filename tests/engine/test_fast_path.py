@@ -333,6 +333,9 @@ def test_public_names():
     assert set(catalog.__all__) == {
         "EXPOSURE_EFFECTS",
         "FEATURES",
+        "NOW_FEATURES",
+        "SHOWN_FEATURES",
+        "format_value",
         "ExposureEffect",
         "FeatureSettings",
         "FeatureSpec",

@@ -10,10 +10,12 @@ import pytest
 import sqlalchemy as sa
 
 from notifier.engine.alerts import AlertState
+from notifier.storage import deliveries as deliveries_module
 from notifier.storage import outbox as outbox_module
 from notifier.storage.botstate import BotState
+from notifier.storage.deliveries import Delivery
 from notifier.storage.migrations import deliveries, events
-from notifier.storage.outbox import Delivery, Outbox
+from notifier.storage.outbox import Outbox
 from notifier.storage.store import Store
 from tests.delivery.scenes import event, utc
 
@@ -54,13 +56,8 @@ def counts(box: Outbox) -> tuple[int, int, int]:
 
 
 def test_public_names():
-    assert set(outbox_module.__all__) == {
-        "CLAIM_LEASE",
-        "Delivery",
-        "DeliveryRow",
-        "Outbox",
-        "delivery_key",
-    }
+    assert set(outbox_module.__all__) == {"CLAIM_LEASE", "Outbox"}
+    assert set(deliveries_module.__all__) == {"Delivery", "DeliveryRow", "delivery_key"}
 
 
 def test_commit_cycle_writes_states_events_and_deliveries_together(box):

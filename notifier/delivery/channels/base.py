@@ -28,7 +28,7 @@ from notifier.core.errors import TransientDeliveryError
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
 __all__ = ["BaseChannel", "Channel", "RetryLater", "clean_header", "safe_key"]
 

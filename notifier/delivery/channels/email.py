@@ -32,7 +32,7 @@ from notifier.delivery.channels.base import BaseChannel, clean_header, safe_key
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import EmailChannel
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
 __all__ = ["ConnectionFactory", "EmailSender", "build_email", "default_connect", "parse_address"]
 

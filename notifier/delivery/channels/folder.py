@@ -23,7 +23,7 @@ from notifier.delivery.channels.email import build_email
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import FolderChannel
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
 __all__ = ["DEFAULT_SENDER", "FolderWriter", "write_atomic"]
 

@@ -18,7 +18,7 @@ from notifier.delivery.channels.base import BaseChannel, safe_key
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import TextChannel
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
 __all__ = ["TextWriter", "format_block"]
 

@@ -40,7 +40,7 @@ from notifier.delivery.channels.base import BaseChannel, RetryLater, clean_heade
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import WebhookChannel
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
 __all__ = [
     "DELIVERY_HEADER",
