@@ -262,6 +262,7 @@ def cli_replay(args: argparse.Namespace) -> int:
     from notifier.core.config import parse_duration_s
     from notifier.engine.rule_files import load_rule_set
     from notifier.history import replay as rp
+    from notifier.history import report as rt
     from notifier.ingest.poll import read_files
 
     loaded = load(args.config)
@@ -288,7 +289,7 @@ def cli_replay(args: argparse.Namespace) -> int:
     results = []
     for which, label in sets:
         bar = (
-            rp.progress_bar() if (n_steps > 300 and not args.json and sys.stderr.isatty()) else None
+            rt.progress_bar() if (n_steps > 300 and not args.json and sys.stderr.isatty()) else None
         )
         deliver = Path(args.deliver_to) / label if args.deliver_to else None
         results.append(
@@ -297,11 +298,11 @@ def cli_replay(args: argparse.Namespace) -> int:
             )
         )
     if args.json:
-        print(json.dumps(rp.to_json(results), indent=2, ensure_ascii=False))
+        print(json.dumps(rt.to_json(results), indent=2, ensure_ascii=False))
     else:
-        print(rp.report_text(results))
+        print(rt.report_text(results))
     if args.csv:
-        rp.write_csv(results, Path(args.csv))
+        rt.write_csv(results, Path(args.csv))
     if args.png:
-        rp.write_png(results[0], frame, Path(args.png))
+        rt.write_png(results[0], frame, Path(args.png))
     return 0

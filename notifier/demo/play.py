@@ -14,6 +14,7 @@ import os
 import shutil
 import sys
 from collections import Counter, defaultdict
+from collections.abc import Callable
 from datetime import date, datetime, time, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TextIO
@@ -25,6 +26,7 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.core.config import Config
+    from notifier.service.cycle import Service
 
 __all__ = ["DEMO_CONFIG", "DEMO_EVENING", "demo_nights", "demo_observations", "run_demo"]
 
@@ -215,9 +217,6 @@ def _main_reason(event: Any) -> str:
 
 def run_demo(out: Path | None = None, stream: TextIO | None = None) -> dict[str, Any]:
     """Play the demo night; return a summary (also printed) for tests and people."""
-    from notifier.bot.grammar import handle
-    from notifier.delivery.messages import headline
-    from notifier.service.botbackend import ServiceBackend
     from notifier.service.cycle import Service
 
     stream = stream or sys.stdout
@@ -230,9 +229,7 @@ def run_demo(out: Path | None = None, stream: TextIO | None = None) -> dict[str,
     config = service.config
     zone = ZoneInfo(config.sites[0].timezone)
     readings = demo_observations(config)
-    t = datetime.combine(DEMO_EVENING, START, zone)
     end = datetime.combine(DEMO_EVENING + timedelta(days=1), END, zone)
-    outlook_at = datetime.combine(DEMO_EVENING, time(17, 30), zone)
 
     def say(text: str = "") -> None:
         print(text, file=stream)
@@ -242,51 +239,102 @@ def run_demo(out: Path | None = None, stream: TextIO | None = None) -> dict[str,
     say("")
     names = {s.id: s.name for s in config.sites}
     subs = {s.id: s.name or s.id for s in config.subscribers}
-    sent_by: dict[str, Counter[str]] = defaultdict(Counter)
-    events_seen: list[Any] = []
-    previous = readings["time"].min() - timedelta(seconds=1)
     try:
-        while t <= end:
-            step = readings[(readings["time"] > previous) & (readings["time"] <= t)]
-            _write_drop(out / "drop", step, f"loggers-{t.astimezone(zone):%m%d-%H%M}.csv")
-            previous = t
-            report, _ = service.cycle(t)
-            if t == outlook_at:
-                service.outlook(t, [s.id for s in config.sites])
-                service.deliver(t)
-                say(f"{t:%a %H:%M}  evening outlook sent for every site")
-            for ev in report.events:
-                events_seen.append(ev)
-                site = config.site(ev.site_id)
-                who = sorted(
-                    {
-                        subs.get(d.subscriber, d.subscriber)
-                        for d in service.outbox.deliveries()
-                        if d.event_id == ev.id
-                    }
-                )
-                why = _main_reason(ev)
-                say(f"{t.astimezone(zone):%a %H:%M}  {headline(ev, site, site.timezone)}")
-                if why:
-                    say(f"            because {why}")
-                say(f"            → {', '.join(who) if who else 'no one subscribed'}")
-            t += STEP
+        events_seen = _play_night(service, readings, end, out, subs, say)
         service.deliver(end + timedelta(minutes=1))
-        for row in service.outbox.deliveries():
-            event, _ = service.outbox.event(row.event_id)
-            label = f"{event.type} {event.hazard}" if event.type != "outlook" else "outlook"
-            sent_by[row.subscriber][f"{label} ({row.status})"] += 1
-        say("")
-        say("Bot (as it would answer messages):")
-        answers = []
-        for sender, text in BOT_SCRIPT:
-            reply = handle(ServiceBackend(service, end), sender, text, end)
-            answers.append((sender, text, reply))
-            say(f"  {sender}> {text}")
-            for line in reply.splitlines():
-                say(f"    {line}")
+        sent_by = _sent_by(service)
+        answers = _ask_bot(service, end, say)
     finally:
         service.close()
+    files = _say_what_was_sent(out, sent_by, subs, say)
+    return {
+        "events": events_seen,
+        "sent_by": sent_by,
+        "bot": answers,
+        "files": files,
+        "out": out,
+        "names": names,
+    }
+
+
+def _play_night(
+    service: Service,
+    readings: pd.DataFrame,
+    end: datetime,
+    out: Path,
+    subs: dict[str, str],
+    say: Callable[[str], None],
+) -> list[Any]:
+    """Step the clock to ``end``: drop each step's readings, run a cycle, tell the events."""
+    from notifier.delivery.messages import headline
+
+    config = service.config
+    zone = end.tzinfo
+    t = datetime.combine(DEMO_EVENING, START, zone)
+    outlook_at = datetime.combine(DEMO_EVENING, time(17, 30), zone)
+    events_seen: list[Any] = []
+    previous = readings["time"].min() - timedelta(seconds=1)
+    while t <= end:
+        step = readings[(readings["time"] > previous) & (readings["time"] <= t)]
+        _write_drop(out / "drop", step, f"loggers-{t.astimezone(zone):%m%d-%H%M}.csv")
+        previous = t
+        report, _ = service.cycle(t)
+        if t == outlook_at:
+            service.outlook(t, [s.id for s in config.sites])
+            service.deliver(t)
+            say(f"{t:%a %H:%M}  evening outlook sent for every site")
+        for ev in report.events:
+            events_seen.append(ev)
+            site = config.site(ev.site_id)
+            who = sorted(
+                {
+                    subs.get(d.subscriber, d.subscriber)
+                    for d in service.outbox.deliveries()
+                    if d.event_id == ev.id
+                }
+            )
+            why = _main_reason(ev)
+            say(f"{t.astimezone(zone):%a %H:%M}  {headline(ev, site, site.timezone)}")
+            if why:
+                say(f"            because {why}")
+            say(f"            → {', '.join(who) if who else 'no one subscribed'}")
+        t += STEP
+    return events_seen
+
+
+def _sent_by(service: Service) -> dict[str, Counter[str]]:
+    """How many messages of each kind (and delivery status) each subscriber got."""
+    sent_by: dict[str, Counter[str]] = defaultdict(Counter)
+    for row in service.outbox.deliveries():
+        event, _ = service.outbox.event(row.event_id)
+        label = f"{event.type} {event.hazard}" if event.type != "outlook" else "outlook"
+        sent_by[row.subscriber][f"{label} ({row.status})"] += 1
+    return sent_by
+
+
+def _ask_bot(
+    service: Service, end: datetime, say: Callable[[str], None]
+) -> list[tuple[str, str, str]]:
+    """The bot's answers to the scripted messages, as at the end of the night."""
+    from notifier.bot.grammar import handle
+    from notifier.service.botbackend import ServiceBackend
+
+    say("")
+    say("Bot (as it would answer messages):")
+    answers = []
+    for sender, text in BOT_SCRIPT:
+        reply = handle(ServiceBackend(service, end), sender, text, end)
+        answers.append((sender, text, reply))
+        say(f"  {sender}> {text}")
+        for line in reply.splitlines():
+            say(f"    {line}")
+    return answers
+
+
+def _say_what_was_sent(
+    out: Path, sent_by: dict[str, Counter[str]], subs: dict[str, str], say: Callable[[str], None]
+) -> dict[str, list[str]]:
+    """Print the tally per subscriber and where the files went; return the file names."""
     say("")
     say("What was sent to whom:")
     for sub_id, counts in sent_by.items():
@@ -304,14 +352,7 @@ def run_demo(out: Path | None = None, stream: TextIO | None = None) -> dict[str,
     say("")
     say("Automated estimate from invented data, not an official forecast. Follow official")
     say("warnings, the harbour authority, local codes and licensed practice.")
-    return {
-        "events": events_seen,
-        "sent_by": sent_by,
-        "bot": answers,
-        "files": files,
-        "out": out,
-        "names": names,
-    }
+    return files
 
 
 def main() -> int:

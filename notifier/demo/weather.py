@@ -66,77 +66,17 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
     sunrise_s, _ = physics.sunrise_sunset_utc(spec.lat, spec.lon, spec.evening + timedelta(days=1))
     sunset, sunrise = float(sunset_s), float(sunrise_s)
 
-    cloud = np.full(n, spec.cloud_pct)
-    wind = np.full(n, spec.wind_ms)
-    k = np.full(n, spec.cooling_k_per_sqrt_h)
-    wind_dir = np.full(n, spec.wind_dir_deg)
-    dew_step = np.zeros(n)
-    for when, values in spec.changes:
-        at = datetime.combine(spec.evening + timedelta(days=when < spec.start_local), when, zone)
-        after = t >= at.timestamp()
-        if "cloud_pct" in values:
-            cloud[after] = values["cloud_pct"]
-        if "wind_ms" in values:
-            wind[after] = values["wind_ms"]
-        if "cooling_k_per_sqrt_h" in values:
-            k[after] = values["cooling_k_per_sqrt_h"]
-        if "wind_dir_deg" in values:
-            wind_dir[after] = values["wind_dir_deg"]
-        if "dewpoint_shift_c" in values:  # moister (or drier) air arriving over 90 min
-            ramp = np.clip((t - at.timestamp()) / 5400.0, 0.0, 1.0)
-            dew_step = dew_step + ramp * values["dewpoint_shift_c"]
+    cloud, wind, k, wind_dir, dew_step = _scheduled(spec, t, zone)
     lift = np.inf
     if spec.lift_local is not None:
         day = spec.evening + timedelta(days=spec.lift_local < spec.start_local)
         lift = datetime.combine(day, spec.lift_local, zone).timestamp()
 
-    temp = np.empty(n)
+    temp = _air_temperature(spec, t, k, sunset, sunrise, lift)
     dew = spec.dewpoint_c + spec.dewpoint_drift_c_per_h * (t - t[0]) / 3600.0 + dew_step
-    t_max = start.timestamp() + 2.5 * 3600
-    h_after = np.maximum(t - sunset, 0.0) / 3600.0
-    for i in range(n):
-        if t[i] <= t_max:
-            frac = (t[i] - t[0]) / (t_max - t[0])
-            temp[i] = spec.day_max_c - 1.5 * (1 - frac)
-        elif t[i] <= sunset:
-            frac = (t[i] - t_max) / (sunset - t_max)
-            temp[i] = spec.day_max_c + (spec.sunset_temp_c - spec.day_max_c) * frac
-        elif t[i] > lift:
-            # milder air mixed down from aloft
-            temp[i] = temp[i - 1] + spec.lift_warming_c_per_h * spec.step_min / 60.0
-        elif t[i] <= sunrise:
-            step = k[i] * (np.sqrt(h_after[i]) - np.sqrt(max(h_after[i - 1], 0.0)))
-            temp[i] = temp[i - 1] - step
-        else:
-            temp[i] = temp[i - 1] + 1.8 * spec.step_min / 60.0
-    # condensation: the dew point cannot exceed the air; near saturation the air cools
-    # more slowly (latent heat), which the 0.5 factor stands in for
-    saturated_since = np.full(n, np.nan)
-    for i in range(1, n):
-        if t[i] > lift:
-            continue  # mixed out: no fog from here on
-        if temp[i] < dew[i] + 0.2 and t[i] <= sunrise + 1800:
-            if np.isnan(saturated_since[i - 1]):
-                saturated_since[i] = t[i]
-            else:
-                saturated_since[i] = saturated_since[i - 1]
-            excess = dew[i] + 0.2 - temp[i]
-            temp[i] += 0.5 * excess
-            dew[i:] = np.minimum(dew[i:], temp[i] - 0.15)
-        elif t[i] <= sunrise + 2 * 3600 and not np.isnan(saturated_since[i - 1]):
-            saturated_since[i] = saturated_since[i - 1]
+    saturated_since = _condense(t, temp, dew, sunrise, lift)
     dew = np.minimum(dew, temp)
-
-    depression = temp - dew
-    vis = np.where(depression > 3, 25000.0, 5000.0 + (depression - 0.3) / 2.7 * 20000.0)
-    fogged = ~np.isnan(saturated_since)
-    minutes = np.where(fogged, (t - np.nan_to_num(saturated_since)) / 60.0, 0.0)
-    vis = np.where(fogged, np.maximum(120.0, 4000.0 * np.exp(-minutes / 35.0)), vis)
-    lifting = t > sunrise + 1.5 * 3600
-    vis = np.where(lifting, np.maximum(vis, 3000.0 + (t - sunrise - 5400) / 3600 * 8000), vis)
-    mixed = t > lift
-    vis = np.where(mixed, np.maximum(vis, 2500.0 + (t - lift) / 3600 * 9000), vis)
-    vis = np.clip(vis, 50.0, 30000.0)
+    vis = _visibility(t, temp, dew, saturated_since, sunrise, lift)
     weather = np.where(vis < 1000, np.where(temp < 0, "FZFG", "FG"), np.where(vis < 5000, "BR", ""))
 
     frame = pd.DataFrame(
@@ -163,3 +103,105 @@ def simulate_night(spec: NightSpec) -> pd.DataFrame:
     if spec.stop_after_local is not None:
         frame = frame[frame["time"] <= pd.Timestamp(spec.stop_after_local)]
     return frame.reset_index(drop=True)
+
+
+def _scheduled(
+    spec: NightSpec, t: np.ndarray, zone: ZoneInfo
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Cloud, wind, cooling rate, wind direction and dew-point shift at each step.
+
+    Each starts at the spec's value and takes the values of ``spec.changes`` from their
+    local times on.
+    """
+    n = len(t)
+    cloud = np.full(n, spec.cloud_pct)
+    wind = np.full(n, spec.wind_ms)
+    k = np.full(n, spec.cooling_k_per_sqrt_h)
+    wind_dir = np.full(n, spec.wind_dir_deg)
+    dew_step = np.zeros(n)
+    for when, values in spec.changes:
+        at = datetime.combine(spec.evening + timedelta(days=when < spec.start_local), when, zone)
+        after = t >= at.timestamp()
+        if "cloud_pct" in values:
+            cloud[after] = values["cloud_pct"]
+        if "wind_ms" in values:
+            wind[after] = values["wind_ms"]
+        if "cooling_k_per_sqrt_h" in values:
+            k[after] = values["cooling_k_per_sqrt_h"]
+        if "wind_dir_deg" in values:
+            wind_dir[after] = values["wind_dir_deg"]
+        if "dewpoint_shift_c" in values:  # moister (or drier) air arriving over 90 min
+            ramp = np.clip((t - at.timestamp()) / 5400.0, 0.0, 1.0)
+            dew_step = dew_step + ramp * values["dewpoint_shift_c"]
+    return cloud, wind, k, wind_dir, dew_step
+
+
+def _air_temperature(
+    spec: NightSpec, t: np.ndarray, k: np.ndarray, sunset: float, sunrise: float, lift: float
+) -> np.ndarray:
+    """The air temperature before condensation: afternoon, Brunt cooling, morning."""
+    n = len(t)
+    temp = np.empty(n)
+    t_max = t[0] + 2.5 * 3600
+    h_after = np.maximum(t - sunset, 0.0) / 3600.0
+    for i in range(n):
+        if t[i] <= t_max:
+            frac = (t[i] - t[0]) / (t_max - t[0])
+            temp[i] = spec.day_max_c - 1.5 * (1 - frac)
+        elif t[i] <= sunset:
+            frac = (t[i] - t_max) / (sunset - t_max)
+            temp[i] = spec.day_max_c + (spec.sunset_temp_c - spec.day_max_c) * frac
+        elif t[i] > lift:
+            # milder air mixed down from aloft
+            temp[i] = temp[i - 1] + spec.lift_warming_c_per_h * spec.step_min / 60.0
+        elif t[i] <= sunrise:
+            step = k[i] * (np.sqrt(h_after[i]) - np.sqrt(max(h_after[i - 1], 0.0)))
+            temp[i] = temp[i - 1] - step
+        else:
+            temp[i] = temp[i - 1] + 1.8 * spec.step_min / 60.0
+    return temp
+
+
+def _condense(
+    t: np.ndarray, temp: np.ndarray, dew: np.ndarray, sunrise: float, lift: float
+) -> np.ndarray:
+    """Saturate the air in place (``temp`` and ``dew``); return when each fog spell began."""
+    # condensation: the dew point cannot exceed the air; near saturation the air cools
+    # more slowly (latent heat), which the 0.5 factor stands in for
+    n = len(t)
+    saturated_since = np.full(n, np.nan)
+    for i in range(1, n):
+        if t[i] > lift:
+            continue  # mixed out: no fog from here on
+        if temp[i] < dew[i] + 0.2 and t[i] <= sunrise + 1800:
+            if np.isnan(saturated_since[i - 1]):
+                saturated_since[i] = t[i]
+            else:
+                saturated_since[i] = saturated_since[i - 1]
+            excess = dew[i] + 0.2 - temp[i]
+            temp[i] += 0.5 * excess
+            dew[i:] = np.minimum(dew[i:], temp[i] - 0.15)
+        elif t[i] <= sunrise + 2 * 3600 and not np.isnan(saturated_since[i - 1]):
+            saturated_since[i] = saturated_since[i - 1]
+    return saturated_since
+
+
+def _visibility(
+    t: np.ndarray,
+    temp: np.ndarray,
+    dew: np.ndarray,
+    saturated_since: np.ndarray,
+    sunrise: float,
+    lift: float,
+) -> np.ndarray:
+    """Visibility (m) from the dew-point depression, thickening fog, and its lifting."""
+    depression = temp - dew
+    vis = np.where(depression > 3, 25000.0, 5000.0 + (depression - 0.3) / 2.7 * 20000.0)
+    fogged = ~np.isnan(saturated_since)
+    minutes = np.where(fogged, (t - np.nan_to_num(saturated_since)) / 60.0, 0.0)
+    vis = np.where(fogged, np.maximum(120.0, 4000.0 * np.exp(-minutes / 35.0)), vis)
+    lifting = t > sunrise + 1.5 * 3600
+    vis = np.where(lifting, np.maximum(vis, 3000.0 + (t - sunrise - 5400) / 3600 * 8000), vis)
+    mixed = t > lift
+    vis = np.where(mixed, np.maximum(vis, 2500.0 + (t - lift) / 3600 * 9000), vis)
+    return np.clip(vis, 50.0, 30000.0)

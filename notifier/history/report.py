@@ -1,0 +1,287 @@
+"""Reports on replay results: text, JSON, CSV of events, a PNG chart, a progress bar.
+
+``replay`` (in ``notifier.history.replay``) produces the results; this module only
+presents them. Two results side by side are two rule sets over the same history.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from collections.abc import Callable, Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from notifier.core.timefmt import iso_z
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from notifier.history.replay import ReplayResult
+
+__all__ = ["progress_bar", "report_text", "to_json", "write_csv", "write_png"]
+
+
+def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
+    """Each result's scores, events, false alarms and misses, keyed by its label."""
+    out: dict[str, Any] = {}
+    for res in results:
+        per_site = {}
+        for sid in res.site_ids:
+            per_site[sid] = {
+                "warning": res.table("warning", sid).as_dict(),
+                "watch": res.table("watch", sid).as_dict(),
+                "median_lead_min": {
+                    "watch": res.lead("watch", sid),
+                    "warning": res.lead("warning", sid),
+                },
+            }
+        out[res.label] = {
+            "from": iso_z(res.start),
+            "to": iso_z(res.end),
+            "step_s": res.step_s,
+            "overall": {
+                "warning": res.table("warning").as_dict(),
+                "watch": res.table("watch").as_dict(),
+                "median_lead_min": {"watch": res.lead("watch"), "warning": res.lead("warning")},
+            },
+            "sites": per_site,
+            "events": [
+                {
+                    "time": iso_z(e.time),
+                    "site": e.site_id,
+                    "hazard": e.hazard,
+                    "type": e.type,
+                    "level": e.level,
+                    "rules": list(e.rules),
+                }
+                for e in res.events
+            ],
+            "false_alarms": [
+                {
+                    "site": n.site,
+                    "night": n.night.date().isoformat(),
+                    "first_warning": iso_z(n.first_warning),
+                    "rules": n.rules,
+                }
+                for n in res.nights
+                if n.category("warning") == "false_alarm"
+            ],
+            "misses": [
+                {
+                    "site": n.site,
+                    "night": n.night.date().isoformat(),
+                    "onset": iso_z(n.fog_onset),
+                    "first_watch": iso_z(n.first_watch),
+                    "why_not": n.why_not,
+                }
+                for n in res.nights
+                if n.category("warning") == "miss"
+            ],
+        }
+    return out
+
+
+def _fmt(v: float | None, spec: str = ".2f") -> str:
+    return "—" if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, spec)
+
+
+def report_text(results: Sequence[ReplayResult]) -> str:
+    """Timeline, tables and scores; two rule sets side by side when given."""
+    first = results[0]
+    lines = [
+        f"fogwatch replay {iso_z(first.start)} → {iso_z(first.end)}, "
+        f"step {first.step_s / 60:g} min, {len(first.site_ids)} site(s), "
+        f"{len(first.nights)} site-night(s)",
+        "",
+    ]
+    for res in results:
+        lines.extend(_timeline_lines(res))
+    lines.extend(_score_lines(results))
+    for res in results:
+        lines.extend(_per_site_lines(res))
+    lines.append(
+        "Scores of an automated estimate on past data; they do not make it an official forecast."
+    )
+    return "\n".join(lines)
+
+
+def _timeline_lines(res: ReplayResult) -> list[str]:
+    """The alert timeline of one rule set (reminders left out)."""
+    lines = [f"Alert timeline ({res.label})"]
+    for e in res.events:
+        if e.type == "reminder":
+            continue
+        lines.append(
+            f"  {iso_z(e.time)}  {e.site_id:<22} {e.hazard:<8} {e.type:<10} "
+            f"{e.level:<7} {', '.join(e.rules)}"
+        )
+    if not res.events:
+        lines.append("  (no alerts)")
+    lines.append("")
+    return lines
+
+
+def _score_lines(results: Sequence[ReplayResult]) -> list[str]:
+    """The verification table over all sites, one column per rule set."""
+    header = f"{'':<24}" + "".join(f"{r.label:>22}" for r in results)
+    lines = [
+        "Verification (a night is warned when a fog warning was in force in it;",
+        "fog is visibility below 1000 m or a reported FG/FZFG)",
+        header,
+    ]
+    rows = [
+        ("hits", lambda r: str(r.table().hits)),
+        ("misses", lambda r: str(r.table().misses)),
+        ("false alarms", lambda r: str(r.table().false_alarms)),
+        ("correct quiet nights", lambda r: str(r.table().correct_negatives)),
+        ("POD", lambda r: _fmt(r.table().pod)),
+        ("FAR", lambda r: _fmt(r.table().far)),
+        ("CSI", lambda r: _fmt(r.table().csi)),
+        ("frequency bias", lambda r: _fmt(r.table().bias)),
+        ("POD (watch or warning)", lambda r: _fmt(r.table("watch").pod)),
+        ("FAR (watch or warning)", lambda r: _fmt(r.table("watch").far)),
+        ("median lead, watch (min)", lambda r: _fmt(r.lead("watch"), ".0f")),
+        ("median lead, warning (min)", lambda r: _fmt(r.lead("warning"), ".0f")),
+    ]
+    for name, fn in rows:
+        lines.append(f"  {name:<22}" + "".join(f"{fn(r):>22}" for r in results))
+    lines.append("")
+    return lines
+
+
+def _per_site_lines(res: ReplayResult) -> list[str]:
+    """One rule set's scores per site, then its false alarms and misses night by night."""
+    lines = [f"Per site ({res.label}): hits/misses/false alarms/quiet, POD, FAR, CSI"]
+    for sid in res.site_ids:
+        t = res.table("warning", sid)
+        lines.append(
+            f"  {sid:<24} {t.hits}/{t.misses}/{t.false_alarms}/"
+            f"{t.correct_negatives}  POD {_fmt(t.pod)}  FAR {_fmt(t.far)}  "
+            f"CSI {_fmt(t.csi)}"
+        )
+    fa = [n for n in res.nights if n.category("warning") == "false_alarm"]
+    miss = [n for n in res.nights if n.category("warning") == "miss"]
+    if fa:
+        lines.append(f"False alarms ({res.label}):")
+        for n in fa:
+            lines.append(
+                f"  {n.site} night of {n.night.date()}: warning from "
+                f"{iso_z(n.first_warning)}; rules {', '.join(n.rules)}"
+            )
+    if miss:
+        lines.append(f"Misses ({res.label}):")
+        for n in miss:
+            late = n.lead_min("warning")
+            said = f"warning came {-late:.0f} min after onset" if late is not None else "no warning"
+            lines.append(
+                f"  {n.site} night of {n.night.date()}: fog from {iso_z(n.fog_onset)}; {said}"
+            )
+            lines.extend(f"      {w}" for w in n.why_not[:4])
+    lines.append("")
+    return lines
+
+
+def write_csv(results: Sequence[ReplayResult], path: Path) -> None:
+    """Every event of every result, one row each."""
+    import csv
+
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(
+            ["rules", "time", "site", "hazard", "type", "level", "previous_level", "rules_fired"]
+        )
+        for res in results:
+            for e in res.events:
+                w.writerow(
+                    [
+                        res.label,
+                        iso_z(e.time),
+                        e.site_id,
+                        e.hazard,
+                        e.type,
+                        e.level,
+                        e.previous_level,
+                        " ".join(e.rules),
+                    ]
+                )
+
+
+def write_png(result: ReplayResult, obs: pd.DataFrame, path: Path) -> None:
+    """Observed visibility against watch and warning periods, one panel per site."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    n = len(result.site_ids)
+    fig = Figure(figsize=(10, 1.6 * n + 0.8), dpi=100)
+    FigureCanvasAgg(fig)
+    times = [datetime.fromtimestamp(float(t), UTC) for t in result.times]
+    for i, sid in enumerate(result.site_ids):
+        ax = fig.add_subplot(n, 1, i + 1)
+        rows = obs[(obs["site"] == sid) & (obs["kind"] == "obs")] if len(obs) else obs
+        if len(rows) and "visibility_m" in rows:
+            ax.plot(
+                rows["time"].dt.tz_convert("UTC").dt.tz_localize(None),
+                rows["visibility_m"],
+                color="black",
+                lw=0.8,
+                label="visibility",
+            )
+        ax.axhline(1000, color="grey", lw=0.6, ls="--")
+        lv = result.fog_level[i]
+        # matplotlib plots datetimes through its unit converters; its stubs name only numbers
+        naive: list[Any] = [t.replace(tzinfo=None) for t in times]
+        ax.fill_between(
+            naive,
+            0,
+            1,
+            where=lv >= 1,
+            transform=ax.get_xaxis_transform(),
+            color="#f2c14e",
+            alpha=0.35,
+            step="post",
+            label="watch",
+        )
+        ax.fill_between(
+            naive,
+            0,
+            1,
+            where=lv >= 2,
+            transform=ax.get_xaxis_transform(),
+            color="#d1495b",
+            alpha=0.35,
+            step="post",
+            label="warning",
+        )
+        ax.set_yscale("log")
+        ax.set_ylim(50, 30000)
+        ax.set_ylabel(sid, fontsize=7)
+        if i == 0:
+            ax.legend(fontsize=7, loc="upper right", ncol=3)
+    fig.suptitle(
+        f"fogwatch replay ({result.label}): visibility (m) and alert periods, UTC", fontsize=9
+    )
+    fig.tight_layout()
+    fig.savefig(path, format="png")
+
+
+def progress_bar(stream: Any = None) -> Callable[[int, int], None]:
+    """A ``progress`` callback for ``replay`` that draws a bar on ``stream`` (stderr)."""
+    stream = stream or sys.stderr
+    last = [-1]
+
+    def show(done: int, total: int) -> None:
+        pct = int(100 * done / total)
+        if pct != last[0] and (pct % 5 == 0 or done == total):
+            last[0] = pct
+            bar = "#" * (pct // 5) + "-" * (20 - pct // 5)
+            stream.write(f"\rreplay [{bar}] {pct:3d}% ({done}/{total} steps)")
+            if done == total:
+                stream.write("\n")
+            stream.flush()
+
+    return show
