@@ -528,7 +528,7 @@ def run_email_channel() -> dict[str, Any]:
     """1,000 messages straight through notifier.delivery.channels.email.EmailSender."""
     from notifier.delivery.channels.email import EmailSender
     from notifier.delivery.messages import Message
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
     controller, inbox = _smtp_server()
     try:

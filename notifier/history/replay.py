@@ -290,7 +290,7 @@ def _write_messages(loaded: Loaded, events: Sequence[Event], folder: Path) -> in
     from notifier.core.config import FolderChannel
     from notifier.delivery.channels import build_channel
     from notifier.delivery.messages import render
-    from notifier.storage.outbox import Delivery
+    from notifier.storage.deliveries import Delivery
 
     channel = build_channel(FolderChannel(id="replay", type="folder", path=folder))
     with channel:
