@@ -41,6 +41,16 @@ class PollResult:
     files: list[FileOutcome] = field(default_factory=list)
     stored: bool = False
 
+    def finish(self, frames: list[pd.DataFrame], errors: list[str]) -> PollResult:
+        """End the poll: the good rows of every input in one table, the errors (an input
+        that could not be read at all) joined into one failure."""
+        if frames:
+            self.frame = pd.concat(frames, ignore_index=True)
+        if errors:
+            self.ok = False
+            self.error = "; ".join(errors)
+        return self
+
     @property
     def rows_rejected(self) -> int:
         """Rejected rows (a row with several problems counts once)."""

@@ -168,12 +168,7 @@ class FileDrop:
                 continue
             if frame is not None and not frame.empty:
                 frames.append(frame)
-        if frames:
-            result.frame = pd.concat(frames, ignore_index=True)
-        if errors:
-            result.ok = False
-            result.error = "; ".join(errors)
-        return result
+        return result.finish(frames, errors)
 
     def _take(self, path: Path, now: datetime, result: PollResult) -> pd.DataFrame | None:
         data = path.read_bytes()

@@ -36,7 +36,6 @@ from datetime import datetime
 from typing import TYPE_CHECKING, Any
 from urllib.parse import quote, urlsplit, urlunsplit
 
-import pandas as pd
 import requests
 from requests.adapters import HTTPAdapter
 from urllib3.util.retry import Retry
@@ -294,12 +293,7 @@ class HttpJsonFeed:
             frames.append(frame)
             result.rejections.extend(rejections)
             result.warnings.extend(notes)
-        if frames:
-            result.frame = pd.concat(frames, ignore_index=True)
-        if errors:
-            result.ok = False
-            result.error = "; ".join(errors)
-        return result
+        return result.finish(frames, errors)
 
     def _rows(self, records: list[Any], site_id: str | None) -> tuple[list[Any], dict[str, str]]:
         """Records → rows keyed by input column names, and the fields' units."""
