@@ -16,10 +16,12 @@ from typing import Annotated, Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
     Field,
+    ValidationInfo,
     field_validator,
     model_validator,
 )
@@ -78,6 +80,15 @@ def parse_duration_s(value: Any) -> float:
 Duration = Annotated[float, BeforeValidator(parse_duration_s)]
 
 
+def _positive(value: float, info: ValidationInfo) -> float:
+    if value <= 0:
+        raise ValueError(f"{info.field_name} must be positive, got: {value}")
+    return value
+
+
+PositiveDuration = Annotated[Duration, AfterValidator(_positive)]
+
+
 def _check_zone(name: str) -> str:
     try:
         ZoneInfo(name)
@@ -128,15 +139,8 @@ class FieldSpec(_Model):
 
 class _SourceBase(_Model):
     id: Identifier
-    interval: Duration = 600.0
+    interval: PositiveDuration = 600.0
     kind: Literal["obs", "forecast"] = "obs"
-
-    @field_validator("interval")
-    @classmethod
-    def _positive(cls, value: float) -> float:
-        if value <= 0:
-            raise ValueError(f"interval must be positive, got: {value}")
-        return value
 
 
 class FileDropSource(_SourceBase):
@@ -289,14 +293,7 @@ class AlertSettings(_Model):
     stale_after: Duration = 90 * 60.0
     # how long a dispatcher's claim on what it is sending lasts (wall-clock time); it
     # should be well above the longest single send (the channels' timeouts)
-    claim_lease: Duration = 15 * 60.0
-
-    @field_validator("claim_lease")
-    @classmethod
-    def _lease_positive(cls, value: float) -> float:
-        if value <= 0:
-            raise ValueError(f"claim_lease must be positive, got: {value}")
-        return value
+    claim_lease: PositiveDuration = 15 * 60.0
 
 
 class BotSettings(_Model):
