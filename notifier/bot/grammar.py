@@ -19,7 +19,7 @@ commands work over HTTP, from the shell (``fogwatch ask``) and in tests.
 from __future__ import annotations
 
 import re
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Protocol
@@ -99,104 +99,154 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
     lower = words.lower()
     if not words:
         return "Say 'help' to see what I understand."
-    m = re.fullmatch(r"join\s+(\S+)", lower)
-    if m:
-        joined = backend.join(sender, words.split()[1])
-        if joined is None:
-            return "That code is not valid. Ask your site operator for a current one."
-        return (
-            f"Welcome. You now follow {backend.site_names()[joined]}. "
-            "Say 'help' to see what else I do."
-        )
+    # joining is the one thing a stranger may do
+    if re.fullmatch(r"join\s+(\S+)", lower):
+        return _join(backend, sender, words.split()[1])
     if not backend.is_known(sender):
         return "I don't know you yet. Ask an operator for a join code, then say 'join CODE'."
-    if lower in ("help", "?", "hello", "hi"):
-        return HELP
-    if lower == "sites":
-        names = backend.site_names()
-        followed = set(backend.followed(sender))
-        lines = [f"{'*' if sid in followed else '-'} {sid}: {name}" for sid, name in names.items()]
-        return "\n".join(["Sites (* = you follow):", *lines])
-    m = re.fullmatch(r"status(?:\s+(.+))?", lower)
-    if m:
-        if m.group(1):
-            sid = _site(backend, m.group(1))
-            if sid is None:
-                return _unknown_site(backend, m.group(1))
-            ids = [sid]
-        else:
-            ids = backend.followed(sender)
-            if not ids:
-                return "You follow no sites. Say 'status SITE' or 'follow SITE'."
-        lines = [_status_line(s) for s in backend.status(ids)]
-        return "\n".join([*lines, CAUTION])
-    m = re.fullmatch(r"why\s+(.+)", lower)
-    if m:
-        sid = _site(backend, m.group(1))
-        if sid is None:
-            return _unknown_site(backend, m.group(1))
-        (st,) = backend.status([sid])
-        reasons = backend.reasons(sid)
-        body = [f"- {r}" for r in reasons[:8]] or ["- no rule is firing"]
-        return "\n".join([f"{st.name}: {st.level.upper()}", *body, CAUTION])
-    m = re.fullmatch(r"follow\s+(.+?)(?:\s+from\s+(\S+))?", lower)
-    if m:
-        level = m.group(2) or "watch"
-        if level not in ("watch", "warning"):
-            return "Levels are 'watch' and 'warning', e.g. 'follow SITE from warning'."
-        sid = _site(backend, m.group(1))
-        if sid is None:
-            return _unknown_site(backend, m.group(1))
-        backend.follow(sender, sid, level)
-        return f"You will get {backend.site_names()[sid]} alerts from {level} level up."
-    m = re.fullmatch(r"unfollow\s+(.+)", lower)
-    if m:
-        sid = _site(backend, m.group(1))
-        if sid is None:
-            return _unknown_site(backend, m.group(1))
-        if backend.unfollow(sender, sid):
-            return f"You no longer get {backend.site_names()[sid]} alerts."
-        return f"You were not following {backend.site_names()[sid]}."
-    m = re.fullmatch(r"hush\s+(.+?)\s+for\s+(.+?)(\s+for\s+everyone)?", lower)
-    if m:
-        sid = _site(backend, m.group(1))
-        if sid is None:
-            return _unknown_site(backend, m.group(1))
-        try:
-            seconds = parse_duration_s(m.group(2))
-        except ValueError:
-            return HOW_LONG
-        if seconds < 60 or timedelta(seconds=seconds) > MAX_MUTE:
-            return "A hush lasts between a minute and 14 days."
-        who = sender
-        if m.group(3):
-            if not backend.is_operator(sender):
-                return "Only an operator can hush a site for everyone."
-            who = "*"
-        until = now + timedelta(seconds=seconds)
-        backend.mute(who, sid, until)
-        scope = "for everyone" if who == "*" else "for you"
-        local = until.astimezone(ZoneInfo(backend.site_timezone(sid)))
-        return (
-            f"{backend.site_names()[sid]} hushed {scope} until "
-            f"{local:%H:%M %Z} ({local:%d %b}). Warnings then resume."
-        )
-    if re.fullmatch(r"hush\s+.+", lower):
-        return HOW_LONG
-    m = re.fullmatch(r"unhush\s+(.+?)(\s+for\s+everyone)?", lower)
-    if m:
-        sid = _site(backend, m.group(1))
-        if sid is None:
-            return _unknown_site(backend, m.group(1))
-        who = sender
-        if m.group(2):
-            if not backend.is_operator(sender):
-                return "Only an operator can lift a hush for everyone."
-            who = "*"
-        if backend.unmute(who, sid):
-            return f"{backend.site_names()[sid]} alerts are back on."
-        return f"{backend.site_names()[sid]} was not hushed."
-    if lower in ("why", "follow", "unfollow", "hush", "unhush"):
-        example = next(iter(backend.site_names()), "SITE")
-        return f"Say which site, e.g. '{lower} {example}'. Say 'sites' for the list."
+    for pattern, reply in _COMMANDS:
+        m = pattern.fullmatch(lower)
+        if m:
+            return reply(backend, sender, m, now)
     return "I didn't understand that. Say 'help'."
+
+
+def _join(backend: BotBackend, sender: str, code: str) -> str:
+    """Makes ``sender`` known with an operator's join code (as typed: codes keep their case)."""
+    joined = backend.join(sender, code)
+    if joined is None:
+        return "That code is not valid. Ask your site operator for a current one."
+    return (
+        f"Welcome. You now follow {backend.site_names()[joined]}. Say 'help' to see what else I do."
+    )
+
+
+def _help(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """What the bot understands."""
+    return HELP
+
+
+def _sites(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Every site, marking the ones ``sender`` follows."""
+    names = backend.site_names()
+    followed = set(backend.followed(sender))
+    lines = [f"{'*' if sid in followed else '-'} {sid}: {name}" for sid, name in names.items()]
+    return "\n".join(["Sites (* = you follow):", *lines])
+
+
+def _status(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """One line per site: the one named, or else every site ``sender`` follows."""
+    if m.group(1):
+        sid = _site(backend, m.group(1))
+        if sid is None:
+            return _unknown_site(backend, m.group(1))
+        ids = [sid]
+    else:
+        ids = backend.followed(sender)
+        if not ids:
+            return "You follow no sites. Say 'status SITE' or 'follow SITE'."
+    lines = [_status_line(s) for s in backend.status(ids)]
+    return "\n".join([*lines, CAUTION])
+
+
+def _why(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """A site's level and up to eight reasons behind it."""
+    sid = _site(backend, m.group(1))
+    if sid is None:
+        return _unknown_site(backend, m.group(1))
+    (st,) = backend.status([sid])
+    reasons = backend.reasons(sid)
+    body = [f"- {r}" for r in reasons[:8]] or ["- no rule is firing"]
+    return "\n".join([f"{st.name}: {st.level.upper()}", *body, CAUTION])
+
+
+def _follow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Sends ``sender`` a site's alerts from a level (watch unless told) up."""
+    level = m.group(2) or "watch"
+    if level not in ("watch", "warning"):
+        return "Levels are 'watch' and 'warning', e.g. 'follow SITE from warning'."
+    sid = _site(backend, m.group(1))
+    if sid is None:
+        return _unknown_site(backend, m.group(1))
+    backend.follow(sender, sid, level)
+    return f"You will get {backend.site_names()[sid]} alerts from {level} level up."
+
+
+def _unfollow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Stops sending ``sender`` a site's alerts."""
+    sid = _site(backend, m.group(1))
+    if sid is None:
+        return _unknown_site(backend, m.group(1))
+    if backend.unfollow(sender, sid):
+        return f"You no longer get {backend.site_names()[sid]} alerts."
+    return f"You were not following {backend.site_names()[sid]}."
+
+
+def _hush(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Mutes a site for a while, for ``sender`` or (operators only) for everyone."""
+    sid = _site(backend, m.group(1))
+    if sid is None:
+        return _unknown_site(backend, m.group(1))
+    try:
+        seconds = parse_duration_s(m.group(2))
+    except ValueError:
+        return HOW_LONG
+    if seconds < 60 or timedelta(seconds=seconds) > MAX_MUTE:
+        return "A hush lasts between a minute and 14 days."
+    who = sender
+    if m.group(3):
+        if not backend.is_operator(sender):
+            return "Only an operator can hush a site for everyone."
+        who = "*"
+    until = now + timedelta(seconds=seconds)
+    backend.mute(who, sid, until)
+    scope = "for everyone" if who == "*" else "for you"
+    local = until.astimezone(ZoneInfo(backend.site_timezone(sid)))
+    return (
+        f"{backend.site_names()[sid]} hushed {scope} until "
+        f"{local:%H:%M %Z} ({local:%d %b}). Warnings then resume."
+    )
+
+
+def _how_long(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Asks for the missing duration of a hush."""
+    return HOW_LONG
+
+
+def _unhush(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Lifts a hush, ``sender``'s own or (operators only) everyone's."""
+    sid = _site(backend, m.group(1))
+    if sid is None:
+        return _unknown_site(backend, m.group(1))
+    who = sender
+    if m.group(2):
+        if not backend.is_operator(sender):
+            return "Only an operator can lift a hush for everyone."
+        who = "*"
+    if backend.unmute(who, sid):
+        return f"{backend.site_names()[sid]} alerts are back on."
+    return f"{backend.site_names()[sid]} was not hushed."
+
+
+def _which_site(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
+    """Asks which site a command without one is about."""
+    example = next(iter(backend.site_names()), "SITE")
+    return f"Say which site, e.g. '{m.group(0)} {example}'. Say 'sites' for the list."
+
+
+Reply = Callable[[BotBackend, str, re.Match[str], datetime], str]
+
+# Tried in order, each against the whole lower-cased message: the first that matches answers.
+# A hush without "for ..." comes after the full hush, and a bare command word last.
+_COMMANDS: list[tuple[re.Pattern[str], Reply]] = [
+    (re.compile(r"help|\?|hello|hi"), _help),
+    (re.compile(r"sites"), _sites),
+    (re.compile(r"status(?:\s+(.+))?"), _status),
+    (re.compile(r"why\s+(.+)"), _why),
+    (re.compile(r"follow\s+(.+?)(?:\s+from\s+(\S+))?"), _follow),
+    (re.compile(r"unfollow\s+(.+)"), _unfollow),
+    (re.compile(r"hush\s+(.+?)\s+for\s+(.+?)(\s+for\s+everyone)?"), _hush),
+    (re.compile(r"hush\s+.+"), _how_long),
+    (re.compile(r"unhush\s+(.+?)(\s+for\s+everyone)?"), _unhush),
+    (re.compile(r"why|follow|unfollow|hush|unhush"), _which_site),
+]

@@ -236,13 +236,13 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
         raise
 
     def stop(signum: int, _frame: object) -> None:
-        log.warning("signal %s: stopping the bot endpoint", signum)
+        log.info("signal %s: stopping the bot endpoint", signum)
         # shutdown() waits for serve_forever, which runs in this (the main) thread
         threading.Thread(target=server.shutdown, daemon=True).start()
 
     previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGINT)}
     host, port = server.server_address[:2]
-    log.warning("bot listening on http://%s:%d/message", host, port)
+    log.info("bot listening on http://%s:%d/message", host, port)
     # an AF_INET socket names its host as text; the stubs also allow bytes
     print(f"listening on http://{cast(str, host)}:{port}/message", flush=True)
     try:
@@ -253,7 +253,7 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
         service.close()
         for sig, handler in previous.items():
             signal.signal(sig, handler)
-        log.warning("bot stopped")
+        log.info("bot stopped")
     return 0
 
 

@@ -7,13 +7,13 @@ handlers so that ``fogwatch --help`` answers at once.
 from __future__ import annotations
 
 import argparse
-import logging
 import sys
 from collections.abc import Callable, Sequence
-from typing import Any
+from typing import Any, TypeAlias
 
 from notifier import __version__
 from notifier.core.errors import FogwatchError
+from notifier.core.logs import setup_logging
 
 __all__ = ["main"]
 
@@ -30,6 +30,8 @@ official warnings, the harbour authority, local codes and licensed practice.
 """
 
 Handler = Callable[[argparse.Namespace], int]
+# what add_subparsers returns; only the type checker can subscript it
+_Subcommands: TypeAlias = "argparse._SubParsersAction[_Parser]"
 
 
 class _Parser(argparse.ArgumentParser):
@@ -91,6 +93,7 @@ def _add_common(p: argparse.ArgumentParser) -> None:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The ``fogwatch`` parser; each subcommand's ``handler`` is what it runs."""
     parser = _Parser(
         prog="fogwatch",
         description=(
@@ -102,7 +105,16 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"fogwatch {__version__}")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    # the order of the calls is the order of the commands in --help
+    _add_reading_commands(sub)
+    _add_service_commands(sub)
+    _add_bot_commands(sub)
+    _add_history_commands(sub)
+    return parser
 
+
+def _add_reading_commands(sub: _Subcommands) -> None:
+    """check, assess, explain, sources: look at the config, the data and the rules."""
     p = sub.add_parser("check", help="validate the config and every rule file")
     _add_common(p)
     p.set_defaults(handler=_cmd_check)
@@ -125,6 +137,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_common(p)
     p.set_defaults(handler=_cmd_sources)
 
+
+def _add_service_commands(sub: _Subcommands) -> None:
+    """once, run, status: the service itself, one cycle or unattended, and its state."""
     p = sub.add_parser("once", help="one full cycle: poll, assess, alert, deliver")
     _add_common(p)
     p.add_argument("--at", metavar="TIME", help="cycle time (ISO 8601; default now)")
@@ -138,6 +153,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_common(p)
     p.set_defaults(handler=_cmd("cli_status"))
 
+
+def _add_bot_commands(sub: _Subcommands) -> None:
+    """ask, bot serve: the messaging bot, from the shell or over HTTP."""
     p = sub.add_parser("ask", help="send one bot command from the shell")
     _add_common(p)
     p.add_argument("text", help="the command, e.g. 'status' or 'hush SITE for 2h'")
@@ -155,6 +173,9 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--port", type=int, default=8750)
     q.set_defaults(handler=_cmd("cli_bot_serve"))
 
+
+def _add_history_commands(sub: _Subcommands) -> None:
+    """replay, demo: the rules over past data, and an invented night."""
     p = sub.add_parser("replay", help="run the rules over history and score them")
     _add_common(p)
     p.add_argument(
@@ -177,8 +198,6 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="one invented night at three invented sites")
     p.set_defaults(handler=_cmd_demo)
 
-    return parser
-
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
@@ -186,8 +205,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "handler", None):
         parser.print_help()
         return 2
-    level = logging.WARNING - 10 * min(args.verbose, 2)
-    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    setup_logging(args.verbose)
     handler: Any = args.handler
     try:
         return int(handler(args))

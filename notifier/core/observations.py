@@ -139,13 +139,35 @@ def normalize_frame(
         return empty_frame(), [], []
     line_numbers = np.asarray(lines, dtype="int64") if lines is not None else None
     checks = Checks(n, origin, line_numbers)
-    warnings: list[str] = []
-    units = dict(units or {})
+    # The order of the checks below is the order of a row's rejections and of the warnings.
+    warnings = _unknown_columns(raw, origin)
+    site, known_site = _read_sites(raw, sites, default_site, checks)
+    kind = _read_kinds(raw, default_kind, checks)
+    time = _parse_times(raw, site, known_site, sites, checks, warnings)
+    _reject_ahead_of_now(time, kind, now, checks)
+    numbers = read_numbers(raw, dict(units or {}), checks)
+    range_checks(numbers, checks)
+    moisture_checks(numbers, checks, warnings)
+    good = ~checks.bad
+    frame = _canonical_table(raw, good, site, time, kind, numbers.values, source_id)
+    frame = _drop_repeats(frame, good, checks, warnings)
+    return frame.reset_index(drop=True), checks.rejections(), warnings
 
+
+def _unknown_columns(raw: pd.DataFrame, origin: str) -> list[str]:
+    """The batch's warnings so far: one naming the input columns that are not read."""
     ignored = sorted(str(c) for c in raw.columns if c not in INPUT_COLUMNS)
     if ignored:
-        warnings.append(f"{origin}: ignored unknown columns: {', '.join(ignored)}")
+        return [f"{origin}: ignored unknown columns: {', '.join(ignored)}"]
+    return []
 
+
+def _read_sites(
+    raw: pd.DataFrame, sites: Mapping[str, Site], default_site: str | None, checks: Checks
+) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's site id (the default where none is given) and whether it is a known site;
+    rejects rows without a site or with an unknown one."""
+    n = len(raw)
     site = labels(raw["site"]) if "site" in raw else np.full(n, None, dtype=object)
     if default_site is not None:
         site[site == None] = default_site  # noqa: E711
@@ -156,7 +178,13 @@ def normalize_frame(
     checks.reject(
         ~known_site & ~missing_site, "site", lambda r: f"unknown site {site[r]!r} (known: {known})"
     )
+    return site, known_site
 
+
+def _read_kinds(raw: pd.DataFrame, default_kind: str, checks: Checks) -> np.ndarray:
+    """Each row's kind in lower case (the default where none is given); rejects any kind
+    but obs and forecast."""
+    n = len(raw)
     kind = labels(raw["kind"]) if "kind" in raw else np.full(n, None, dtype=object)
     kind[kind == None] = default_kind  # noqa: E711
     if "kind" in raw:
@@ -166,8 +194,13 @@ def normalize_frame(
         "kind",
         lambda r: f"kind must be obs or forecast, got {kind[r]!r}",
     )
+    return kind
 
-    time = _parse_times(raw, site, known_site, sites, checks, warnings)
+
+def _reject_ahead_of_now(
+    time: pd.DatetimeIndex, kind: np.ndarray, now: datetime, checks: Checks
+) -> None:
+    """Rejects observations (not forecasts) more than 10 minutes ahead of ``now``."""
     ahead = (kind == "obs") & np.asarray(time > pd.Timestamp(now) + FUTURE_TOLERANCE)
     checks.reject(
         ahead,
@@ -179,12 +212,17 @@ def normalize_frame(
         ),
     )
 
-    numbers = read_numbers(raw, units, checks)
-    range_checks(numbers, checks)
-    moisture_checks(numbers, checks, warnings)
-    values = numbers.values
 
-    good = ~checks.bad
+def _canonical_table(
+    raw: pd.DataFrame,
+    good: np.ndarray,
+    site: np.ndarray,
+    time: pd.DatetimeIndex,
+    kind: np.ndarray,
+    values: dict[str, np.ndarray],
+    source_id: str,
+) -> pd.DataFrame:
+    """The rows that passed every check, as a table with exactly the canonical columns."""
     out: dict[str, Any] = {
         "site": site[good],
         "time": time[good],
@@ -192,25 +230,33 @@ def normalize_frame(
     }
     for column in FLOAT_COLUMNS:
         out[column] = values[column][good]
+    n = len(raw)
     weather = labels(raw["weather"]) if "weather" in raw else np.full(n, None, dtype=object)
     out["weather"] = weather[good]
     out["source"] = np.full(int(good.sum()), source_id, dtype=object)
     frame = text_columns_as_objects(pd.DataFrame(out, columns=CANONICAL_COLUMNS))
     frame["time"] = pd.DatetimeIndex(frame["time"]).as_unit("ns")
+    return frame
 
+
+def _drop_repeats(
+    frame: pd.DataFrame, good: np.ndarray, checks: Checks, warnings: list[str]
+) -> pd.DataFrame:
+    """The table without rows whose (site, time, kind) comes again later in the input (the
+    later row wins); says which input lines were dropped."""
     duplicated = frame.duplicated(subset=["site", "time", "kind"], keep="last").to_numpy()
-    if duplicated.any():
-        rows = np.flatnonzero(good)[duplicated]
-        mask = np.zeros(n, dtype=bool)
-        mask[rows] = True
-        message = (
-            f"{origin}: {int(duplicated.sum())} rows repeat a (site, time, kind) given again "
-            f"later in the same input; the later row wins (dropped lines {checks.lines_of(mask)})"
-        )
-        log.info(message)
-        warnings.append(message)
-        frame = frame[~duplicated]
-    return frame.reset_index(drop=True), checks.rejections(), warnings
+    if not duplicated.any():
+        return frame
+    rows = np.flatnonzero(good)[duplicated]
+    mask = np.zeros(len(good), dtype=bool)
+    mask[rows] = True
+    message = (
+        f"{checks.origin}: {int(duplicated.sum())} rows repeat a (site, time, kind) given again "
+        f"later in the same input; the later row wins (dropped lines {checks.lines_of(mask)})"
+    )
+    log.info(message)
+    warnings.append(message)
+    return frame[~duplicated]
 
 
 def _parse_times(
@@ -221,6 +267,8 @@ def _parse_times(
     checks: Checks,
     warnings: list[str],
 ) -> pd.DatetimeIndex:
+    """Each row's time in UTC, NaT where it is rejected: a time with an offset is converted,
+    a naive one is read in its site's zone."""
     n = len(raw)
     # Naive datetime64 holding UTC, localized once at the end.
     values = np.full(n, np.datetime64("NaT"), dtype="M8[ns]")
@@ -232,22 +280,8 @@ def _parse_times(
         times = pd.DatetimeIndex(column).tz_convert("UTC").as_unit("ns")
         checks.reject(np.asarray(times.isna()), "time", lambda r: "time missing")
         return times
-    missing = column.isna().to_numpy().copy()
-    text = np.char.strip(
-        np.asarray(np.where(missing, "", column.to_numpy(dtype=object)), dtype=str)
-    )
-    missing |= text == ""
-    checks.reject(missing, "time", lambda r: "time missing")
-    # An offset (Z, +hh:mm, -hhmm) follows the clock time; a '-' before the first ':' is
-    # part of the date. Numpy's string functions keep this off the per-row Python path.
-    first_colon = np.char.find(text, ":")
-    sign = np.maximum(np.char.rfind(text, "+"), np.char.rfind(text, "-"))
-    lower_zulu = np.char.endswith(text, "z")
-    if lower_zulu.any():  # pandas' ISO 8601 parser accepts only "Z"
-        text[lower_zulu] = np.char.add(np.char.rstrip(text[lower_zulu], "z"), "Z")
-    zulu = np.char.endswith(text, "Z")
-    aware = ~missing & (zulu | ((first_colon > 0) & (sign > first_colon)))
-    naive = ~aware & ~missing
+    text, missing = _time_text(column, checks)
+    aware, naive = _with_and_without_offset(text, missing)
     strings = pd.Series(text, dtype=object)
     if aware.any():
         parsed = pd.to_datetime(strings[aware], utc=True, format="ISO8601", errors="coerce")
@@ -265,36 +299,76 @@ def _parse_times(
     for site_id in np.unique(site[naive & ~unparsed & known_site]):
         rows = naive & ~unparsed & (site == site_id)
         zone = sites[site_id].timezone
-        wall = local[rows]
-        strict = wall.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-        as_summer = wall.tz_localize(
-            zone, ambiguous=np.ones(len(wall), dtype=bool), nonexistent="NaT"
-        )
-        ambiguous = np.zeros(n, dtype=bool)
-        nonexistent = np.zeros(n, dtype=bool)
-        ambiguous[rows] = strict.isna() & ~as_summer.isna()
-        nonexistent[rows] = as_summer.isna()
-        values[rows] = _utc_naive(strict)
-
-        def is_ambiguous(r: int, zone: str = zone) -> str:
-            return (
-                f"local time {text[r]} is ambiguous in {zone} (it happens twice as the clocks "
-                "go back); give a UTC offset"
-            )
-
-        def does_not_exist(r: int, zone: str = zone) -> str:
-            return (
-                f"local time {text[r]} does not exist in {zone} (the clocks skip it); "
-                "give a UTC offset"
-            )
-
-        checks.reject(ambiguous, "time", is_ambiguous)
-        checks.reject(nonexistent, "time", does_not_exist)
+        _read_in_site_zone(rows, zone, local, text, values, checks)
         warnings.append(
             f"{checks.origin}: {int(rows.sum())} times for site {site_id} had no UTC offset; "
             f"read as local time in {zone}"
         )
     return pd.DatetimeIndex(values).tz_localize("UTC")
+
+
+def _time_text(column: pd.Series, checks: Checks) -> tuple[np.ndarray, np.ndarray]:
+    """(each time as stripped text, mask of missing or blank times); rejects the missing."""
+    missing = column.isna().to_numpy().copy()
+    text = np.char.strip(
+        np.asarray(np.where(missing, "", column.to_numpy(dtype=object)), dtype=str)
+    )
+    missing |= text == ""
+    checks.reject(missing, "time", lambda r: "time missing")
+    return text, missing
+
+
+def _with_and_without_offset(
+    text: np.ndarray, missing: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """(mask of times that carry a UTC offset, mask of naive ones); a lower-case ``z`` in
+    ``text`` is made ``Z`` in place."""
+    # An offset (Z, +hh:mm, -hhmm) follows the clock time; a '-' before the first ':' is
+    # part of the date. Numpy's string functions keep this off the per-row Python path.
+    first_colon = np.char.find(text, ":")
+    sign = np.maximum(np.char.rfind(text, "+"), np.char.rfind(text, "-"))
+    lower_zulu = np.char.endswith(text, "z")
+    if lower_zulu.any():  # pandas' ISO 8601 parser accepts only "Z"
+        text[lower_zulu] = np.char.add(np.char.rstrip(text[lower_zulu], "z"), "Z")
+    zulu = np.char.endswith(text, "Z")
+    aware = ~missing & (zulu | ((first_colon > 0) & (sign > first_colon)))
+    naive = ~aware & ~missing
+    return aware, naive
+
+
+def _read_in_site_zone(
+    rows: np.ndarray,
+    zone: str,
+    local: pd.DatetimeIndex,
+    text: np.ndarray,
+    values: np.ndarray,
+    checks: Checks,
+) -> None:
+    """Fills ``values`` (UTC) for one site's naive ``rows`` read as wall-clock time in
+    ``zone``; rejects a time the clocks skip or pass twice."""
+    n = len(rows)
+    wall = local[rows]
+    strict = wall.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+    as_summer = wall.tz_localize(zone, ambiguous=np.ones(len(wall), dtype=bool), nonexistent="NaT")
+    ambiguous = np.zeros(n, dtype=bool)
+    nonexistent = np.zeros(n, dtype=bool)
+    ambiguous[rows] = strict.isna() & ~as_summer.isna()
+    nonexistent[rows] = as_summer.isna()
+    values[rows] = _utc_naive(strict)
+
+    def is_ambiguous(r: int) -> str:
+        return (
+            f"local time {text[r]} is ambiguous in {zone} (it happens twice as the clocks "
+            "go back); give a UTC offset"
+        )
+
+    def does_not_exist(r: int) -> str:
+        return (
+            f"local time {text[r]} does not exist in {zone} (the clocks skip it); give a UTC offset"
+        )
+
+    checks.reject(ambiguous, "time", is_ambiguous)
+    checks.reject(nonexistent, "time", does_not_exist)
 
 
 def _in_ns_range(index: pd.DatetimeIndex) -> pd.DatetimeIndex:

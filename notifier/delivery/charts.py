@@ -10,13 +10,14 @@ from __future__ import annotations
 
 import io
 from collections.abc import Sequence
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, datetime, timedelta, tzinfo
 from typing import TYPE_CHECKING
 
 import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
+    from matplotlib.axes import Axes
 
 __all__ = ["Projection", "chart_png", "projection_points"]
 
@@ -87,8 +88,6 @@ def chart_png(
     matplotlib.use("Agg")
     from zoneinfo import ZoneInfo
 
-    import pandas as pd
-    from matplotlib import dates as mdates
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
@@ -96,18 +95,44 @@ def chart_png(
         raise ValueError("now must be timezone-aware")
     now = now.astimezone(UTC)
     zone = ZoneInfo(tz_name)
-    data = frame
-    if "kind" in data.columns:
-        data = data[(data["kind"].isna() | (data["kind"] == "obs")).to_numpy()]
-    times = pd.to_datetime(data["time"], utc=True) if "time" in data.columns else None
-    if times is not None:
-        keep = (times > pd.Timestamp(now - WINDOW)) & (times <= pd.Timestamp(now))
-        data = data[keep.to_numpy()].assign(_t=times[keep.to_numpy()]).sort_values("_t")
-    x = [t.to_pydatetime() for t in data["_t"]] if times is not None else []
+    data, x = _recent_observations(frame, now)
 
     fig = Figure(figsize=SIZE_IN, dpi=DPI)
     FigureCanvasAgg(fig)
     ax = fig.add_subplot(1, 1, 1)
+    # drawn in this order, so that later lines lie on top and the legend lists them so
+    _plot_observations(ax, data, x)
+    if dewpoint is None:
+        dewpoint = _newest_dewpoint(data)
+    if projection is not None:
+        _plot_projection(ax, projection_points(projection, now), dewpoint, zone)
+    _set_axes(ax, now, projection is not None, zone, title)
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.1)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
+def _recent_observations(frame: pd.DataFrame, now: datetime) -> tuple[pd.DataFrame, list[datetime]]:
+    """(the observations, not forecasts, of the 12 h up to ``now`` in time order, their
+    times); no times when the frame has no ``time`` column."""
+    import pandas as pd
+
+    data = frame
+    if "kind" in data.columns:
+        data = data[(data["kind"].isna() | (data["kind"] == "obs")).to_numpy()]
+    times = pd.to_datetime(data["time"], utc=True) if "time" in data.columns else None
+    if times is None:
+        return data, []
+    keep = (times > pd.Timestamp(now - WINDOW)) & (times <= pd.Timestamp(now))
+    data = data[keep.to_numpy()].assign(_t=times[keep.to_numpy()]).sort_values("_t")
+    return data, [t.to_pydatetime() for t in data["_t"]]
+
+
+def _plot_observations(ax: Axes, data: pd.DataFrame, x: list[datetime]) -> None:
+    """One line each for air, dew point and surface temperature, where there are values."""
+    from matplotlib import dates as mdates
+
     series = (
         ("temp_c", "air", "#c0392b", "-"),
         ("dewpoint_c", "dew point", "#2471a3", "-"),
@@ -119,39 +144,60 @@ def chart_png(
             if np.isfinite(y).any():
                 ax.plot(mdates.date2num(x), y, style, color=colour, label=label, linewidth=1.8)
 
-    if dewpoint is None and "dewpoint_c" in data.columns and len(data):
-        finite = data["dewpoint_c"].to_numpy(dtype=float)
-        finite = finite[np.isfinite(finite)]
-        dewpoint = float(finite[-1]) if finite.size else None
-    if projection is not None:
-        points = projection_points(projection, now)
-        if points:
-            px = mdates.date2num([t for t, _ in points])
-            ax.plot(
-                px,
-                [v for _, v in points],
-                "--",
-                color="#c0392b",
-                alpha=0.7,
-                label="projected air",
-                linewidth=1.5,
-            )
-            if dewpoint is not None:
-                ax.axhline(dewpoint, color="#2471a3", alpha=0.3, linewidth=1)
-                cross = _crossing(points, dewpoint)
-                if cross is not None:
-                    cx = mdates.date2num(cross[0])
-                    ax.axvline(cx, color="#555555", linestyle="--", linewidth=1)
-                    ax.plot([cx], [cross[1]], "o", color="#2471a3", markersize=7)
-                    ax.annotate(
-                        f"meets dew point ~{cross[0].astimezone(zone):%H:%M}",
-                        (cx, cross[1]),
-                        textcoords="offset points",
-                        xytext=(6, 8),
-                        fontsize=9,
-                    )
+
+def _newest_dewpoint(data: pd.DataFrame) -> float | None:
+    """The last finite dew point among the charted observations, or None."""
+    if "dewpoint_c" not in data.columns or not len(data):
+        return None
+    finite = data["dewpoint_c"].to_numpy(dtype=float)
+    finite = finite[np.isfinite(finite)]
+    return float(finite[-1]) if finite.size else None
+
+
+def _plot_projection(
+    ax: Axes, points: list[tuple[datetime, float]], dewpoint: float | None, zone: tzinfo
+) -> None:
+    """The projected air temperature as a dashed line, with the dew point level and the
+    time the two meet marked."""
+    from matplotlib import dates as mdates
+
+    if not points:
+        return
+    px = mdates.date2num([t for t, _ in points])
+    ax.plot(
+        px,
+        [v for _, v in points],
+        "--",
+        color="#c0392b",
+        alpha=0.7,
+        label="projected air",
+        linewidth=1.5,
+    )
+    if dewpoint is None:
+        return
+    ax.axhline(dewpoint, color="#2471a3", alpha=0.3, linewidth=1)
+    cross = _crossing(points, dewpoint)
+    if cross is None:
+        return
+    cx = mdates.date2num(cross[0])
+    ax.axvline(cx, color="#555555", linestyle="--", linewidth=1)
+    ax.plot([cx], [cross[1]], "o", color="#2471a3", markersize=7)
+    ax.annotate(
+        f"meets dew point ~{cross[0].astimezone(zone):%H:%M}",
+        (cx, cross[1]),
+        textcoords="offset points",
+        xytext=(6, 8),
+        fontsize=9,
+    )
+
+
+def _set_axes(ax: Axes, now: datetime, projected: bool, zone: tzinfo, title: str) -> None:
+    """The time axis (12 h back, up to 10 h ahead when ``projected``) in local hours, a
+    marked "now", the labels, the grid and the legend."""
+    from matplotlib import dates as mdates
+
     ax.axvline(mdates.date2num(now), color="#999999", linewidth=1)
-    right = now + (AHEAD if projection is not None else timedelta(hours=1))
+    right = now + (AHEAD if projected else timedelta(hours=1))
     ax.set_xlim(mdates.date2num(now - WINDOW), mdates.date2num(right))
     ax.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=zone))
     ax.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=zone))
@@ -169,7 +215,3 @@ def chart_png(
     ax.grid(True, alpha=0.3)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(loc="upper right", fontsize=9, frameon=False)
-    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.1)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI)
-    return buf.getvalue()

@@ -150,7 +150,7 @@ def run_forever(service: Service) -> int:
     def stop(signum: int, _frame: Any) -> None:
         if stopping:
             return
-        log.warning("signal %s: finishing the job in flight, then stopping", signum)
+        log.info("signal %s: finishing the job in flight, then stopping", signum)
         service.stop()  # a delivery run ends after the message it is sending
         # shutdown waits for running jobs, so it cannot run inside this handler
         stopper = threading.Thread(target=sched.shutdown, kwargs={"wait": True}, daemon=True)
@@ -164,7 +164,7 @@ def run_forever(service: Service) -> int:
     signal.signal(signal.SIGINT, stop)
     if hasattr(signal, "SIGHUP"):
         signal.signal(signal.SIGHUP, hup)
-    log.warning(
+    log.info(
         "fogwatch running: %d site(s), %d source(s)",
         len(service.config.sites),
         len(service.config.sources),
@@ -175,5 +175,5 @@ def run_forever(service: Service) -> int:
         for stopper in stopping:
             stopper.join(timeout=60)  # the jobs in flight end before the store closes
         service.close()
-        log.warning("fogwatch stopped")
+        log.info("fogwatch stopped")
     return 0

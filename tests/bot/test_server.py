@@ -257,8 +257,9 @@ def test_the_server_needs_a_secret():
 @pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT], ids=["SIGTERM", "SIGINT"])
 def test_bot_serve_answers_a_signed_request_then_stops_on_a_signal(scene: Scene, signum: int):
     env = {**os.environ, "FW_TEST_BOT_SECRET": BOT_SECRET, "PYTHONUNBUFFERED": "1"}
+    # -v: a normal stop is logged at INFO, which the default level leaves out
     proc = subprocess.Popen(
-        [sys.executable, "-m", "notifier", "bot", "serve", str(scene.config_path),
+        [sys.executable, "-m", "notifier", "-v", "bot", "serve", str(scene.config_path),
          "--host", "127.0.0.1", "--port", "0"],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, text=True,
     )  # fmt: skip

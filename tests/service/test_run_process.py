@@ -4,6 +4,7 @@ file and a broken rule file, never logs a secret, and stops cleanly on SIGTERM."
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import signal
 import socket
@@ -132,6 +133,8 @@ channels:
     log = err_path.read_text(encoding="utf-8", errors="replace")
     assert code == 0, log
     assert "fogwatch stopped" in log
+    # a normal stop is INFO, in the time-stamped layout of notifier.core.logs
+    assert re.search(r"^\S+Z INFO notifier\.service\.scheduler: fogwatch stopped$", log, re.M), log
     assert "Traceback" not in log
     for secret in (HOOK_SECRET, BOT_SECRET):
         assert secret not in log

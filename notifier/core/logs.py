@@ -1,0 +1,55 @@
+"""Log lines: an ISO 8601 UTC time, the level, the logger and the message.
+
+>>> import logging
+>>> record = logging.makeLogRecord(
+...     {"name": "notifier.service.scheduler", "levelname": "INFO", "msg": "fogwatch stopped",
+...      "created": 1796402405.0}
+... )
+>>> UTCFormatter().format(record)
+'2026-12-04T16:40:05Z INFO notifier.service.scheduler: fogwatch stopped'
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from typing import TextIO
+
+__all__ = ["DATE_FORMAT", "LINE_FORMAT", "UTCFormatter", "level_for", "setup_logging"]
+
+LINE_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
+# ISO 8601 with a literal Z: a service's log is read beside other machines' logs, and
+# UTC with whole seconds sorts and compares as text.
+DATE_FORMAT = "%Y-%m-%dT%H:%M:%SZ"
+
+
+class UTCFormatter(logging.Formatter):
+    """Formats a record as ``2026-12-04T16:40:05Z LEVEL logger: message`` (time in UTC)."""
+
+    def __init__(self) -> None:
+        super().__init__(fmt=LINE_FORMAT, datefmt=DATE_FORMAT)
+
+    def formatTime(self, record: logging.LogRecord, datefmt: str | None = None) -> str:
+        """The record's time in UTC (the Z in :data:`DATE_FORMAT` promises it)."""
+        return time.strftime(datefmt or DATE_FORMAT, time.gmtime(record.created))
+
+
+def level_for(verbosity: int) -> int:
+    """The root level for ``-v`` given ``verbosity`` times: WARNING, then INFO, then DEBUG.
+
+    >>> [logging.getLevelName(level_for(v)) for v in range(4)]
+    ['WARNING', 'INFO', 'DEBUG', 'DEBUG']
+    """
+    return logging.WARNING - 10 * min(verbosity, 2)
+
+
+def setup_logging(verbosity: int = 0, stream: TextIO | None = None) -> None:
+    """Sends log lines to ``stream`` (standard error by default) in the :class:`UTCFormatter`
+    layout at :func:`level_for` ``verbosity``.
+
+    Like :func:`logging.basicConfig` it does nothing when the root logger already has a
+    handler (an embedding program, or a test's log capture, chose where lines go).
+    """
+    handler = logging.StreamHandler(stream)
+    handler.setFormatter(UTCFormatter())
+    logging.basicConfig(level=level_for(verbosity), handlers=[handler])
