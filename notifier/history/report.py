@@ -235,28 +235,18 @@ def write_png(result: ReplayResult, obs: pd.DataFrame, path: Path) -> None:
         lv = result.fog_level[i]
         # matplotlib plots datetimes through its unit converters; its stubs name only numbers
         naive: list[Any] = [t.replace(tzinfo=None) for t in times]
-        ax.fill_between(
-            naive,
-            0,
-            1,
-            where=lv >= 1,
-            transform=ax.get_xaxis_transform(),
-            color="#f2c14e",
-            alpha=0.35,
-            step="post",
-            label="watch",
-        )
-        ax.fill_between(
-            naive,
-            0,
-            1,
-            where=lv >= 2,
-            transform=ax.get_xaxis_transform(),
-            color="#d1495b",
-            alpha=0.35,
-            step="post",
-            label="warning",
-        )
+        for rank, colour, label in ((1, "#f2c14e", "watch"), (2, "#d1495b", "warning")):
+            ax.fill_between(
+                naive,
+                0,
+                1,
+                where=lv >= rank,
+                transform=ax.get_xaxis_transform(),
+                color=colour,
+                alpha=0.35,
+                step="post",
+                label=label,
+            )
         ax.set_yscale("log")
         ax.set_ylim(50, 30000)
         ax.set_ylabel(sid, fontsize=7)
