@@ -63,8 +63,11 @@ class Comparison:
             return f"{sym} {_num(lo)}…{_num(hi)}{unit_suffix(unit)}"
         return f"{sym} {_num(self._bounds(relaxed))}{unit_suffix(unit)}"
 
-    def _bounds(self, relaxed: bool) -> Any:
-        m = self.margin if relaxed else 0.0
+    def _bounds(self, relaxed: bool, negated: bool = False) -> Any:
+        """The threshold(s); ``relaxed`` applies the margin in the direction that keeps
+        the rule true: it widens the test, or narrows it when ``negated`` (the test sits
+        under an odd number of ``not``s, so a narrower test is an easier ``not``)."""
+        m = (-self.margin if negated else self.margin) if relaxed else 0.0
         if self.op == "between":
             return (self.value[0] - m, self.value[1] + m)
         if self.op in ("below", "at_most"):
@@ -73,7 +76,9 @@ class Comparison:
             return self.value - m
         return self.value
 
-    def evaluate(self, values: np.ndarray, relaxed: bool) -> tuple[np.ndarray, np.ndarray]:
+    def evaluate(
+        self, values: np.ndarray, relaxed: bool, negated: bool = False
+    ) -> tuple[np.ndarray, np.ndarray]:
         """(held, known) arrays for feature ``values``."""
         values = np.asarray(values)
         if self.op == "is":
@@ -83,7 +88,7 @@ class Comparison:
             return held, known
         v = values.astype(float)
         known = ~np.isnan(v)
-        bound = self._bounds(relaxed)
+        bound = self._bounds(relaxed, negated)
         with np.errstate(invalid="ignore"):
             if self.op == "below":
                 held = v < bound
@@ -107,9 +112,11 @@ class Group:
     line: int | None
 
     def evaluate_group(
-        self, feats: Mapping[str, np.ndarray], relaxed: bool
+        self, feats: Mapping[str, np.ndarray], relaxed: bool, negated: bool = False
     ) -> tuple[np.ndarray, np.ndarray]:
-        results = [evaluate_condition(c, feats, relaxed) for c in self.children]
+        # a ``not`` flips the margins below it: they still make its own result easier to hold
+        inner = negated != (self.op == "not")
+        results = [evaluate_condition(c, feats, relaxed, inner) for c in self.children]
         helds = np.array([r[0] for r in results])
         knowns = np.array([r[1] for r in results])
         # each child gives an array per site, so reducing axis 0 gives an array (the stubs
@@ -129,11 +136,14 @@ Condition = Comparison | Group
 
 
 def evaluate_condition(
-    cond: Condition, feats: Mapping[str, np.ndarray], relaxed: bool
+    cond: Condition, feats: Mapping[str, np.ndarray], relaxed: bool, negated: bool = False
 ) -> tuple[np.ndarray, np.ndarray]:
+    """(held, known) of ``cond``; ``relaxed`` applies the clearing margins, each in the
+    direction that keeps the whole condition true (``negated``: under an odd number of
+    ``not``s)."""
     if isinstance(cond, Comparison):
-        return cond.evaluate(feats[cond.feature], relaxed)
-    return cond.evaluate_group(feats, relaxed)
+        return cond.evaluate(feats[cond.feature], relaxed, negated)
+    return cond.evaluate_group(feats, relaxed, negated)
 
 
 def iter_comparisons(cond: Condition) -> Iterable[Comparison]:

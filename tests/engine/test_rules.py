@@ -271,3 +271,87 @@ def test_reasons_name_value_and_threshold(tmp_path):
     (res,) = evaluate_rule(rule, [site("a")], [feats])
     assert res.reasons() == ["dew-point depression 0.8 °C ≤ 1 °C", "wind 1.2 m/s < 3 m/s"]
     assert res.explanation({"dewpoint_depression_c": 0.8}) == "depression 0.8"
+
+
+# -- margin: hysteresis in the direction that keeps the rule true ------------------------
+#
+# Definition: with its margin a rule *holds* (sustains an active alert) at a value v
+# exactly when, without the margin, it would fire at some value within ``margin`` of v:
+# the margin is a tolerance that favours the alert already in force. Plainly: it widens a
+# test that sits under an even number of `not`s and narrows one under an odd number, so
+# that the group as a whole is always easier to hold. The expected results below come from
+# that definition, over the plain (margin-free) truth of each condition.
+
+THRESHOLD = 5.0
+MARGIN_TESTS = {
+    # name: (YAML test, plain truth of the test at v)
+    "above": ("{above: 5%s}", lambda v: v > THRESHOLD),
+    "at_most": ("{at_most: 5%s}", lambda v: v <= THRESHOLD),
+    "between": ("{between: [4.5, 5.5]%s}", lambda v: 4.5 <= v <= 5.5),
+}
+NOTS = {0: "wind_ms: %s", 1: "not: {wind_ms: %s}", 2: "not: {not: {wind_ms: %s}}"}
+VALUES = (3.0, 3.5, 4.0, 4.5, 5.0, 5.5, 6.0, 6.5, 7.0)
+MARGINS = (0.0, 1.0)
+
+
+def _plain(test: str, nots: int, v: float) -> bool:
+    held = MARGIN_TESTS[test][1](v)
+    return held if nots % 2 == 0 else not held
+
+
+def _holds_with_margin(test: str, nots: int, v: float, margin: float) -> bool:
+    """Fires without the margin at some value within ``margin`` of v (the grid holds both
+    ends of the window and every threshold in it, enough for these tests)."""
+    steps = 40
+    near = [v - margin + 2 * margin * i / steps for i in range(steps + 1)]
+    return any(_plain(test, nots, u) for u in near)
+
+
+MARGIN_CASES = [
+    pytest.param(
+        test,
+        nots,
+        margin,
+        v,
+        id=f"{'not-' * nots}{test}-margin{margin:g}-at{v:g}",
+    )
+    for test in MARGIN_TESTS
+    for nots in NOTS
+    for margin in MARGINS
+    for v in VALUES
+]
+
+
+def _margin_rule(tmp_path, test: str, nots: int, margin: float):
+    spec = MARGIN_TESTS[test][0] % (f", margin: {margin:g}" if margin else "")
+    body = GOOD.replace(
+        "      - dewpoint_depression_c: {at_most: 1.0, margin: 0.5}\n      - wind_ms: {below: 3}\n",
+        f"      - {NOTS[nots] % spec}\n",
+    ).replace('"depression {dewpoint_depression_c:.1f}"', '"x"')
+    return _rule(tmp_path, body)
+
+
+@pytest.mark.parametrize(("test", "nots", "margin", "v"), MARGIN_CASES)
+def test_margin_keeps_the_rule_true_under_any_number_of_nots(tmp_path, test, nots, margin, v):
+    rule = _margin_rule(tmp_path, test, nots, margin)
+    (res,) = evaluate_rule(rule, [site("a")], [{"wind_ms": np.array([v])}])
+    assert res.fires == _plain(test, nots, v)  # the margin never changes what fires
+    assert res.sustains == _holds_with_margin(test, nots, v, margin)
+    assert res.sustains or not res.fires  # what fires always holds
+
+
+@pytest.mark.parametrize("nots", list(NOTS), ids=[f"nots{n}" for n in NOTS])
+def test_margin_never_makes_unknown_hold(tmp_path, nots):
+    rule = _margin_rule(tmp_path, "above", nots, 1.0)
+    (res,) = evaluate_rule(rule, [site("a")], [{"wind_ms": np.array([np.nan])}])
+    assert not res.fires and not res.sustains
+
+
+def test_margin_under_not_is_hysteresis_on_the_other_side(tmp_path):
+    """The README's example: ``not: {wind_ms: {above: 5, margin: 1}}`` fires at 4.5 and,
+    once active, holds until the wind is above 6 m/s (it no longer fires at 5.5)."""
+    rule = _margin_rule(tmp_path, "above", 1, 1.0)
+    winds = [4.5, 5.5, 6.0, 6.5]
+    res = evaluate_rule(rule, [site(f"s{i}") for i in range(4)], [{"wind_ms": np.array(winds)}])
+    assert [r.fires for r in res] == [True, False, False, False]
+    assert [r.sustains for r in res] == [True, True, True, False]
