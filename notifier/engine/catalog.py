@@ -190,8 +190,8 @@ class FeatureSettings:
     # cooled layer away (EUMETrain / UCAR MetEd conceptual models; numbers common practice).
     wind_full_cooling_ms: float = 2.5
     wind_no_cooling_ms: float = 7.0
-    # Clear-sky net loss on a calm night is ~70–100 W/m² (REFERENCES: 82.5 W/m² at 10 °C);
-    # 80 W/m² is taken as "full" radiative cooling.
+    # Clear-sky net loss on a calm night is ~70–100 W/m² (82.5 W/m² at 10 °C in
+    # docs/references.md [LW check]); 80 W/m² is taken as "full" radiative cooling.
     full_loss_wm2: float = 80.0
     surface_emissivity: float = 0.98
 

@@ -1,6 +1,7 @@
 """Physical constants and published coefficients used by :mod:`notifier.physics`.
 
-Every value names its source beside it. Units are in the name or the comment.
+Every value names its source beside it; each source has an entry, with its status, in
+docs/references.md. Units are in the name or the comment.
 Sources marked "from memory" were recalled rather than re-read from the original
 and are flagged as such in the docstrings and tests that use them.
 """

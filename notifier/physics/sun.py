@@ -8,8 +8,10 @@ NaN or out of range, the result is NaN.
 Equations: NOAA Global Monitoring Laboratory solar calculator, which follows Meeus,
 *Astronomical Algorithms* (2nd ed., 1998), ch. 7 (Julian day), ch. 22 (obliquity),
 ch. 25 (solar coordinates, low accuracy) and ch. 28 (equation of time). NOAA states an
-accuracy of about a minute within +-72° latitude (from memory). Sunrise and sunset use the
-zenith 90.833° (refraction 34' at the horizon plus the solar semidiameter 16').
+accuracy of about a minute within +-72° latitude (checked; the chapter numbers and the
+34' + 16' split are from memory: docs/references.md [NOAA calculator], [Meeus 1998]).
+Sunrise and sunset use the zenith 90.833° (refraction 34' at the horizon plus the solar
+semidiameter 16').
 """
 
 from __future__ import annotations
@@ -44,7 +46,9 @@ DayLike = dt.date | np.datetime64 | ArrayLike
 # at the previous estimate. Two already agree to well under a second away from the poles.
 _ITERATIONS = 4
 _NOON_MINUTES = 720.0
-# Dates supported, as in NOAA's calculator (1901-2099; from memory). Outside, NaN.
+# Dates supported, as in NOAA's calculator (1901-2099; from memory: NOAA's archived page
+# calls its equations very good for 1800-2100, docs/references.md [NOAA calculator]).
+# Outside, NaN.
 _FIRST_DAY_S = float(np.datetime64("1901-01-01", "D").astype(np.int64)) * SECONDS_PER_DAY
 _LAST_DAY_S = float(np.datetime64("2099-12-31", "D").astype(np.int64)) * SECONDS_PER_DAY
 # Many instants at once (thousands of sites): declination and the equation of time, which

@@ -198,12 +198,13 @@ def test_the_same_night_in_fahrenheit_and_knots_gives_the_same_table():
 def test_rh_is_derived_from_a_given_dewpoint():
     frame, _, _ = run([row(temp_c=10.0, dewpoint_c=8.43)])
     assert frame.loc[0, "rh_pct"] == pytest.approx(physics.relative_humidity_pct(10.0, 8.43))
-    assert frame.loc[0, "rh_pct"] == pytest.approx(90.0, abs=0.05)  # REFERENCES.md Td(10,90)
+    assert frame.loc[0, "rh_pct"] == pytest.approx(90.0, abs=0.05)  # docs/references.md [Td check]
 
 
 def test_dewpoint_is_derived_from_rh_by_the_magnus_inverse():
     frame, _, _ = run([row(temp_c=10.0, dewpoint_c=..., rh_pct=90.0)])
-    assert frame.loc[0, "dewpoint_c"] == pytest.approx(8.43, abs=0.005)  # REFERENCES.md
+    # Td(10 °C, 90 %) = 8.43 °C: docs/references.md [Td check]
+    assert frame.loc[0, "dewpoint_c"] == pytest.approx(8.43, abs=0.005)
     assert frame.loc[0, "rh_pct"] == 90.0
 
 

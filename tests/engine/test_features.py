@@ -85,7 +85,8 @@ def test_cooling_fit_matches_numpy_least_squares():
 
 
 def test_net_longwave_matches_the_worked_value():
-    # REFERENCES [computed]: 10 °C, e = 10 hPa, clear sky, Brutsaert, ε_s 0.98 → 82.5 W/m².
+    # docs/references.md [LW check]: 10 °C, e = 10 hPa, clear sky, Brutsaert, ε_s 0.98
+    # → 82.5 W/m².
     from notifier.physics import dewpoint_c, saturation_vapor_pressure_hpa
 
     td = float(dewpoint_c(10.0, 100 * 10.0 / saturation_vapor_pressure_hpa(10.0)))
@@ -110,7 +111,7 @@ def test_rh_matches_metpy():
 
 
 def test_frost_point_from_published_check():
-    # REFERENCES [computed]: Td(0 °C, 80 %) = −3.04 °C, frost point −2.68 °C.
+    # docs/references.md [Td check]: Td(0 °C, 80 %) = −3.04 °C, frost point −2.68 °C.
     s = site("frost-site")
     at = utc(2026, 12, 1, 5)
     row, _ = one(steady(s.id, at, temp_c=0.0, dewpoint_c=-3.04, surface_temp_c=-4.0), s, at)
@@ -119,7 +120,7 @@ def test_frost_point_from_published_check():
 
 
 def test_sun_features_match_astral():
-    # astral 3 with the NOAA zenith of 90.833° (REFERENCES: Sun).
+    # astral 3 with the NOAA zenith of 90.833° (docs/references.md [Sun check]).
     from astral import Observer
     from astral.sun import SunDirection, time_of_transit
 

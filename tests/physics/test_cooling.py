@@ -23,8 +23,9 @@ from notifier.physics import (
 
 
 def test_brunt_coefficient_check_value() -> None:
-    # REFERENCES [computed]: R = 60 W/m2, mu = 1200 -> k = 3.39 K h^-1/2 (Brunt's law
-    # after Oke, Boundary Layer Climates, from memory). 2*60/(sqrt(pi)*1200)*60 = 3.3851.
+    # docs/references.md [Brunt k check]: R = 60 W/m2, mu = 1200 -> k = 3.39 K h^-1/2
+    # (Brunt's law after Oke, Boundary Layer Climates, from memory). 2*60/(sqrt(pi)*1200)*60
+    # = 3.3851.
     assert brunt_cooling_coefficient_k_per_sqrt_h(60.0, 1200.0) == pytest.approx(3.385, abs=5e-4)
 
 
@@ -142,7 +143,7 @@ def test_projection_round_trip_and_before_sunset_is_nan() -> None:
     ids=["i3", "i9", "i2-is-t2", "i15-is-tmin"],
 )
 def test_fao_square_root_trend_check_values(hour: float, expected_c: float) -> None:
-    # Snyder & de Melo-Abreu 2005 (FAO Frost Protection), REFERENCES [checked]:
+    # Snyder & de Melo-Abreu 2005 (FAO Frost Protection), docs/references.md [FAO check]:
     # T_min -5.45, T2 0.95, n 15 -> -0.825 at i = 3 and -3.746 at i = 9. The end points
     # follow from the formula.
     result = fao_square_root_trend_c(0.95, -5.45, 15.0, hour)
@@ -164,7 +165,7 @@ def test_fao_trend_out_of_range_is_nan(night_hours: float, hour: float) -> None:
 @pytest.mark.parametrize(
     ("temp_c", "dewpoint_c", "k_c", "expected_c"),
     [
-        (12.0, 6.0, 0.0, 5.84),  # REFERENCES [checked, secondary source]
+        (12.0, 6.0, 0.0, 5.84),  # docs/references.md [C&P check]
         (12.0, 6.0, -2.2, 3.64),  # calm clear K = -2.2 (same source), by hand
         (0.0, 0.0, 0.0, -1.24),  # the regression's constant
     ],

@@ -1,9 +1,9 @@
 """Saturation vapour pressure, dew point and frost point against published values,
 MetPy and psychrolib.
 
-Reference values in the tables are from the project's REFERENCES notes, each marked
-there as [checked] (a stored copy of the source was read) or [computed] (worked out from
-the published formula); the source is named beside every case.
+Reference values in the tables are entries of docs/references.md, each marked there as
+checked (a stored copy of the source was read), computed (worked out from the published
+formula) or from memory; the entry is named beside every case.
 """
 
 from __future__ import annotations
@@ -61,8 +61,8 @@ def test_public_all_of_the_physics_package() -> None:
 
 # --- Saturation vapour pressure ----------------------------------------------------------
 
-# WMO CIMO Guide (WMO-No. 8) Annex 4.B Magnus forms, values in hPa [computed] in
-# REFERENCES; the tolerance covers their last printed digit.
+# WMO CIMO Guide (WMO-No. 8) Annex 4.B Magnus forms, values in hPa computed in
+# docs/references.md [SVP check]; the tolerance covers their last printed digit.
 CIMO_TABLE = [
     # (t °C, over, e hPa, tolerance hPa)
     (-20.0, "water", 1.2597, 5e-5),
@@ -89,7 +89,7 @@ def test_saturation_vapor_pressure_matches_cimo_table(
     assert result == pytest.approx(expected_hpa, abs=tolerance_hpa)
 
 
-# Goff–Gratch values, hPa [computed] in REFERENCES: the CIMO Magnus form should stay
+# Goff–Gratch values, hPa, docs/references.md [SVP check]: the CIMO Magnus form should stay
 # within 0.5 % of the reference-grade formula over this range.
 GOFF_GRATCH_TABLE = [
     (-20.0, "water", 1.2540),
@@ -199,7 +199,7 @@ def test_vapor_pressure_near_metpy_docs_example() -> None:
 
 # --- Dew point and frost point -------------------------------------------------------
 
-# REFERENCES [computed] from the CIMO Magnus inverse (Td(20, 50) also matches MetPy's
+# docs/references.md [Td check], from the CIMO Magnus inverse (Td(20, 50) also matches MetPy's
 # 9.256 to 0.001 K); tolerance covers the printed rounding.
 DEWPOINT_TABLE = [
     # (t °C, RH %, Td °C, frost point °C or None, tolerance K)
@@ -235,8 +235,8 @@ def test_dewpoint_and_frost_point_check_values(
 
 
 def test_dewpoint_against_metpy() -> None:
-    # MetPy inverts Bolton (1980) after computing e_s with Ambaum (2020); REFERENCES notes
-    # it gives 14.991 °C at 15 °C and 100 %. Measured: within 0.05 K for -40..30 °C,
+    # MetPy inverts Bolton (1980) after computing e_s with Ambaum (2020); at 15 °C and 100 %
+    # it gives 14.991 °C (docs/references.md [MetPy]). Measured: within 0.05 K for -40..30 °C,
     # within 0.25 K up to 50 °C.
     metpy_calc = pytest.importorskip("metpy.calc")
     units = pytest.importorskip("metpy.units").units
