@@ -304,5 +304,12 @@ def cli_replay(args: argparse.Namespace) -> int:
     if args.csv:
         rt.write_csv(results, Path(args.csv))
     if args.png:
-        rt.write_png(results[0], frame, Path(args.png))
+        rt.write_png(results, frame, Path(args.png))  # every rule set, one column each
+    if args.deliver_to:
+        for res in results:
+            print(
+                f"replay ({res.label}): {res.delivered} message(s) the subscribers would have "
+                f"received, written into {Path(args.deliver_to) / res.label}",
+                file=sys.stderr,
+            )
     return 0

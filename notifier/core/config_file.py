@@ -1,13 +1,27 @@
 """Reading a config file: YAML with line marks, ``${NAME}`` from the environment,
 validation into :class:`~notifier.core.config.Config`, paths resolved against the file's
 folder, and cross-checks — every problem reported at once as ``file:line``.
+
+Every missing ``${NAME}`` is reported (each at its line), and the file is validated and
+cross-checked all the same, so one run of ``fogwatch check`` shows everything wrong with
+it. Entries that fail validation are left out of the cross-checks (and their ids still
+count as known, so nothing is reported twice).
+
+Besides errors, :func:`read_config` returns *warnings*: a secret or password written
+literally in the file (it belongs in the environment, as ``${NAME}``) and a key that is
+no longer used. :func:`load_config` logs each warning at WARNING, so ``fogwatch check``
+and the service both show them; they never make a file invalid.
 """
 
 from __future__ import annotations
 
+import logging
 import re
+from collections.abc import Iterable
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+from urllib.parse import parse_qsl, urlsplit
 
 from pydantic import (
     ValidationError,
@@ -22,31 +36,51 @@ from notifier.core.config import (
     TextChannel,
 )
 from notifier.core.errors import ConfigError, ConfigProblem
-from notifier.core.yamlio import MarkedDict, MarkedList, expand_env, line_of, load_yaml
+from notifier.core.yamlio import MarkedDict, MarkedList, expand_env_all, line_of, load_yaml
 
-__all__ = ["load_config", "problems_from_validation"]
+__all__ = ["RETIRED_KEYS", "load_config", "problems_from_validation", "read_config"]
+
+log = logging.getLogger(__name__)
+
+Loc = tuple[Any, ...]
+
+#: Keys a config may still carry from an earlier version: ignored, with a warning why.
+RETIRED_KEYS: dict[Loc, str] = {
+    ("schedule", "morning_summary_local_time"): (
+        "no longer used, ignored: watch news held in a subscriber's quiet_hours goes as "
+        "one summary when those quiet hours end, in the subscriber's own zone; "
+        "delete this line"
+    ),
+}
 
 
-def _expand_all(
-    node: Any,
-    loc: tuple[Any, ...],
-    missing: list[tuple[tuple[Any, ...], str]],
-    expanded: set[tuple[Any, ...]],
-) -> Any:
+@dataclass
+class _Expansion:
+    """What ``${NAME}`` expansion found, by location in the file."""
+
+    missing: dict[Loc, list[str]] = field(default_factory=dict)  # names not set
+    expanded: set[Loc] = field(default_factory=set)  # values read from the environment
+    written: dict[Loc, str] = field(default_factory=dict)  # the text before expansion
+
+    def is_missing(self, loc: Loc) -> bool:
+        return any(loc[: len(m)] == m for m in self.missing)
+
+
+def _expand_all(node: Any, loc: Loc, found: _Expansion) -> Any:
     if isinstance(node, MarkedDict):
         for key in list(node):
-            node[key] = _expand_all(node[key], (*loc, key), missing, expanded)
+            node[key] = _expand_all(node[key], (*loc, key), found)
     elif isinstance(node, MarkedList):
         for i, item in enumerate(node):
-            node[i] = _expand_all(item, (*loc, i), missing, expanded)
+            node[i] = _expand_all(item, (*loc, i), found)
     elif isinstance(node, str) and "${" in node:
-        try:
-            value = expand_env(node)
-        except KeyError as exc:
-            missing.append((loc, exc.args[0]))
-        else:
-            expanded.add(loc)
-            return value
+        value, missing = expand_env_all(node)
+        found.written[loc] = node
+        if missing:
+            found.missing[loc] = missing
+            return node  # left as written: validation skips this place
+        found.expanded.add(loc)
+        return value
     return node
 
 
@@ -54,7 +88,7 @@ def _resolve(base: Path, value: Path) -> Path:
     return value if value.is_absolute() else (base / value).resolve()
 
 
-def _loc_text(loc: tuple[Any, ...]) -> str:
+def _loc_text(loc: Loc) -> str:
     parts = []
     for part in loc:
         if isinstance(part, int):
@@ -64,7 +98,7 @@ def _loc_text(loc: tuple[Any, ...]) -> str:
     return "".join(parts)
 
 
-def _raw_loc(raw: Any, loc: tuple[Any, ...]) -> tuple[Any, ...]:
+def _raw_loc(raw: Any, loc: Loc) -> Loc:
     """``loc`` without the validator's own labels (union tags), as keys of the file."""
     out: list[Any] = []
     node: Any = raw
@@ -84,37 +118,75 @@ def _raw_loc(raw: Any, loc: tuple[Any, ...]) -> tuple[Any, ...]:
     return tuple(out)
 
 
+def _error_loc(err: Any) -> Loc:
+    return tuple(p for p in err["loc"] if p not in ("function-after", "function-before"))
+
+
 def problems_from_validation(
     path: str,
     raw: Any,
     exc: ValidationError,
     prefix: str = "",
-    secret_locs: set[tuple[Any, ...]] = frozenset(),  # type: ignore[assignment]
+    secret_locs: set[Loc] = frozenset(),  # type: ignore[assignment]
+    skip: Any = None,
 ) -> list[ConfigProblem]:
     """Turn pydantic's errors into located problems, one per error.
 
-    A value that came from the environment is never echoed: it may be a secret.
+    A value that came from the environment is never echoed: it may be a secret. ``skip``
+    (a predicate on the location in the file) leaves out errors already reported, such
+    as a value whose environment variable is not set.
     """
     out = []
     for err in exc.errors(include_url=False):
-        loc = tuple(p for p in err["loc"] if p not in ("function-after", "function-before"))
+        loc = _error_loc(err)
         shown = _raw_loc(raw, loc)
+        if skip is not None and skip(shown):
+            continue
         msg = err["msg"].removeprefix("Value error, ")
         where = _loc_text(shown)
         got = ""
         if err["type"] not in ("missing",) and not isinstance(err.get("input"), dict | list):
             got = f" (got {err.get('input')!r})"
+            if f"got: {err.get('input')!r}" in msg:
+                got = ""  # the validator's message shows it already
         if err["type"] == "extra_forbidden":
             msg = "unknown key"
             got = ""
-        if _raw_loc(raw, loc) in secret_locs:
+        if shown in secret_locs:
             got = " (value from the environment, not shown)"
         out.append(ConfigProblem(path, line_of(raw, loc), f"{prefix}{where}: {msg}{got}"))
     return out
 
 
 def load_config(path: str | Path) -> Config:
-    """Load and validate a config file; raise ``ConfigError`` listing every problem."""
+    """Load and validate a config file; raise ``ConfigError`` listing every problem.
+
+    Warnings (a secret written in the file, a key no longer used) are logged at WARNING,
+    whether or not the file is valid.
+    """
+    config, problems, warnings = _read(path)
+    for warning in warnings:
+        log.warning("%s", warning)
+    if config is None:
+        raise ConfigError(problems)
+    return config
+
+
+def read_config(path: str | Path) -> tuple[Config, list[ConfigProblem]]:
+    """The validated config and its warnings; ``ConfigError`` lists every problem.
+
+    A problem is anything that makes the file unusable: a missing ``${NAME}`` (each one),
+    a value the models refuse, a reference to something not configured. A warning is
+    something that works but should change.
+    """
+    config, problems, warnings = _read(path)
+    if config is None:
+        raise ConfigError(problems)
+    return config, warnings
+
+
+def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[ConfigProblem]]:
+    """(the config, or ``None`` when there are problems; the problems; the warnings)."""
     path = Path(path).resolve()
     raw = load_yaml(path)
     if raw is None:
@@ -122,30 +194,257 @@ def load_config(path: str | Path) -> Config:
         raw.key_lines = {}
     if not isinstance(raw, dict):
         raise ConfigError(ConfigProblem(str(path), 1, "expected a mapping at the top level"))
-    missing: list[tuple[tuple[Any, ...], str]] = []
-    expanded: set[tuple[Any, ...]] = set()
-    _expand_all(raw, (), missing, expanded)
+    found = _Expansion()
+    _expand_all(raw, (), found)
+    warnings = sorted(
+        _retire_keys(str(path), raw) + _literal_secrets(str(path), raw, found),
+        key=lambda p: p.line or 0,
+    )
     problems = [
         ConfigProblem(
             str(path),
             line_of(raw, loc),
             f"{_loc_text(loc)}: environment variable {name} is not set",
         )
-        for loc, name in missing
+        for loc, names in found.missing.items()
+        for name in names
     ]
-    if problems:
-        raise ConfigError(problems)
+    config, found_problems = _validate(path, raw, found)
+    problems += found_problems
+    if problems or config is None:
+        if not problems:  # pragma: no cover - a failed validation always says why
+            problems = [ConfigProblem(str(path), None, "invalid config")]
+        # in the order of the file (a problem without a line first)
+        return None, sorted(problems, key=lambda p: p.line or 0), warnings
+    return config, [], warnings
+
+
+def _validate(path: Path, raw: Any, found: _Expansion) -> tuple[Config | None, list[ConfigProblem]]:
+    """Validate and cross-check; on a validation error, cross-check what did validate."""
+    view = _View(raw)
     try:
         config = Config.model_validate({**raw, "path": path})
     except ValidationError as exc:
-        raise ConfigError(
-            problems_from_validation(str(path), raw, exc, secret_locs=expanded)
-        ) from exc
+        problems = problems_from_validation(
+            str(path), raw, exc, secret_locs=found.expanded, skip=found.is_missing
+        )
+        pruned = _prune(raw, exc)
+        if pruned is None:
+            return None, problems
+        view = pruned
+        try:
+            config = Config.model_validate({**view.data, "path": path})
+        except ValidationError:
+            return None, problems
+    else:
+        problems = []
     config = _resolve_paths(config)
-    problems = _cross_check(config, raw)
-    if problems:
-        raise ConfigError(problems)
-    return config
+    for loc, message in _cross_check(config, view):
+        raw_loc = view.raw_loc(loc)
+        if not found.is_missing(raw_loc):
+            problems.append(
+                ConfigProblem(str(path), line_of(raw, raw_loc), f"{_loc_text(raw_loc)}: {message}")
+            )
+    return config, problems
+
+
+_LISTS = ("sites", "sources", "channels", "subscribers", "rules")
+
+
+@dataclass
+class _View:
+    """The file as the cross-checks see it: without entries that failed validation.
+
+    ``index[section][i]`` is the position in the file of the i-th entry kept; ``known``
+    holds the ids (and, for sites, tags) of entries left out, or ``None`` when a whole
+    section was left out, so that references to them are not reported as unknown.
+    """
+
+    data: Any
+    index: dict[str, list[int]] = field(default_factory=dict)
+    known: dict[str, set[str] | None] = field(default_factory=dict)
+
+    def raw_loc(self, loc: Loc) -> Loc:
+        if len(loc) > 1 and loc[0] in self.index and isinstance(loc[1], int):
+            return (loc[0], self.index[loc[0]][loc[1]], *loc[2:])
+        return loc
+
+    def also_known(self, kind: str) -> set[str] | None:
+        return self.known.get(kind, set())
+
+
+def _ids_and_tags(items: Iterable[Any]) -> tuple[set[str] | None, set[str] | None]:
+    ids: set[str] | None = set()
+    tags: set[str] | None = set()
+    for item in items:
+        item_id = item.get("id") if isinstance(item, dict) else None
+        if isinstance(item_id, str) and ids is not None:
+            ids.add(item_id)
+        else:
+            ids = None
+        item_tags = item.get("tags", []) if isinstance(item, dict) else None
+        if isinstance(item_tags, list) and tags is not None:
+            tags.update(str(t) for t in item_tags)
+        else:
+            tags = None
+    return ids, tags
+
+
+def _prune(raw: Any, exc: ValidationError) -> _View | None:
+    """The file without the entries (or sections) that failed validation; ``None`` when
+    an error cannot be pinned to one of them."""
+    bad_items: dict[str, set[int]] = {}
+    bad_keys: set[Any] = set()
+    for err in exc.errors(include_url=False):
+        loc = _error_loc(err)
+        if not loc:
+            return None
+        top = loc[0]
+        if (
+            top in _LISTS
+            and len(loc) > 1
+            and isinstance(loc[1], int)
+            and isinstance(raw.get(top), list)
+        ):
+            bad_items.setdefault(top, set()).add(loc[1])
+        else:
+            bad_keys.add(top)
+    data = MarkedDict()
+    data.line = getattr(raw, "line", None)
+    data.key_lines = dict(getattr(raw, "key_lines", {}))
+    view = _View(data)
+    for key, value in raw.items():
+        if key in bad_keys:
+            if key in _LISTS:
+                view.known[key] = None
+                if key == "sites":
+                    view.known["tags"] = None
+            continue
+        if key not in bad_items:
+            data[key] = value
+            continue
+        kept = MarkedList()
+        kept.line = value.line
+        kept.item_lines = []
+        view.index[key] = []
+        for i, item in enumerate(value):
+            if i in bad_items[key]:
+                continue
+            kept.append(item)
+            kept.item_lines.append(value.item_lines[i])
+            view.index[key].append(i)
+        ids, tags = _ids_and_tags(value[i] for i in sorted(bad_items[key]))
+        view.known[key] = ids
+        if key == "sites":
+            view.known["tags"] = tags
+        data[key] = kept
+    return view
+
+
+# -- warnings ---------------------------------------------------------------------------
+
+
+def _retire_keys(path: str, raw: Any) -> list[ConfigProblem]:
+    """Take out keys no longer used (so an old file still loads), with a warning each."""
+    out = []
+    for loc, why in RETIRED_KEYS.items():
+        *parents, key = loc
+        node = raw
+        for part in parents:
+            node = node.get(part) if isinstance(node, dict) else None
+        if isinstance(node, dict) and key in node:
+            out.append(ConfigProblem(path, line_of(raw, loc), f"{_loc_text(loc)}: {why}"))
+            del node[key]
+    return out
+
+
+# a query parameter or header that carries a credential (common practice in API URLs:
+# token, access_token, api_key, apikey, key, sig, password, secret, client_secret …)
+_SECRET_NAME = re.compile(
+    r"token|secret|passw|pwd|api_?key|access_?key|signature|^sig$|^key$|^auth|cookie",
+    re.IGNORECASE,
+)
+_PLACEHOLDER = re.compile(r"^\{[a-z_]+\}$")  # {lat}, {lon}, {site}: filled in per site
+
+
+def _env_name(*parts: Any) -> str:
+    words = [re.sub(r"[^A-Za-z0-9]+", "_", str(p)).strip("_").upper() for p in parts]
+    return "_".join(w for w in words if w)
+
+
+def _from_env(text: Any) -> bool:
+    return isinstance(text, str) and "${" in text
+
+
+def _literal_secrets(path: str, raw: Any, found: _Expansion) -> list[ConfigProblem]:
+    """A warning for each secret written in the file rather than read from the environment:
+    a webhook or bot ``secret``, an SMTP ``password``, a URL with a password or a
+    credential in its query, a credential header. The value itself is never shown."""
+    out: list[ConfigProblem] = []
+
+    def warn(loc: Loc, what: str, write: str, name: str) -> None:
+        out.append(
+            ConfigProblem(
+                path,
+                line_of(raw, loc),
+                f"{_loc_text(loc)}: {what} is written in the file; secrets belong in the "
+                f"environment: write {write} and set {name} in fogwatch's environment",
+            )
+        )
+
+    places: list[tuple[Loc, dict[Any, Any], str]] = []
+    for section in ("channels", "sources"):
+        items = raw.get(section)
+        for i, item in enumerate(items if isinstance(items, list) else []):
+            if isinstance(item, dict):
+                places.append(((section, i), item, str(item.get("id") or f"{section}{i}")))
+    for section, owner in (("bot", "bot"), ("store", "db")):
+        if isinstance(raw.get(section), dict):
+            places.append(((section,), raw[section], owner))
+    for loc, item, owner in places:
+        for key in ("secret", "password"):
+            value = found.written.get((*loc, key), item.get(key))
+            if item.get(key) in (None, "") or _from_env(value):
+                continue
+            name = _env_name("FOGWATCH", owner, key)
+            warn((*loc, key), f"a {key}", f'{key}: "${{{name}}}"', name)
+        url = found.written.get((*loc, "url"), item.get("url"))
+        if isinstance(url, str):
+            for what, write, name in _url_secrets(url, owner):
+                warn((*loc, "url"), what, write, name)
+        headers = item.get("headers")
+        for header, written in (headers if isinstance(headers, dict) else {}).items():
+            value = found.written.get((*loc, "headers", header), written)
+            if not _SECRET_NAME.search(str(header)) or value in (None, "") or _from_env(value):
+                continue
+            word = "token" if str(header).lower() == "authorization" else str(header)
+            name = _env_name("FOGWATCH", owner, word)
+            scheme = str(value).split(" ", 1)[0] if " " in str(value) else ""
+            write = f'{header}: "{scheme + " " if scheme else ""}${{{name}}}"'
+            warn((*loc, "headers", header), f"a credential in header {header}", write, name)
+    return out
+
+
+def _url_secrets(url: str, owner: str) -> list[tuple[str, str, str]]:
+    """(what, how to write it, variable) for each credential written in ``url``."""
+    try:
+        parts = urlsplit(url)
+        password = parts.password
+    except ValueError:
+        return []
+    out = []
+    if password and not _from_env(password):
+        name = _env_name("FOGWATCH", owner, "password")
+        user = parts.username or "USER"
+        out.append(("a password in the URL", f"{user}:${{{name}}}@ in the URL", name))
+    for key, value in parse_qsl(parts.query, keep_blank_values=False):
+        if not _SECRET_NAME.search(key) or _from_env(value) or _PLACEHOLDER.match(value):
+            continue
+        name = _env_name("FOGWATCH", owner, key)
+        out.append(
+            (f"a credential in the URL's query ({key}=…)", f"{key}=${{{name}}} in the URL", name)
+        )
+    return out
 
 
 def _resolve_paths(config: Config) -> Config:
@@ -174,16 +473,21 @@ def _resolve_paths(config: Config) -> Config:
     )
 
 
-def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
-    path = str(config.path)
-    problems: list[ConfigProblem] = []
+def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
+    """References and uniqueness across the file, as (location, what is wrong).
 
-    def add(loc: tuple[Any, ...], msg: str) -> None:
-        problems.append(ConfigProblem(path, line_of(raw, loc), f"{_loc_text(loc)}: {msg}"))
+    Locations index the entries of ``config`` (see :meth:`_View.raw_loc` for the file's).
+    """
+    problems: list[tuple[Loc, str]] = []
 
-    if not config.sites:
+    def add(loc: Loc, msg: str) -> None:
+        problems.append((loc, msg))
+
+    if not config.sites and "sites" not in view.known:  # (not when every site failed)
         add(("sites",), "at least one site is needed")
     site_ids = [s.id for s in config.sites]
+    other_sites, other_tags = view.also_known("sites"), view.also_known("tags")
+    other_channels = view.also_known("channels")
     tags = {t for s in config.sites for t in s.tags}
     for kind, items in (
         ("site", config.sites),
@@ -197,9 +501,12 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
                 add((kind + "s", i, "id"), f"duplicate {kind} id {item.id!r}")
             seen.add(item.id)
 
-    def check_site_ref(loc: tuple[Any, ...], ref: str) -> None:
+    def check_site_ref(loc: Loc, ref: str) -> None:
+        if other_sites is None or ref in other_sites:
+            return  # a site that failed validation (already reported)
         if ref not in site_ids:
-            add(loc, f"unknown site {ref!r} (known: {', '.join(site_ids)})")
+            known = ", ".join([*site_ids, *sorted(other_sites - set(site_ids))])
+            add(loc, f"unknown site {ref!r} (known: {known})")
 
     for i, src in enumerate(config.sources):
         if isinstance(src, FileDropSource):
@@ -210,7 +517,11 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
         elif src.sites != "all":
             for site_id in src.sites:
                 check_site_ref(("sources", i, "sites"), site_id)
-    channel_ids = {c.id for c in config.channels} | {"stdout"}
+    channel_ids = {c.id for c in config.channels} | {"stdout"} | (other_channels or set())
+
+    def channel_known(ref: str) -> bool:
+        return ref in channel_ids or other_channels is None
+
     for i, sub in enumerate(config.subscribers):
         if sub.id.startswith(BOT_SUBSCRIBER_PREFIX):
             add(
@@ -218,7 +529,7 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
                 f"ids starting {BOT_SUBSCRIBER_PREFIX!r} are kept for the bot's followers "
                 f"(got {sub.id!r})",
             )
-        if sub.channel not in channel_ids:
+        if not channel_known(sub.channel):
             add(
                 ("subscribers", i, "channel"),
                 f"unknown channel {sub.channel!r} (known: {', '.join(sorted(channel_ids))})",
@@ -234,13 +545,13 @@ def _cross_check(config: Config, raw: Any) -> list[ConfigProblem]:
             if sel == "all":
                 continue
             if sel.startswith("tag:"):
-                if sel[4:] not in tags:
+                if other_tags is not None and sel[4:] not in tags | other_tags:
                     add(("subscribers", i, "sites"), f"no site has tag {sel[4:]!r}")
             else:
                 check_site_ref(("subscribers", i, "sites"), sel)
     for code, site_id in config.bot.join_codes.items():
         check_site_ref(("bot", "join_codes", code), site_id)
-    if config.bot.channel not in channel_ids:
+    if not channel_known(config.bot.channel):
         add(
             ("bot", "channel"),
             f"unknown channel {config.bot.channel!r} (known: {', '.join(sorted(channel_ids))})",

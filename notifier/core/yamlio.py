@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -17,7 +17,7 @@ import yaml
 
 from notifier.core.errors import ConfigError, ConfigProblem
 
-__all__ = ["MarkedDict", "MarkedList", "expand_env", "line_of", "load_yaml"]
+__all__ = ["MarkedDict", "MarkedList", "expand_env", "expand_env_all", "line_of", "load_yaml"]
 
 
 class MarkedDict(dict):  # type: ignore[type-arg]
@@ -106,18 +106,36 @@ def line_of(data: Any, loc: Sequence[Any]) -> int | None:
 _ENV = re.compile(r"\$\{([A-Za-z_][A-Za-z0-9_]*)\}")
 
 
-def expand_env(value: str, environ: dict[str, str] | None = None) -> str:
-    """Replace each ``${NAME}`` with the environment variable; a missing one is an error.
+def expand_env_all(value: str, environ: Mapping[str, str] | None = None) -> tuple[str, list[str]]:
+    """Replace each ``${NAME}`` that is set; also return the names that are not.
 
-    Raises ``KeyError`` naming the variable, which config validation turns into a
-    located problem.
+    Every missing name is found, not only the first (each once, in order of appearance);
+    a missing one is left as written in the returned text.
+
+    >>> expand_env_all("${A}:${B}:${C}:${B}", {"A": "1"})
+    ('1:${B}:${C}:${B}', ['B', 'C'])
     """
     env = os.environ if environ is None else environ
+    missing: list[str] = []
 
     def repl(match: re.Match[str]) -> str:
         name = match.group(1)
-        if name not in env:
-            raise KeyError(name)
-        return env[name]
+        if name in env:
+            return env[name]
+        if name not in missing:
+            missing.append(name)
+        return match.group(0)
 
-    return _ENV.sub(repl, value)
+    return _ENV.sub(repl, value), missing
+
+
+def expand_env(value: str, environ: Mapping[str, str] | None = None) -> str:
+    """Replace each ``${NAME}`` with the environment variable; a missing one is an error.
+
+    Raises ``KeyError`` whose arguments name every missing variable (the first is
+    ``args[0]``); config loading uses :func:`expand_env_all` and reports each at its line.
+    """
+    text, missing = expand_env_all(value, environ)
+    if missing:
+        raise KeyError(*missing)
+    return text

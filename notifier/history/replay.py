@@ -2,8 +2,10 @@
 
 The replay calls the same code as the live service — features, rules, assessment and
 the alert lifecycle — stepping a simulated clock through the history. It delivers
-nothing unless asked to write the messages into a folder. Each step sees only the
-readings up to its own time (and forecast rows), exactly as a live cycle would.
+nothing; asked for a folder, it writes there what each configured subscriber would have
+received (routed and held for quiet hours as live), one ``.eml`` per message. Each step
+sees only the readings up to its own time (and forecast rows), exactly as a live cycle
+would.
 
 This module holds the replay itself, its result (``ReplayResult``) and the scoring of
 each site-night; ``notifier.history.report`` turns results into text, JSON, CSV and PNG.
@@ -287,15 +289,56 @@ def _nights(
 
 
 def _write_messages(loaded: Loaded, events: Sequence[Event], folder: Path) -> int:
-    from notifier.core.config import FolderChannel
+    """Each message the configured subscribers would have received, as ``.eml`` files.
+
+    The events are routed as the live service routes them (each subscriber's sites,
+    hazards and ``min_level``; the console default when none are configured), and what
+    quiet hours held goes as one summary per subscriber when those hours end, as the
+    dispatcher sends it. Bot follows and hushes live in the store, not in the history,
+    so they play no part. Each subscriber gets a folder, ``folder/<subscriber id>/``,
+    whatever their channel; each file is named by the time it would have gone (UTC) and
+    the delivery's key, and its ``Date`` is that time. Nothing is sent.
+    """
+    import dataclasses
+    import hashlib
+
+    from notifier.core.config import EmailChannel, FolderChannel
     from notifier.delivery.channels import build_channel
-    from notifier.delivery.messages import render
+    from notifier.delivery.messages import Message, render, render_summary
+    from notifier.delivery.routing import default_subscribers, route
     from notifier.storage.deliveries import Delivery
 
-    channel = build_channel(FolderChannel(id="replay", type="folder", path=folder))
-    with channel:
-        for ev in events:
-            site = loaded.config.site(ev.site_id)
-            delivery = Delivery(ev.id, "replay", "replay", "replay@fogwatch.invalid")
-            channel.send(render(ev, site, loaded.rules), delivery, f"fw-replay-{ev.id}")
-    return len(events)
+    config = loaded.config
+    subscribers = {s.id: s for s in default_subscribers(config)}
+    by_id = {e.id: e for e in events}
+    # (when it goes, subscriber, key, message, delivery)
+    out: list[tuple[datetime, str, str, Message, Delivery]] = []
+    held: dict[tuple[str, datetime], list[Delivery]] = {}
+    for d in route(events, list(subscribers.values()), config):
+        if d.summary and d.not_before is not None:
+            held.setdefault((d.subscriber_id, d.not_before), []).append(d)
+            continue
+        ev = by_id[d.event_id]
+        zone = subscribers[d.subscriber_id].timezone
+        message = render(ev, config.site(ev.site_id), loaded.rules, zone)
+        out.append((ev.time, d.subscriber_id, d.key, message, d))
+    for (sub_id, released), batch in held.items():
+        items = [(by_id[d.event_id], config.site(by_id[d.event_id].site_id)) for d in batch]
+        zone = subscribers[sub_id].timezone
+        # the dispatcher's key for the same set of held deliveries
+        digest = hashlib.sha256("|".join(sorted(d.key for d in batch)).encode()).hexdigest()
+        message = render_summary(items, loaded.rules, zone, at=released)
+        out.append((released, sub_id, f"fw-sum-{digest[:32]}", message, batch[0]))
+    clock = [datetime.now(UTC)]
+    mail = {c.id for c in config.channels if isinstance(c, EmailChannel | FolderChannel)}
+    for when, sub_id, key, message, delivery in sorted(out, key=lambda m: m[:3]):
+        clock[0] = when
+        if delivery.channel_id not in mail:
+            # a webhook's or text channel's address is not an email address: no To
+            delivery = dataclasses.replace(delivery, address=None)
+        channel = build_channel(
+            FolderChannel(id="replay", type="folder", path=folder / sub_id),
+            clock=lambda: clock[0],
+        )
+        channel.send(message, delivery, f"{when:%Y%m%dT%H%M%SZ}-{key}")
+    return len(out)

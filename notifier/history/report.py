@@ -17,10 +17,11 @@ from notifier.core.timefmt import iso_z
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
+    from matplotlib.figure import Figure
 
     from notifier.history.replay import ReplayResult
 
-__all__ = ["progress_bar", "report_text", "to_json", "write_csv", "write_png"]
+__all__ = ["progress_bar", "report_text", "timeline_figure", "to_json", "write_csv", "write_png"]
 
 
 def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
@@ -153,13 +154,15 @@ def _score_lines(results: Sequence[ReplayResult]) -> list[str]:
 
 def _per_site_lines(res: ReplayResult) -> list[str]:
     """One rule set's scores per site, then its false alarms and misses night by night."""
-    lines = [f"Per site ({res.label}): hits/misses/false alarms/quiet, POD, FAR, CSI"]
+    lines = [
+        f"Per site ({res.label}): hits/misses/false alarms/quiet, POD, FAR, CSI, frequency bias"
+    ]
     for sid in res.site_ids:
         t = res.table("warning", sid)
         lines.append(
             f"  {sid:<24} {t.hits}/{t.misses}/{t.false_alarms}/"
             f"{t.correct_negatives}  POD {_fmt(t.pod)}  FAR {_fmt(t.far)}  "
-            f"CSI {_fmt(t.csi)}"
+            f"CSI {_fmt(t.csi)}  bias {_fmt(t.bias)}"
         )
     fa = [n for n in res.nights if n.category("warning") == "false_alarm"]
     miss = [n for n in res.nights if n.category("warning") == "miss"]
@@ -208,55 +211,65 @@ def write_csv(results: Sequence[ReplayResult], path: Path) -> None:
                 )
 
 
-def write_png(result: ReplayResult, obs: pd.DataFrame, path: Path) -> None:
-    """Observed visibility against watch and warning periods, one panel per site."""
+def timeline_figure(results: Sequence[ReplayResult], obs: pd.DataFrame) -> Figure:
+    """Observed visibility against watch and warning periods: one row of panels per site,
+    one column per rule set (so a second set sits beside the first, on the same axes)."""
     import matplotlib
 
     matplotlib.use("Agg")
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    n = len(result.site_ids)
-    fig = Figure(figsize=(10, 1.6 * n + 0.8), dpi=100)
+    n, m = len(results[0].site_ids), len(results)
+    fig = Figure(figsize=(10 * m, 1.6 * n + 0.8), dpi=100)
     FigureCanvasAgg(fig)
-    times = [datetime.fromtimestamp(float(t), UTC) for t in result.times]
-    for i, sid in enumerate(result.site_ids):
-        ax = fig.add_subplot(n, 1, i + 1)
-        rows = obs[(obs["site"] == sid) & (obs["kind"] == "obs")] if len(obs) else obs
-        if len(rows) and "visibility_m" in rows:
-            ax.plot(
-                rows["time"].dt.tz_convert("UTC").dt.tz_localize(None),
-                rows["visibility_m"],
-                color="black",
-                lw=0.8,
-                label="visibility",
-            )
-        ax.axhline(1000, color="grey", lw=0.6, ls="--")
-        lv = result.fog_level[i]
+    axes = fig.subplots(n, m, squeeze=False, sharex=True, sharey=True)
+    for j, result in enumerate(results):
+        times = [datetime.fromtimestamp(float(t), UTC) for t in result.times]
         # matplotlib plots datetimes through its unit converters; its stubs name only numbers
         naive: list[Any] = [t.replace(tzinfo=None) for t in times]
-        for rank, colour, label in ((1, "#f2c14e", "watch"), (2, "#d1495b", "warning")):
-            ax.fill_between(
-                naive,
-                0,
-                1,
-                where=lv >= rank,
-                transform=ax.get_xaxis_transform(),
-                color=colour,
-                alpha=0.35,
-                step="post",
-                label=label,
-            )
-        ax.set_yscale("log")
-        ax.set_ylim(50, 30000)
-        ax.set_ylabel(sid, fontsize=7)
-        if i == 0:
-            ax.legend(fontsize=7, loc="upper right", ncol=3)
-    fig.suptitle(
-        f"fogwatch replay ({result.label}): visibility (m) and alert periods, UTC", fontsize=9
-    )
+        for i, sid in enumerate(result.site_ids):
+            ax = axes[i][j]
+            rows = obs[(obs["site"] == sid) & (obs["kind"] == "obs")] if len(obs) else obs
+            if len(rows) and "visibility_m" in rows:
+                ax.plot(
+                    rows["time"].dt.tz_convert("UTC").dt.tz_localize(None),
+                    rows["visibility_m"],
+                    color="black",
+                    lw=0.8,
+                    label="visibility",
+                )
+            ax.axhline(1000, color="grey", lw=0.6, ls="--")
+            lv = result.fog_level[i]
+            for rank, colour, label in ((1, "#f2c14e", "watch"), (2, "#d1495b", "warning")):
+                ax.fill_between(
+                    naive,
+                    0,
+                    1,
+                    where=lv >= rank,
+                    transform=ax.get_xaxis_transform(),
+                    color=colour,
+                    alpha=0.35,
+                    step="post",
+                    label=label,
+                )
+            ax.set_yscale("log")
+            ax.set_ylim(50, 30000)
+            if j == 0:
+                ax.set_ylabel(sid, fontsize=7)
+            if i == 0:
+                ax.set_title(result.label, fontsize=8)
+                if j == 0:
+                    ax.legend(fontsize=7, loc="upper right", ncol=3)
+    labels = ", ".join(r.label for r in results)
+    fig.suptitle(f"fogwatch replay ({labels}): visibility (m) and alert periods, UTC", fontsize=9)
     fig.tight_layout()
-    fig.savefig(path, format="png")
+    return fig
+
+
+def write_png(results: Sequence[ReplayResult], obs: pd.DataFrame, path: Path) -> None:
+    """:func:`timeline_figure` of every rule set, as one PNG file."""
+    timeline_figure(results, obs).savefig(path, format="png")
 
 
 def progress_bar(stream: Any = None) -> Callable[[int, int], None]:

@@ -138,6 +138,8 @@ class Service:
         self.config_path = Path(config_path)
         self.loaded = load(self.config_path)
         self.store = store or open_store(self.loaded.config)
+        # the store in use for the life of the service (a reload does not move it)
+        self._store_url = self.loaded.config.store_url
         self.outbox = Outbox(
             self.store, lease=timedelta(seconds=self.loaded.config.alerts.claim_lease)
         )
@@ -188,12 +190,28 @@ class Service:
         return self._file_mtimes() != self._mtimes
 
     def reload(self) -> tuple[bool, str]:
-        """Load config and rules again; on any error keep the running ones."""
+        """Load config and rules again; on any error keep the running ones.
+
+        The store is the one exception to "any change reloads": the open store stays in
+        use (the outbox, its claims and the rolling window live in it), so a changed
+        ``store.url`` is logged at WARNING as needing a restart, and the running config
+        keeps naming the store actually in use.
+        """
         try:
             loaded = load(self.config_path)
         except FogwatchError as exc:
             self._mtimes = self._file_mtimes()  # do not retry the same broken files
             return False, str(exc)
+        if loaded.config.store_url != self._store_url:
+            log.warning(
+                "store.url changed in %s (%s → %s); the running store stays in use: "
+                "restart fogwatch to use the new one",
+                self.config_path,
+                _shown_url(self._store_url),
+                _shown_url(loaded.config.store_url),
+            )
+            running = loaded.config.store.model_copy(update={"url": self._store_url})
+            loaded = Loaded(loaded.config.model_copy(update={"store": running}), loaded.rules)
         with self._lock:
             self.loaded = loaded
             self._features.clear()
@@ -410,6 +428,20 @@ class Service:
         self._stop.set()
         with self._lock:
             self.store.close()
+
+
+def _shown_url(url: str) -> str:
+    """A store URL fit for a log line: its password, if any, replaced by ``***``."""
+    from urllib.parse import urlsplit, urlunsplit
+
+    try:
+        parts = urlsplit(url)
+        if parts.password is None:
+            return url
+        host = parts.netloc.rsplit("@", 1)[1]
+        return urlunsplit(parts._replace(netloc=f"{parts.username or ''}:***@{host}"))
+    except ValueError:
+        return "(a URL that cannot be shown)"
 
 
 def bot_subscriber_id(sender: str, site: str) -> str:

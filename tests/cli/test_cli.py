@@ -78,6 +78,53 @@ def test_check_bad_config_exit_2_with_location(tmp_path, capsys):
     assert re.search(r"bad\.yaml:5: sites\[0\]\.lat: Input should be less than", err)
 
 
+SITE = "version: 1\nsites:\n  - {id: x, name: X, lat: 1, lon: 1, timezone: UTC}\n"
+
+
+def test_check_reports_every_missing_variable_and_the_other_problems(tmp_path, capsys, monkeypatch):
+    for name in ("FW_CLI_A", "FW_CLI_B", "FW_CLI_C"):
+        monkeypatch.delenv(name, raising=False)
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text(
+        SITE
+        + "channels:\n"
+        + '  - {id: hook, type: webhook, url: "https://${FW_CLI_A}/${FW_CLI_B}",\n'
+        + '     secret: "${FW_CLI_C}"}\n'
+        + "subscribers:\n  - {id: ann, channel: pager}\n"
+    )
+    code, out, err = run(capsys, "check", str(cfg))
+    assert code == 2 and out == ""
+    lines = err.splitlines()
+    assert lines == [
+        f"{cfg}:5: channels[0].url: environment variable FW_CLI_A is not set",
+        f"{cfg}:5: channels[0].url: environment variable FW_CLI_B is not set",
+        f"{cfg}:6: channels[0].secret: environment variable FW_CLI_C is not set",
+        f"{cfg}:8: subscribers[0].channel: unknown channel 'pager' (known: hook, stdout)",
+    ]
+
+
+def test_check_warns_of_a_secret_in_the_file_and_still_exits_0(tmp_path):
+    # a real process, so the warning reaches standard error as it does for a person
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text(
+        SITE + "bot: {secret: plain-s3cret}\n" + 'schedule: {morning_summary_local_time: "07:00"}\n'
+    )
+    done = subprocess.run(
+        [sys.executable, "-m", "notifier", "check", str(cfg)],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.startswith(f"ok: {cfg}: 1 site(s)")
+    warnings = [line for line in done.stderr.splitlines() if " WARNING " in line]
+    assert len(warnings) == 2, done.stderr
+    assert f"{cfg}:4: bot.secret: a secret is written in the file" in warnings[0]
+    assert 'write secret: "${FOGWATCH_BOT_SECRET}"' in warnings[0]
+    assert f"{cfg}:5: schedule.morning_summary_local_time: no longer used" in warnings[1]
+    assert "plain-s3cret" not in done.stderr
+
+
 def test_check_bad_rule_file_exit_2(tmp_path, capsys):
     rules = tmp_path / "rules"
     rules.mkdir()

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
+import re
 from datetime import UTC, date, datetime, time, timedelta
 
 import numpy as np
@@ -21,7 +23,7 @@ from notifier.service.cycle import Service, load
 
 def test_scores_match_finley_worked_example():
     # Finley's 1884 tornado forecasts as worked in Wilks, Statistical Methods in the
-    # Atmospheric Sciences (ch. 8): a=28, b=72, c=23, d=2680 (counts from memory).
+    # Atmospheric Sciences (ch. 8): a=28, b=72, c=23, d=2680 (docs/references.md [Finley 1884]).
     t = scores(28, 72, 23, 2680)
     assert t.pod == pytest.approx(28 / 51) and round(t.pod, 3) == 0.549
     assert round(t.far, 3) == 0.720
@@ -235,6 +237,10 @@ def test_cli_scores_a_second_rule_set_side_by_side(month, tmp_path, capsys, monk
     assert b["warning"] is None or b["warning"] < a["warning"]  # stricter = later warnings
     assert csv_path.read_text().startswith("rules,time,site,hazard,type,level")
     assert png_path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # both rule sets are drawn: one column of panels each (10 in at 100 dpi per column)
+    from matplotlib.image import imread
+
+    assert imread(png_path).shape[1] == 2 * 1000
 
 
 def test_cli_text_report(month, tmp_path, capsys):
@@ -268,7 +274,9 @@ def test_cli_text_report(month, tmp_path, capsys):
         "median lead",
     ):
         assert word in out
-    assert list((tmp_path / "out" / "rules").glob("*.eml"))
+    # no subscribers configured: everything goes to the console default, as live
+    assert list((tmp_path / "out" / "rules" / "console").glob("*.eml"))
+    assert "message(s) the subscribers would have received" in err
 
 
 def test_cli_rejects_reversed_times(month, capsys):
@@ -295,3 +303,127 @@ def test_rows_of_a_site_not_configured_change_nothing(month):
     again = replay(loaded, pd.concat([obs, stranger], ignore_index=True), start, end)
     assert [(e.id, e.type) for e in again.events] == [(e.id, e.type) for e in result.events]
     assert again.table("warning") == result.table("warning")
+
+
+# -- the report: every rule set drawn, the bias per site ------------------------------------
+
+
+def test_the_chart_draws_every_rule_set_in_its_own_column(month):
+    from notifier.history.report import timeline_figure
+
+    _, obs, result, *_ = month
+    quiet = dataclasses.replace(result, label="rules-b", fog_level=np.zeros_like(result.fog_level))
+    fig = timeline_figure([result, quiet], obs)
+    axes = fig.axes
+    assert len(axes) == 2 * len(result.site_ids)  # a panel per site per rule set
+    grid = [axes[i * 2 : i * 2 + 2] for i in range(len(result.site_ids))]
+    assert [ax.get_title() for ax in grid[0]] == ["rules", "rules-b"]
+
+    def shaded(ax) -> int:  # vertices of the watch and warning bands drawn in a panel
+        return sum(len(p.vertices) for c in ax.collections for p in c.get_paths())
+
+    for row in grid:
+        first, second = row
+        assert shaded(first) > 0  # the month has alerts at every site
+        assert shaded(second) == 0  # the second set's own (empty) periods, not the first's
+
+
+def test_the_per_site_lines_carry_the_frequency_bias_the_json_has(month):
+    from notifier.history.report import report_text, to_json
+
+    _, _, result, *_ = month
+    text = report_text([result])
+    per_site = to_json([result])["rules"]["sites"]
+    assert "Per site (rules): hits/misses/false alarms/quiet, POD, FAR, CSI, frequency bias" in text
+    for sid, scores_ in per_site.items():
+        (line,) = [ln for ln in text.splitlines() if re.match(rf"  {sid} +\d+/\d+/", ln)]
+        bias = scores_["warning"]["bias"]
+        assert bias is not None
+        assert line.endswith(f"  bias {bias:.2f}"), line
+        t = result.table("warning", sid)
+        # (a+b)/(a+c), Wilks ch. 8
+        assert bias == pytest.approx((t.hits + t.false_alarms) / (t.hits + t.misses), abs=1e-4)
+
+
+# -- --deliver-to: what each subscriber would have received, as live -------------------------
+
+ROUTED = """\
+version: 1
+sites:
+  - {id: low-field, name: Low Field, lat: 52.3, lon: -1.8, timezone: Europe/London,
+     exposure: open, use: farm}
+  - {id: top-field, name: Top Field, lat: 52.4, lon: -1.9, timezone: Europe/London,
+     exposure: open, use: farm}
+channels:
+  - {id: mail-ann, type: folder, path: live/ann}
+  - {id: mail-bo, type: folder, path: live/bo}
+  - {id: mail-desk, type: folder, path: live/desk}
+  - {id: log, type: text, stdout: false, file: live/log.txt}
+subscribers:
+  - {id: ann, channel: mail-ann, address: ann@example.test, quiet_hours: "21:00-07:00"}
+  - {id: bo, channel: mail-bo, address: bo@example.test, sites: [low-field],
+     min_level: warning, hazards: [icing]}
+  - {id: desk, channel: mail-desk, address: desk@example.test, sites: [top-field],
+     quiet_hours: "20:00-08:00", warnings_in_quiet_hours: false}
+  - {id: night-log, channel: log, address: ops-room, sites: [low-field]}
+store: {url: "sqlite:///live.sqlite"}
+"""
+
+
+def _messages(folder):
+    """{key: (subject, date, to, text)} of the .eml files in ``folder``."""
+    import email
+    from email import policy
+
+    out = {}
+    for path in folder.glob("*.eml"):
+        msg = email.message_from_bytes(path.read_bytes(), policy=policy.default)
+        body = msg.get_body(preferencelist=("plain",)).get_content()
+        out[msg["X-Fogwatch-Delivery"]] = (msg["Subject"], msg["Date"], msg["To"], body)
+    return out
+
+
+def test_deliver_to_writes_what_each_subscriber_would_have_received_live(month, tmp_path):
+    # the same history through the live service (routing, quiet hours, the dispatcher's
+    # morning summaries) and through replay: the same messages, to the same people, at
+    # the same times
+    _, obs, _, _, _, start, _ = month
+    end = start + timedelta(days=2)
+    cfg = tmp_path / "fogwatch.yaml"
+    cfg.write_text(ROUTED)
+    loaded = load(cfg)
+    replayed = replay(loaded, obs, start, end, deliver_to=tmp_path / "replay")
+
+    clock = [start]
+    mail = ("mail-ann", "mail-bo", "mail-desk")
+    service = Service(cfg, channel_kwargs={c: {"clock": lambda: clock[0]} for c in mail})
+    try:
+        service.store.add_observations(obs)
+        t = start
+        while t <= end:
+            clock[0] = t
+            service.poll_and_assess(t, source_ids=[])
+            service.deliver(t)
+            t += timedelta(minutes=10)
+    finally:
+        service.close()
+
+    for who in ("ann", "bo", "desk"):
+        live = _messages(tmp_path / "live" / who)
+        written = _messages(tmp_path / "replay" / who)
+        assert bool(live) is (who != "bo"), who
+        # replay's files are named by the time they go, then the live delivery's key
+        assert {k.split("-", 1)[1]: v for k, v in written.items()} == live, who
+    desk = _messages(tmp_path / "replay" / "desk")
+    # desk holds even warnings overnight: they come as one summary per night at 08:00
+    summaries = [v for k, v in desk.items() if "fw-sum-" in k]
+    assert len(summaries) == 2
+    assert all(v[0].startswith("Overnight:") and v[0].endswith("08:00 BST") for v in summaries)
+    # bo follows only icing warnings at the low field: the month's fog is none of his
+    assert not list((tmp_path / "replay" / "bo").glob("*.eml"))
+    # a text channel's address is not an email address: the file has no To
+    log = _messages(tmp_path / "replay" / "night-log")
+    assert log and all(v[2] is None for v in log.values())
+    total = sum(len(list((tmp_path / "replay" / w).glob("*.eml"))) for w in ("ann", "desk"))
+    assert replayed.delivered == total + len(log)
+    assert not (tmp_path / "replay" / "console").exists()  # no one but the subscribers
