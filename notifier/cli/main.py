@@ -42,10 +42,12 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from notifier.core.config_file import load_config
+    from notifier.core.config_file import read_config
     from notifier.engine.rule_files import load_rule_set
 
-    config = load_config(args.config)
+    config, warnings = read_config(args.config)
+    for warning in warnings:
+        print(f"warning: {warning}", file=sys.stderr)
     rules = load_rule_set(config.rule_paths())
     print(
         f"ok: {config.path}: {len(config.sites)} site(s), {len(config.sources)} source(s), "

@@ -62,7 +62,7 @@ def assessment_table(assessments: Sequence[SiteAssessment]) -> str:
     return "\n".join(lines)
 
 
-def _outcome_line(o: Outcome, indent: str) -> str:
+def _outcome_line(o: Outcome, indent: str, negated: bool) -> str:
     spec = FEATURES[o.test.feature]
     if not o.known:
         mark = "?"
@@ -71,23 +71,31 @@ def _outcome_line(o: Outcome, indent: str) -> str:
         mark = "✓" if o.held else "✗"
         state = "held" if o.held else "not met"
     threshold = o.test.describe_threshold()
-    margin = f" (clears past {o.test.describe_threshold(relaxed=True)})" if o.test.margin else ""
+    relaxed = o.test.describe_threshold(relaxed=True, negated=negated)
+    margin = f" (clears past {relaxed})" if o.test.margin else ""
     return (
         f"{indent}{mark} {spec.label} [{o.test.feature}] = {_fmt(o.test.feature, o.value)}"
         f"  {threshold}{margin}: {state}"
     )
 
 
-def _tree(cond: Condition, outcomes: dict[int, Outcome], indent: str, out: list[str]) -> None:
+def _tree(
+    cond: Condition,
+    outcomes: dict[int, Outcome],
+    indent: str,
+    out: list[str],
+    negated: bool = False,
+) -> None:
     if isinstance(cond, Comparison):
-        out.append(_outcome_line(outcomes[id(cond)], indent))
+        out.append(_outcome_line(outcomes[id(cond)], indent, negated))
         return
     assert isinstance(cond, Group)
     if cond.op != "all" or indent.strip():
         out.append(f"{indent}{cond.op}:")
         indent += "  "
     for child in cond.children:
-        _tree(child, outcomes, indent, out)
+        # under a ``not`` a margin moves its threshold the other way (engine/rules.py)
+        _tree(child, outcomes, indent, out, negated ^ (cond.op == "not"))
 
 
 def explanation(sa: SiteAssessment, rules: RuleSet) -> str:

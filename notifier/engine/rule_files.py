@@ -20,9 +20,11 @@ A rule file is YAML::
         safety: [fog-general]  # ids of notes in a safety file
 
 Tests on a feature: ``below`` (<), ``above`` (>), ``at_most`` (<=), ``at_least`` (>=),
-``between: [lo, hi]`` (inclusive) and ``is`` (true/false). ``margin`` widens a numeric
-test while the hazard is already active, so a value hovering at the threshold does not
-make alerts flap (hysteresis). Groups: ``all``, ``any``, ``not``.
+``between: [lo, hi]`` (inclusive) and ``is`` (true/false). ``margin`` is hysteresis: while
+the hazard is already active a numeric test keeps holding up to ``margin`` past its
+threshold (under a ``not``, the inner test is narrowed instead, so the ``not`` keeps
+holding), and a value hovering at the threshold does not make alerts flap. Groups:
+``all``, ``any``, ``not``.
 
 Each file has ``version: 1``; safety files (``safety:``) hold the notes rules refer to.
 """

@@ -53,15 +53,17 @@ class Comparison:
     margin: float
     line: int | None
 
-    def describe_threshold(self, relaxed: bool = False) -> str:
+    def describe_threshold(self, relaxed: bool = False, negated: bool = False) -> str:
+        """``≤ 3.5 m/s``; with ``relaxed``, the threshold its margin moves it to (see
+        :meth:`_bounds` for ``negated``)."""
         unit = FEATURES[self.feature].unit
         sym = OPS[self.op]
         if self.op == "is":
             return f"is {str(self.value).lower()}"
         if self.op == "between":
-            lo, hi = self._bounds(relaxed)
+            lo, hi = self._bounds(relaxed, negated)
             return f"{sym} {_num(lo)}…{_num(hi)}{unit_suffix(unit)}"
-        return f"{sym} {_num(self._bounds(relaxed))}{unit_suffix(unit)}"
+        return f"{sym} {_num(self._bounds(relaxed, negated))}{unit_suffix(unit)}"
 
     def _bounds(self, relaxed: bool, negated: bool = False) -> Any:
         """The threshold(s); ``relaxed`` applies the margin in the direction that keeps
