@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import json
 import threading
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
@@ -41,7 +41,12 @@ SITES: list[dict[str, Any]] = [
     },
 ]
 
-Responder = Callable[["Request"], tuple[int, dict[str, str], bytes]]
+# (status, headers, body). ``body`` is bytes, or an iterable of byte chunks written and
+# flushed one at a time (a generator may stall between them, see LoopbackJson.stall).
+# A "Content-Length" among the headers is sent as given, even when it is not the body's
+# length (a server that dies mid-body); without one, bytes get their own length, and
+# chunks are sent with "Connection: close", the body ending when the server hangs up.
+Responder = Callable[["Request"], tuple[int, dict[str, str], bytes | Iterable[bytes]]]
 
 
 @dataclass
@@ -57,9 +62,16 @@ class LoopbackJson:
     base_url: str
     routes: dict[str, Responder] = field(default_factory=dict)
     requests: list[Request] = field(default_factory=list)
+    released: threading.Event = field(default_factory=threading.Event)
 
     def url(self, path: str) -> str:
         return self.base_url + path
+
+    def stall(self, limit_s: float = 60.0) -> None:
+        """Block the answering thread, as a hung peer would, until the test is over (the
+        fixture releases it) or ``limit_s`` has passed: a client's timeout, not the
+        machine's speed, decides what happens meanwhile."""
+        self.released.wait(limit_s)
 
     def json(self, path: str, doc: Any, status: int = 200) -> None:
         body = json.dumps(doc).encode()
@@ -96,12 +108,27 @@ def loopback_json() -> Iterator[LoopbackJson]:
                 status, headers, body = 404, {"Content-Type": "text/plain"}, b"no such route"
             else:
                 status, headers, body = responder(request)
+            declared = {name.lower() for name in headers}
             self.send_response(status)
             for name, value in headers.items():
                 self.send_header(name, value)
-            self.send_header("Content-Length", str(len(body)))
+            if isinstance(body, bytes):
+                if "content-length" not in declared:
+                    self.send_header("Content-Length", str(len(body)))
+                chunks: Iterable[bytes] = (body,)
+            else:
+                if "content-length" not in declared:
+                    self.send_header("Connection", "close")  # the body ends at hang-up
+                chunks = body
+            if "content-length" in declared:
+                self.close_connection = True  # a lying length ends at hang-up too
             self.end_headers()
-            self.wfile.write(body)
+            try:
+                for chunk in chunks:
+                    self.wfile.write(chunk)
+                    self.wfile.flush()
+            except (BrokenPipeError, ConnectionResetError):
+                self.close_connection = True  # the client stopped reading: as intended
 
         def log_message(self, format: str, *args: Any) -> None:  # noqa: A002
             pass  # keep test output clean
@@ -115,6 +142,7 @@ def loopback_json() -> Iterator[LoopbackJson]:
     try:
         yield state["server"]
     finally:
+        state["server"].released.set()  # let stalled answers finish
         httpd.shutdown()
         httpd.server_close()
         thread.join(timeout=5)

@@ -1,14 +1,17 @@
 """Loopback servers for delivery tests: a real SMTP server (aiosmtpd, with login) and a
-real HTTP receiver that checks webhook signatures. Both listen on 127.0.0.1 only, on an
-ephemeral port. Every name and address here is invented."""
+real HTTP receiver that checks webhook signatures, keeps every request as it arrived
+(raw body bytes) and can answer as a test chooses (any status and headers, or no answer
+at all). Both listen on 127.0.0.1 only, on an ephemeral port. Every name and address here
+is invented."""
 
 from __future__ import annotations
 
 import http.server
 import json
+import sys
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -115,15 +118,36 @@ def smtp_server() -> Iterator[SmtpServer]:
 
 
 @dataclass
+class Wire:
+    """One request exactly as it arrived: the raw body bytes, before any parsing."""
+
+    method: str
+    path: str
+    headers: dict[str, str]
+    body: bytes
+
+
+# a test's own answer to a request: (status, extra response headers)
+HookAnswer = Callable[[Wire], tuple[int, dict[str, str]]]
+
+
+@dataclass
 class Hook:
     """What the webhook receiver saw, and how it should misbehave."""
 
     secret: str = WEBHOOK_SECRET
     accepted: list[dict[str, Any]] = field(default_factory=list)
     attempts: list[str] = field(default_factory=list)  # delivery ids, every attempt
+    wire: list[Wire] = field(default_factory=list)  # every request, raw
     rejected_signatures: int = 0
     fail_first_attempt: bool = False  # answer 500 to the first attempt of each delivery
+    answer: HookAnswer | None = None  # when set, answers every request (no checks)
+    released: threading.Event = field(default_factory=threading.Event)
     lock: threading.Lock = field(default_factory=threading.Lock)
+
+    def stall(self, limit_s: float = 60.0) -> None:
+        """For an ``answer``: hang, as a stuck receiver would, until the test is over."""
+        self.released.wait(limit_s)
 
 
 class _HookHandler(http.server.BaseHTTPRequestHandler):
@@ -132,26 +156,49 @@ class _HookHandler(http.server.BaseHTTPRequestHandler):
     def do_POST(self) -> None:  # noqa: N802 (http.server's naming)
         length = int(self.headers.get("Content-Length", "0"))
         body = self.rfile.read(length)
+        if len(body) < length:
+            return  # the sender died mid-request: nothing was delivered
         hook = self.server.hook  # type: ignore[attr-defined]
         headers = {k: v for k, v in self.headers.items()}
         delivery = headers.get(DELIVERY_HEADER, "")
+        wire = Wire(self.command, self.path, headers, body)
+        extra: dict[str, str] = {}
         with hook.lock:
-            first = delivery not in hook.attempts
-            hook.attempts.append(delivery)
-            if not verify_signature(hook.secret, headers, body, time.time()):
-                hook.rejected_signatures += 1
-                status = 401
-            elif hook.fail_first_attempt and first:
-                status = 500
-            else:
-                hook.accepted.append({"headers": headers, "body": json.loads(body)})
-                status = 200
-        self.send_response(status)
-        self.send_header("Content-Length", "0")
-        self.end_headers()
+            hook.wire.append(wire)
+        if hook.answer is not None:
+            status, extra = hook.answer(wire)  # outside the lock: it may stall
+        else:
+            with hook.lock:
+                first = delivery not in hook.attempts
+                hook.attempts.append(delivery)
+                if not verify_signature(hook.secret, headers, body, time.time()):
+                    hook.rejected_signatures += 1
+                    status = 401
+                elif hook.fail_first_attempt and first:
+                    status = 500
+                else:
+                    hook.accepted.append({"headers": headers, "body": json.loads(body)})
+                    status = 200
+        try:
+            self.send_response(status)
+            for name, value in extra.items():
+                self.send_header(name, value)
+            self.send_header("Content-Length", "0")
+            self.end_headers()
+        except (BrokenPipeError, ConnectionResetError):
+            pass  # the sender gave up waiting (a timeout test): nothing to answer
 
     def log_message(self, format: str, *args: Any) -> None:  # noqa: A002
         return None
+
+
+class _HookHttpServer(http.server.ThreadingHTTPServer):
+    daemon_threads = True
+
+    def handle_error(self, request: Any, client_address: Any) -> None:
+        if isinstance(sys.exc_info()[1], ConnectionError):
+            return  # a sender killed mid-request (the crash test) is expected here
+        super().handle_error(request, client_address)
 
 
 @dataclass
@@ -163,14 +210,16 @@ class HookServer:
 @pytest.fixture
 def webhook_server() -> Iterator[HookServer]:
     hook = Hook()
-    server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), _HookHandler)
+    server = _HookHttpServer(("127.0.0.1", 0), _HookHandler)
     server.hook = hook  # type: ignore[attr-defined]
-    server.daemon_threads = True
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread = threading.Thread(
+        target=server.serve_forever, kwargs={"poll_interval": 0.05}, daemon=True
+    )
     thread.start()
     try:
         yield HookServer(f"http://127.0.0.1:{server.server_address[1]}/fogwatch", hook)
     finally:
+        hook.released.set()  # let stalled answers finish
         server.shutdown()
         server.server_close()
         thread.join(timeout=5)

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import email
 import random
-from datetime import timedelta
+from datetime import UTC, datetime, timedelta
 from email import policy
 from email.message import EmailMessage
 from pathlib import Path
@@ -382,66 +382,116 @@ def test_a_channel_removed_from_the_config_fails_its_rows(smtp_server, make_serv
 @pytest.mark.parametrize("backend", ["sqlite", "postgresql"])
 def test_two_dispatchers_on_one_store_send_each_delivery_once(tmp_path, request, backend):
     # two services sharing one store (the SQLite file, or a PostgreSQL database as several
-    # instances would share). One starts a run of slow sends (2.4 s) longer than the claim
-    # lease (1 s); the other tries again and again meanwhile. The first renews its claim
-    # as it goes, so the second never takes what the first is still sending.
+    # instances would share). One starts a run of 24 sends lasting longer than the claim
+    # lease (2.4 s of wall time against 1 s); the other tries to dispatch between every
+    # two of those sends. The first renews its claim as it goes, so the second never
+    # takes what the first is still sending.
+    # Wall time is a clock both outboxes share (Outbox's wall_clock), moved on 0.1 s by
+    # each send, and the two dispatchers take turns through a Condition: the outcome
+    # rests on the lease logic, not on how quickly this machine runs two threads.
     import threading
-    import time as wall_time
 
-    from tests.delivery.crash_worker import SlowSession
+    import requests
+
+    from notifier.delivery.dispatch import dispatch
+    from notifier.storage.outbox import Outbox
 
     store = {}
     if backend == "postgresql":
         store = {"store": {"url": request.getfixturevalue("postgres").new_database()}}
     subs = [{"id": f"bridge-{n}", "channel": "hook", "address": f"room-{n}"} for n in range(3)]
+    wall = [datetime.now(UTC)]
+    began = wall[0]
+    turn = threading.Condition()
+    progress = {"sends": 0, "tries": 0, "first_done": False, "stuck": False}
+
+    class TurnTakingSession(requests.Session):
+        """The first dispatcher's HTTP: each POST reaches the real receiver; then 0.1 s of
+        wall time passes and the second dispatcher has its turn before the next POST."""
+
+        def post(self, *args, **kwargs):  # type: ignore[override]
+            response = super().post(*args, **kwargs)
+            with turn:
+                wall[0] += timedelta(seconds=0.1)
+                progress["sends"] += 1
+                turn.notify_all()
+                if not turn.wait_for(lambda: progress["tries"] >= progress["sends"], 60):
+                    progress["stuck"] = True
+            return response
+
     with signed_receiver() as receiver:
         path = write_config(
             tmp_path, [webhook_channel(receiver.url)], subs, alerts={"claim_lease": "1s"}, **store
         )
-        services = [
-            Service(path, channel_kwargs={"hook": {"session": SlowSession(0.1)}}) for _ in range(2)
-        ]
+        services = [Service(path) for _ in range(2)]
         try:
             queued = queue(services[0], [event(at=T0 - timedelta(minutes=m)) for m in range(8)], T0)
+            outboxes = [
+                Outbox(s.store, lease=s.outbox.lease, wall_clock=lambda: wall[0]) for s in services
+            ]
+            assert outboxes[0].lease == timedelta(seconds=1)
             at = T0 + timedelta(minutes=1)
             sent = [0, 0]
-            first_done = threading.Event()
+
+            def run(n: int, session: requests.Session) -> int:
+                config, rules = services[n].config, services[n].rules
+                kwargs = {"hook": {"session": session}}
+                return dispatch(outboxes[n], config, rules, at, channel_kwargs=kwargs).sent
 
             def first() -> None:
-                sent[0] += services[0].deliver(at).sent
-                first_done.set()
+                try:
+                    sent[0] += run(0, TurnTakingSession())
+                finally:
+                    with turn:
+                        progress["first_done"] = True
+                        turn.notify_all()
 
             def second() -> None:
-                wall_time.sleep(0.05)  # let the first claim
-                while not first_done.is_set():
-                    sent[1] += services[1].deliver(at).sent
-                    wall_time.sleep(0.1)
+                while True:
+                    with turn:
+                        turn.wait_for(
+                            lambda: progress["first_done"] or progress["sends"] > progress["tries"],
+                            60,
+                        )
+                        if progress["sends"] <= progress["tries"]:
+                            return  # the first has finished and had no send since
+                    sent[1] += run(1, requests.Session())
+                    with turn:
+                        progress["tries"] += 1
+                        turn.notify_all()
 
             threads = [threading.Thread(target=first), threading.Thread(target=second)]
             for t in threads:
                 t.start()
             for t in threads:
-                t.join(timeout=60)
+                t.join(timeout=120)
+            assert not any(t.is_alive() for t in threads)
             delivered = receiver.delivered()
             final = {r.key: r.status for r in services[0].outbox.deliveries()}
         finally:
             for service in services:
                 service.close()
+    assert not progress["stuck"]
     assert len(queued) == 24
     assert delivered == {d.key: 1 for d in queued}  # every one, exactly once
-    assert sent == [24, 0]  # the first kept its claim for the whole 2.4 s run
+    assert progress["tries"] == 24  # the second tried between every two sends ...
+    assert sent == [24, 0]  # ... and the first kept its claim for the whole 2.4 s run
+    assert wall[0] - began == timedelta(seconds=2.4)  # 24 sends of 0.1 s, > the 1 s lease
     assert set(final.values()) == {"sent"}
 
 
 @pytest.mark.parametrize("outcome", ["sent", "retry"])
-def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, monkeypatch, outcome):
+def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, outcome):
     # dispatcher A's first send hangs for longer than the lease (a stuck server, a paused
     # process); B takes the claim over and sends everything. A then sends nothing more,
     # and its late outcome for the stuck row does not overwrite B's "sent".
-    import notifier.delivery.dispatch as dispatch_module
-    from notifier.core.errors import TransientDeliveryError
+    # Both send through the real stdout channel, given a stream of the test's own through
+    # dispatch(channel_kwargs=...): A's "hangs" while B runs.
+    import re
+
+    from notifier.delivery.dispatch import dispatch
     from notifier.storage.outbox import Outbox
-    from tests.delivery.scenes import config_with
+    from tests.delivery.scenes import RULES, config_with
     from tests.storage.test_outbox import QUAY, deliveries_for, state
 
     wall = [T0]
@@ -451,27 +501,32 @@ def test_a_run_whose_claim_lapsed_leaves_the_rows_another_took(any_store, monkey
     a.commit_cycle({}, {QUAY: state()}, events, rows, T0)
     config = config_with([{"id": "ops", "channel": "stdout"}])
     sends: list[tuple[str, str]] = []
-    current = ["a"]
 
-    class Channel:
-        def send(self, message, delivery, key, chart):
-            sends.append((current[0], key))
-            if len(sends) == 1:  # A's first send: the lease runs out while it hangs
+    class Stream:
+        """Where the stdout channel writes one block per message, ending "[key]"."""
+
+        def __init__(self, who: str):
+            self.who = who
+
+        def write(self, block: str) -> int:
+            key = re.search(r"\[([^\]]+)\]\n\Z", block)
+            assert key, block
+            sends.append((self.who, key.group(1)))
+            if self.who == "a" and len(sends) == 1:  # the lease runs out while A hangs
                 wall[0] += a.lease + timedelta(minutes=1)
-                current[0] = "b"
-                dispatch_module.dispatch(b, config, None, T0, rng=random.Random(1))
-                current[0] = "a"
+                run(b, "b")
                 if outcome == "retry":
-                    raise TransientDeliveryError("451 try later")
+                    raise OSError("stdout went away")  # the channel: a transient failure
+            return len(block)
 
-        def close(self):
+        def flush(self) -> None:
             pass
 
-    monkeypatch.setattr(dispatch_module, "build_channel", lambda cfg, **kw: Channel())
-    monkeypatch.setattr(
-        dispatch_module, "_compose", lambda o, c, r, batch: ("m", None, batch[0].key)
-    )
-    dispatch_module.dispatch(a, config, None, T0, rng=random.Random(1))
+    def run(outbox: Outbox, who: str) -> None:
+        kwargs = {"stdout": {"stream": Stream(who)}}
+        dispatch(outbox, config, RULES, T0, channel_kwargs=kwargs, rng=random.Random(1))
+
+    run(a, "a")
     by_a = [k for who, k in sends if who == "a"]
     by_b = [k for who, k in sends if who == "b"]
     assert len(by_a) == 1 and sorted(by_b) == sorted(d.key for d in rows)

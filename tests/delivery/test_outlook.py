@@ -41,6 +41,38 @@ def evening(scene: Scene) -> Scene:
     return scene
 
 
+def cooling_potential(
+    temp_c: float, dewpoint_c: float, wind_ms: float, cloud_pct: float, sky_view: float,
+    exposure_factor: float,
+) -> float:  # fmt: skip
+    """The feature ``cooling_potential`` worked out by hand from the scene's readings.
+
+    Its definition (notifier/engine/catalog.py, ``FEATURES``; families.radiation):
+    "0–1: radiative loss × light-wind factor × exposure factor", with the net long-wave
+    loss from a Brutsaert clear sky, Unsworth–Monteith cloud and the exposure's sky view.
+    The published pieces:
+
+    - vapour pressure, CIMO Guide (WMO-No. 8) Annex 4.B Magnus form over water:
+      e = 6.112 exp(17.62 Td / (243.12 + Td)) hPa;
+    - clear sky, Brutsaert (1975): eps = 1.24 (e / T)^(1/7), T in K;
+    - cloud, Unsworth & Monteith (1975): eps = (1 - 0.84 c) eps_clear + 0.84 c;
+    - net loss with the surface at air temperature (Stefan–Boltzmann, sigma from CODATA
+      2018): L = eps_s svf (1 - eps) sigma T^4, eps_s = 0.98.
+
+    fogwatch's own settings (catalog.FeatureSettings, EXPOSURE_EFFECTS): 80 W/m² is full
+    radiative cooling; wind gives full cooling at 2.5 m/s and none at 7 m/s, linearly
+    between; the result is clipped to 0–1.
+    """
+    e_hpa = 6.112 * math.exp(17.62 * dewpoint_c / (243.12 + dewpoint_c))
+    t_k = temp_c + 273.15
+    clear = 1.24 * (e_hpa / t_k) ** (1 / 7)
+    c = cloud_pct / 100
+    sky = (1 - 0.84 * c) * clear + 0.84 * c
+    loss_wm2 = 0.98 * sky_view * (1 - sky) * 5.670374419e-8 * t_k**4
+    wind = min(1.0, max(0.0, (7.0 - wind_ms) / (7.0 - 2.5)))
+    return min(1.0, max(0.0, min(1.0, loss_wm2 / 80.0) * wind * exposure_factor))
+
+
 def outlook_rows(service: Service) -> list[tuple[str, str, str]]:
     out = []
     for row in service.outbox.deliveries():
@@ -86,7 +118,12 @@ def test_the_outlook_text_names_minimum_dew_point_cooling_onset_icing_and_cautio
     assert "Tonight's outlook · Lower Vale Orchard · 17:30 GMT" in vale
     flat = " ".join(vale.split())  # the text channel wraps lines
     assert "Projected minimum -1.9 °C against a dew point of 1.2 °C (margin -3.1 °C)." in flat
-    assert "Cooling potential 1.00 (strong)." in flat
+    # the valley's 17:30 reading: 6.0 - 2.0 sqrt(1 h 20 min) °C as written (2 decimals),
+    # dew point 1.2 °C, wind 0.8 m/s, cloud 5 %; valley: sky view 0.85, cooling × 1.2
+    temp = round(6.0 - 2.0 * math.sqrt((OUTLOOK_AT - SUNSET).total_seconds() / 3600.0), 2)
+    expected = cooling_potential(temp, 1.2, 0.8, 5.0, sky_view=0.85, exposure_factor=1.2)
+    assert expected == 1.0  # 72 W/m² of 80, × 1.2 for the valley: more than full, clipped
+    assert f"Cooling potential {expected:.2f} (strong)." in flat
     assert "Onset window: 20:56 GMT to 22:56 GMT." in flat
     assert "Icing: likely" in flat
     assert "Fog chance tonight: high." in flat
@@ -102,7 +139,11 @@ def test_a_quiet_sites_outlook_says_low_chance_without_an_onset(evening: Scene):
     flat = " ".join(evening.out("duty.txt").split())
     assert "Tonight's outlook · North Quay Basin" in flat
     assert "Projected minimum 9.0 °C against a dew point of 3.0 °C (margin +6.0 °C)." in flat
-    assert "Cooling potential 0.15 (weak)." in flat
+    # the quay's reading: 9.0 °C, dew point 3.0 °C, wind 4.0 m/s, cloud 90 %;
+    # waterside: sky view 1.0, cooling × 0.8
+    expected = cooling_potential(9.0, 3.0, 4.0, 90.0, sky_view=1.0, exposure_factor=0.8)
+    assert 0.14 < expected < 0.16  # 22 W/m² of 80, × 2/3 for the wind, × 0.8
+    assert f"Cooling potential {expected:.2f} (weak)." in flat
     assert "Onset window" not in flat
     assert "Icing: unlikely." in flat
     assert "Fog chance tonight: low." in flat

@@ -3,25 +3,57 @@
 from __future__ import annotations
 
 import email
+import hashlib
+import hmac
 import io
 import json
 from collections import Counter
+from datetime import datetime, time, timedelta
+from email import policy
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo
 
 import pytest
+import yaml
 
+import notifier.demo.play as demo_play
 from notifier.delivery.channels.webhook import verify_signature
 from notifier.demo.play import run_demo
+from notifier.storage.outbox import Outbox
+from notifier.storage.store import Store
 
 
-@pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    out = tmp_path_factory.mktemp("demo") / "fogwatch-demo"
+def play(out: Path, config: Path | None = None) -> tuple[dict[str, Any], str]:
     stream = io.StringIO()
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", "demo-webhook-secret")
         mp.setenv("FOGWATCH_DEMO_BOT_SECRET", "demo-bot-secret")
+        if config is not None:
+            # run_demo takes no config: it copies the file DEMO_CONFIG names into `out`
+            mp.setattr(demo_play, "DEMO_CONFIG", config)
         result = run_demo(out=out, stream=stream)
     return result, stream.getvalue()
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    return play(tmp_path_factory.mktemp("demo") / "fogwatch-demo")
+
+
+@pytest.fixture(scope="module")
+def demo_with_the_berth_for_the_orchard_manager(tmp_path_factory):
+    """The same night, with one change to the demo's config: the orchard manager also
+    follows the estuary berth. In the shipped demo no watch-level news of the orchard
+    falls inside the manager's quiet hours (the orchard is at warning all night), so
+    nothing there is held; the berth's sea-fog watch is raised at 23:20, inside them."""
+    folder = tmp_path_factory.mktemp("demo-variant")
+    doc = yaml.safe_load(demo_play.DEMO_CONFIG.read_text(encoding="utf-8"))
+    (manager,) = [s for s in doc["subscribers"] if s["id"] == "orchard-manager"]
+    manager["sites"] = ["hollin-orchard", "skerrow-berth"]
+    config = folder / "demo_sites.yaml"
+    config.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
+    return play(folder / "fogwatch-demo", config)
 
 
 def kinds(result, site):
@@ -94,6 +126,11 @@ def test_webhook_bodies_verify_with_the_shared_secret(demo):
         sent_at = int(headers["X-Fogwatch-Timestamp"])
         assert verify_signature("demo-webhook-secret", headers, raw, sent_at)
         assert not verify_signature("another-secret", headers, raw, sent_at)
+        # README, Webhooks: v1=<hex HMAC-SHA256 of "{delivery}.{timestamp}.{body}">,
+        # worked out here rather than with fogwatch's own code
+        signed = f"{path.stem}.{sent_at}.".encode() + raw
+        mac = hmac.new(b"demo-webhook-secret", signed, hashlib.sha256).hexdigest()
+        assert headers["X-Fogwatch-Signature"] == f"v1={mac}"
 
 
 def test_bot_answers(demo):
@@ -105,8 +142,90 @@ def test_bot_answers(demo):
     assert "Only an operator" in answers[("grower-17", "hush hollin-orchard for 2h for everyone")]
 
 
-def test_quiet_hours_hold_watch_news_for_the_orchard_manager(demo):
+# -- quiet hours, from the demo's config and what the demo wrote ---------------------------
+
+
+def manager_night(result: dict[str, Any]) -> list[tuple[Any, Any, bool, datetime | None]]:
+    """Each delivery to the orchard manager as (row, event, inside quiet hours, end of those
+    quiet hours), read back from the demo's own store; the quiet hours come from the
+    demo's config (``quiet_hours: "22:00-05:30"``, in the site's zone: Europe/London)."""
+    out = result["out"]
+    doc = yaml.safe_load((out / "demo_sites.yaml").read_text(encoding="utf-8"))
+    (manager,) = [s for s in doc["subscribers"] if s["id"] == "orchard-manager"]
+    start_text, end_text = manager["quiet_hours"].split("-")
+    start, end = time.fromisoformat(start_text), time.fromisoformat(end_text)
+    assert (start, end) == (time(22, 0), time(5, 30))  # the demo's, crossing midnight
+    zone = ZoneInfo(manager.get("timezone", "Europe/London"))  # all demo sites' zone
+    store_file = doc["store"]["url"].removeprefix("sqlite:///")
+    night = []
+    with Store(f"sqlite:///{out / store_file}") as store:
+        outbox = Outbox(store)
+        for row in outbox.deliveries():
+            if row.subscriber != "orchard-manager":
+                continue
+            event, _ = outbox.event(row.event_id)
+            local = event.time.astimezone(zone)
+            inside = local.time() >= start or local.time() < end
+            window_end = None
+            if inside:
+                day = local.date() + timedelta(days=1 if local.time() >= start else 0)
+                window_end = datetime.combine(day, end, zone)
+            night.append((row, event, inside, window_end))
+    return night
+
+
+def news_level(event: Any) -> str:
+    # README, Configuration: quiet hours hold watch news, warnings go through; a
+    # downgrade or all-clear is news of the level it ends (routing, news level)
+    return event.previous_level if event.type in ("downgraded", "cleared") else event.level
+
+
+def test_warnings_go_through_the_orchard_managers_quiet_hours(demo):
     result, _ = demo
-    sent = result["sent_by"]["orchard-manager"]
-    assert sum(sent.values()) >= 4
-    assert all("(sent)" in label for label in sent)
+    night = manager_night(result)
+    inside = [(row, ev) for row, ev, quiet, _ in night if quiet]
+    # the orchard is at warning all night: its reminders arrive as they happen
+    assert len(inside) >= 4
+    for row, ev in inside:
+        assert news_level(ev) == "warning", ev
+        assert not row.summary and row.sent_at == ev.time
+    # outside the quiet hours everything went at once too
+    for row, ev, quiet, _ in night:
+        assert row.status == "sent" and (quiet or row.sent_at == ev.time)
+
+
+def test_quiet_hours_hold_watch_news_for_the_orchard_manager(
+    demo_with_the_berth_for_the_orchard_manager,
+):
+    result, _ = demo_with_the_berth_for_the_orchard_manager
+    night = manager_night(result)
+    held = [
+        (row, ev, end) for row, ev, quiet, end in night if quiet and news_level(ev) != "warning"
+    ]
+    # the berth's sea-fog watch at 23:20 GMT is the watch news inside the quiet hours
+    assert [(ev.site_id, ev.type, ev.level) for _, ev, _ in held] == [
+        ("skerrow-berth", "raised", "watch")
+    ]
+    ((row, ev, end),) = held
+    assert ev.time.astimezone(ZoneInfo("Europe/London")).strftime("%H:%M") == "23:20"
+    # held, not sent during the quiet hours: released when they end (05:30), as a summary
+    assert end is not None and end.strftime("%H:%M") == "05:30"
+    assert row.summary and row.not_before == end
+    assert row.status == "sent" and row.sent_at == end
+    # warnings inside the same quiet hours still went at once
+    for other, other_ev, quiet, _ in night:
+        if quiet and news_level(other_ev) == "warning":
+            assert other.sent_at == other_ev.time
+    # the mail the manager got for it: one morning summary, no message of its own
+    mail = result["out"] / "mail"
+    assert not (mail / f"{row.key}.eml").exists()
+    summaries = []
+    for path in sorted(mail.glob("*.eml")):
+        msg = email.message_from_bytes(path.read_bytes(), policy=policy.default)
+        if msg["To"] == "manager@hollin-vale.example" and msg["Subject"].startswith("Overnight"):
+            summaries.append(msg)
+    (summary,) = summaries
+    assert summary["Subject"] == "Overnight: 1 update for 1 site · 05:30 GMT"
+    text = " ".join(summary.get_body(preferencelist=("plain",)).get_content().split())
+    assert "held for quiet hours" in text
+    assert "Skerrow Estuary Berth 4 • 23:20 GMT Fog watch raised" in text

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 from datetime import datetime, time, timedelta
 from zoneinfo import ZoneInfo
 
@@ -169,10 +170,26 @@ def test_custom_settings_are_honoured():
     ]
 
 
+def documented_event_id(*fields: str) -> str:
+    """Worked out here from event_id's docstring (notifier/engine/alerts.py): "sha256
+    over site|hazard|episode start|type|level|minute of the event", times as ISO 8601
+    UTC, an absent episode start as "-", the id being the first 32 hex digits."""
+    return hashlib.sha256("|".join(fields).encode()).hexdigest()[:32]
+
+
 def test_event_ids_are_stable_and_distinct():
     a = event_id("s1", "fog", T0, "raised", "watch", T0 + timedelta(seconds=20))
     assert a == event_id("s1", "fog", T0, "raised", "watch", T0 + timedelta(seconds=50))
-    assert len(a) == 32 and int(a, 16) >= 0
+    # T0 is 2026-01-10 18:00 UTC; the event at 18:00:20 falls in the minute 18:00
+    assert a == documented_event_id(
+        "s1", "fog", "2026-01-10T18:00:00+00:00", "raised", "watch", "2026-01-10T18:00:00+00:00"
+    )
+    # an event time in another zone (19:07:59 in Berlin) is taken as UTC, to the minute
+    berlin = T0.astimezone(ZoneInfo("Europe/Berlin")) + timedelta(minutes=7, seconds=59)
+    assert berlin.strftime("%H:%M:%S") == "19:07:59"
+    assert event_id("s1", "icing", None, "cleared", "none", berlin) == documented_event_id(
+        "s1", "icing", "-", "cleared", "none", "2026-01-10T18:07:00+00:00"
+    )
     others = {
         event_id("s2", "fog", T0, "raised", "watch", T0),
         event_id("s1", "icing", T0, "raised", "watch", T0),

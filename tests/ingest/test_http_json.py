@@ -1,10 +1,13 @@
-"""HTTP JSON feeds: a real loopback server for the happy paths and retries; `responses`
-for timeouts, cut-off and oversize bodies, bad JSON and schema mismatches."""
+"""HTTP JSON feeds against a real loopback server: the happy paths, retries, and what a
+real server does wrong (stalls, a body cut off short of its Content-Length, too big a
+body, not JSON); `responses` only for faults a local server cannot easily make (a connect
+timeout, a reset, TLS)."""
 
 from __future__ import annotations
 
 import json
 import socket
+import time
 from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
 from pathlib import Path
@@ -145,72 +148,126 @@ def test_a_refused_connection_is_a_clear_reason(feed):
     )
 
 
-# -- injected failures ----------------------------------------------------------------------
+# -- what a real server does wrong: a stall, a body cut off, too much, not JSON ---------------
 
-URL = "http://feed.invalid/obs"
-
-
-@pytest.mark.parametrize(
-    ("body", "expected"),
-    [
-        (requests.exceptions.ConnectTimeout("slow"), "no connection within 5 s to http://feed.invalid/obs"),
-        (requests.exceptions.ReadTimeout("slow"), "no answer within the 15 s read timeout"),
-        (requests.exceptions.ConnectionError("reset"), "cannot connect: reset"),
-        (requests.exceptions.SSLError("bad cert"), "TLS failed: bad cert"),
-        (requests.exceptions.TooManyRedirects("loop"), "request failed: TooManyRedirects: loop"),
-    ],
-    ids=["connect-timeout", "read-timeout", "connection", "tls", "other"],
-)  # fmt: skip
-def test_request_errors_become_source_unavailable(mocked, session, body, expected):
-    mocked.add(responses.GET, URL, body=body)
-    with pytest.raises(SourceUnavailable) as caught:
-        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=1000)
-    assert str(caught.value) == expected
-    assert isinstance(caught.value.__cause__, requests.exceptions.RequestException)
-    assert caught.value.exit_code == 3
+OK_ROWS = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
 
 
-def test_a_timeout_fails_the_poll_and_the_next_poll_goes_on(mocked, feed):
-    ok = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
-    mocked.add(responses.GET, URL, body=requests.exceptions.ReadTimeout("slow"))
-    mocked.add(responses.GET, URL, json=ok)
-    source = feed(url=URL, read_timeout=3)
+def never_answering(loopback_json: LoopbackJson):
+    """The first request gets no status line at all; later ones get rows."""
+    answers = iter(["hang"])
+
+    def responder(_req):
+        if next(answers, "ok") == "hang":
+            loopback_json.stall()  # until the test is over: only a read timeout ends it
+        return 200, {"Content-Type": "application/json"}, json.dumps(OK_ROWS).encode()
+
+    return responder
+
+
+def stalling_body(loopback_json: LoopbackJson):
+    """A status line, headers and half the body, then nothing."""
+
+    def responder(_req):
+        def body():
+            yield b'[{"site": "zz-vale", '
+            loopback_json.stall()
+
+        return 200, {"Content-Type": "application/json", "Content-Length": "200"}, body()
+
+    return responder
+
+
+STALLS = {"no-answer": never_answering, "body-stalls": stalling_body}
+
+
+def test_fetch_json_reports_an_answer_that_never_comes_as_the_read_timeout(
+    session, loopback_json: LoopbackJson
+):
+    loopback_json.respond("/obs", never_answering(loopback_json))
+    started = time.monotonic()
+    with pytest.raises(SourceUnavailable, match=r"^no answer within the 0\.5 s read timeout$"):
+        fetch_json(session, loopback_json.url("/obs"), headers={}, timeout=(5, 0.5), max_bytes=1000)
+    assert time.monotonic() - started < 30  # the timeout ended it, not the stall's limit
+
+
+@pytest.mark.parametrize("stall", STALLS)
+def test_a_stalled_server_fails_the_poll_and_the_next_poll_goes_on(
+    feed, loopback_json: LoopbackJson, stall
+):
+    loopback_json.respond("/obs", STALLS[stall](loopback_json))
+    source = feed(url=loopback_json.url("/obs"), read_timeout=0.5)
+    started = time.monotonic()
     first = source.poll(NOW)
-    assert not first.ok and first.error == f"{URL}: no answer within the 3 s read timeout"
-    assert source.poll(NOW).ok
+    assert time.monotonic() - started < 30
+    assert not first.ok and first.frame.empty
+    assert "Read timed out" in first.error
+    if stall == "no-answer":
+        assert source.poll(NOW).ok  # the next poll goes on
 
 
-def test_injected_500s_then_success_are_retried(feed):
-    ok = [{"site": "zz-vale", "time": "2024-01-12T06:00:00Z", "temp_c": 1.0, "rh_pct": 97}]
-    registry = responses.registries.OrderedRegistry
-    with responses.RequestsMock(registry=registry) as rsps:
-        rsps.add(responses.GET, URL, status=500)
-        rsps.add(responses.GET, URL, status=502)
-        rsps.add(responses.GET, URL, json=ok)
-        result = feed(url=URL, retries=2).poll(NOW)
-        assert len(rsps.calls) == 3
-    assert result.ok, result.error
-    assert len(result.frame) == 1
+@pytest.mark.xfail(
+    strict=True,
+    reason="bug: through the feed's retry adapter a read timeout (and, with any session, a "
+    "body stalling mid-way) reaches fetch_json as requests.ConnectionError, so the poll "
+    "says 'cannot connect: HTTPConnectionPool(host=..., port=...): Read timed out.' — "
+    "not the read timeout, and with the pool's repr",
+)
+@pytest.mark.parametrize("stall", STALLS)
+def test_a_stalled_server_is_reported_as_the_read_timeout(feed, loopback_json: LoopbackJson, stall):
+    loopback_json.respond("/obs", STALLS[stall](loopback_json))
+    result = feed(url=loopback_json.url("/obs"), read_timeout=0.5).poll(NOW)
+    assert result.error == f"{loopback_json.url('/obs')}: no answer within the 0.5 s read timeout"
 
 
-def test_a_cut_off_body_is_reported(mocked, session):
-    mocked.add(responses.GET, URL, body=b'[{"site": "zz-vale"', headers={"Content-Length": "900"})
+def test_a_body_cut_off_short_of_its_content_length_is_reported(
+    session, loopback_json: LoopbackJson
+):
+    # the server promises 900 bytes, sends 19 and hangs up
+    cut = b'[{"site": "zz-vale"'
+    loopback_json.respond("/obs", lambda _req: (200, {"Content-Length": "900"}, cut))
     with pytest.raises(SourceUnavailable, match=r"response cut off or garbled: Connection broken: "
                        r"IncompleteRead\(19 bytes read, 881 more expected\)"):  # fmt: skip
-        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=10_000)
+        fetch_json(
+            session, loopback_json.url("/obs"), headers={}, timeout=(5, 15), max_bytes=10_000
+        )
 
 
-def test_a_declared_oversize_body_is_refused_before_reading(mocked, session):
-    mocked.add(responses.GET, URL, body=b"[]", headers={"Content-Length": "5000001"})
+def test_a_declared_oversize_body_is_refused_before_reading(session, loopback_json):
+    # the headers say 5000001 bytes; the server sends a little and hangs up
+    loopback_json.respond("/obs", lambda _req: (200, {"Content-Length": "5000001"}, b"[]"))
     with pytest.raises(SourceUnavailable, match="response of 5000001 bytes is over the "
                        "5000000-byte limit"):  # fmt: skip
-        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=5_000_000)
+        fetch_json(
+            session, loopback_json.url("/obs"), headers={}, timeout=(5, 15), max_bytes=5_000_000
+        )
 
 
-def test_an_undeclared_oversize_body_is_cut_while_streaming(mocked, feed):
-    mocked.add(responses.GET, URL, body=b"[" + b" " * 200_000 + b"]")
-    result = feed(url=URL, max_bytes=100_000).poll(NOW)
-    assert result.error == f"{URL}: response is over the 100000-byte limit"
+def test_an_undeclared_oversize_body_is_cut_while_streaming(feed, loopback_json: LoopbackJson):
+    written = []
+
+    def responder(_req):
+        def body():  # no Content-Length: the body runs until the server hangs up
+            yield b"["
+            for _ in range(1000):  # 64 MB, far past any socket buffer, if all were read
+                written.append(1)
+                yield b" " * 65536
+            yield b"]"
+
+        return 200, {"Content-Type": "application/json"}, body()
+
+    loopback_json.respond("/obs", responder)
+    result = feed(url=loopback_json.url("/obs"), max_bytes=100_000).poll(NOW)
+    assert result.error == f"{loopback_json.url('/obs')}: response is over the 100000-byte limit"
+    assert len(written) < 1000  # the client stopped reading; the server could not finish
+
+
+def test_a_redirect_loop_is_a_clear_reason(feed, loopback_json: LoopbackJson):
+    loopback_json.respond("/obs", lambda _req: (302, {"Location": "/obs"}, b""))
+    result = feed(url=loopback_json.url("/obs")).poll(NOW)
+    assert result.error == (
+        f"{loopback_json.url('/obs')}: request failed: TooManyRedirects: Exceeded 30 redirects."
+    )
 
 
 @pytest.mark.parametrize(
@@ -223,11 +280,11 @@ def test_an_undeclared_oversize_body_is_cut_while_streaming(mocked, feed):
     ],
     ids=["html", "truncated-json", "empty", "bad-encoding"],
 )
-def test_bad_json_fails_the_poll_with_the_parsers_reason(mocked, feed, body, expected):
-    mocked.add(responses.GET, URL, body=body)
-    result = feed(url=URL).poll(NOW)
+def test_bad_json_fails_the_poll_with_the_parsers_reason(feed, loopback_json, body, expected):
+    loopback_json.respond("/obs", lambda _req: (200, {"Content-Type": "application/json"}, body))
+    result = feed(url=loopback_json.url("/obs")).poll(NOW)
     assert not result.ok
-    assert result.error == f"{URL}: {expected}"
+    assert result.error == f"{loopback_json.url('/obs')}: {expected}"
 
 
 @pytest.mark.parametrize(
@@ -246,13 +303,44 @@ def test_bad_json_fails_the_poll_with_the_parsers_reason(mocked, feed, body, exp
     ids=["records-path", "records-not-a-list", "field-key", "required-column"],
 )  # fmt: skip
 def test_a_schema_mismatch_fails_the_poll_with_what_was_expected(
-    mocked, feed, doc, options, expected
+    feed, loopback_json, doc, options, expected
 ):
-    mocked.add(responses.GET, URL, json=doc)
-    result = feed(url=URL, **options).poll(NOW)
+    loopback_json.json("/obs", doc)
+    result = feed(url=loopback_json.url("/obs"), **options).poll(NOW)
     assert not result.ok
-    assert result.error == f"{URL}: {expected}"
+    assert result.error == f"{loopback_json.url('/obs')}: {expected}"
     assert result.frame.empty
+
+
+def test_secrets_in_the_query_string_stay_out_of_messages(feed, loopback_json: LoopbackJson):
+    loopback_json.json("/obs", {"error": "upstream"}, status=502)
+    result = feed(url=loopback_json.url("/obs?key=not-a-real-key")).poll(NOW)
+    assert result.error == f"{loopback_json.url('/obs')}?…: HTTP 502 Bad Gateway"
+    assert loopback_json.requests[0].path == "/obs?key=not-a-real-key"
+    assert safe_url("https://u:pw@feed.invalid:8443/a/b?x=1") == "https://feed.invalid:8443/a/b?…"
+
+
+# -- faults a local server cannot easily make: injected with `responses` ------------------------
+
+URL = "http://feed.invalid/obs"
+
+
+@pytest.mark.parametrize(
+    ("body", "expected"),
+    [
+        (requests.exceptions.ConnectTimeout("slow"), "no connection within 5 s to http://feed.invalid/obs"),
+        (requests.exceptions.ConnectionError("reset"), "cannot connect: reset"),
+        (requests.exceptions.SSLError("bad cert"), "TLS failed: bad cert"),
+    ],
+    ids=["connect-timeout", "connection-reset", "tls"],
+)  # fmt: skip
+def test_request_errors_become_source_unavailable(mocked, session, body, expected):
+    mocked.add(responses.GET, URL, body=body)
+    with pytest.raises(SourceUnavailable) as caught:
+        fetch_json(session, URL, headers={}, timeout=(5, 15), max_bytes=1000)
+    assert str(caught.value) == expected
+    assert isinstance(caught.value.__cause__, requests.exceptions.RequestException)
+    assert caught.value.exit_code == 3
 
 
 def test_field_map_problems_are_reported_on_every_poll(feed):
@@ -264,13 +352,6 @@ def test_field_map_problems_are_reported_on_every_poll(feed):
     assert unknown.poll(NOW).error == (
         "fields: unknown column 'temperature' (expected a canonical column name)"
     )
-
-
-def test_secrets_in_the_query_string_stay_out_of_messages(mocked, feed):
-    mocked.add(responses.GET, "http://feed.invalid/obs", status=502)
-    result = feed(url="http://feed.invalid/obs?key=not-a-real-key").poll(NOW)
-    assert result.error == "http://feed.invalid/obs?…: HTTP 502 Bad Gateway"
-    assert safe_url("https://u:pw@feed.invalid:8443/a/b?x=1") == "https://feed.invalid:8443/a/b?…"
 
 
 def test_records_path_indexes_lists():
