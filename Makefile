@@ -4,7 +4,7 @@ VENV   ?= .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test lint bench judge clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -26,6 +26,11 @@ lint: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) bench/run.py
+
+# the rules on real station years; downloads two packages once (bench/README.md).
+# make judge JUDGE_ARGS="--out /tmp/judge.json" also writes the scores as JSON
+judge: $(STAMP)
+	$(PY) bench/stations.py $(JUDGE_ARGS)
 
 clean:
 	rm -rf $(VENV) fogwatch-demo .pytest_cache
