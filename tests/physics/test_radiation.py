@@ -18,18 +18,18 @@ from notifier.physics import (
 )
 from notifier.physics.constants import STEFAN_BOLTZMANN
 
-# Check case from REFERENCES [computed]: air 10 °C, e = 10 hPa.
+# Check case from docs/references.md [LW check]: air 10 °C, e = 10 hPa.
 CHECK_TEMP_C = 10.0
 CHECK_E_HPA = 10.0
 
 CLEAR_SKY_TABLE = [
     # (method, expected emissivity, tolerance, source)
-    ("brutsaert", 0.7691, 5e-5),  # REFERENCES [computed] from Brutsaert 1975
-    ("brunt", 0.7255, 5e-5),  # REFERENCES [computed] from Brunt 1932
-    # Swinbank 1963: REFERENCES [computed] prints 0.7508, but 9.37e-6 * 283.15^2 = 0.75123;
-    # 0.7508 would need T = 283.07 K. The formula is trusted here.
+    ("brutsaert", 0.7691, 5e-5),  # docs/references.md [LW check], from Brutsaert 1975
+    ("brunt", 0.7255, 5e-5),  # docs/references.md [LW check], from Brunt 1932
+    # Swinbank 1963: 9.37e-6 * 283.15^2 = 0.75123 (docs/references.md [LW check]); an earlier
+    # note printed 0.7508, which would need T = 283.07 K. The formula is trusted here.
     ("swinbank", 0.7512, 5e-5),
-    # Idso 1981: no value in REFERENCES; 0.70 + 5.95e-5 * 10 * exp(1500/283.15), by hand.
+    # Idso 1981: 0.70 + 5.95e-5 * 10 * exp(1500/283.15) (docs/references.md [LW check]).
     ("idso", 0.8189, 5e-5),
 ]
 
@@ -48,7 +48,7 @@ def test_clear_sky_emissivity_check_values(method: str, expected: float, toleran
 
 
 def test_downwelling_and_net_longwave_check_values() -> None:
-    # REFERENCES [computed]: L_down = 280.3 W/m2 and net loss 82.5 W/m2 (eps_s 0.98,
+    # docs/references.md [LW check]: L_down = 280.3 W/m2 and net loss 82.5 W/m2 (eps_s 0.98,
     # Ts = Ta) with the Brutsaert sky at 10 °C, 10 hPa. Tolerance: the printed rounding.
     sky = clear_sky_emissivity(CHECK_TEMP_C, CHECK_E_HPA)
     assert downwelling_longwave_wm2(CHECK_TEMP_C, sky) == pytest.approx(280.3, abs=0.05)
@@ -62,15 +62,16 @@ def test_black_body_at_freezing() -> None:
 
 def test_overcast_sky_check_values() -> None:
     sky = clear_sky_emissivity(CHECK_TEMP_C, CHECK_E_HPA)
-    # REFERENCES [computed]: Unsworth & Monteith 1975 with c = 1 gives 0.963.
+    # docs/references.md [LW check]: Unsworth & Monteith 1975 with c = 1 gives 0.963.
     overcast = cloudy_sky_emissivity(sky, 100.0)
     assert overcast == pytest.approx(0.963, abs=5e-4)
     # Maykut & Church 1973: 0.7691 * 1.22 = 0.9383 (by hand).
     assert cloudy_sky_emissivity(sky, 100.0, method="maykut_church") == pytest.approx(
         0.9383, abs=5e-4
     )
-    # REFERENCES says overcast net loss "≈ 0"; the formula gives 0.98 * 0.037 * 364.5
-    # = 13.2 W/m2, a sixth of the clear-sky loss. Test what the formula gives.
+    # An earlier note said overcast net loss "≈ 0"; the formula gives 0.98 * 0.037 * 364.5
+    # = 13.2 W/m2 (docs/references.md [LW check]), a sixth of the clear-sky loss. Test what
+    # the formula gives.
     assert net_longwave_loss_wm2(CHECK_TEMP_C, overcast) == pytest.approx(13.2, abs=0.05)
     # Clear sky (c = 0) is unchanged by either cloud correction.
     assert cloudy_sky_emissivity(sky, 0.0) == pytest.approx(sky)
@@ -78,7 +79,7 @@ def test_overcast_sky_check_values() -> None:
 
 
 def test_sky_view_factor_scales_the_loss() -> None:
-    # REFERENCES: with Ts = Ta the loss scales with the sky-view factor.
+    # docs/references.md [LW check]: with Ts = Ta the loss scales with the sky-view factor.
     sky = clear_sky_emissivity(CHECK_TEMP_C, CHECK_E_HPA)
     full = net_longwave_loss_wm2(CHECK_TEMP_C, sky)
     factors = np.array([0.0, 0.25, 0.5, 1.0])
@@ -162,6 +163,19 @@ def test_no_warning_for_bad_input() -> None:
             cloudy_sky_emissivity(bad, bad, method=method)  # type: ignore[arg-type]
         downwelling_longwave_wm2(bad, bad)
         net_longwave_loss_wm2(bad, bad, surface_temp_c=bad, sky_view_factor=bad)
+    # and what comes out: NaN for every undefined input (house rule: physically
+    # undefined input gives NaN), a number for the one defined case, 0 °C and dry air
+    clear_methods = ("brutsaert", "brunt", "swinbank", "idso")
+    cloud_methods = ("unsworth_monteith", "maykut_church")
+    results = [
+        *(clear_sky_emissivity(bad, bad, method=m) for m in clear_methods),  # type: ignore[arg-type]
+        *(cloudy_sky_emissivity(bad, bad, method=m) for m in cloud_methods),  # type: ignore[arg-type]
+        downwelling_longwave_wm2(bad, bad),
+        net_longwave_loss_wm2(bad, bad, surface_temp_c=bad, sky_view_factor=bad),
+    ]
+    for result in results:
+        assert np.isnan(result[:-1]).all(), result
+        assert np.isfinite(result[-1]), result
 
 
 # --- Properties ----------------------------------------------------------------------

@@ -1,4 +1,6 @@
-"""Sunrise/sunset and night bounds against REFERENCES check values and astral.
+"""Sunrise/sunset and night bounds against check values and astral.
+
+The check values are docs/references.md [Sun check].
 
 astral 3.2 is used only here, as an independent implementation of the same NOAA
 equations. Its ``time_of_transit(observer, date, zenith, direction, with_refraction)``
@@ -49,7 +51,7 @@ def astral_event_s(lat: float, lon: float, day: dt.date, rising: bool) -> float:
     return min(candidates, key=lambda s: abs(s - (nominal_noon + sign * 6 * 3600)))
 
 
-# REFERENCES [computed, ±60 s] (and astral agrees to under a second).
+# docs/references.md [Sun check], ±60 s (and astral agrees to under a second).
 REFERENCE_EVENTS = [
     (51.4769, 0.0, dt.date(2024, 6, 21), "2024-06-21T03:42:50", "2024-06-21T20:20:59"),
     (51.4769, 0.0, dt.date(2024, 12, 21), "2024-12-21T08:03:20", "2024-12-21T15:53:18"),
@@ -167,9 +169,9 @@ def test_night_length() -> None:
 # --- night_bounds_utc ----------------------------------------------------------------
 
 GREENWICH = (51.4769, 0.0)
-DEC21_SUNSET = "2024-12-21T15:53:18"  # REFERENCES [computed]
+DEC21_SUNSET = "2024-12-21T15:53:18"  # docs/references.md [Sun check]
 DEC22_SUNRISE = "2024-12-22T08:03:48"  # astral, NOAA zenith, no extra refraction
-DEC21_SUNRISE = "2024-12-21T08:03:20"  # REFERENCES [computed]
+DEC21_SUNRISE = "2024-12-21T08:03:20"  # docs/references.md [Sun check]
 
 
 @pytest.mark.parametrize(
@@ -264,6 +266,20 @@ def test_no_warning_for_bad_input() -> None:
         night_bounds_utc(bad, bad, bad)
         night_bounds_utc(0.0, 0.0, bad)
         night_length_h(bad, bad, np.datetime64("2024-01-01"))
+    # and what comes out (house rule: physically undefined input gives NaN): no such
+    # latitude or longitude, or a pole in polar night/day, has no sunrise or sunset
+    for result in (*sunrise_sunset_utc(bad, bad, dt.date(2024, 1, 1)),
+                   *night_bounds_utc(bad, bad, bad)[:2],
+                   night_length_h(bad, bad, np.datetime64("2024-01-01"))):  # fmt: skip
+        assert np.isnan(result).all(), result
+    assert not night_bounds_utc(bad, bad, bad)[2].any()  # unknown, not "night"
+    # at 0°N 0°E, times of 1938..2001 (±1e9 s, ±90 s) have a night; NaN, ±inf and
+    # ±1e308 s (far outside 1901..2099) do not
+    sunset, sunrise, is_night = night_bounds_utc(0.0, 0.0, bad)
+    defined = np.array([False, True, True, True, True, False, False, False, False])
+    assert np.isfinite(sunset[defined]).all() and np.isfinite(sunrise[defined]).all()
+    assert np.isnan(sunset[~defined]).all() and np.isnan(sunrise[~defined]).all()
+    assert not is_night[~defined].any()
 
 
 @pytest.mark.parametrize(
@@ -292,7 +308,8 @@ def test_many_sites_at_once_match_each_alone() -> None:
         one = night_bounds_utc(lats[i], lons[i], times[i])
         np.testing.assert_allclose([sunset_s[i], sunrise_s[i]], [one[0], one[1]], atol=0.005)
         assert bool(is_night[i]) == bool(one[2])
-    # and the many-site answer still agrees with astral's NOAA events (±60 s, REFERENCES)
+    # and the many-site answer still agrees with astral's NOAA events (±60 s,
+    # docs/references.md [Sun check])
     for i in rng.choice(n, 10, replace=False):
         day = dt.datetime.fromtimestamp(sunset_s[i] + lons[i] * 240.0, tz=dt.UTC).date()
         assert abs(sunset_s[i] - astral_event_s(lats[i], lons[i], day, rising=False)) < 1.0
