@@ -100,7 +100,7 @@ def hours_to_zero(value: ArrayLike, slope_per_h: ArrayLike) -> FloatArray:
 
         value <= 0                 -> 0.0    (already closed)
         value > 0 and slope < 0    -> value / -slope
-        otherwise                  -> NaN    ("not closing / unknown")
+        otherwise                  -> NaN    ("not closing / unknown"; ±inf too)
 
     NaN never means "far away": it means the quantity is not closing at the current
     rate, or an input is missing. A linear extrapolation; no published source needed.
@@ -118,4 +118,5 @@ def hours_to_zero(value: ArrayLike, slope_per_h: ArrayLike) -> FloatArray:
     hours = current / -slope
     closing = (current > 0.0) & (slope < 0.0) & np.isfinite(current)
     result = np.where(closing, hours, np.nan)
-    return np.where(current <= 0.0, 0.0, result)[()]
+    # an infinite value is no measurement: unknown, not "already closed"
+    return np.where((current <= 0.0) & np.isfinite(current), 0.0, result)[()]
