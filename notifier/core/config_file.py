@@ -9,8 +9,9 @@ count as known, so nothing is reported twice).
 
 Besides errors, :func:`read_config` returns *warnings*: a secret or password written
 literally in the file (it belongs in the environment, as ``${NAME}``) and a key that is
-no longer used. :func:`load_config` logs each warning at WARNING, so ``fogwatch check``
-and the service both show them; they never make a file invalid.
+no longer used (:mod:`notifier.core.config_warnings`). :func:`load_config` logs each
+warning at WARNING, so the service shows them; ``fogwatch check`` prints them. They never
+make a file invalid.
 """
 
 from __future__ import annotations
@@ -21,7 +22,6 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
-from urllib.parse import parse_qsl, urlsplit
 
 from pydantic import (
     ValidationError,
@@ -35,67 +35,26 @@ from notifier.core.config import (
     FolderChannel,
     TextChannel,
 )
+from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
-from notifier.core.yamlio import MarkedDict, MarkedList, expand_env_all, line_of, load_yaml
+from notifier.core.yamlio import (
+    Expansion,
+    Loc,
+    MarkedDict,
+    MarkedList,
+    expand_all,
+    line_of,
+    load_yaml,
+    loc_text,
+)
 
-__all__ = ["RETIRED_KEYS", "load_config", "problems_from_validation", "read_config"]
+__all__ = ["load_config", "problems_from_validation", "read_config"]
 
 log = logging.getLogger(__name__)
-
-Loc = tuple[Any, ...]
-
-#: Keys a config may still carry from an earlier version: ignored, with a warning why.
-RETIRED_KEYS: dict[Loc, str] = {
-    ("schedule", "morning_summary_local_time"): (
-        "no longer used, ignored: watch news held in a subscriber's quiet_hours goes as "
-        "one summary when those quiet hours end, in the subscriber's own zone; "
-        "delete this line"
-    ),
-}
-
-
-@dataclass
-class _Expansion:
-    """What ``${NAME}`` expansion found, by location in the file."""
-
-    missing: dict[Loc, list[str]] = field(default_factory=dict)  # names not set
-    expanded: set[Loc] = field(default_factory=set)  # values read from the environment
-    written: dict[Loc, str] = field(default_factory=dict)  # the text before expansion
-
-    def is_missing(self, loc: Loc) -> bool:
-        return any(loc[: len(m)] == m for m in self.missing)
-
-
-def _expand_all(node: Any, loc: Loc, found: _Expansion) -> Any:
-    if isinstance(node, MarkedDict):
-        for key in list(node):
-            node[key] = _expand_all(node[key], (*loc, key), found)
-    elif isinstance(node, MarkedList):
-        for i, item in enumerate(node):
-            node[i] = _expand_all(item, (*loc, i), found)
-    elif isinstance(node, str) and "${" in node:
-        value, missing = expand_env_all(node)
-        found.written[loc] = node
-        if missing:
-            found.missing[loc] = missing
-            return node  # left as written: validation skips this place
-        found.expanded.add(loc)
-        return value
-    return node
 
 
 def _resolve(base: Path, value: Path) -> Path:
     return value if value.is_absolute() else (base / value).resolve()
-
-
-def _loc_text(loc: Loc) -> str:
-    parts = []
-    for part in loc:
-        if isinstance(part, int):
-            parts.append(f"[{part}]")
-        else:
-            parts.append(("." if parts else "") + str(part))
-    return "".join(parts)
 
 
 def _raw_loc(raw: Any, loc: Loc) -> Loc:
@@ -143,7 +102,7 @@ def problems_from_validation(
         if skip is not None and skip(shown):
             continue
         msg = err["msg"].removeprefix("Value error, ")
-        where = _loc_text(shown)
+        where = loc_text(shown)
         got = ""
         if err["type"] not in ("missing",) and not isinstance(err.get("input"), dict | list):
             got = f" (got {err.get('input')!r})"
@@ -194,17 +153,17 @@ def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[Co
         raw.key_lines = {}
     if not isinstance(raw, dict):
         raise ConfigError(ConfigProblem(str(path), 1, "expected a mapping at the top level"))
-    found = _Expansion()
-    _expand_all(raw, (), found)
+    found = Expansion()
+    expand_all(raw, (), found)
     warnings = sorted(
-        _retire_keys(str(path), raw) + _literal_secrets(str(path), raw, found),
+        retire_keys(str(path), raw) + literal_secrets(str(path), raw, found),
         key=lambda p: p.line or 0,
     )
     problems = [
         ConfigProblem(
             str(path),
             line_of(raw, loc),
-            f"{_loc_text(loc)}: environment variable {name} is not set",
+            f"{loc_text(loc)}: environment variable {name} is not set",
         )
         for loc, names in found.missing.items()
         for name in names
@@ -219,7 +178,7 @@ def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[Co
     return config, [], warnings
 
 
-def _validate(path: Path, raw: Any, found: _Expansion) -> tuple[Config | None, list[ConfigProblem]]:
+def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, list[ConfigProblem]]:
     """Validate and cross-check; on a validation error, cross-check what did validate."""
     view = _View(raw)
     try:
@@ -243,7 +202,7 @@ def _validate(path: Path, raw: Any, found: _Expansion) -> tuple[Config | None, l
         raw_loc = view.raw_loc(loc)
         if not found.is_missing(raw_loc):
             problems.append(
-                ConfigProblem(str(path), line_of(raw, raw_loc), f"{_loc_text(raw_loc)}: {message}")
+                ConfigProblem(str(path), line_of(raw, raw_loc), f"{loc_text(raw_loc)}: {message}")
             )
     return config, problems
 
@@ -339,112 +298,6 @@ def _prune(raw: Any, exc: ValidationError) -> _View | None:
             view.known["tags"] = tags
         data[key] = kept
     return view
-
-
-# -- warnings ---------------------------------------------------------------------------
-
-
-def _retire_keys(path: str, raw: Any) -> list[ConfigProblem]:
-    """Take out keys no longer used (so an old file still loads), with a warning each."""
-    out = []
-    for loc, why in RETIRED_KEYS.items():
-        *parents, key = loc
-        node = raw
-        for part in parents:
-            node = node.get(part) if isinstance(node, dict) else None
-        if isinstance(node, dict) and key in node:
-            out.append(ConfigProblem(path, line_of(raw, loc), f"{_loc_text(loc)}: {why}"))
-            del node[key]
-    return out
-
-
-# a query parameter or header that carries a credential (common practice in API URLs:
-# token, access_token, api_key, apikey, key, sig, password, secret, client_secret …)
-_SECRET_NAME = re.compile(
-    r"token|secret|passw|pwd|api_?key|access_?key|signature|^sig$|^key$|^auth|cookie",
-    re.IGNORECASE,
-)
-_PLACEHOLDER = re.compile(r"^\{[a-z_]+\}$")  # {lat}, {lon}, {site}: filled in per site
-
-
-def _env_name(*parts: Any) -> str:
-    words = [re.sub(r"[^A-Za-z0-9]+", "_", str(p)).strip("_").upper() for p in parts]
-    return "_".join(w for w in words if w)
-
-
-def _from_env(text: Any) -> bool:
-    return isinstance(text, str) and "${" in text
-
-
-def _literal_secrets(path: str, raw: Any, found: _Expansion) -> list[ConfigProblem]:
-    """A warning for each secret written in the file rather than read from the environment:
-    a webhook or bot ``secret``, an SMTP ``password``, a URL with a password or a
-    credential in its query, a credential header. The value itself is never shown."""
-    out: list[ConfigProblem] = []
-
-    def warn(loc: Loc, what: str, write: str, name: str) -> None:
-        out.append(
-            ConfigProblem(
-                path,
-                line_of(raw, loc),
-                f"{_loc_text(loc)}: {what} is written in the file; secrets belong in the "
-                f"environment: write {write} and set {name} in fogwatch's environment",
-            )
-        )
-
-    places: list[tuple[Loc, dict[Any, Any], str]] = []
-    for section in ("channels", "sources"):
-        items = raw.get(section)
-        for i, item in enumerate(items if isinstance(items, list) else []):
-            if isinstance(item, dict):
-                places.append(((section, i), item, str(item.get("id") or f"{section}{i}")))
-    for section, owner in (("bot", "bot"), ("store", "db")):
-        if isinstance(raw.get(section), dict):
-            places.append(((section,), raw[section], owner))
-    for loc, item, owner in places:
-        for key in ("secret", "password"):
-            value = found.written.get((*loc, key), item.get(key))
-            if item.get(key) in (None, "") or _from_env(value):
-                continue
-            name = _env_name("FOGWATCH", owner, key)
-            warn((*loc, key), f"a {key}", f'{key}: "${{{name}}}"', name)
-        url = found.written.get((*loc, "url"), item.get("url"))
-        if isinstance(url, str):
-            for what, write, name in _url_secrets(url, owner):
-                warn((*loc, "url"), what, write, name)
-        headers = item.get("headers")
-        for header, written in (headers if isinstance(headers, dict) else {}).items():
-            value = found.written.get((*loc, "headers", header), written)
-            if not _SECRET_NAME.search(str(header)) or value in (None, "") or _from_env(value):
-                continue
-            word = "token" if str(header).lower() == "authorization" else str(header)
-            name = _env_name("FOGWATCH", owner, word)
-            scheme = str(value).split(" ", 1)[0] if " " in str(value) else ""
-            write = f'{header}: "{scheme + " " if scheme else ""}${{{name}}}"'
-            warn((*loc, "headers", header), f"a credential in header {header}", write, name)
-    return out
-
-
-def _url_secrets(url: str, owner: str) -> list[tuple[str, str, str]]:
-    """(what, how to write it, variable) for each credential written in ``url``."""
-    try:
-        parts = urlsplit(url)
-        password = parts.password
-    except ValueError:
-        return []
-    out = []
-    if password and not _from_env(password):
-        name = _env_name("FOGWATCH", owner, "password")
-        user = parts.username or "USER"
-        out.append(("a password in the URL", f"{user}:${{{name}}}@ in the URL", name))
-    for key, value in parse_qsl(parts.query, keep_blank_values=False):
-        if not _SECRET_NAME.search(key) or _from_env(value) or _PLACEHOLDER.match(value):
-            continue
-        name = _env_name("FOGWATCH", owner, key)
-        out.append(
-            (f"a credential in the URL's query ({key}=…)", f"{key}=${{{name}}} in the URL", name)
-        )
-    return out
 
 
 def _resolve_paths(config: Config) -> Config:

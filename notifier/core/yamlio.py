@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import re
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -17,7 +18,21 @@ import yaml
 
 from notifier.core.errors import ConfigError, ConfigProblem
 
-__all__ = ["MarkedDict", "MarkedList", "expand_env", "expand_env_all", "line_of", "load_yaml"]
+__all__ = [
+    "Expansion",
+    "Loc",
+    "MarkedDict",
+    "MarkedList",
+    "expand_all",
+    "expand_env",
+    "expand_env_all",
+    "line_of",
+    "load_yaml",
+    "loc_text",
+]
+
+#: A place in a loaded file: the keys and list indexes from its top (``("sites", 0, "id")``).
+Loc = tuple[Any, ...]
 
 
 class MarkedDict(dict):  # type: ignore[type-arg]
@@ -139,3 +154,44 @@ def expand_env(value: str, environ: Mapping[str, str] | None = None) -> str:
     if missing:
         raise KeyError(*missing)
     return text
+
+
+@dataclass
+class Expansion:
+    """What ``${NAME}`` expansion found, by location in the file."""
+
+    missing: dict[Loc, list[str]] = field(default_factory=dict)  # names not set
+    expanded: set[Loc] = field(default_factory=set)  # values read from the environment
+    written: dict[Loc, str] = field(default_factory=dict)  # the text before expansion
+
+    def is_missing(self, loc: Loc) -> bool:
+        return any(loc[: len(m)] == m for m in self.missing)
+
+
+def expand_all(node: Any, loc: Loc, found: Expansion) -> Any:
+    if isinstance(node, MarkedDict):
+        for key in list(node):
+            node[key] = expand_all(node[key], (*loc, key), found)
+    elif isinstance(node, MarkedList):
+        for i, item in enumerate(node):
+            node[i] = expand_all(item, (*loc, i), found)
+    elif isinstance(node, str) and "${" in node:
+        value, missing = expand_env_all(node)
+        found.written[loc] = node
+        if missing:
+            found.missing[loc] = missing
+            return node  # left as written: validation skips this place
+        found.expanded.add(loc)
+        return value
+    return node
+
+
+def loc_text(loc: Loc) -> str:
+    """``sites[0].id``: a place in the file as a person reads it."""
+    parts = []
+    for part in loc:
+        if isinstance(part, int):
+            parts.append(f"[{part}]")
+        else:
+            parts.append(("." if parts else "") + str(part))
+    return "".join(parts)
