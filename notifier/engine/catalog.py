@@ -74,6 +74,20 @@ FEATURES: dict[str, FeatureSpec] = {
         decimals=2,
         description="Theil–Sen slope of the depression over the last 3 h; negative = closing",
     ),
+    "depression_step_c": FeatureSpec(
+        "depression reporting step",
+        "°C",
+        decimals=2,
+        description="smallest change of the depression between successive readings "
+        "(whole °F give 0.56); NaN if it never moves",
+    ),
+    "depression_closing": FeatureSpec(
+        "depression closing",
+        "",
+        kind="bool",
+        description="trend ≤ −max(0.1 °C/h, reporting step ÷ 3 h): closing by more "
+        "than the data can resolve",
+    ),
     "hours_to_saturation": FeatureSpec(
         "time to saturation", "h", description="depression ÷ closing rate (trend)"
     ),
@@ -99,6 +113,12 @@ FEATURES: dict[str, FeatureSpec] = {
     ),
     "min_minus_crossover_c": FeatureSpec("projected minimum above crossover", "°C"),
     "cloud_pct": FeatureSpec("cloud cover", "%", decimals=0),
+    "cloud_known": FeatureSpec(
+        "cloud cover reported",
+        "",
+        kind="bool",
+        description="observed or forecast; never unknown",
+    ),
     "wind_ms": FeatureSpec("wind", "m/s"),
     "net_longwave_wm2": FeatureSpec(
         "net long-wave loss",
@@ -124,9 +144,21 @@ FEATURES: dict[str, FeatureSpec] = {
     ),
     "water_temp_c": FeatureSpec("water temperature", "°C"),
     "dewpoint_minus_water_c": FeatureSpec("dew point above water temperature", "°C"),
+    "water_temp_known": FeatureSpec(
+        "water temperature reported", "", kind="bool", description="never unknown"
+    ),
     "water_minus_air_c": FeatureSpec("water above air temperature", "°C"),
     "onshore": FeatureSpec("onshore wind", "", kind="bool"),
     "visibility_m": FeatureSpec("visibility", "m", decimals=0),
+    "visibility_known": FeatureSpec(
+        "visibility reported", "", kind="bool", description="never unknown"
+    ),
+    "visibility_trend_m_per_h": FeatureSpec(
+        "visibility trend",
+        "m/h",
+        decimals=0,
+        description="Theil–Sen slope of the visibility over the last 3 h; negative = falling",
+    ),
     "observed_fog": FeatureSpec("fog observed", "", kind="bool"),
     "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
     "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),
@@ -181,9 +213,20 @@ class FeatureSettings:
     current_max_age_h: float = 3.0  # older readings are not "current"
     trend_window_h: float = 3.0
     trend_min_span_h: float = 0.75
-    fit_min_span_h: float = 0.75
+    # a cooling fit is trusted with at least this many readings over this span, once
+    # the evening transition is over (common practice: 2–3 points after sunset fit
+    # almost any curve)
+    fit_min_span_h: float = 2.0
+    fit_min_points: int = 4
+    # the thermal admittance that caps a fitted cooling rate by Brunt's law, J m⁻² K⁻¹
+    # s^-½: between dry (~620) and wet sand (~2550), docs/references.md [Oke 1987]; a
+    # lower value gives a looser cap
+    cap_thermal_admittance: float = 1200.0
     evening_transition_h: float = 1.5
-    min_closing_c_per_h: float = 0.02
+    # a depression closing slower than this is "not closing" (0.1 °C/h, common practice);
+    # coarser data need more: its reporting step over the trend window (see families)
+    min_closing_c_per_h: float = 0.1
+    step_noise_c: float = 0.005  # smaller changes are float noise, not a reporting step
     water_max_age_h: float = 24.0  # water temperature changes slowly
     block_hours: float = 24.0
     # Radiation fog needs light wind: calm to ~3 m/s is typical, stronger wind mixes the

@@ -146,24 +146,65 @@ def moisture(w: Window, now: Current, settings: FeatureSettings) -> dict[str, np
         rh_pct = physics.relative_humidity_pct(now.temp_c, now.dewpoint_c)
         rh_pct = np.where(np.isnan(rh_pct), now.values["rh_pct"], rh_pct)
     trend = _depression_trend(w, settings)
-    # A slope below the sensors' resolution over the window is no trend (0.06 °C in
-    # 3 h, common practice): without this a flat series reads as "saturation in 10^15 h".
-    closing = np.where(trend <= -settings.min_closing_c_per_h, trend, 0.0)
+    step = _depression_step(w, settings)
+    # "Closing" means closing by more than the data can resolve: a depression reported
+    # in steps of q (whole °F step it by 5/9 °C) can move one step within the trend
+    # window without any real change, so the slope must beat q over the window, and
+    # at least min_closing_c_per_h (0.1 °C/h, common practice). Without this a flat or
+    # one-step-jittering series reads as "closing" and a saturation time is projected.
+    with np.errstate(invalid="ignore"):
+        min_rate = np.fmax(settings.min_closing_c_per_h, step / settings.trend_window_h)
+        is_closing = trend <= -min_rate
+    closing = np.where(is_closing, trend, 0.0)
     closing = np.where(np.isnan(trend), np.nan, closing)
     return {
         "rh_pct": rh_pct,
         "dewpoint_depression_c": depression,
         "depression_trend_c_per_h": trend,
+        "depression_step_c": step,
+        "depression_closing": np.where(np.isnan(trend), np.nan, is_closing.astype(float)),
         "hours_to_saturation": physics.hours_to_zero(depression, closing),
     }
+
+
+def _depression_step(w: Window, settings: FeatureSettings) -> np.ndarray:
+    """The reporting step of the depression over the window (°C, NaN if it never moves):
+    the smallest change between successive readings that is larger than float noise."""
+    blk = w.blk
+    a, b = column_span(w.lo, w.hi)
+    step = np.full(blk.n, np.nan)
+    if b - a < 2:
+        return step
+    d = blk.block("temp_c", a, b) - blk.block("dewpoint_c", a, b)
+    d = np.where(in_range(a, b, w.lo, w.hi), d, np.nan)
+    # successive readings: each reading against the last one before it (gaps skipped)
+    ok = ~np.isnan(d)
+    idx = np.where(ok, np.arange(b - a), -1)
+    prev_idx = np.maximum.accumulate(idx, axis=1)
+    prev = np.empty_like(d)
+    prev[:, 0] = np.nan
+    prev_col = prev_idx[:, :-1]
+    prev[:, 1:] = np.where(
+        prev_col >= 0, np.take_along_axis(d, np.maximum(prev_col, 0), axis=1), np.nan
+    )
+    with np.errstate(invalid="ignore"):
+        change = np.abs(d - prev)
+        change = np.where(change > settings.step_noise_c, change, np.inf)
+        smallest = change.min(axis=1)
+    return np.where(np.isinf(smallest), np.nan, smallest)
 
 
 def _depression_trend(w: Window, settings: FeatureSettings) -> np.ndarray:
     """Theil–Sen slope of the depression over the last hours (°C/h, NaN if too few)."""
     blk = w.blk
     a, b = column_span(w.trend_lo, w.hi)
+    return _trend(w, blk.block("temp_c", a, b) - blk.block("dewpoint_c", a, b), a, b, settings)
+
+
+def _trend(w: Window, d_tail: np.ndarray, a: int, b: int, settings: FeatureSettings) -> np.ndarray:
+    """Theil–Sen slope per hour of ``d_tail`` (columns ``a:b``) over the trend window."""
+    blk = w.blk
     h_tail = w.hours[:, a:b]
-    d_tail = blk.block("temp_c", a, b) - blk.block("dewpoint_c", a, b)
     m_tail = in_range(a, b, w.trend_lo, w.hi) & ~np.isnan(d_tail)
     h_use = np.where(m_tail, h_tail, np.nan)
     span = np.nanmax(h_use, axis=1, initial=-np.inf) - np.nanmin(h_use, axis=1, initial=np.inf)
@@ -222,12 +263,17 @@ def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
         "frost_point_c": frost_point,
         "surface_minus_frost_point_c": surface_margin,
         "dewpoint_minus_water_c": dew_minus_water,
+        # never unknown, so a rule can ask for sites without a water temperature
+        "water_temp_known": (~np.isnan(cur["water_temp_c"])).astype(float),
+        "cloud_known": (~np.isnan(cur["cloud_pct"])).astype(float),
         "water_minus_air_c": water_minus_air,
         "onshore": _onshore(st.onshore_lo, st.onshore_hi, cur["wind_dir_deg"], cur["wind_ms"]),
     }
 
 
-def observed_weather(w: Window, now: Current, rh_pct: np.ndarray) -> dict[str, np.ndarray]:
+def observed_weather(
+    w: Window, now: Current, rh_pct: np.ndarray, settings: FeatureSettings | None = None
+) -> dict[str, np.ndarray]:
     """Fog, mist and freezing fog from the newest report that carries weather or visibility.
 
     Fog is visibility below 1000 m or a reported FG; mist is BR, or 1–5 km with RH ≥ 95 %
@@ -238,7 +284,12 @@ def observed_weather(w: Window, now: Current, rh_pct: np.ndarray) -> dict[str, n
     fog = np.full(n, np.nan)
     mist = np.full(n, np.nan)
     fzfg = np.full(n, np.nan)
-    found = {"observed_fog": fog, "observed_mist": mist, "observed_freezing_fog": fzfg}
+    found = {
+        "observed_fog": fog,
+        "observed_mist": mist,
+        "observed_freezing_fog": fzfg,
+        **_visibility_trend(w, now, settings),
+    }
     if "visibility_m" not in blk.obs and "weather" not in blk.obs:
         return found
     a, b = column_span(start, hi)  # the reports of the last hours (current_max_age_h)
@@ -265,6 +316,23 @@ def observed_weather(w: Window, now: Current, rh_pct: np.ndarray) -> dict[str, n
     mist[sidx] = mist_now
     fzfg[sidx] = fz_now
     return found
+
+
+def _visibility_trend(
+    w: Window, now: Current, settings: FeatureSettings | None
+) -> dict[str, np.ndarray]:
+    """Whether visibility is reported now (never unknown: a rule may ask for either
+    answer), and its Theil–Sen trend over the trend window (m/h, NaN if too few)."""
+    settings = settings or FeatureSettings()
+    n = w.blk.n
+    known = (~np.isnan(now.values["visibility_m"])).astype(float)
+    trend = np.full(n, np.nan)
+    has = w.blk.reports("visibility_m") if "visibility_m" in w.blk.obs else np.array([], int)
+    if has.size:
+        a, b = column_span(w.trend_lo, w.hi)
+        if b > a:
+            trend = _trend(w, w.blk.block("visibility_m", a, b), a, b, settings)
+    return {"visibility_known": known, "visibility_trend_m_per_h": trend}
 
 
 def _first_per_site(sidx: np.ndarray, t: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:

@@ -21,7 +21,7 @@ import numpy as np
 from notifier import physics
 from notifier.engine.block import SiteArrays, column_span, in_range
 from notifier.engine.catalog import FeatureSettings
-from notifier.engine.families import SUBSET_SHARE, Current, Window
+from notifier.engine.families import SUBSET_SHARE, Current, Window, radiation
 
 __all__ = [
     "Night",
@@ -114,6 +114,7 @@ class Projection:
     hours_to_crossing: np.ndarray
     fit_t0: np.ndarray  # tonight's square-root cooling fit (NaN where none)
     fit_k: np.ndarray
+    fit_points: np.ndarray | None = None  # readings behind a trusted fit (0: none)
 
     @property
     def min_margin(self) -> np.ndarray:
@@ -140,7 +141,7 @@ def projected_minimum(
         fit_k=np.full(n, np.nan),
     )
     _from_forecast(p, w, sun, cooling_potential, st.min_offset)
-    _from_cooling_fit(p, w, sun, now, settings)
+    _from_cooling_fit(p, w, sun, now, st, settings)
     _from_midday(p, w, sun, now, cooling_potential, st.min_offset)
     return p
 
@@ -166,11 +167,20 @@ def _from_forecast(
 
 
 def _from_cooling_fit(
-    p: Projection, w: Window, sun: Night, now: Current, settings: FeatureSettings
+    p: Projection, w: Window, sun: Night, now: Current, st: SiteArrays, settings: FeatureSettings
 ) -> None:
-    """(2) Brunt's square-root law fitted to tonight's own readings"""
+    """(2) Brunt's square-root law fitted to tonight's own readings, where they can be
+    trusted: past the evening transition, with ``fit_min_points`` readings over
+    ``fit_min_span_h`` hours. Two or three points right after sunset, when the air cools
+    fastest and the surface layer is still settling, fit almost any curve: projected to
+    sunrise they gave most of the false alarms on a real station year. The fitted k is
+    capped by Brunt's own coefficient for the night's net long-wave loss (the air cannot
+    cool faster than the ground under it), and the curve is run to the crossover
+    temperature where it is known (dew deposition stalls cooling near the afternoon's
+    lowest dew point; docs/references.md [Crossover method]), else the dew point."""
     blk, n = w.blk, w.blk.n
     temp_c, dewpoint_c = now.temp_c, now.dewpoint_c
+    crossover_c = crossover(w, sun)
     a, b = column_span(sun.since_lo, w.hi)
     h_tail = w.hours[:, a:b]
     tc_tail = blk.block("temp_c", a, b)
@@ -182,19 +192,34 @@ def _from_cooling_fit(
     # per row again: a site with a forecast minimum or too few points needs no fit
     t0 = np.full(n, np.nan)
     k = np.full(n, np.nan)
-    need = np.isnan(p.proj) & (m_tail.sum(axis=1) >= 3)
+    points = m_tail.sum(axis=1)
+    with np.errstate(invalid="ignore"):
+        past_transition = sun.hours_since_sunset >= settings.evening_transition_h
+    need = np.isnan(p.proj) & (points >= settings.fit_min_points) & past_transition
     if need.any():
         pick = need if need.mean() < SUBSET_SHARE else slice(None)
         t0[pick], k[pick] = physics.fit_sqrt_cooling(x[pick], y[pick])
     fit_span = np.nanmax(x, axis=1, initial=-np.inf) - np.nanmin(x, axis=1, initial=np.inf)
-    fit_ok = ~np.isnan(k) & (fit_span >= settings.fit_min_span_h) & np.isnan(p.proj)
+    fit_ok = need & ~np.isnan(k) & (fit_span >= settings.fit_min_span_h)
+    p.fit_points = np.where(fit_ok, points, 0)
     night_len = (sun.next_sunrise - sun.last_sunset) / 3600.0
+    # Brunt's coefficient for tonight's net loss (docs/references.md [Oke 1987],
+    # [Brunt k check]); an unknown loss leaves the fit uncapped
+    net_lw, _ = radiation(now, st, settings)
+    k_cap = physics.brunt_cooling_coefficient_k_per_sqrt_h(
+        np.maximum(net_lw, 0.0), settings.cap_thermal_admittance
+    )
     with np.errstate(invalid="ignore"):
+        capped = k > k_cap
+        # a capped curve runs from the temperature now at Brunt's rate
+        t0 = np.where(capped, temp_c + k_cap * np.sqrt(sun.hours_since_sunset), t0)
+        k = np.where(capped, k_cap, k)
+        target = np.where(np.isnan(crossover_c), dewpoint_c, np.fmin(crossover_c, dewpoint_c))
         at_sunrise = physics.project_sqrt_cooling_c(t0, np.maximum(k, 0.0), night_len)
         fitted = np.fmin(at_sunrise, temp_c)
         cross_h = np.where(
-            (k > 0) & (temp_c > dewpoint_c),
-            ((t0 - dewpoint_c) / np.where(k > 0, k, np.nan)) ** 2,
+            (k > 0) & (temp_c > target),
+            ((t0 - target) / np.where(k > 0, k, np.nan)) ** 2,
             np.nan,
         )
         cross_from_now = cross_h - sun.hours_since_sunset

@@ -357,3 +357,151 @@ def test_the_sun_carried_from_another_time_equals_the_sun_worked_out(seed):
         np.testing.assert_array_equal(carried[2], direct[2], err_msg=f"night at {hours} h")
         for got, want in zip(carried[:2], direct[:2], strict=True):
             np.testing.assert_allclose(got, want, rtol=0, atol=0.01, err_msg=f"{hours} h")
+
+
+# -- data resolution, trusted cooling fits, visibility -------------------------------------
+
+
+def _f_to_c(f):
+    # the definition of the Fahrenheit scale: t/°C = (t/°F − 32) × 5/9 (SI Brochure 2019)
+    return (np.asarray(f, dtype=float) - 32.0) * 5.0 / 9.0
+
+
+def test_whole_fahrenheit_readings_have_a_five_ninths_step_and_a_jitter_is_not_closing():
+    # Temperatures in whole °F (US METAR/ASOS practice) move the depression in steps of
+    # 5/9 °C. Over 3 h one step down (a trend of −0.19 °C/h at most) is within the
+    # data's resolution: not closing, whatever the slope's sign.
+    s = site("whole-f")
+    at = utc(2026, 11, 20, 3)
+    temp_f = [41, 41, 41, 40]  # hourly, the last step one °F down at a fixed dew point
+    obs = pd.DataFrame(
+        {
+            "site": s.id,
+            "time": pd.to_datetime([at - timedelta(hours=3 - i) for i in range(4)], utc=True),
+            "kind": "obs",
+            "temp_c": _f_to_c(temp_f),
+            "dewpoint_c": float(_f_to_c(39)),
+            "wind_ms": 1.0,
+        }
+    )
+    row, _ = one(obs, s, at)
+    assert row["depression_step_c"] == pytest.approx(5.0 / 9.0, abs=1e-9)
+    assert row["depression_trend_c_per_h"] <= 0.0
+    assert row["depression_closing"] == 0.0
+    assert np.isnan(row["hours_to_saturation"])
+
+
+def test_a_depression_closing_by_several_steps_is_closing():
+    s = site("closing-f")
+    at = utc(2026, 11, 20, 3)
+    temp_f = [44, 43, 42, 41, 40]  # one °F an hour: −0.56 °C/h, three times q / 3 h
+    obs = pd.DataFrame(
+        {
+            "site": s.id,
+            "time": pd.to_datetime([at - timedelta(hours=4 - i) for i in range(5)], utc=True),
+            "kind": "obs",
+            "temp_c": _f_to_c(temp_f),
+            "dewpoint_c": float(_f_to_c(39)),
+            "wind_ms": 1.0,
+        }
+    )
+    row, _ = one(obs, s, at)
+    assert row["depression_trend_c_per_h"] == pytest.approx(-5.0 / 9.0, abs=1e-9)
+    assert row["depression_closing"] == 1.0
+    assert row["hours_to_saturation"] == pytest.approx((5.0 / 9.0) / (5.0 / 9.0), abs=1e-9)
+
+
+def _evening(s, hours_after_sunset, step_min, cloud_pct, k=1.7, dewpoint_c=4.0):
+    """Readings from sunset on, cooling by Brunt's law T = 9 − k√t (t in h)."""
+    from notifier import physics
+
+    sunset, _ = physics.night_bounds_utc(
+        np.array([s.lat]), np.array([s.lon]), np.array([utc(2026, 10, 14, 21).timestamp()])
+    )[:2]
+    sunset_t = dt.datetime.fromtimestamp(float(sunset[0]), dt.UTC)
+    n = int(hours_after_sunset * 60 / step_min) + 1
+    times = [sunset_t + timedelta(minutes=step_min * i) for i in range(n)]
+    hours = np.array([(t - sunset_t).total_seconds() / 3600 for t in times])
+    obs = pd.DataFrame(
+        {
+            "site": s.id,
+            "time": pd.to_datetime(times, utc=True),
+            "kind": "obs",
+            "temp_c": 9.0 - k * np.sqrt(hours),
+            "dewpoint_c": dewpoint_c,
+            "wind_ms": 1.0,
+            "cloud_pct": cloud_pct,
+        }
+    )
+    return obs, times[-1]
+
+
+@pytest.mark.parametrize(
+    ("hours", "step_min"),
+    [(1.0, 10), (2.0, 60), (1.75, 10)],
+    ids=["within-the-evening-transition", "three-hourly-points", "span-under-two-hours"],
+)
+def test_a_cooling_fit_is_not_trusted_on_too_little_evening(hours, step_min):
+    # 2–3 points after sunset fit almost any curve: no fit, no crossing time from it
+    s = site("early-evening")
+    obs, at = _evening(s, hours, step_min, cloud_pct=0.0)
+    row, table = one(obs, s, at)
+    assert table.projection_method[0] != "cooling-fit"
+    assert np.isnan(row["hours_to_crossing"])
+    assert np.isnan(table.fit_k_per_sqrt_h[0])
+
+
+def test_a_fitted_cooling_rate_is_capped_by_brunts_law_for_the_nights_loss():
+    # Overcast: the net long-wave loss is ~13 W/m² (docs/references.md [LW check]), so
+    # Brunt's law (docs/references.md [Oke 1987], [Brunt k check]) allows at most
+    # k = 60 · 2R / (√π μ) K h^-½ with μ = 1200 — well under the 1.7 K h^-½ the readings
+    # show (cooling by advection or rain, not radiation, which the night will not keep).
+    s = site("overcast-evening")
+    obs, at = _evening(s, 3.0, 10, cloud_pct=100.0)
+    row, table = one(obs, s, at)
+    assert table.projection_method[0] == "cooling-fit"
+    r = row["net_longwave_wm2"]
+    assert 5.0 < r < 20.0
+    k_cap = 60.0 * 2.0 * r / (np.sqrt(np.pi) * 1200.0)
+    assert table.fit_k_per_sqrt_h[0] == pytest.approx(k_cap, rel=1e-9)
+    # the capped curve runs on from the temperature now
+    t_now = row["temp_c"]
+    assert row["projected_min_temp_c"] > t_now - k_cap * 12  # well above an uncapped fall
+
+
+def test_the_cooling_curve_runs_to_the_crossover_temperature():
+    # docs/references.md [Crossover method]: the afternoon's lowest dew point, not the
+    # dew point now, is the temperature the night must reach
+    s = site("crossover-evening")
+    obs, at = _evening(s, 3.0, 10, cloud_pct=0.0)
+    row0, _ = one(obs, s, at)
+    noon = utc(2026, 10, 14, 15)
+    afternoon = steady(s.id, noon, hours=3.0, temp_c=14.0, dewpoint_c=3.0, wind_ms=2.0)
+    row, table = one(pd.concat([afternoon, obs]), s, at)
+    assert row["crossover_temp_c"] == pytest.approx(3.0)
+    t0, k = table.fit_t0_c[0], table.fit_k_per_sqrt_h[0]
+    since = row["hours_since_sunset"]
+    assert row["hours_to_crossing"] == pytest.approx(((t0 - 3.0) / k) ** 2 - since, abs=1e-6)
+    assert row["hours_to_crossing"] > row0["hours_to_crossing"]
+
+
+def test_visibility_trend_matches_scipy_theil_sen_and_known_flags():
+    from scipy.stats import theilslopes
+
+    s = site("vis-site")
+    at = utc(2026, 10, 14, 22, 0)
+    rng = np.random.default_rng(11)
+    vis = np.linspace(9000.0, 3000.0, 19) + rng.normal(0, 200, 19)
+    obs = steady(s.id, at, temp_c=8.0, dewpoint_c=7.0, wind_ms=1.0, visibility_m=vis)
+    row, _ = one(obs, s, at)
+    expected = theilslopes(obs["visibility_m"].to_numpy(), np.linspace(-3, 0, 19))[0]
+    assert row["visibility_trend_m_per_h"] == pytest.approx(expected, abs=1e-6)
+    assert row["visibility_known"] == 1.0
+    assert row["water_temp_known"] == 0.0
+    bare = steady(s.id, at, temp_c=8.0, dewpoint_c=7.0, wind_ms=1.0, water_temp_c=6.0)
+    row, _ = one(bare, s, at)
+    assert row["visibility_known"] == 0.0 and np.isnan(row["visibility_trend_m_per_h"])
+    assert row["water_temp_known"] == 1.0
+    assert row["cloud_known"] == 0.0
+    row, _ = one(steady(s.id, at, temp_c=8.0, dewpoint_c=7.0, cloud_pct=90.0), s, at)
+    assert row["cloud_known"] == 1.0

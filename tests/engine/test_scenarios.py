@@ -272,3 +272,84 @@ def test_eta_beyond_the_horizon_is_none_not_an_overflow():
     at = utc(2026, 11, 20, 3)
     assert _eta("fog", rule, {"hours_to_fog": 3.0e15}, at) is None
     assert _eta("fog", rule, {"hours_to_fog": 2.0}, at) == at + timedelta(hours=2)
+
+
+# -- saturated air that is not fog, and the coast without a water temperature --------------
+
+
+@pytest.mark.parametrize(
+    ("visibility", "cloud", "warn"),
+    [
+        ((3000.0, 1500.0), 0.0, True),
+        ((20000.0, 20000.0), 0.0, False),
+        ((1500.0, 800.0), 95.0, False),
+    ],
+    ids=["clear-sky-visibility-falling", "clear-sky-visibility-20km-steady", "overcast"],
+)
+def test_saturated_air_is_a_radiation_fog_warning_only_when_it_looks_like_fog(
+    visibility, cloud, warn
+):
+    # Saturated air with the visibility at 5 km or more and not falling is not fog
+    # (WMO-No. 8: fog < 1 km, mist to 5 km): a wet sensor or cloud-base air after rain.
+    # Under 6 okta or more the ground cannot cool radiatively: not radiation fog
+    # (common practice).
+    s = site("wet-field")
+    at = utc(2026, 10, 14, 23, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=(6.6, 6.2),
+        dewpoint_c=6.0,
+        wind_ms=1.0,
+        cloud_pct=cloud,
+        visibility_m=visibility,
+    )
+    got = fired([s], obs, at)[s.id]
+    assert ("radiation-fog-warning" in got) == warn
+
+
+COAST = dict(exposure="coast", use="port")
+
+
+@pytest.mark.parametrize(
+    ("wind", "visibility", "water", "expected"),
+    [
+        (4.0, (9000.0, 2500.0), None, "warning"),
+        (4.0, (20000.0, 20000.0), None, None),
+        (11.0, (9000.0, 2500.0), None, None),
+        (0.5, (9000.0, 2500.0), None, None),
+    ],
+    ids=[
+        "saturating-visibility-falling",
+        "visibility-steady-20km",
+        "gale-lifts-it-to-stratus",
+        "calm",
+    ],
+)
+def test_coast_without_water_temperature_reads_fog_from_the_air(wind, visibility, water, expected):
+    # No water temperature: near-saturated air still closing, on a 2–8 m/s wind, with
+    # the visibility under the 5 km of mist and falling (WMO-No. 8; wind limits from
+    # memory, common practice). By day as well as by night.
+    s = site("harbour-mouth", **COAST)
+    at = utc(2026, 5, 20, 13, 0)
+    values: dict = dict(temp_c=(12.8, 12.1), dewpoint_c=11.8, wind_ms=wind, cloud_pct=100.0)
+    if visibility is not None:
+        values["visibility_m"] = visibility
+    obs = steady(s.id, at, **values)
+    assert levels([s], obs, at)[s.id].get("fog") == expected
+
+
+def test_a_coast_site_with_a_water_temperature_is_left_to_the_sea_fog_rules():
+    s = site("harbour-buoy", **COAST)
+    at = utc(2026, 5, 20, 13, 0)
+    obs = steady(
+        s.id,
+        at,
+        temp_c=(12.8, 12.1),
+        dewpoint_c=11.8,
+        wind_ms=4.0,
+        water_temp_c=13.0,
+        cloud_pct=100.0,
+        visibility_m=(9000.0, 2500.0),
+    )
+    assert not {"coast-fog-watch", "coast-fog-warning"} & fired([s], obs, at)[s.id]
