@@ -204,8 +204,15 @@ def _from_cooling_fit(
     p.fit_points = np.where(fit_ok, points, 0)
     night_len = (sun.next_sunrise - sun.last_sunset) / 3600.0
     # Brunt's coefficient for tonight's net loss (docs/references.md [Oke 1987],
-    # [Brunt k check]); an unknown loss leaves the fit uncapped
-    net_lw, _ = radiation(now, st, settings)
+    # [Brunt k check]). Where no cloud is reported the clear-sky loss, the largest there
+    # can be, still bounds the cooling; an unknown loss leaves the fit uncapped.
+    cloud = now.values["cloud_pct"]
+    clear_if_unknown = Current(
+        {**now.values, "cloud_pct": np.where(np.isnan(cloud), 0.0, cloud)},
+        now.temp_c,
+        now.dewpoint_c,
+    )
+    net_lw, _ = radiation(clear_if_unknown, st, settings)
     k_cap = physics.brunt_cooling_coefficient_k_per_sqrt_h(
         np.maximum(net_lw, 0.0), settings.cap_thermal_admittance
     )

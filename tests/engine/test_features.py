@@ -505,3 +505,21 @@ def test_visibility_trend_matches_scipy_theil_sen_and_known_flags():
     assert row["cloud_known"] == 0.0
     row, _ = one(steady(s.id, at, temp_c=8.0, dewpoint_c=7.0, cloud_pct=90.0), s, at)
     assert row["cloud_known"] == 1.0
+
+
+def test_without_a_cloud_report_the_clear_sky_loss_still_caps_the_cooling_fit():
+    # No cloud reported: the clear-sky loss is the largest there can be, so it still
+    # bounds the fit. Ending at 10 °C with e = 10 hPa the loss is 82.5 W/m²
+    # (docs/references.md [LW check]) and the cap 4.655 K h^-½ (docs/references.md
+    # [Brunt cap check]); the readings fall at 6 K h^-½.
+    from notifier.physics import dewpoint_c, saturation_vapor_pressure_hpa
+
+    td = float(dewpoint_c(10.0, 100 * 10.0 / saturation_vapor_pressure_hpa(10.0)))
+    s = site("no-cloud-sensor")
+    obs, at = _evening(s, 3.0, 10, cloud_pct=0.0, k=6.0, dewpoint_c=td)
+    obs["temp_c"] += 10.0 + 6.0 * np.sqrt(3.0) - 9.0  # 10 °C at the last reading
+    obs = obs.drop(columns=["cloud_pct"])
+    row, table = one(obs, s, at)
+    assert np.isnan(row["net_longwave_wm2"]) and row["cloud_known"] == 0.0
+    assert row["temp_c"] == pytest.approx(10.0)
+    assert table.fit_k_per_sqrt_h[0] == pytest.approx(4.655, abs=0.01)
