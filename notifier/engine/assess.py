@@ -37,6 +37,11 @@ __all__ = [
 ]
 
 HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
+# A hold is judged on the data: the rule must have held from ``hold`` before the newest
+# reading until now, so a reading carried forward between reports cannot meet a hold by
+# itself. The newest reading may be this far behind the evaluation time for that; older,
+# the hold is not met (hourly reports are the sparsest routine ones: common practice).
+HOLD_REACH_S = 3600.0
 STALE_AFTER_MIN = 90.0
 ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
 
@@ -209,14 +214,29 @@ def assess_times(
     The feature tables of every time (and of their hold windows) are stacked, so each
     rule is one vectorised pass over sites × times; ``result[k]`` equals
     ``assess(..., times[k])``.
+
+    A rule's hold window runs back from its site's newest reading, not from the
+    evaluation time (see ``HOLD_REACH_S``): a time between two hourly reports sees the
+    same hold as the report before it, so the answer does not hang on how often one
+    asks.
     """
     if any(t.tzinfo is None for t in times):
         raise ValueError("evaluation time must be timezone-aware")
     times = [t.astimezone(UTC) for t in times]
     tables: dict[float, FeatureTable] = {} if cache is None else cache
     max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
-    _add_feature_tables(tables, obs, sites, times, max_hold, settings, feature_cache)
-    evals = _evaluate_rules(rules, sites, tables, times, max_hold)
+    _add_feature_tables(tables, obs, sites, times, [max_hold] * len(times), settings, feature_cache)
+    behind_s = (
+        np.concatenate([t.timestamp() - tables[t.timestamp()].last_time for t in times])
+        if times
+        else np.zeros(0)
+    )
+    entries = {r.hold_s: _hold_entries(r.hold_s, behind_s) for r in rules.rules if r.hold_s > 0}
+    if entries:
+        depth = np.max(np.stack(list(entries.values())), axis=0).reshape(len(times), -1)
+        depths = [max(max_hold, int(d.max(initial=0))) for d in depth]
+        _add_feature_tables(tables, obs, sites, times, depths, settings, feature_cache)
+    evals = _evaluate_rules(rules, sites, tables, times, entries)
     flags = _busy_flags(evals, len(sites) * len(times))
     ranked = [(ev, level_rank(ev.rule.level)) for ev in evals]
     moments: dict[float, datetime] = {}  # last readings and sunsets repeat: one object each
@@ -255,19 +275,36 @@ def assess_times(
     return out
 
 
+def _hold_entries(hold_s: float, behind_s: np.ndarray) -> np.ndarray:
+    """Per cell, how many hold steps before the evaluation time the window of a rule
+    held for ``hold_s`` reaches: back to ``hold_s`` before the newest reading
+    (``behind_s`` seconds ago); -1 where that reading is older than ``HOLD_REACH_S``.
+    A site that has never reported keeps the window of the clock."""
+    steps = math.ceil(hold_s / HOLD_STEP_S)
+    with np.errstate(invalid="ignore"):
+        reach = np.ceil((np.maximum(behind_s, 0.0) + hold_s) / HOLD_STEP_S)
+        out = np.where(behind_s > HOLD_REACH_S, -1, reach)
+    return np.where(np.isnan(behind_s), steps, out).astype(np.intp)
+
+
 def _add_feature_tables(
     tables: dict[float, FeatureTable],
     obs: pd.DataFrame,
     sites: Sequence[Site],
     times: Sequence[datetime],
-    max_hold: int,
+    depths: Sequence[int],
     settings: FeatureSettings | None,
     feature_cache: FeatureCache | None,
 ) -> None:
     """Compute, in one call, the feature tables of ``times`` and of their hold windows
-    that ``tables`` does not hold yet."""
+    (``depths[k]`` hold steps back from ``times[k]``) that ``tables`` does not hold yet."""
     wanted = sorted(
-        {t.timestamp() - j * HOLD_STEP_S for t in times for j in range(max_hold + 1)} - set(tables)
+        {
+            t.timestamp() - j * HOLD_STEP_S
+            for t, depth in zip(times, depths, strict=True)
+            for j in range(depth + 1)
+        }
+        - set(tables)
     )
     if wanted:
         found = compute_features_at(
@@ -285,24 +322,41 @@ def _evaluate_rules(
     sites: Sequence[Site],
     tables: Mapping[float, FeatureTable],
     times: Sequence[datetime],
-    max_hold: int,
+    entries: Mapping[float, np.ndarray],
 ) -> list[RuleEvaluation]:
     """Each rule in one vectorised pass over sites × times (the times stacked), with the
-    tables of its hold window behind it."""
+    tables of its hold window behind it (``entries``: per hold, how far back each cell's
+    window reaches, see :func:`_hold_entries`)."""
     k_times = len(times)
 
     def stacked(j: int) -> dict[str, np.ndarray]:
-        parts = [tables[t.timestamp() - j * HOLD_STEP_S].values for t in times]
+        # a time whose windows do not reach this far back stands in with its own table
+        # (left out of the hold by ``hold_entries``)
+        parts = [
+            tables.get(t.timestamp() - j * HOLD_STEP_S, tables[t.timestamp()]).values for t in times
+        ]
         if k_times == 1:
             return parts[0]
         return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
 
-    feats = [stacked(j) for j in range(max_hold + 1)]
+    depth = max((int(e.max(initial=0)) for e in entries.values()), default=0)
+    feats = [stacked(j) for j in range(depth + 1)]
     evals: list[RuleEvaluation] = []
     for rule in rules.rules:
-        steps = math.ceil(rule.hold_s / HOLD_STEP_S)
         applies = np.tile(rule.sites.mask(sites), k_times)
-        evals.append(evaluate_rule(rule, sites, feats[: steps + 1], applies=applies))
+        if rule.hold_s <= 0:
+            evals.append(evaluate_rule(rule, sites, feats[:1], applies=applies))
+            continue
+        reach = entries[rule.hold_s]
+        evals.append(
+            evaluate_rule(
+                rule,
+                sites,
+                feats[: int(reach.max(initial=0)) + 1],
+                applies=applies,
+                hold_entries=reach,
+            )
+        )
     return evals
 
 

@@ -331,6 +331,7 @@ def evaluate_rule(
     sites: Sequence[Any],
     feats_at: Sequence[Mapping[str, np.ndarray]],
     applies: np.ndarray | None = None,
+    hold_entries: np.ndarray | None = None,
 ) -> RuleEvaluation:
     """Evaluate ``rule`` for every site at once.
 
@@ -338,15 +339,20 @@ def evaluate_rule(
     time; further entries are the same features at earlier times inside the rule's hold
     window (oldest last). The rule fires where its conditions held at every one of them.
     ``applies`` may give the site filter's mask precomputed (e.g. tiled over times).
+    ``hold_entries``, per site, is how many of the earlier entries fall in that site's
+    hold window (the rest are left out); a negative count means the hold cannot be
+    judged, and is not met. Without it every entry counts.
     """
     if applies is None:
         applies = rule.sites.mask(sites)
     held_now, _ = evaluate_condition(rule.when, feats_at[0], relaxed=False)
     sustain, _ = evaluate_condition(rule.when, feats_at[0], relaxed=True)
     hold_met = np.ones(applies.shape, dtype=bool)
-    for feats in feats_at[1:]:
+    if hold_entries is not None:
+        hold_met &= hold_entries >= 0
+    for j, feats in enumerate(feats_at[1:], start=1):
         held_then, _ = evaluate_condition(rule.when, feats, relaxed=False)
-        hold_met &= held_then
+        hold_met &= held_then if hold_entries is None else held_then | (hold_entries < j)
     fires = applies & held_now & hold_met
     tests = list(iter_comparisons(rule.when))
     held, known, values = [], [], []

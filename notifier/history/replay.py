@@ -8,7 +8,9 @@ sees only the readings up to its own time (and forecast rows), exactly as a live
 would.
 
 This module holds the replay itself, its result (``ReplayResult``) and the scoring of
-each site-night; ``notifier.history.report`` turns results into text, JSON, CSV and PNG.
+each site-night (defined in ``notifier.history.verify``, with the reference forecasts
+scored on the same nights); ``notifier.history.report`` turns results into text, JSON,
+CSV and PNG.
 """
 
 from __future__ import annotations
@@ -27,10 +29,16 @@ from notifier.engine.features import FeatureCache
 from notifier.engine.readings import epoch_seconds
 from notifier.history.verify import (
     Contingency,
+    FogSpell,
     NightOutcome,
-    fog_observed,
+    References,
+    alert_for_night,
+    fog_reports,
+    fog_spells,
     median_lead_min,
+    night_fog,
     night_of,
+    references,
     table,
 )
 
@@ -58,6 +66,7 @@ class ReplayResult:
     fog_level: np.ndarray  # sites × steps: 0 none, 1 watch, 2 warning
     nights: list[NightOutcome]
     label: str = "rules"
+    references: References | None = None  # the reference forecasts on the same nights
     delivered: int = 0
     extra: dict[str, Any] = field(default_factory=dict)
 
@@ -68,35 +77,72 @@ class ReplayResult:
         return median_lead_min([n for n in self.nights if site is None or n.site == site], which)
 
 
-def _fog_onsets(
-    obs: pd.DataFrame, sites: Sequence[Any], start: datetime, end: datetime
-) -> dict[tuple[str, datetime], datetime]:
-    """First observed fog of each site-night in [start, end]."""
-    import pandas as pd
+def _observed_rows(obs: pd.DataFrame) -> pd.DataFrame:
+    """The observed rows (not forecasts), in time order."""
+    return obs[obs["kind"] == "obs"] if len(obs) else obs
 
-    zones = {s.id: s.timezone for s in sites}
-    out: dict[tuple[str, datetime], datetime] = {}
-    if not len(obs):
+
+def _fog_spells(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, list[FogSpell]]:
+    """Each site's confirmed fog spells in the whole history (``verify``'s definition:
+    fog at the site, in consecutive reports), so fog carried into the first night is
+    known too."""
+    out: dict[str, list[FogSpell]] = {s.id: [] for s in sites}
+    rows = _observed_rows(obs)
+    if not len(rows):
         return out
-    rows = obs[(obs["kind"] == "obs") & (obs["time"] >= start) & (obs["time"] <= end)]
     vis = (
         rows["visibility_m"].to_numpy(dtype=float, na_value=np.nan)
         if ("visibility_m" in rows)
         else np.full(len(rows), np.nan)
     )
     wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
-    # fog_observed, row by row in effect: its weather test once per distinct text
-    codes, texts = pd.factorize(wx, use_na_sentinel=True)
-    foggy_text = np.array([*(fog_observed(None, text) for text in texts), False], dtype=bool)
-    with np.errstate(invalid="ignore"):
-        fog = (vis < 1000.0) | foggy_text[codes]
-    foggy = rows.loc[fog, ["site", "time"]].sort_values("time")
-    for site_id, t in zip(foggy["site"], foggy["time"], strict=True):
-        if site_id not in zones:
-            continue
-        when = t.to_pydatetime().astimezone(UTC)
-        key = (site_id, night_of(when, zones[site_id]))
-        out.setdefault(key, when)
+    fog, known = fog_reports(vis, wx)
+    site_ids = rows["site"].to_numpy(dtype=object)
+    t_s = epoch_seconds(rows["time"])
+    for sid in out:
+        mine = np.flatnonzero((site_ids == sid) & known)
+        times = [datetime.fromtimestamp(float(t), UTC) for t in t_s[mine]]
+        out[sid] = fog_spells(times, fog[mine].tolist())
+    return out
+
+
+def _covered_nights(
+    sites: Sequence[Any], start: datetime, end: datetime, step_s: float
+) -> Iterator[tuple[int, Any, datetime, datetime]]:
+    """(site index, site, night start, night end) of each site-night the replay covers
+    whole (to within one step)."""
+    for i, site in enumerate(sites):
+        night = night_of(start, site.timezone)
+        while night < end:
+            nxt = night + timedelta(days=1)
+            if (
+                night.timestamp() >= start.timestamp() - step_s
+                and nxt.timestamp() <= end.timestamp() + step_s
+            ):
+                yield i, site, night, nxt
+            night = datetime.combine(nxt.date(), night.timetz()).replace(tzinfo=night.tzinfo)
+
+
+def _readings(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, tuple[Any, Any, Any]]:
+    """Per site, its observed (POSIX seconds, dew-point depression °C, wind m/s), in
+    time order: what the one-line reference rule reads."""
+    rows = _observed_rows(obs)
+    out: dict[str, tuple[Any, Any, Any]] = {}
+    if not len(rows):
+        return out
+
+    def column(name: str) -> np.ndarray:
+        if name not in rows:
+            return np.full(len(rows), np.nan)
+        return rows[name].to_numpy(dtype=float, na_value=np.nan)
+
+    depression = column("temp_c") - column("dewpoint_c")
+    wind = column("wind_ms")
+    site_ids = rows["site"].to_numpy(dtype=object)
+    t_s = epoch_seconds(rows["time"])
+    for s in sites:
+        mine = np.flatnonzero(site_ids == s.id)
+        out[s.id] = (t_s[mine], depression[mine], wind[mine])
     return out
 
 
@@ -144,7 +190,12 @@ def replay(
     n_steps = int(math.floor((end - start).total_seconds() / step_s)) + 1
     times = start.timestamp() + np.arange(n_steps) * step_s
     fog_level = np.zeros((len(sites), n_steps), dtype=np.int8)
-    onsets = _fog_onsets(obs, sites, start, end)
+    spells = _fog_spells(obs, sites)
+    fog_nights = {
+        (site.id, night): night_fog(spells[site.id], night, nxt)
+        for _, site, night, nxt in _covered_nights(sites, start, end, step_s)
+    }
+    onsets = {key: onset for key, (onset, _) in fog_nights.items() if onset is not None}
     onset_steps = _onset_steps(onsets, times, step_s, pos)
     why_not: dict[tuple[str, datetime], list[str]] = {}
     states: dict[Any, Any] = {}
@@ -161,8 +212,9 @@ def replay(
         if progress is not None:
             progress(k + 1, n_steps)
 
-    nights = _nights(sites, times, fog_level, onsets, events, why_not, start, end, step_s)
-    result = ReplayResult(start, end, step_s, ids, events, times, fog_level, nights, label)
+    nights = _nights(sites, times, fog_level, fog_nights, events, why_not, start, end, step_s)
+    refs = references(nights, _readings(obs, sites))
+    result = ReplayResult(start, end, step_s, ids, events, times, fog_level, nights, label, refs)
     if deliver_to is not None:
         result.delivered = _write_messages(loaded, events, deliver_to)
     return result
@@ -211,13 +263,14 @@ def _step_assessments(
     loaded: Loaded, sites: Sequence[Any], obs: pd.DataFrame, times: np.ndarray
 ) -> Iterator[list[Any]]:
     """Each step's site assessments in turn, worked out a batch of steps at a time."""
-    from notifier.engine.assess import HOLD_STEP_S, assess_times
+    from notifier.engine.assess import HOLD_REACH_S, HOLD_STEP_S, assess_times
 
     t_rows = epoch_seconds(obs["time"]) if len(obs) else np.array([])
     cache: dict[float, Any] = {}
     features = FeatureCache()  # the feature code's cache, kept from batch to batch
     stale = loaded.config.alerts.stale_after / 60.0
-    hold_s = max((r.hold_s for r in loaded.rules.rules), default=0.0) + HOLD_STEP_S
+    # the hold windows reach back from each site's newest reading (see assess_times)
+    hold_s = max((r.hold_s for r in loaded.rules.rules), default=0.0) + HOLD_STEP_S + HOLD_REACH_S
     for k in range(0, len(times), BATCH):
         t_s = times[k]
         # features and rules for a batch of steps at once (sites × times)
@@ -246,45 +299,43 @@ def _nights(
     sites: Sequence[Any],
     times: np.ndarray,
     fog_level: np.ndarray,
-    onsets: dict[tuple[str, datetime], datetime],
+    fog_nights: dict[tuple[str, datetime], tuple[datetime | None, datetime | None]],
     events: Sequence[Event],
     why_not: dict[tuple[str, datetime], list[str]],
     start: datetime,
     end: datetime,
     step_s: float,
 ) -> list[NightOutcome]:
-    """The outcome of each site-night the replay covers whole: fog, watch, warning, rules."""
+    """The outcome of each site-night the replay covers whole: the fog onset in it, and
+    the first watch and warning that count for it (``verify.alert_for_night``)."""
     out = []
     fog_events: dict[str, list[Event]] = {}
     for e in events:
         if e.hazard == "fog":
             fog_events.setdefault(e.site_id, []).append(e)
-    for i, site in enumerate(sites):
-        night = night_of(start, site.timezone)
-        while night < end:
-            nxt = night + timedelta(days=1)
-            n_start, n_end = night.timestamp(), nxt.timestamp()
-            # only nights the replay covers whole (to within one step)
-            if n_start >= start.timestamp() - step_s and n_end <= end.timestamp() + step_s:
-                sel = (times >= n_start) & (times < n_end)
-                levels = fog_level[i, sel]
-                ts = times[sel]
-                o = NightOutcome(site.id, night, fog_onset=onsets.get((site.id, night)))
-                if (levels >= 1).any():
-                    o.first_watch = datetime.fromtimestamp(float(ts[levels >= 1][0]), UTC)
-                if (levels >= 2).any():
-                    o.first_warning = datetime.fromtimestamp(float(ts[levels >= 2][0]), UTC)
-                o.rules = sorted(
-                    {
-                        r
-                        for e in fog_events.get(site.id, ())
-                        if n_start <= e.time.timestamp() < n_end
-                        for r in e.rules
-                    }
-                )
-                o.why_not = why_not.get((site.id, night), [])
-                out.append(o)
-            night = datetime.combine(nxt.date(), night.timetz()).replace(tzinfo=night.tzinfo)
+
+    def moment(seconds: float | None) -> datetime | None:
+        return None if seconds is None else datetime.fromtimestamp(seconds, UTC)
+
+    for i, site, night, nxt in _covered_nights(sites, start, end, step_s):
+        n_start, n_end = night.timestamp(), nxt.timestamp()
+        onset, carried = fog_nights[(site.id, night)]
+        onset_s = None if onset is None else onset.timestamp()
+        carried_s = None if carried is None else carried.timestamp()
+        o = NightOutcome(site.id, night, fog_onset=onset, carried_fog_until=carried)
+        for rank, name in ((1, "first_watch"), (2, "first_warning")):
+            when = alert_for_night(times, fog_level[i], rank, n_start, n_end, onset_s, carried_s)
+            setattr(o, name, moment(when))
+        o.rules = sorted(
+            {
+                r
+                for e in fog_events.get(site.id, ())
+                if n_start <= e.time.timestamp() < n_end
+                for r in e.rules
+            }
+        )
+        o.why_not = why_not.get((site.id, night), [])
+        out.append(o)
     return out
 
 

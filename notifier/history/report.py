@@ -1,7 +1,9 @@
 """Reports on replay results: text, JSON, CSV of events, a PNG chart, a progress bar.
 
 ``replay`` (in ``notifier.history.replay``) produces the results; this module only
-presents them. Two results side by side are two rule sets over the same history.
+presents them. Two results side by side are two rule sets over the same history; the
+reference forecasts (``notifier.history.verify``) are scored beside them on the same
+nights.
 """
 
 from __future__ import annotations
@@ -38,6 +40,7 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
                     "warning": res.lead("warning", sid),
                 },
             }
+        refs = res.references
         out[res.label] = {
             "from": iso_z(res.start),
             "to": iso_z(res.end),
@@ -46,7 +49,10 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
                 "warning": res.table("warning").as_dict(),
                 "watch": res.table("watch").as_dict(),
                 "median_lead_min": {"watch": res.lead("watch"), "warning": res.lead("warning")},
+                "brier_warning": _num(refs.brier_of(res.nights)) if refs else None,
             },
+            # the reference forecasts on the same nights (the warning level)
+            "references": refs.as_dict() if refs else None,
             "sites": per_site,
             "events": [
                 {
@@ -88,6 +94,10 @@ def _fmt(v: float | None, spec: str = ".2f") -> str:
     return "—" if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, spec)
 
 
+def _num(v: float) -> float | None:
+    return None if math.isnan(v) else round(v, 4)
+
+
 def report_text(results: Sequence[ReplayResult]) -> str:
     """Timeline, tables and scores; two rule sets side by side when given."""
     first = results[0]
@@ -100,6 +110,7 @@ def report_text(results: Sequence[ReplayResult]) -> str:
     for res in results:
         lines.extend(_timeline_lines(res))
     lines.extend(_score_lines(results))
+    lines.extend(_reference_lines(results))
     for res in results:
         lines.extend(_per_site_lines(res))
     lines.append(
@@ -128,8 +139,9 @@ def _score_lines(results: Sequence[ReplayResult]) -> list[str]:
     """The verification table over all sites, one column per rule set."""
     header = f"{'':<24}" + "".join(f"{r.label:>22}" for r in results)
     lines = [
-        "Verification (a night is warned when a fog warning was in force in it;",
-        "fog is visibility below 1000 m or a reported FG/FZFG)",
+        "Verification by site-night, local noon to noon (a fog night is one fog began in:",
+        "visibility below 1000 m or FG/FZFG at the site, in two reports 20 min apart; it is",
+        "warned when a warning raised in the night, or in force at the onset, came before it)",
         header,
     ]
     rows = [
@@ -148,6 +160,45 @@ def _score_lines(results: Sequence[ReplayResult]) -> list[str]:
     ]
     for name, fn in rows:
         lines.append(f"  {name:<22}" + "".join(f"{fn(r):>22}" for r in results))
+    lines.append("")
+    return lines
+
+
+def _reference_lines(results: Sequence[ReplayResult]) -> list[str]:
+    """Each rule set beside the reference forecasts, on the same nights (warning level)."""
+    refs = results[0].references
+    if refs is None:
+        return []
+    from notifier.history.verify import table
+
+    one_liner = table(refs.one_liner, "warning")
+    rows = [(r.label, r.table(), refs.brier_of(r.nights)) for r in results]
+    rows += [
+        ("one-liner", one_liner, refs.brier_of(refs.one_liner)),
+        ("always warn", refs.always, refs.brier_of_constant(1.0)),
+        ("never warn", refs.never, refs.brier_of_constant(0.0)),
+    ]
+    lines = [
+        "Reference forecasts on the same nights (warning level): one-liner = at 21:00 local,",
+        "warn if the dew-point depression is ≤ 2 °C and the wind < 3 m/s; climatology = the",
+        "base rate of fog nights as a probability. Brier: a yes/no forecast as 1 or 0.",
+        f"  {'forecast':<22}{'hits/misses/fa/quiet':>22}{'POD':>7}{'FAR':>7}{'CSI':>7}"
+        f"{'bias':>7}{'Brier':>8}",
+    ]
+    for name, t, brier in rows:
+        counts = f"{t.hits}/{t.misses}/{t.false_alarms}/{t.correct_negatives}"
+        lines.append(
+            f"  {name:<22}{counts:>22}{_fmt(t.pod):>7}{_fmt(t.far):>7}{_fmt(t.csi):>7}"
+            f"{_fmt(t.bias):>7}{_fmt(brier, '.3f'):>8}"
+        )
+    climatology = f"climatology (p {_fmt(refs.base_rate, '.3f')})"
+    lines.append(f"  {climatology:<22}{'':>22}{'':>28}{_fmt(refs.brier_climatology, '.3f'):>8}")
+    summary = [f"{r.label} CSI {_fmt(r.table().csi)}" for r in results]
+    summary += [
+        f"one-liner CSI {_fmt(one_liner.csi)}",
+        f"always-warn CSI {_fmt(refs.always.csi)}",
+    ]
+    lines.append("  " + " · ".join(summary))
     lines.append("")
     return lines
 
@@ -177,7 +228,12 @@ def _per_site_lines(res: ReplayResult) -> list[str]:
         lines.append(f"Misses ({res.label}):")
         for n in miss:
             late = n.lead_min("warning")
-            said = f"warning came {-late:.0f} min after onset" if late is not None else "no warning"
+            if late is None:
+                said = "no warning"
+            elif late == 0:
+                said = "warning came only with the fog"
+            else:
+                said = f"warning came {-late:.0f} min after onset"
             lines.append(
                 f"  {n.site} night of {n.night.date()}: fog from {iso_z(n.fog_onset)}; {said}"
             )

@@ -1,22 +1,53 @@
 """Verification of fog alerts against what was observed (pure: no I/O).
 
-The unit is the *site-night*: from local noon to the next local noon at one site. A
-night is a fog event when fog was observed in it — visibility below 1000 m (the WMO
-definition of fog, WMO-No. 8) or a reported FG / FZFG. It was *warned* when an alert at
-the scored level was in force at some time in it. That gives the 2×2 table (Wilks,
-*Statistical Methods in the Atmospheric Sciences*, ch. 8 on forecast verification):
+**Fog at the site.** A report is fog when its visibility is below 1000 m (the WMO
+definition of fog, docs/references.md [WMO-No. 8]) or it reports FG or FZFG
+(docs/references.md [WMO-No. 306], FM 15). Not fog at the site: VCFG (fog in the
+vicinity, not at the station), and MIFG, BCFG and PRFG (shallow fog, patches, fog over
+part of the aerodrome), which are reported with a visibility of 1 km or more — their
+text alone is not fog, though a visibility below 1000 m in the same report still is.
+Nor is visibility below 1000 m in precipitation with no FG in the text (RA, SN, DZ, SG,
+PL, GR, GS, UP, or showers, SH): that is low visibility, not fog. A report with neither
+a visibility nor any weather text says nothing either way and is passed over.
+
+**Onset.** A *fog spell* is a run of consecutive fog reports; it ends at the first
+report without fog. A spell is fog only once it is confirmed: at least two reports,
+the first and the last at least 20 minutes apart (two hourly reports, or 20 minutes of
+10-minute data; a one-report dip is not fog; common practice). Its *onset* is its
+first report.
+
+**The site-night** runs from local noon to the next local noon at one site. A night is
+a *fog event* only if fog BEGINS in it: a confirmed spell has its onset in the night.
+Fog already present when the night starts (a spell begun in the night before and not
+yet ended) is not a new onset; such a night is scored on a later onset in it, after
+that fog has ended, and is otherwise no event.
+
+**Alerts.** An alert (at the scored level or above) counts for a night only if it was
+raised or escalated to that level in the night — not while fog carried over from the
+night before is still present — or it was in force at the night's onset. A warning
+carried over from before the night started, still in force from fog already present,
+is neither a hit nor a false alarm for the new night. A fog night is *warned* when an
+alert that counts came before its onset: raised earlier in the night, or in force when
+the fog began. One raised only once fog was seen gave no one time to act: it is a
+(late) miss. A night without an onset is a false alarm when an alert counts for it.
+That gives the 2×2 table (docs/references.md [Wilks], forecast verification):
 
 ================  =================  =====================
-                  fog observed       no fog observed
-alert in force    a: hit             b: false alarm
+                  fog began          no fog began
+alert counted     a: hit             b: false alarm
 no alert          c: miss            d: correct negative
 ================  =================  =====================
 
-A fog night counts as warned only if the alert was in force by the fog's onset: one
-raised only once fog was seen gave no warning, and is a (late) miss. From the table,
-the probability of detection POD = a/(a+c), the false-alarm ratio
+From the table, the probability of detection POD = a/(a+c), the false-alarm ratio
 FAR = b/(a+b), the critical success index CSI = a/(a+b+c), and the frequency bias
 (a+b)/(a+c). A score whose denominator is zero is undefined (NaN), not zero.
+
+**Reference forecasts**, scored on the same nights: the one-line rule "at 21:00 local,
+warn if the dew-point depression is ≤ 2 °C and the wind < 3 m/s" (common practice), from
+the newest reading at or before 21:00 local and at most an hour old (none: no warning);
+climatology, the base rate of fog nights over the nights scored, as a probability
+(its Brier score, docs/references.md [Brier 1950]); and the constant forecasts "always
+warn" and "never warn".
 """
 
 from __future__ import annotations
@@ -24,11 +55,43 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, time, timedelta
+from datetime import UTC, datetime, time, timedelta
 from statistics import median
 from zoneinfo import ZoneInfo
 
-__all__ = ["Contingency", "NightOutcome", "fog_observed", "night_of", "scores"]
+import numpy as np
+
+__all__ = [
+    "Contingency",
+    "FogSpell",
+    "NightOutcome",
+    "References",
+    "alert_for_night",
+    "always_warn",
+    "brier_score",
+    "fog_observed",
+    "fog_reports",
+    "fog_spells",
+    "never_warn",
+    "night_fog",
+    "night_of",
+    "one_liner_warns",
+    "references",
+    "scores",
+]
+
+FOG_VISIBILITY_M = 1000.0  # WMO-No. 8: fog is visibility below 1000 m
+# WMO-No. 306, FM 15: the precipitation codes, and the showers descriptor
+PRECIPITATION = frozenset({"DZ", "RA", "SN", "SG", "PL", "GR", "GS", "UP", "SH"})
+# MI shallow, BC patches, PR partial: reported with a visibility of 1 km or more; VC:
+# in the vicinity, not at the station (WMO-No. 306, FM 15)
+NOT_AT_SITE = frozenset({"MI", "BC", "PR", "VC"})
+ONSET_MIN_REPORTS = 2  # a confirmed spell: two consecutive reports … (common practice)
+ONSET_MIN_SPAN_S = 20 * 60.0  # … at least 20 minutes apart (common practice)
+ONE_LINER_LOCAL = time(21, 0)  # the one-line rule's hour (common practice)
+ONE_LINER_DEPRESSION_C = 2.0  # warn at a dew-point depression ≤ 2 °C …
+ONE_LINER_WIND_MS = 3.0  # … and a wind below 3 m/s
+ONE_LINER_MAX_AGE_S = 3600.0  # its reading at most an hour old
 
 
 @dataclass
@@ -91,12 +154,138 @@ def scores(a: int, b: int, c: int, d: int) -> Contingency:
     return Contingency(a, b, c, d)
 
 
+# ---- fog at the site ---------------------------------------------------------------------
+
+
+def _groups(token: str) -> list[str]:
+    """A present-weather token as its two-letter groups: '-FZRA' → ['FZ', 'RA']."""
+    token = token.lstrip("+-")
+    return [token[i : i + 2] for i in range(0, len(token), 2)]
+
+
+def _weather_says(weather: str | None) -> tuple[bool, bool, bool]:
+    """(some text, fog at the site, precipitation) from a present-weather text."""
+    text = "" if weather is None or weather != weather else str(weather).strip().upper()
+    fog = precipitation = False
+    for token in text.split():
+        groups = _groups(token)
+        if "FG" in groups and not NOT_AT_SITE.intersection(groups):
+            fog = True
+        if "VC" not in groups and PRECIPITATION.intersection(groups):
+            precipitation = True
+    return text != "", fog, precipitation
+
+
 def fog_observed(visibility_m: float | None, weather: str | None) -> bool:
-    """Fog by the WMO definition (visibility below 1000 m) or a reported FG / FZFG."""
-    if visibility_m is not None and not math.isnan(visibility_m) and visibility_m < 1000:
-        return True
-    tokens = str(weather or "").upper().replace("+", " ").replace("-", " ").split()
-    return any(tok.endswith("FG") for tok in tokens)
+    """Fog at the site in one report (see the module docstring).
+
+    >>> fog_observed(400.0, "FG"), fog_observed(9999.0, "VCFG"), fog_observed(800.0, "+RA")
+    (True, False, False)
+    """
+    return bool(
+        fog_reports(
+            np.array([np.nan if visibility_m is None else visibility_m]),
+            np.array([weather], dtype=object),
+        )[0][0]
+    )
+
+
+def fog_reports(visibility_m: np.ndarray, weather: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(fog, known) per report: fog at the site, and whether the report says anything
+    either way (a visibility or some weather text). Each distinct text is read once."""
+    import pandas as pd
+
+    vis = np.asarray(visibility_m, dtype=float)
+    codes, texts = pd.factorize(np.asarray(weather, dtype=object), use_na_sentinel=True)
+    said = np.array([*(_weather_says(t) for t in texts), (False, False, False)], dtype=bool)
+    has_text, fog_text, precipitation = (said[codes, j] for j in range(3))
+    with np.errstate(invalid="ignore"):
+        low = vis < FOG_VISIBILITY_M
+    fog = fog_text | (low & ~precipitation)
+    return fog, has_text | ~np.isnan(vis)
+
+
+@dataclass(frozen=True)
+class FogSpell:
+    """A confirmed spell of fog at one site: its onset, and its first report without fog
+    (None: none came in the data)."""
+
+    onset: datetime
+    ended: datetime | None
+
+
+def fog_spells(times: Sequence[datetime], fog: Sequence[bool]) -> list[FogSpell]:
+    """The confirmed fog spells in one site's reports (in time order, each saying fog or
+    not; reports that say nothing left out already)."""
+    out = []
+    n = len(times)
+    i = 0
+    while i < n:
+        if not fog[i]:
+            i += 1
+            continue
+        j = i
+        while j + 1 < n and fog[j + 1]:
+            j += 1
+        span = (times[j] - times[i]).total_seconds()
+        if j - i + 1 >= ONSET_MIN_REPORTS and span >= ONSET_MIN_SPAN_S:
+            out.append(FogSpell(times[i], times[j + 1] if j + 1 < n else None))
+        i = j + 1
+    return out
+
+
+def night_fog(
+    spells: Sequence[FogSpell], start: datetime, end: datetime
+) -> tuple[datetime | None, datetime | None]:
+    """(onset, carried until) for the night [start, end): the first confirmed onset in
+    it, and the end of fog carried over from before it (None: none carried over; ``end``
+    when it lasts the whole night)."""
+    onset = next((s.onset for s in spells if start <= s.onset < end), None)
+    carried = None
+    for s in spells:
+        if s.onset < start and (s.ended is None or s.ended > start):
+            carried = end if s.ended is None else min(s.ended, end)
+    return onset, carried
+
+
+def alert_for_night(
+    times_s: np.ndarray,
+    levels: np.ndarray,
+    rank: int,
+    start_s: float,
+    end_s: float,
+    onset_s: float | None,
+    carried_until_s: float | None,
+) -> float | None:
+    """When an alert at ``rank`` or above first counted for the night [start, end), in
+    POSIX seconds, or None if none did.
+
+    ``levels`` is the alert level at each step (``times_s``). An alert counts when the
+    level rose to ``rank`` or above in the night (a raise or an escalation) outside the
+    fog carried over into it (before ``carried_until_s``), or when it was in force at
+    the step before the onset; then from when it was first in force in the night (or,
+    for an onset at the very start of the night, from when it was raised).
+    """
+    times_s = np.asarray(times_s, dtype=float)
+    levels = np.asarray(levels)
+    # the night's steps, and the step before them (a rise is against the step before)
+    lo = int(np.searchsorted(times_s, start_s, side="left"))
+    hi = int(np.searchsorted(times_s, end_s, side="left"))
+    now = levels[lo:hi]
+    before = np.concatenate((levels[lo - 1 : lo] if lo > 0 else [0], now))[:-1]
+    rose = (now >= rank) & (now > before)
+    if carried_until_s is not None:
+        rose &= times_s[lo:hi] >= carried_until_s
+    found = [float(times_s[lo:hi][rose][0])] if rose.any() else []
+    if onset_s is not None:
+        k = int(np.searchsorted(times_s, onset_s, side="left")) - 1  # the step before
+        if k >= 0 and levels[k] >= rank:
+            first = k
+            while first > 0 and levels[first - 1] >= rank:
+                first -= 1
+            since = max(float(times_s[first]), start_s)
+            found.append(since if since < onset_s else float(times_s[first]))
+    return min(found) if found else None
 
 
 def night_of(t: datetime, zone: str) -> datetime:
@@ -108,13 +297,14 @@ def night_of(t: datetime, zone: str) -> datetime:
 
 @dataclass
 class NightOutcome:
-    """One site-night: what was observed, what was in force, and how early."""
+    """One site-night: the fog onset in it, and when an alert that counts for it came."""
 
     site: str
     night: datetime  # local noon that starts it
     fog_onset: datetime | None = None
-    first_watch: datetime | None = None
-    first_warning: datetime | None = None
+    first_watch: datetime | None = None  # the first watch or warning that counts
+    first_warning: datetime | None = None  # the first warning that counts
+    carried_fog_until: datetime | None = None  # fog from the night before, until
     rules: list[str] = field(default_factory=list)
     why_not: list[str] = field(default_factory=list)  # for a miss: what did not hold
 
@@ -123,14 +313,14 @@ class NightOutcome:
         return self.fog_onset is not None
 
     def first(self, level: str) -> datetime | None:
-        """When an alert at ``level`` or above was first in force in this night."""
+        """When an alert at ``level`` or above that counts for the night first came."""
         if level == "warning":
             return self.first_warning
         found = [t for t in (self.first_watch, self.first_warning) if t is not None]
         return min(found) if found else None
 
     def warned(self, level: str) -> bool:
-        """An alert in force in the night — and, on a fog night, before the fog's onset.
+        """An alert that counts for the night — and, on a fog night, before the onset.
 
         A warning that only came once the fog was there (from observing it) gave no
         one time to act: it counts as a miss, shown as late.
@@ -174,3 +364,137 @@ def median_lead_min(outcomes: Sequence[NightOutcome], which: str) -> float | Non
     leads = [o.lead_min(which) for o in outcomes if o.observed and o.warned(which)]
     found = [v for v in leads if v is not None]
     return median(found) if found else None
+
+
+# ---- reference forecasts -------------------------------------------------------------------
+
+
+def one_liner_warns(
+    reading_times_s: np.ndarray,
+    dewpoint_depression_c: np.ndarray,
+    wind_ms: np.ndarray,
+    at_s: np.ndarray,
+) -> np.ndarray:
+    """The one-line rule at each of ``at_s`` (POSIX seconds) from one site's readings
+    (in time order): the newest reading at or before the time and at most an hour old,
+    with a dew-point depression ≤ 2 °C and a wind below 3 m/s. No such reading, or an
+    unknown value in it: no warning.
+
+    >>> t = np.array([0.0, 3600.0])
+    >>> one_liner_warns(t, np.array([1.0, 3.0]), np.array([1.0, 1.0]),
+    ...                 np.array([1800.0, 3600.0, 9000.0])).tolist()
+    [True, False, False]
+    """
+    reading_times_s = np.asarray(reading_times_s, dtype=float)
+    at_s = np.asarray(at_s, dtype=float)
+    k = np.searchsorted(reading_times_s, at_s, side="right") - 1
+    found = k >= 0
+    k = np.where(found, k, 0)
+    if reading_times_s.size == 0:
+        return np.zeros(at_s.shape, dtype=bool)
+    fresh = found & (at_s - reading_times_s[k] <= ONE_LINER_MAX_AGE_S)
+    with np.errstate(invalid="ignore"):
+        moist = np.asarray(dewpoint_depression_c, dtype=float)[k] <= ONE_LINER_DEPRESSION_C
+        calm = np.asarray(wind_ms, dtype=float)[k] < ONE_LINER_WIND_MS
+    return fresh & moist & calm
+
+
+def one_liner_time(night: datetime) -> datetime:
+    """21:00 local on the evening that starts ``night`` (its local noon), in UTC."""
+    return datetime.combine(night.date(), ONE_LINER_LOCAL, night.tzinfo).astimezone(UTC)
+
+
+def brier_score(probability: Sequence[float], observed: Sequence[bool]) -> float:
+    """Mean of (p − o)², o = 1 when the event happened (docs/references.md
+    [Brier 1950]); NaN for no forecasts.
+
+    >>> brier_score([0.25] * 4, [True, False, False, False])
+    0.1875
+    """
+    p = np.asarray(probability, dtype=float)
+    o = np.asarray(observed, dtype=float)
+    return float(np.mean((p - o) ** 2)) if p.size else float("nan")
+
+
+def always_warn(outcomes: Sequence[NightOutcome]) -> Contingency:
+    """Every night warned: each fog night a hit, every other a false alarm."""
+    fog = sum(o.observed for o in outcomes)
+    return Contingency(hits=fog, false_alarms=len(outcomes) - fog)
+
+
+def never_warn(outcomes: Sequence[NightOutcome]) -> Contingency:
+    """No night warned: each fog night a miss, every other a correct negative."""
+    fog = sum(o.observed for o in outcomes)
+    return Contingency(misses=fog, correct_negatives=len(outcomes) - fog)
+
+
+@dataclass
+class References:
+    """The reference forecasts over the nights a replay scored."""
+
+    one_liner: list[NightOutcome]  # first_warning: 21:00 local on the nights it warned
+    base_rate: float  # fog nights / nights
+    brier_climatology: float  # the Brier score of the base rate, every night
+    always: Contingency
+    never: Contingency
+
+    def brier_of(self, outcomes: Sequence[NightOutcome], level: str = "warning") -> float:
+        """The Brier score of categorical forecasts (probability 1 when warned, else 0)."""
+        return brier_score(
+            [1.0 if o.warned(level) else 0.0 for o in outcomes], [o.observed for o in outcomes]
+        )
+
+    def brier_of_constant(self, probability: float) -> float:
+        """The Brier score of one probability forecast every night."""
+        nights = [o.observed for o in self.one_liner]
+        return brier_score([probability] * len(nights), nights)
+
+    def as_dict(self) -> dict[str, object]:
+        def num(v: float) -> float | None:
+            return None if math.isnan(v) else round(v, 4)
+
+        return {
+            "one_liner": {
+                **table(self.one_liner, "warning").as_dict(),
+                "brier": num(self.brier_of(self.one_liner)),
+            },
+            "always_warn": {**self.always.as_dict(), "brier": num(self.brier_of_constant(1.0))},
+            "never_warn": {**self.never.as_dict(), "brier": num(self.brier_of_constant(0.0))},
+            "climatology": {
+                "base_rate": num(self.base_rate),
+                "brier": num(self.brier_climatology),
+            },
+        }
+
+
+def references(
+    nights: Sequence[NightOutcome],
+    readings: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]],
+) -> References:
+    """The reference forecasts on ``nights`` (the rules' nights, with their onsets);
+    ``readings`` per site: (POSIX seconds, dew-point depression °C, wind m/s) of its
+    observed rows in time order."""
+    one_liner = []
+    by_site: dict[str, list[NightOutcome]] = {}
+    for o in nights:
+        by_site.setdefault(o.site, []).append(o)
+    for site, outcomes in by_site.items():
+        at = [one_liner_time(o.night) for o in outcomes]
+        t, depression, wind = readings.get(site, (np.zeros(0), np.zeros(0), np.zeros(0)))
+        warns = one_liner_warns(t, depression, wind, np.array([a.timestamp() for a in at]))
+        for o, when, warn in zip(outcomes, at, warns.tolist(), strict=True):
+            first = when if warn else None
+            one_liner.append(
+                NightOutcome(
+                    o.site, o.night, fog_onset=o.fog_onset, first_watch=first, first_warning=first
+                )
+            )
+    observed = [o.observed for o in nights]
+    base_rate = sum(observed) / len(observed) if observed else float("nan")
+    return References(
+        one_liner=one_liner,
+        base_rate=base_rate,
+        brier_climatology=brier_score([base_rate] * len(observed), observed),
+        always=always_warn(nights),
+        never=never_warn(nights),
+    )

@@ -44,12 +44,13 @@ def test_undefined_scores_are_nan_not_zero():
         (1000.0, "", False),
         (np.nan, "FZFG", True),
         (3000.0, "BR", False),
-        (np.nan, "-DZ BCFG", True),
+        (np.nan, "-DZ BCFG", False),  # fog patches are not fog at the site (FM 15)
         (np.nan, None, False),
     ],
 )
 def test_fog_is_the_wmo_definition(vis, wx, fog):
-    # WMO-No. 8: fog is visibility below 1000 m; METAR FG/FZFG (WMO-No. 306 FM 15).
+    # WMO-No. 8: fog is visibility below 1000 m; METAR FG/FZFG (WMO-No. 306 FM 15); the
+    # full table of what is and is not fog at the site is in test_nights.py
     assert fog_observed(vis, wx) is fog
 
 
