@@ -72,7 +72,7 @@ def _report_input(batch: ObservationBatch) -> None:
 
 def cli_assess(args: argparse.Namespace) -> int:
     from notifier.cli.views import assessment_table
-    from notifier.engine.assess import to_json
+    from notifier.engine.assessment import to_json
 
     loaded = load(args.config)
     batch, at = _data_for(loaded, args)

@@ -7,7 +7,7 @@ from collections.abc import Mapping, Sequence
 from datetime import UTC
 
 from notifier.core.timefmt import local_time
-from notifier.engine.assess import SiteAssessment, level_rank
+from notifier.engine.assessment import SiteAssessment, level_rank
 from notifier.engine.catalog import FEATURES, format_value
 from notifier.engine.rules import Comparison, Condition, Group, Outcome, RuleSet
 

@@ -13,7 +13,7 @@ from datetime import datetime, timedelta
 
 from notifier.core.timefmt import local_time
 from notifier.engine.alerts import Event, event_id
-from notifier.engine.assess import SiteAssessment
+from notifier.engine.assessment import SiteAssessment
 
 __all__ = ["outlook_event", "outlook_lines"]
 

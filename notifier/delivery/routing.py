@@ -30,7 +30,7 @@ from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo
 
 from notifier.core.config import Subscriber
-from notifier.engine.assess import level_rank
+from notifier.engine.assessment import level_rank
 from notifier.storage.deliveries import Delivery
 
 if TYPE_CHECKING:  # pragma: no cover

@@ -15,7 +15,7 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.core.timefmt import iso_text, parse_iso
-from notifier.engine.assess import level_rank
+from notifier.engine.assessment import level_rank
 
 if TYPE_CHECKING:  # pragma: no cover
     pass

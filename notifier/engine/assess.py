@@ -9,173 +9,44 @@ moment a value touches its threshold.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, timedelta
 from functools import partial
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from notifier.core.timefmt import iso_z
-from notifier.engine.catalog import FEATURES, FeatureSettings, FeatureTable
+from notifier.engine.assessment import (
+    STALE_AFTER_MIN,
+    FeatureRow,
+    HazardAssessment,
+    LazyTexts,
+    SiteAssessment,
+    SiteResults,
+    level_rank,
+)
+from notifier.engine.catalog import FeatureSettings, FeatureTable
 from notifier.engine.features import FeatureCache, compute_features_at
-from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult, RuleSet, evaluate_rule
+from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleSet, evaluate_rule
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.core.config import Site
 
-__all__ = [
-    "HazardAssessment",
-    "SiteAssessment",
-    "assess",
-    "assess_times",
-    "level_rank",
-    "to_json",
-]
+__all__ = ["assess", "assess_times"]
+
 
 HOLD_STEP_S = 600.0  # hold windows are checked every 10 minutes
+
 # A hold is judged on the data: the rule must have held from ``hold`` before the newest
 # reading until now, so a reading carried forward between reports cannot meet a hold by
 # itself. The newest reading may be this far behind the evaluation time for that; older,
 # the hold is not met (hourly reports are the sparsest routine ones: common practice).
 HOLD_REACH_S = 3600.0
-STALE_AFTER_MIN = 90.0
+
+
 ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
-
-
-_LEVEL_RANK = {level: rank for rank, level in enumerate(LEVELS)}
-
-
-def level_rank(level: str) -> int:
-    """0 for none, then watch, warning (the order of ``rules.LEVELS``)."""
-    rank = _LEVEL_RANK.get(level)
-    if rank is None:
-        raise ValueError(f"unknown level {level!r} (known: {', '.join(LEVELS)})")
-    return rank
-
-
-class LazyTexts(Sequence[str]):
-    """Text worked out only when read: most assessments are never shown to anyone."""
-
-    __slots__ = ("_make", "_items")
-
-    def __init__(self, make: Callable[[], list[str]]):
-        self._make = make
-        self._items: list[str] | None = None
-
-    def _all(self) -> list[str]:
-        if self._items is None:
-            self._items = self._make()
-        return self._items
-
-    def __getitem__(self, k):  # type: ignore[no-untyped-def, override]
-        return self._all()[k]
-
-    def __len__(self) -> int:
-        return len(self._all())
-
-    def __eq__(self, other: object) -> bool:
-        return list(self) == list(other) if isinstance(other, Sequence) else NotImplemented
-
-    def __repr__(self) -> str:
-        return repr(self._all())
-
-
-@dataclass
-class HazardAssessment:
-    hazard: str
-    level: str  # watch | warning
-    kind: str
-    eta: datetime | None
-    rules: list[str]
-    reasons: Sequence[str]
-    explanations: Sequence[str]
-    safety_refs: list[str]
-
-
-class FeatureRow(Mapping[str, float]):
-    """One site's features, read from the table's arrays on demand."""
-
-    __slots__ = ("_table", "_i")
-
-    def __init__(self, table: FeatureTable, i: int):
-        self._table = table
-        self._i = i
-
-    def __getitem__(self, name: str) -> float:
-        return float(self._table.values[name][self._i])
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._table.values)
-
-    def __len__(self) -> int:
-        return len(self._table.values)
-
-
-class SiteResults(Sequence[RuleResult]):
-    """One site's result for every rule, built from the rule evaluations on demand."""
-
-    __slots__ = ("_evals", "_i", "_cache")
-
-    def __init__(self, evals: Sequence[RuleEvaluation], i: int):
-        self._evals = evals
-        self._i = i
-        self._cache: list[RuleResult] | None = None
-
-    def _all(self) -> list[RuleResult]:
-        if self._cache is None:
-            self._cache = [ev[self._i] for ev in self._evals]
-        return self._cache
-
-    def __getitem__(self, k: int) -> RuleResult:  # type: ignore[override]
-        return self._all()[k]
-
-    def __len__(self) -> int:
-        return len(self._evals)
-
-    def where(self, keep: Callable[[Rule], bool]) -> list[RuleResult]:
-        """The results of the rules ``keep`` accepts; the others are not built."""
-        if self._cache is not None:
-            return [r for r in self._cache if keep(r.rule)]
-        return [ev[self._i] for ev in self._evals if keep(ev.rule)]
-
-
-def results_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[RuleResult]:
-    """``sa``'s results for the rules ``keep`` accepts (built lazily where they can be)."""
-    if isinstance(sa.results, SiteResults):
-        return sa.results.where(keep)
-    return [r for r in sa.results if keep(r.rule)]
-
-
-@dataclass
-class SiteAssessment:
-    site: Site
-    time: datetime
-    features: Mapping[str, float]
-    projection_method: str
-    last_time: datetime | None
-    results: Sequence[RuleResult]
-    hazards: dict[str, HazardAssessment] = field(default_factory=dict)
-    sustain: dict[str, str] = field(default_factory=dict)  # hazard → level with margins
-    stale_after_min: float = STALE_AFTER_MIN
-    # tonight's cooling curve (T0 °C, k K/h^½, sunset) when fitted, for charts
-    projection: tuple[float, float, datetime] | None = None
-
-    @property
-    def level(self) -> str:
-        ranks = [level_rank(h.level) for h in self.hazards.values()]
-        return LEVELS[max(ranks)] if ranks else "none"
-
-    @property
-    def age_min(self) -> float:
-        return self.features["data_age_min"]
-
-    @property
-    def stale(self) -> bool:
-        return not (self.age_min <= self.stale_after_min)
 
 
 def assess(
@@ -454,51 +325,3 @@ def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -
     if hours is None or not np.isfinite(hours) or hours > ETA_HORIZON_H:
         return None
     return at + timedelta(hours=float(hours))
-
-
-def _json_number(v: float) -> Any:
-    if v is None or (isinstance(v, float) and math.isnan(v)):
-        return None
-    if isinstance(v, float) and math.isinf(v):
-        return None
-    return round(float(v), 3)
-
-
-def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
-    """DESIGN.md's ``assess --json`` shape."""
-    out = []
-    for sa in assessments:
-        feats: dict[str, Any] = {}
-        for name, value in sa.features.items():
-            if FEATURES[name].kind == "bool":
-                feats[name] = None if math.isnan(value) else bool(value)
-            else:
-                feats[name] = _json_number(value)
-        feats["projection_method"] = sa.projection_method or None
-        hazards = [
-            {
-                "hazard": h.hazard,
-                "level": h.level,
-                "kind": h.kind,
-                "eta": iso_z(h.eta),
-                "rules": h.rules,
-                "reasons": list(h.reasons),
-            }
-            for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
-        ]
-        age = sa.age_min
-        out.append(
-            {
-                "site": sa.site.id,
-                "time": iso_z(sa.time),
-                "level": sa.level,
-                "hazards": hazards,
-                "features": feats,
-                "data": {
-                    "last_time": iso_z(sa.last_time),
-                    "age_min": None if not np.isfinite(age) else round(age, 1),
-                    "stale": sa.stale,
-                },
-            }
-        )
-    return out

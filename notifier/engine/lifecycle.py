@@ -1,7 +1,7 @@
 """Alert lifecycle: previous state + assessment + now → new state + events (pure).
 
 One :class:`AlertState` per (site, hazard). :func:`step` compares it with the newest
-:class:`~notifier.engine.assess.SiteAssessment` and returns the next states and the
+:class:`~notifier.engine.assessment.SiteAssessment` and returns the next states and the
 :class:`Event` objects a person should hear about. No file, network, clock or logging:
 ``now`` is passed in, and the same inputs always give the same outputs (and event ids).
 
@@ -45,13 +45,13 @@ from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
 from notifier.engine.alerts import AlertState, Event, StateKey, event_id
-from notifier.engine.assess import level_rank, results_where
+from notifier.engine.assessment import level_rank, results_where
 from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
 from notifier.engine.rules import HAZARDS
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
-    from notifier.engine.assess import SiteAssessment
+    from notifier.engine.assessment import SiteAssessment
 
 __all__ = ["step"]
 

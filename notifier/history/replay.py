@@ -24,21 +24,20 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from notifier.engine.assess import results_where
+from notifier.engine.assessment import results_where
 from notifier.engine.features import FeatureCache
 from notifier.engine.readings import epoch_seconds
+from notifier.history.baselines import References, references
 from notifier.history.verify import (
     Contingency,
     FogSpell,
     NightOutcome,
-    References,
     alert_for_night,
     fog_reports,
     fog_spells,
     median_lead_min,
     night_fog,
     night_of,
-    references,
     table,
 )
 
@@ -178,7 +177,7 @@ def replay(
     progress: Callable[[int, int], None] | None = None,
 ) -> ReplayResult:
     """Step from ``start`` to ``end`` and collect events, alert periods and night scores."""
-    from notifier.engine.assess import level_rank
+    from notifier.engine.assessment import level_rank
     from notifier.engine.lifecycle import step
 
     config = loaded.config

@@ -29,7 +29,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from notifier.delivery.dispatch import DispatchReport
     from notifier.engine.alerts import Event
-    from notifier.engine.assess import SiteAssessment
+    from notifier.engine.assessment import SiteAssessment
     from notifier.engine.catalog import FeatureTable
     from notifier.engine.features import FeatureCache
     from notifier.ingest.base import ObservationSource, PollResult
@@ -453,7 +453,7 @@ def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
     """What the bot and ``status`` show without recomputing."""
     import math
 
-    from notifier.engine.assess import to_json
+    from notifier.engine.assessment import to_json
 
     (data,) = to_json([sa])
     data["features"] = {

@@ -10,7 +10,7 @@ import pandas as pd
 from notifier.core.config import AlertSettings, Config, Site, Subscriber
 from notifier.demo.weather import NightSpec, simulate_night
 from notifier.engine.alerts import Event, event_id
-from notifier.engine.assess import HazardAssessment, SiteAssessment
+from notifier.engine.assessment import HazardAssessment, SiteAssessment
 from tests.engine.scenes import EVENING, RULES, site, utc
 
 __all__ = [

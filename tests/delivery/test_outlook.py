@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import math
-from datetime import timedelta
+import re
+from datetime import UTC, date, datetime, time, timedelta
 
 import pytest
 
@@ -73,6 +74,15 @@ def cooling_potential(
     return min(1.0, max(0.0, min(1.0, loss_wm2 / 80.0) * wind * exposure_factor))
 
 
+def _sunrise(lat: float, lon: float, day: date) -> datetime:
+    """Sunrise by astral with the NOAA zenith of 90.833° (docs/references.md [Sun check])."""
+    from astral import Observer
+    from astral.sun import SunDirection, time_of_transit
+
+    observer = Observer(latitude=lat, longitude=lon)
+    return time_of_transit(observer, day, 90.833, SunDirection.RISING, with_refraction=False)
+
+
 def outlook_rows(service: Service) -> list[tuple[str, str, str]]:
     out = []
     for row in service.outbox.deliveries():
@@ -124,29 +134,47 @@ def test_the_outlook_text_names_minimum_dew_point_cooling_onset_icing_and_cautio
     expected = cooling_potential(temp, 1.2, 0.8, 5.0, sky_view=0.85, exposure_factor=1.2)
     assert expected == 1.0  # 72 W/m² of 80, × 1.2 for the valley: more than full, clipped
     assert f"Cooling potential {expected:.2f} (strong)." in flat
-    assert "Onset window: 20:56 GMT to 22:56 GMT." in flat
+    # 1 h 20 min after sunset the cooling curve has too little evening behind it to be
+    # trusted (engine/projection.py: 4 readings over 2 h past the evening transition), so
+    # no projected hour is given: the window is the hours around dawn, sunrise - 4 h to
+    # + 1 h (radiation fog forms most often before dawn; common practice), with sunrise
+    # from astral's NOAA events (docs/references.md [Sun check]), to the minute.
+    onset = re.search(r"Onset window: most likely (\d\d):(\d\d) GMT to (\d\d):(\d\d) GMT", flat)
+    assert onset is not None, flat
+    sunrise = _sunrise(52.41, -2.37, OUTLOOK_AT.date() + timedelta(days=1))
+    for (hh, mm), shift in zip(((1, 2), (3, 4)), (-4, 1), strict=True):
+        shown = datetime.combine(sunrise.date(), time(int(onset[hh]), int(onset[mm])), UTC)
+        assert abs(shown - (sunrise + timedelta(hours=shift))) <= timedelta(minutes=2)
     assert "Icing: likely" in flat
     assert "Fog chance tonight: high." in flat
     assert "automated estimate from site data, not an official forecast" in flat
     assert "North Quay Basin" not in text
 
 
-def test_a_quiet_sites_outlook_says_low_chance_without_an_onset(evening: Scene):
+def test_a_cloudy_breezy_sites_outlook_projects_from_the_afternoon(evening: Scene):
     service = evening.service()
     service.poll_and_assess(OUTLOOK_AT)
     service.outlook(OUTLOOK_AT, ["zz-quay"])
     service.deliver(OUTLOOK_AT)
     flat = " ".join(evening.out("duty.txt").split())
     assert "Tonight's outlook · North Quay Basin" in flat
-    assert "Projected minimum 9.0 °C against a dew point of 3.0 °C (margin +6.0 °C)." in flat
     # the quay's reading: 9.0 °C, dew point 3.0 °C, wind 4.0 m/s, cloud 90 %;
     # waterside: sky view 1.0, cooling × 0.8
-    expected = cooling_potential(9.0, 3.0, 4.0, 90.0, sky_view=1.0, exposure_factor=0.8)
-    assert 0.14 < expected < 0.16  # 22 W/m² of 80, × 2/3 for the wind, × 0.8
-    assert f"Cooling potential {expected:.2f} (weak)." in flat
-    assert "Onset window" not in flat
+    cp = cooling_potential(9.0, 3.0, 4.0, 90.0, sky_view=1.0, exposure_factor=0.8)
+    assert 0.14 < cp < 0.16  # 22 W/m² of 80, × 2/3 for the wind, × 0.8
+    assert f"Cooling potential {cp:.2f} (weak)." in flat
+    # No trusted cooling curve yet (see above): the minimum comes from the midday values
+    # by Craddock & Pritchard (1951), T_min = 0.316 T12 + 0.548 Td12 - 1.24 + K
+    # (docs/references.md [Craddock & Pritchard 1951], [C&P check]), with K from -2.2
+    # (calm, clear) to +2.5 (windy, cloudy) by cooling potential, and the waterside
+    # +1 K scaled by it (fogwatch's documented choices, engine/projection.py).
+    minimum = 0.316 * 9.0 + 0.548 * 3.0 - 1.24 + (2.5 - 4.7 * cp) + 1.0 * cp
+    assert 5.1 < minimum < 5.3
+    shown = f"Projected minimum {minimum:.1f} °C against a dew point of 3.0 °C"
+    assert f"{shown} (margin {minimum - 3.0:+.1f} °C)." in flat
     assert "Icing: unlikely." in flat
-    assert "Fog chance tonight: low." in flat
+    # within 3 °C of the dew point: "some" (the outlook's crossover bands, common practice)
+    assert "Fog chance tonight: some." in flat
 
 
 def test_the_outlook_respects_a_hush(evening: Scene):

@@ -10,13 +10,8 @@ from zoneinfo import ZoneInfo
 import numpy as np
 import pytest
 
-from notifier.history.verify import (
-    NightOutcome,
-    brier_score,
-    one_liner_warns,
-    references,
-    table,
-)
+from notifier.history.baselines import brier_score, one_liner_warns, references
+from notifier.history.verify import NightOutcome, table
 
 LONDON = ZoneInfo("Europe/London")
 
