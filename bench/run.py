@@ -148,7 +148,7 @@ def w1_child(db: Path, n_sites: int, seed: int, out: Path) -> None:
 
     import pandas as pd
 
-    from notifier.service.cycle import FORECAST_HORIZON
+    from notifier.service.loading import FORECAST_HORIZON
     from notifier.storage.window import RollingWindow
 
     poll = pd.read_pickle(generate.last_poll_path(db))
@@ -572,7 +572,7 @@ def run_replay(seed: int) -> dict[str, Any]:
     from notifier.core.config import Config, default_rules_dir
     from notifier.engine.rule_files import load_rule_set
     from notifier.history.replay import replay
-    from notifier.service.cycle import Loaded
+    from notifier.service.loading import Loaded
 
     site_list = generate.sites(REPLAY_SITES, seed)
     frames = []

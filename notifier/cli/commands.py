@@ -15,7 +15,14 @@ from typing import TYPE_CHECKING, Any, cast
 
 from notifier.core.config_file import load_config
 from notifier.core.errors import FogwatchError, UsageError
-from notifier.service.cycle import Loaded, evaluate, load, observations_for, open_store, parse_time
+from notifier.service.loading import (
+    Loaded,
+    evaluate,
+    load,
+    observations_for,
+    open_store,
+    parse_time,
+)
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd

@@ -45,7 +45,7 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.engine.alerts import Event
-    from notifier.service.cycle import Loaded
+    from notifier.service.loading import Loaded
 
 __all__ = ["ReplayResult", "replay"]
 

@@ -12,15 +12,20 @@ import random
 import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal, cast
 
 from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber
-from notifier.core.config_file import load_config
-from notifier.core.errors import FogwatchError, UsageError
-from notifier.engine.rule_files import load_rule_set
+from notifier.core.errors import FogwatchError
 from notifier.engine.rules import RuleSet
+from notifier.service.loading import (
+    FORECAST_HORIZON,
+    Loaded,
+    evaluate,
+    load,
+    open_store,
+)
 from notifier.storage.botstate import BotState
 from notifier.storage.outbox import Outbox
 
@@ -31,80 +36,15 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.alerts import Event
     from notifier.engine.assessment import SiteAssessment
     from notifier.engine.catalog import FeatureTable
-    from notifier.engine.features import FeatureCache
     from notifier.ingest.base import ObservationSource, PollResult
     from notifier.storage.deliveries import Delivery
     from notifier.storage.store import Store
     from notifier.storage.window import RollingWindow
 
-__all__ = ["CycleReport", "Loaded", "Service", "evaluate", "load", "observations_for", "parse_time"]
+__all__ = ["CycleReport", "Service"]
+
 
 log = logging.getLogger(__name__)
-
-FORECAST_HORIZON = timedelta(hours=36)
-
-
-@dataclass
-class Loaded:
-    """A validated config with its rule set."""
-
-    config: Config
-    rules: RuleSet
-
-
-def load(config_path: str | Path) -> Loaded:
-    config = load_config(config_path)
-    return Loaded(config, load_rule_set(config.rule_paths()))
-
-
-def parse_time(text: str | None, default: datetime | None = None) -> datetime:
-    """ISO 8601 with offset or Z; a naive time is taken as UTC."""
-    if text is None:
-        return default if default is not None else datetime.now(UTC)
-    try:
-        t = datetime.fromisoformat(text.replace("Z", "+00:00"))
-    except ValueError as exc:
-        raise UsageError(
-            f"--at: expected an ISO 8601 time such as 2026-11-20T03:00Z, got: {text!r}"
-        ) from exc
-    return (t if t.tzinfo else t.replace(tzinfo=UTC)).astimezone(UTC)
-
-
-def open_store(config: Config) -> Store:
-    from notifier.storage.store import Store
-
-    return Store(config.store_url)
-
-
-def observations_for(config: Config, store: Store, at: datetime) -> pd.DataFrame:
-    """The rolling window for every site: observed rows up to ``at``, forecasts ahead."""
-    start = at - timedelta(seconds=config.store.window)
-    return store.window([s.id for s in config.sites], start, at + FORECAST_HORIZON)
-
-
-def evaluate(
-    loaded: Loaded,
-    obs: pd.DataFrame,
-    at: datetime,
-    cache: dict[float, FeatureTable] | None = None,
-    feature_cache: FeatureCache | None = None,  # the caller's, kept between cycles
-) -> list[SiteAssessment]:
-    """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
-    from notifier.engine.assess import assess
-
-    return assess(
-        loaded.rules,
-        loaded.config.sites,
-        obs,
-        at,
-        stale_after_min=loaded.config.alerts.stale_after / 60.0,
-        cache=cache,
-        feature_cache=feature_cache,
-    )
-
-
-# ---------------------------------------------------------------------------------------
-# the running service
 
 
 @dataclass

@@ -12,7 +12,7 @@ import pytest
 
 from notifier.cli.main import build_parser, main
 from notifier.demo.play import demo_observations
-from notifier.service.cycle import load
+from notifier.service.loading import load
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "demo_sites.yaml"

@@ -21,7 +21,8 @@ from notifier.core.columns import text_columns_as_objects
 from notifier.core.config import Site
 from notifier.delivery.channels.webhook import DELIVERY_HEADER
 from notifier.delivery.messages import CAUTION
-from notifier.service.cycle import Service, observations_for
+from notifier.service.cycle import Service
+from notifier.service.loading import observations_for
 from notifier.storage.deliveries import delivery_key
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
 from tests.delivery.scenes import clear_night

@@ -21,7 +21,7 @@ from notifier.history.verify import (
     fog_spells,
     night_fog,
 )
-from notifier.service.cycle import load
+from notifier.service.loading import load
 
 # -- fog at the site, report by report (WMO-No. 8; WMO-No. 306, FM 15) --------------------
 

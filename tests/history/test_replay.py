@@ -16,7 +16,8 @@ from notifier.cli.main import main
 from notifier.demo.weather import NightSpec, simulate_night
 from notifier.history.replay import replay
 from notifier.history.verify import Contingency, NightOutcome, fog_observed, scores
-from notifier.service.cycle import Service, load
+from notifier.service.cycle import Service
+from notifier.service.loading import load
 
 # -- scores against a published worked example ------------------------------------------
 

@@ -16,7 +16,7 @@ import pytest
 
 from notifier.demo.weather import NightSpec, simulate_night
 from notifier.history.replay import replay
-from notifier.service.cycle import load
+from notifier.service.loading import load
 
 CONFIG = """\
 version: 1
