@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from datetime import datetime, time, timedelta
+from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import pandas as pd
@@ -131,3 +132,28 @@ def clear_night(s: Site) -> tuple[pd.DataFrame, datetime, datetime]:
     start = datetime.combine(EVENING, time(16, 0), zone)
     end = datetime.combine(EVENING + timedelta(days=1), time(10, 30), zone)
     return obs, start, end
+
+
+# the columns a station logger's CSV carries in the delivery scenes, one file per step
+LOGGER_COLUMNS = [
+    "site",
+    "time",
+    "temp_c",
+    "dewpoint_c",
+    "wind_ms",
+    "wind_dir_deg",
+    "cloud_pct",
+    "visibility_m",
+    "pressure_hpa",
+    "weather",
+]
+
+
+def drop(folder: Path, rows: pd.DataFrame, now: datetime) -> None:
+    """One CSV per step, as a station logger would upload it."""
+    out = rows[LOGGER_COLUMNS].copy()
+    out["time"] = out["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")
+    path = folder / f"clear-field-{now:%Y%m%dT%H%M}.csv"
+    tmp = path.with_suffix(".part")
+    out.to_csv(tmp, index=False)
+    tmp.rename(path)

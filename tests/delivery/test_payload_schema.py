@@ -9,7 +9,7 @@ from __future__ import annotations
 import copy
 import json
 import random
-from datetime import datetime, time, timedelta
+from datetime import time, timedelta
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
@@ -26,7 +26,7 @@ from notifier.service.cycle import Service
 from notifier.storage.deliveries import Delivery
 from tests.delivery.conftest import WEBHOOK_SECRET
 from tests.delivery.outbox_kit import secrets_env, webhook_channel, write_config
-from tests.delivery.scenes import RULES, clear_night, event, site, utc
+from tests.delivery.scenes import RULES, clear_night, drop, event, site, utc
 
 SCHEMA_DIR = Path(__file__).resolve().parents[2] / "docs" / "schema"
 ALERT_FILE = SCHEMA_DIR / f"webhook-alert.v{MESSAGE_SCHEMA}.schema.json"
@@ -54,18 +54,6 @@ DESK = {
     "quiet_hours": "16:00-22:00",
     "warnings_in_quiet_hours": False,
 }
-COLUMNS = [
-    "site",
-    "time",
-    "temp_c",
-    "dewpoint_c",
-    "wind_ms",
-    "wind_dir_deg",
-    "cloud_pct",
-    "visibility_m",
-    "pressure_hpa",
-    "weather",
-]
 STEP = timedelta(minutes=10)
 
 
@@ -89,16 +77,6 @@ def problems(body: dict[str, Any]) -> list[str]:
         f"{'/'.join(map(str, e.absolute_path)) or '(body)'}: {e.message}"
         for e in validator.iter_errors(body)
     ]
-
-
-def drop(folder: Path, rows: pd.DataFrame, now: datetime) -> None:
-    """One CSV per step, as a station logger would upload it."""
-    out = rows[COLUMNS].copy()
-    out["time"] = out["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")
-    path = folder / f"clear-field-{now:%Y%m%dT%H%M}.csv"
-    tmp = path.with_suffix(".part")
-    out.to_csv(tmp, index=False)
-    tmp.rename(path)
 
 
 @pytest.fixture

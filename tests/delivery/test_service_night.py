@@ -10,7 +10,6 @@ import shutil
 from datetime import datetime, time, timedelta
 from email import policy
 from email.message import EmailMessage
-from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import pandas as pd
@@ -25,7 +24,7 @@ from notifier.service.cycle import Service
 from notifier.service.loading import observations_for
 from notifier.storage.deliveries import delivery_key
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
-from tests.delivery.scenes import clear_night
+from tests.delivery.scenes import clear_night, drop
 from tests.engine.scenes import EVENING
 
 ZONE = ZoneInfo("Europe/London")
@@ -40,29 +39,7 @@ SITE = {
 }
 FARM = {"id": "farm-manager", "channel": "mail", "address": "farm-manager@example.test"}
 DUTY = {"id": "duty-bridge", "channel": "hook", "address": "duty-room", "min_level": "warning"}
-COLUMNS = [
-    "site",
-    "time",
-    "temp_c",
-    "dewpoint_c",
-    "wind_ms",
-    "wind_dir_deg",
-    "cloud_pct",
-    "visibility_m",
-    "pressure_hpa",
-    "weather",
-]
 STEP = timedelta(minutes=10)
-
-
-def drop(folder: Path, rows: pd.DataFrame, now: datetime) -> None:
-    """One CSV per step, as a station logger would upload it."""
-    out = rows[COLUMNS].copy()
-    out["time"] = out["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")
-    path = folder / f"clear-field-{now:%Y%m%dT%H%M}.csv"
-    tmp = path.with_suffix(".part")
-    out.to_csv(tmp, index=False)
-    tmp.rename(path)
 
 
 def parse(data: bytes) -> EmailMessage:
