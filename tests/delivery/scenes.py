@@ -157,3 +157,15 @@ def drop(folder: Path, rows: pd.DataFrame, now: datetime) -> None:
     tmp = path.with_suffix(".part")
     out.to_csv(tmp, index=False)
     tmp.rename(path)
+
+
+# the one invented site of the whole-service nights (service night, payload schemas)
+CLEAR_FIELD = {
+    "id": "clear-field",
+    "name": "Clear Field",
+    "lat": 52.3,
+    "lon": -1.8,
+    "timezone": "Europe/London",
+    "exposure": "open",
+    "use": "farm",
+}

@@ -26,7 +26,7 @@ from notifier.service.cycle import Service
 from notifier.storage.deliveries import Delivery
 from tests.delivery.conftest import WEBHOOK_SECRET
 from tests.delivery.outbox_kit import secrets_env, webhook_channel, write_config
-from tests.delivery.scenes import RULES, clear_night, drop, event, site, utc
+from tests.delivery.scenes import CLEAR_FIELD, RULES, clear_night, drop, event, site, utc
 
 SCHEMA_DIR = Path(__file__).resolve().parents[2] / "docs" / "schema"
 ALERT_FILE = SCHEMA_DIR / f"webhook-alert.v{MESSAGE_SCHEMA}.schema.json"
@@ -34,15 +34,7 @@ SUMMARY_FILE = SCHEMA_DIR / f"webhook-summary.v{MESSAGE_SCHEMA}.schema.json"
 WEBHOOK_ONLY = {"delivery", "recipient"}  # added by the webhook channel to message.json
 
 ZONE = ZoneInfo("Europe/London")
-SITE = {
-    "id": "clear-field",
-    "name": "Clear Field",
-    "lat": 52.3,
-    "lon": -1.8,
-    "timezone": "Europe/London",
-    "exposure": "open",
-    "use": "farm",
-}
+SITE = CLEAR_FIELD
 # every event at once, to an address
 DUTY = {"id": "duty-bridge", "channel": "hook", "address": "duty-room"}
 # fog news held from 16:00 to 22:00, warnings too: the watch, the outlook and the warning

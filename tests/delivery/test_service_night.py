@@ -24,19 +24,11 @@ from notifier.service.cycle import Service
 from notifier.service.loading import observations_for
 from notifier.storage.deliveries import delivery_key
 from tests.delivery.outbox_kit import email_channel, secrets_env, webhook_channel, write_config
-from tests.delivery.scenes import clear_night, drop
+from tests.delivery.scenes import CLEAR_FIELD, clear_night, drop
 from tests.engine.scenes import EVENING
 
 ZONE = ZoneInfo("Europe/London")
-SITE = {
-    "id": "clear-field",
-    "name": "Clear Field",
-    "lat": 52.3,
-    "lon": -1.8,
-    "timezone": "Europe/London",
-    "exposure": "open",
-    "use": "farm",
-}
+SITE = CLEAR_FIELD
 FARM = {"id": "farm-manager", "channel": "mail", "address": "farm-manager@example.test"}
 DUTY = {"id": "duty-bridge", "channel": "hook", "address": "duty-room", "min_level": "warning"}
 STEP = timedelta(minutes=10)

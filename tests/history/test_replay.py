@@ -18,6 +18,7 @@ from notifier.history.replay import replay
 from notifier.history.verify import Contingency, NightOutcome, fog_observed, scores
 from notifier.service.cycle import Service
 from notifier.service.loading import load
+from tests.history.scenes import FIRST, TWO_FIELDS
 
 # -- scores against a published worked example ------------------------------------------
 
@@ -68,18 +69,6 @@ def test_a_warning_after_onset_is_a_late_miss():
 
 # -- an invented month with known fog nights -------------------------------------------
 
-CONFIG = """\
-version: 1
-sites:
-  - {id: low-field, name: Low Field, lat: 52.3, lon: -1.8, timezone: Europe/London,
-     exposure: open, use: farm}
-  - {id: top-field, name: Top Field, lat: 52.4, lon: -1.9, timezone: Europe/London,
-     exposure: open, use: farm}
-store: {url: "sqlite:///replay.sqlite"}
-"""
-
-FIRST = date(2026, 10, 1)
-
 
 def night_kind(site_index: int, day: int) -> str:
     """Each night's invented weather, in a fixed pattern known to the test."""
@@ -121,7 +110,7 @@ def invented_night(site_id: str, evening: date, kind: str) -> pd.DataFrame:
 def month(tmp_path_factory):
     folder = tmp_path_factory.mktemp("replay")
     cfg = folder / "fogwatch.yaml"
-    cfg.write_text(CONFIG)
+    cfg.write_text(TWO_FIELDS)
     loaded = load(cfg)
     frames, expected = [], Contingency()
     days = 12

@@ -17,18 +17,8 @@ import pytest
 from notifier.demo.weather import NightSpec, simulate_night
 from notifier.history.replay import replay
 from notifier.service.loading import load
+from tests.history.scenes import FIRST, TWO_FIELDS
 
-CONFIG = """\
-version: 1
-sites:
-  - {id: low-field, name: Low Field, lat: 52.3, lon: -1.8, timezone: Europe/London,
-     exposure: open, use: farm}
-  - {id: top-field, name: Top Field, lat: 52.4, lon: -1.9, timezone: Europe/London,
-     exposure: open, use: farm}
-store: {url: "sqlite:///steps.sqlite"}
-"""
-
-FIRST = date(2026, 10, 1)
 DAYS = 8
 
 
@@ -73,7 +63,7 @@ def _night_table(result) -> list[tuple]:
 def hourly(tmp_path_factory):
     folder = tmp_path_factory.mktemp("steps")
     cfg = folder / "fogwatch.yaml"
-    cfg.write_text(CONFIG)
+    cfg.write_text(TWO_FIELDS)
     loaded = load(cfg)
     kinds = ("fog", "quiet", "near-miss", "fog", "late-breeze", "quiet")
     frames = [
