@@ -272,7 +272,7 @@ def cli_replay(args: argparse.Namespace) -> int:
     from notifier.history import report as rt
     from notifier.ingest.poll import read_files
 
-    loaded = load(args.config)
+    loaded = load(args.config, getattr(args, "model", None))
     start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise UsageError("--to must be after --from")
@@ -288,7 +288,7 @@ def cli_replay(args: argparse.Namespace) -> int:
     _report_input(ObservationBatch(frame, rejections, warnings))
     sets = [(loaded, "rules")]
     if args.rules_b:
-        other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]))
+        other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]), loaded.model)
         sets.append((other, "rules-b"))
     import sys
 

@@ -84,6 +84,12 @@ def _cmd(name: str) -> Handler:
     return run
 
 
+def _cmd_learn(args: argparse.Namespace) -> int:
+    from notifier.cli.learn_command import cli_learn
+
+    return cli_learn(args)
+
+
 def _cmd_demo(args: argparse.Namespace) -> int:
     from notifier.demo import play as demo
 
@@ -195,7 +201,21 @@ def _add_history_commands(sub: _Subcommands) -> None:
     p.add_argument("--csv", metavar="FILE", help="write the events as CSV")
     p.add_argument("--png", metavar="FILE", help="write a timeline chart")
     p.add_argument("--deliver-to", metavar="DIR", help="write the messages as .eml files")
+    p.add_argument("--model", metavar="FILE", help="a site model from fogwatch learn")
     p.set_defaults(handler=_cmd("cli_replay"))
+
+    p = sub.add_parser("learn", help="fit each site's fog model on its own history")
+    _add_common(p)
+    p.add_argument("--data", nargs="+", metavar="FILE", required=True, help="the site history")
+    p.add_argument("--out", required=True, metavar="MODEL.json", help="where to write the model")
+    p.add_argument("--site", metavar="ID", help="only this site")
+    p.add_argument(
+        "--hours", type=float, default=6.0, help="look-ahead: fog now or within H h (default 6)"
+    )
+    p.add_argument("--labels", nargs="+", metavar="FILE", help="fog reports of a nearby station")
+    p.add_argument("--from", dest="start", metavar="TIME", help="default: the first row")
+    p.add_argument("--to", dest="end", metavar="TIME", help="default: the last row")
+    p.set_defaults(handler=_cmd_learn)
 
     p = sub.add_parser("demo", help="one invented night at three invented sites")
     p.set_defaults(handler=_cmd_demo)

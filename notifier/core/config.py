@@ -316,6 +316,7 @@ class Config(_Model):
     store: StoreSettings = StoreSettings()
     alerts: AlertSettings = AlertSettings()
     bot: BotSettings = BotSettings()
+    model: Path | None = None  # a site model written by `fogwatch learn` (JSON)
     path: Path | None = None  # the file this came from (set by load_config)
 
     @field_validator("version")

@@ -316,13 +316,20 @@ def _resolve_paths(config: Config) -> Config:
             ch = ch.model_copy(update={"file": _resolve(base, ch.file)})
         channels.append(ch)
     rules = tuple(_resolve(base, r) for r in config.rules)
+    model = None if config.model is None else _resolve(base, config.model)
     store = config.store
     if store.url and store.url.startswith("sqlite:///") and not store.url.startswith("sqlite:////"):
         rel = store.url.removeprefix("sqlite:///")
         if rel and rel != ":memory:":
             store = store.model_copy(update={"url": f"sqlite:///{_resolve(base, Path(rel))}"})
     return config.model_copy(
-        update={"sources": sources, "channels": tuple(channels), "rules": rules, "store": store}
+        update={
+            "sources": sources,
+            "channels": tuple(channels),
+            "rules": rules,
+            "store": store,
+            "model": model,
+        }
     )
 
 
@@ -412,4 +419,6 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
     for i, rule_path in enumerate(config.rules):
         if not rule_path.exists():
             add(("rules", i), f"rule path not found: {rule_path}")
+    if config.model is not None and not config.model.is_file():
+        add(("model",), f"model file not found: {config.model} (write one with fogwatch learn)")
     return problems

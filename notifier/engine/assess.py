@@ -312,7 +312,9 @@ def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
 def _explanations(
     evals: Sequence[RuleEvaluation], i: int, features: Mapping[str, float]
 ) -> list[str]:
-    return [ev[i].explanation(features) for ev in evals if ev.rule.explain]
+    drivers = getattr(features, "drivers", "")
+    values = {**features, "model_drivers": drivers} if drivers else features
+    return [ev[i].explanation(values) for ev in evals if ev.rule.explain]
 
 
 def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -> datetime | None:

@@ -94,6 +94,12 @@ class FeatureRow(Mapping[str, float]):
     def __len__(self) -> int:
         return len(self._table.values)
 
+    @property
+    def drivers(self) -> str:
+        """What moved the site model's chance most, in words ("" without a model)."""
+        d = self._table.drivers
+        return "" if d is None else str(d[self._i])
+
 
 class SiteResults(Sequence[RuleResult]):
     """One site's result for every rule, built from the rule evaluations on demand."""

@@ -38,6 +38,7 @@ from datetime import datetime
 import numpy as np
 
 from notifier.core.timefmt import quantity_text
+from notifier.engine.model import FogModel
 
 __all__ = [
     "EXPOSURE_EFFECTS",
@@ -162,6 +163,13 @@ FEATURES: dict[str, FeatureSpec] = {
     "observed_fog": FeatureSpec("fog observed", "", kind="bool"),
     "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
     "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),
+    "fog_probability": FeatureSpec(
+        "chance of fog",
+        "",
+        decimals=2,
+        description="learned chance (0–1) of fog now or within the model's hours; "
+        "unknown without a model (fogwatch learn)",
+    ),
     "data_age_min": FeatureSpec("data age", "min", decimals=0),
 }
 
@@ -237,6 +245,9 @@ class FeatureSettings:
     # docs/references.md [LW check]); 80 W/m² is taken as "full" radiative cooling.
     full_loss_wm2: float = 80.0
     surface_emissivity: float = 0.98
+    # a site model from `fogwatch learn` (notifier.engine.model); None: fog_probability
+    # is unknown
+    model: FogModel | None = None
 
 
 @dataclass
@@ -251,6 +262,8 @@ class FeatureTable:
     fit_t0_c: np.ndarray  # tonight's square-root cooling fit (NaN where none)
     fit_k_per_sqrt_h: np.ndarray
     last_sunset: np.ndarray  # POSIX seconds
+    # with a site model: per site, the inputs that moved its chance most, in words
+    drivers: np.ndarray | None = None
 
     def row(self, i: int) -> dict[str, float]:
         return {name: float(arr[i]) for name, arr in self.values.items()}

@@ -319,6 +319,11 @@ def _features_at(
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }
+    found["fog_probability"] = (
+        settings.model.probability(found, st.ids, at)
+        if settings.model is not None
+        else np.full(len(st.ids), np.nan)
+    )
     # in the order of FEATURES (what a row and the JSON output list them in)
     values = {name: np.asarray(found[name], dtype=float) for name in FEATURES}
     table = FeatureTable(
@@ -330,5 +335,26 @@ def _features_at(
         fit_t0_c=proj.fit_t0,
         fit_k_per_sqrt_h=proj.fit_k,
         last_sunset=last_sunset,
+        drivers=_drivers(settings, values, st.ids, at),
     )
     return table, (t_at, last_sunset, next_sunrise, night)
+
+
+def _drivers(
+    settings: FeatureSettings, values: dict[str, np.ndarray], ids: list[str], at: datetime
+) -> np.ndarray | None:
+    """In words, what moved each site's chance most, where the chance is worth telling
+    (a twentieth or more, below the lowest rule on it): the words the model's rules show."""
+    model = settings.model
+    if model is None:
+        return None
+    out = np.full(len(ids), "", dtype=object)
+    with np.errstate(invalid="ignore"):
+        shown = np.flatnonzero(values["fog_probability"] >= 0.05)
+    for i in shown.tolist():
+        row = {name: float(arr[i]) for name, arr in values.items()}
+        pushes = model.drivers(row, ids[i], at)
+        out[i] = "; ".join(
+            f"{label} {'towards' if push > 0 else 'against'} fog" for label, push in pushes
+        )
+    return out

@@ -246,7 +246,7 @@ def _parse_rule(node: Any, line: int | None, path: str, probs: _FileProblems) ->
     else:
         try:
             for _, name, _, _ in string.Formatter().parse(explain):
-                if name is not None and name not in FEATURES:
+                if name is not None and name not in FEATURES and name not in TEXT_FIELDS:
                     probs.add(
                         _key_line(node, "explain"),
                         rid,
@@ -275,6 +275,10 @@ def _parse_rule(node: Any, line: int | None, path: str, probs: _FileProblems) ->
         path=path,
         line=line,
     )
+
+
+# words an explanation may show besides the features: what moved the site model's chance
+TEXT_FIELDS = ("model_drivers",)
 
 
 def _parse_sites(node: Any, line: int | None, rid: str, probs: _FileProblems) -> SiteFilter:

@@ -28,13 +28,12 @@ from notifier.engine.assessment import results_where
 from notifier.engine.features import FeatureCache
 from notifier.engine.readings import epoch_seconds
 from notifier.history.baselines import References, references
+from notifier.history.probability import chance_scores
+from notifier.history.truth import fog_spells_by_site, observed_rows
 from notifier.history.verify import (
     Contingency,
-    FogSpell,
     NightOutcome,
     alert_for_night,
-    fog_reports,
-    fog_spells,
     median_lead_min,
     night_fog,
     night_of,
@@ -68,41 +67,16 @@ class ReplayResult:
     references: References | None = None  # the reference forecasts on the same nights
     delivered: int = 0
     extra: dict[str, Any] = field(default_factory=dict)
+    # with a site model: the chance of fog at each step (sites × steps, NaN unknown) and
+    # its scores against what followed (``notifier.history.probability``)
+    probability: np.ndarray | None = None
+    probability_scores: dict[str, Any] | None = None
 
     def table(self, level: str = "warning", site: str | None = None) -> Contingency:
         return table([n for n in self.nights if site is None or n.site == site], level)
 
     def lead(self, which: str, site: str | None = None) -> float | None:
         return median_lead_min([n for n in self.nights if site is None or n.site == site], which)
-
-
-def _observed_rows(obs: pd.DataFrame) -> pd.DataFrame:
-    """The observed rows (not forecasts), in time order."""
-    return obs[obs["kind"] == "obs"] if len(obs) else obs
-
-
-def _fog_spells(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, list[FogSpell]]:
-    """Each site's confirmed fog spells in the whole history (``verify``'s definition:
-    fog at the site, in consecutive reports), so fog carried into the first night is
-    known too."""
-    out: dict[str, list[FogSpell]] = {s.id: [] for s in sites}
-    rows = _observed_rows(obs)
-    if not len(rows):
-        return out
-    vis = (
-        rows["visibility_m"].to_numpy(dtype=float, na_value=np.nan)
-        if ("visibility_m" in rows)
-        else np.full(len(rows), np.nan)
-    )
-    wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
-    fog, known = fog_reports(vis, wx)
-    site_ids = rows["site"].to_numpy(dtype=object)
-    t_s = epoch_seconds(rows["time"])
-    for sid in out:
-        mine = np.flatnonzero((site_ids == sid) & known)
-        times = [datetime.fromtimestamp(float(t), UTC) for t in t_s[mine]]
-        out[sid] = fog_spells(times, fog[mine].tolist())
-    return out
 
 
 def _covered_nights(
@@ -125,7 +99,7 @@ def _covered_nights(
 def _readings(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, tuple[Any, Any, Any]]:
     """Per site, its observed (POSIX seconds, dew-point depression °C, wind m/s), in
     time order: what the one-line reference rule reads."""
-    rows = _observed_rows(obs)
+    rows = observed_rows(obs)
     out: dict[str, tuple[Any, Any, Any]] = {}
     if not len(rows):
         return out
@@ -175,8 +149,15 @@ def replay(
     label: str = "rules",
     deliver_to: Path | None = None,
     progress: Callable[[int, int], None] | None = None,
+    truth: pd.DataFrame | None = None,
+    on_step: Callable[[int, list[Any]], None] | None = None,
 ) -> ReplayResult:
-    """Step from ``start`` to ``end`` and collect events, alert periods and night scores."""
+    """Step from ``start`` to ``end`` and collect events, alert periods and night scores.
+
+    ``truth`` holds the reports the nights are scored on when they are not the site's
+    own (another station's, already given the site's id); ``on_step(k, assessments)``
+    sees each step's site assessments (``fogwatch learn`` reads the features there).
+    """
     from notifier.engine.assessment import level_rank
     from notifier.engine.lifecycle import step
 
@@ -189,7 +170,8 @@ def replay(
     n_steps = int(math.floor((end - start).total_seconds() / step_s)) + 1
     times = start.timestamp() + np.arange(n_steps) * step_s
     fog_level = np.zeros((len(sites), n_steps), dtype=np.int8)
-    spells = _fog_spells(obs, sites)
+    chance = np.full((len(sites), n_steps), np.nan) if loaded.model is not None else None
+    spells = fog_spells_by_site(obs if truth is None else truth, sites)
     fog_nights = {
         (site.id, night): night_fog(spells[site.id], night, nxt)
         for _, site, night, nxt in _covered_nights(sites, start, end, step_s)
@@ -208,12 +190,21 @@ def replay(
                 fog_level[pos[site_id], k] = level_rank(st.level)
         for i, key in onset_steps.get(k, []):
             why_not[key] = _why_not(assessments[i])
+        if chance is not None:
+            chance[:, k] = [sa.features["fog_probability"] for sa in assessments]
+        if on_step is not None:
+            on_step(k, assessments)
         if progress is not None:
             progress(k + 1, n_steps)
 
     nights = _nights(sites, times, fog_level, fog_nights, events, why_not, start, end, step_s)
     refs = references(nights, _readings(obs, sites))
     result = ReplayResult(start, end, step_s, ids, events, times, fog_level, nights, label, refs)
+    if chance is not None and loaded.model is not None:
+        result.probability = chance
+        result.probability_scores = chance_scores(
+            chance, times, spells, obs if truth is None else truth, sites, loaded.model.hours
+        )
     if deliver_to is not None:
         result.delivered = _write_messages(loaded, events, deliver_to)
     return result
@@ -288,6 +279,7 @@ def _step_assessments(
             sites,
             window,
             [datetime.fromtimestamp(float(t), UTC) for t in batch_times],
+            loaded.settings,
             stale_after_min=stale,
             cache=cache,
             feature_cache=features,

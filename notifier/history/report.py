@@ -53,6 +53,8 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
             },
             # the reference forecasts on the same nights (the warning level)
             "references": refs.as_dict() if refs else None,
+            # with a site model: its chance scored hour by hour (NaN scores as null)
+            "probability": _json_safe(res.probability_scores),
             "sites": per_site,
             "events": [
                 {
@@ -94,6 +96,14 @@ def _fmt(v: float | None, spec: str = ".2f") -> str:
     return "—" if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, spec)
 
 
+def _json_safe(v: Any) -> Any:
+    if isinstance(v, dict):
+        return {k: _json_safe(x) for k, x in v.items()}
+    if isinstance(v, list):
+        return [_json_safe(x) for x in v]
+    return None if isinstance(v, float) and v != v else v
+
+
 def _num(v: float) -> float | None:
     return None if math.isnan(v) else round(v, 4)
 
@@ -111,12 +121,35 @@ def report_text(results: Sequence[ReplayResult]) -> str:
         lines.extend(_timeline_lines(res))
     lines.extend(_score_lines(results))
     lines.extend(_reference_lines(results))
+    lines.extend(_probability_lines(results))
     for res in results:
         lines.extend(_per_site_lines(res))
     lines.append(
         "Scores of an automated estimate on past data; they do not make it an official forecast."
     )
     return "\n".join(lines)
+
+
+def _probability_lines(results: Sequence[ReplayResult]) -> list[str]:
+    """With a site model: the chance scored hour by hour against fog within its hours."""
+    lines = []
+    for res in results:
+        p = res.probability_scores
+        if not p or not p["hours"]:
+            continue
+        lines += [
+            f"Site model ({res.label}), chance of fog within {p['hours_ahead']:g} h, "
+            f"{p['hours']} steps: Brier {p['brier']:.3f} (climatology "
+            f"{p['brier_climatology']:.3f}), skill {p['brier_skill']:+.2f}, "
+            f"ROC area {_fmt(p['roc_area'])}",
+            "  reliability (chance → how often fog followed, steps): "
+            + ", ".join(
+                f"{r['from']:.1f}–{r['to']:.1f} → {r['observed']:.2f} ({r['n']})"
+                for r in p["reliability"]
+            ),
+            "",
+        ]
+    return lines
 
 
 def _timeline_lines(res: ReplayResult) -> list[str]:

@@ -151,7 +151,9 @@ class Service:
                 _shown_url(loaded.config.store_url),
             )
             running = loaded.config.store.model_copy(update={"url": self._store_url})
-            loaded = Loaded(loaded.config.model_copy(update={"store": running}), loaded.rules)
+            loaded = Loaded(
+                loaded.config.model_copy(update={"store": running}), loaded.rules, loaded.model
+            )
         with self._lock:
             self.loaded = loaded
             self._features.clear()

@@ -12,7 +12,9 @@ from typing import TYPE_CHECKING
 
 from notifier.core.config import Config
 from notifier.core.config_file import load_config
-from notifier.core.errors import UsageError
+from notifier.core.errors import ConfigError, UsageError
+from notifier.engine.catalog import FeatureSettings
+from notifier.engine.model import FogModel, ModelError
 from notifier.engine.rule_files import load_rule_set
 from notifier.engine.rules import RuleSet
 
@@ -24,7 +26,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.features import FeatureCache
     from notifier.storage.store import Store
 
-__all__ = ["Loaded", "evaluate", "load", "observations_for", "parse_time"]
+__all__ = ["Loaded", "evaluate", "load", "observations_for", "parse_time", "read_model"]
 
 
 FORECAST_HORIZON = timedelta(hours=36)
@@ -32,15 +34,40 @@ FORECAST_HORIZON = timedelta(hours=36)
 
 @dataclass
 class Loaded:
-    """A validated config with its rule set."""
+    """A validated config with its rule set, and its site model if it names one."""
 
     config: Config
     rules: RuleSet
+    model: FogModel | None = None
+
+    @property
+    def settings(self) -> FeatureSettings:
+        return FeatureSettings(model=self.model)
 
 
-def load(config_path: str | Path) -> Loaded:
+def load(config_path: str | Path, model_path: str | Path | None = None) -> Loaded:
+    """The config and its rules; the model from ``model_path`` (say ``replay --model``)
+    or else the config's ``model:`` key."""
     config = load_config(config_path)
-    return Loaded(config, load_rule_set(config.rule_paths()))
+    path = Path(model_path) if model_path is not None else config.model
+    model = None if path is None else read_model(path)
+    return Loaded(config, load_rule_set(config.rule_paths()), model)
+
+
+def read_model(path: Path) -> FogModel:
+    """A model file written by ``fogwatch learn``; a clear error when it cannot be used."""
+    import json
+
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: model file not found (write one with fogwatch learn)") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ConfigError(f"{path}: cannot read the model: {exc}") from None
+    try:
+        return FogModel.from_dict(data, str(path))
+    except ModelError as exc:
+        raise ConfigError(str(exc)) from None
 
 
 def parse_time(text: str | None, default: datetime | None = None) -> datetime:
@@ -83,6 +110,7 @@ def evaluate(
         loaded.config.sites,
         obs,
         at,
+        loaded.settings,
         stale_after_min=loaded.config.alerts.stale_after / 60.0,
         cache=cache,
         feature_cache=feature_cache,
