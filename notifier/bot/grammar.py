@@ -14,6 +14,12 @@ Commands (one per message, case does not matter)::
 
 The grammar is pure; every read and write goes through a ``BotBackend`` so the same
 commands work over HTTP, from the shell (``fogwatch ask``) and in tests.
+
+A sender id must be a plain identifier (``notifier.core.config.check_sender_id``): any
+other is refused before anything else, ``join`` included. A sender names only the sites
+``BotBackend.sites_for`` gives them (a member: what their join codes granted); any other
+site is answered as unknown, so its name is not given away. A hush is the sender's own
+unless an operator says ``for everyone``, which is a flag, never a sender id.
 """
 
 from __future__ import annotations
@@ -25,13 +31,15 @@ from datetime import datetime, timedelta
 from typing import Protocol
 from zoneinfo import ZoneInfo
 
-from notifier.core.config import parse_duration_s
+from notifier.core.config import SENDER_ID, SENDER_ID_RULE, parse_duration_s
 
 __all__ = ["BotBackend", "SiteStatus", "handle"]
 
 CAUTION = "Automated estimate, not an official forecast."
-MAX_MUTE = timedelta(days=14)
+MAX_MUTE = timedelta(days=14)  # a product bound: a forgotten hush must not silence a season
 HOW_LONG = "Say how long, e.g. 'hush SITE for 3h' or 'for 45min'."
+HUSH_BOUNDS = "A hush lasts between a minute and 14 days."
+BAD_SENDER = f"I can't take messages from that sender id: it may use {SENDER_ID_RULE}."
 
 
 @dataclass(frozen=True)
@@ -50,19 +58,20 @@ class BotBackend(Protocol):
     def site_timezone(self, site_id: str) -> str: ...
     def is_known(self, sender: str) -> bool: ...
     def is_operator(self, sender: str) -> bool: ...
-    def join(self, sender: str, code: str) -> str | None: ...  # the site joined, or None
+    def sites_for(self, sender: str) -> list[str]: ...  # ids of the sites they may name
+    def join(self, sender: str, code: str) -> str | None: ...  # what it granted, or None
     def status(self, site_ids: Sequence[str]) -> list[SiteStatus]: ...
     def reasons(self, site_id: str) -> list[str]: ...
     def followed(self, sender: str) -> list[str]: ...
     def follow(self, sender: str, site_id: str, min_level: str) -> None: ...
     def unfollow(self, sender: str, site_id: str) -> bool: ...
-    def mute(self, who: str, site_id: str, until: datetime) -> None: ...
-    def unmute(self, who: str, site_id: str) -> bool: ...
+    def mute(self, sender: str, site_id: str, until: datetime, everyone: bool = False) -> None: ...
+    def unmute(self, sender: str, site_id: str, everyone: bool = False) -> bool: ...
 
 
 HELP = """\
 I watch sites for fog and icing. Say:
-  sites — the sites I watch
+  sites — the sites you may ask about
   status [SITE] — a site, or all you follow
   why SITE — the reasons behind its level
   follow SITE [from warning] — get its alerts
@@ -72,8 +81,11 @@ I watch sites for fog and icing. Say:
   join CODE — with a code from an operator"""
 
 
-def _site(backend: BotBackend, text: str) -> str | None:
-    names = backend.site_names()
+def _site(backend: BotBackend, sender: str, text: str) -> str | None:
+    """The one site among those ``sender`` may name that ``text`` means: by id, by name or
+    by a part of the name found in no other."""
+    allowed = backend.site_names()
+    names = {sid: allowed[sid] for sid in backend.sites_for(sender) if sid in allowed}
     key = text.strip().lower()
     if key in names:
         return key
@@ -97,6 +109,8 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
     """Answer one message from ``sender``."""
     words = text.strip()
     lower = words.lower()
+    if not SENDER_ID.fullmatch(sender):
+        return BAD_SENDER
     if not words:
         return "Say 'help' to see what I understand."
     # joining is the one thing a stranger may do
@@ -113,11 +127,17 @@ def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:
 
 def _join(backend: BotBackend, sender: str, code: str) -> str:
     """Makes ``sender`` known with an operator's join code (as typed: codes keep their case)."""
-    joined = backend.join(sender, code)
-    if joined is None:
+    granted = backend.join(sender, code)
+    if granted is None:
         return "That code is not valid. Ask your site operator for a current one."
+    names = backend.site_names()
+    if granted in names:  # a site's code: its alerts follow
+        return f"Welcome. You now follow {names[granted]}. Say 'help' to see what else I do."
+    mine = [names[sid] for sid in backend.sites_for(sender) if sid in names]
+    if not mine:
+        return "Welcome. Your code covers no site yet; ask your site operator."
     return (
-        f"Welcome. You now follow {backend.site_names()[joined]}. Say 'help' to see what else I do."
+        f"Welcome. You may ask about {', '.join(mine)}. Say 'follow SITE' to get a site's alerts."
     )
 
 
@@ -130,14 +150,15 @@ def _sites(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) ->
     """Every site, marking the ones ``sender`` follows."""
     names = backend.site_names()
     followed = set(backend.followed(sender))
-    lines = [f"{'*' if sid in followed else '-'} {sid}: {name}" for sid, name in names.items()]
+    mine = [sid for sid in backend.sites_for(sender) if sid in names]
+    lines = [f"{'*' if sid in followed else '-'} {sid}: {names[sid]}" for sid in mine]
     return "\n".join(["Sites (* = you follow):", *lines])
 
 
 def _status(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """One line per site: the one named, or else every site ``sender`` follows."""
     if m.group(1):
-        sid = _site(backend, m.group(1))
+        sid = _site(backend, sender, m.group(1))
         if sid is None:
             return _unknown_site(backend, m.group(1))
         ids = [sid]
@@ -151,7 +172,7 @@ def _status(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -
 
 def _why(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """A site's level and up to eight reasons behind it."""
-    sid = _site(backend, m.group(1))
+    sid = _site(backend, sender, m.group(1))
     if sid is None:
         return _unknown_site(backend, m.group(1))
     (st,) = backend.status([sid])
@@ -165,7 +186,7 @@ def _follow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -
     level = m.group(2) or "watch"
     if level not in ("watch", "warning"):
         return "Levels are 'watch' and 'warning', e.g. 'follow SITE from warning'."
-    sid = _site(backend, m.group(1))
+    sid = _site(backend, sender, m.group(1))
     if sid is None:
         return _unknown_site(backend, m.group(1))
     backend.follow(sender, sid, level)
@@ -174,7 +195,7 @@ def _follow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -
 
 def _unfollow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """Stops sending ``sender`` a site's alerts."""
-    sid = _site(backend, m.group(1))
+    sid = _site(backend, sender, m.group(1))
     if sid is None:
         return _unknown_site(backend, m.group(1))
     if backend.unfollow(sender, sid):
@@ -184,23 +205,22 @@ def _unfollow(backend: BotBackend, sender: str, m: re.Match[str], now: datetime)
 
 def _hush(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """Mutes a site for a while, for ``sender`` or (operators only) for everyone."""
-    sid = _site(backend, m.group(1))
+    sid = _site(backend, sender, m.group(1))
     if sid is None:
         return _unknown_site(backend, m.group(1))
     try:
         seconds = parse_duration_s(m.group(2))
     except ValueError:
         return HOW_LONG
-    if seconds < 60 or timedelta(seconds=seconds) > MAX_MUTE:
-        return "A hush lasts between a minute and 14 days."
-    who = sender
-    if m.group(3):
-        if not backend.is_operator(sender):
-            return "Only an operator can hush a site for everyone."
-        who = "*"
+    # compare as numbers first: a timedelta of 10^20 hours overflows
+    if not 60 <= seconds <= MAX_MUTE.total_seconds():
+        return HUSH_BOUNDS
+    everyone = bool(m.group(3))
+    if everyone and not backend.is_operator(sender):
+        return "Only an operator can hush a site for everyone."
     until = now + timedelta(seconds=seconds)
-    backend.mute(who, sid, until)
-    scope = "for everyone" if who == "*" else "for you"
+    backend.mute(sender, sid, until, everyone)
+    scope = "for everyone" if everyone else "for you"
     local = until.astimezone(ZoneInfo(backend.site_timezone(sid)))
     return (
         f"{backend.site_names()[sid]} hushed {scope} until "
@@ -215,22 +235,20 @@ def _how_long(backend: BotBackend, sender: str, m: re.Match[str], now: datetime)
 
 def _unhush(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """Lifts a hush, ``sender``'s own or (operators only) everyone's."""
-    sid = _site(backend, m.group(1))
+    sid = _site(backend, sender, m.group(1))
     if sid is None:
         return _unknown_site(backend, m.group(1))
-    who = sender
-    if m.group(2):
-        if not backend.is_operator(sender):
-            return "Only an operator can lift a hush for everyone."
-        who = "*"
-    if backend.unmute(who, sid):
+    everyone = bool(m.group(2))
+    if everyone and not backend.is_operator(sender):
+        return "Only an operator can lift a hush for everyone."
+    if backend.unmute(sender, sid, everyone):
         return f"{backend.site_names()[sid]} alerts are back on."
     return f"{backend.site_names()[sid]} was not hushed."
 
 
 def _which_site(backend: BotBackend, sender: str, m: re.Match[str], now: datetime) -> str:
     """Asks which site a command without one is about."""
-    example = next(iter(backend.site_names()), "SITE")
+    example = next(iter(backend.sites_for(sender)), "SITE")
     return f"Say which site, e.g. '{m.group(0)} {example}'. Say 'sites' for the list."
 
 

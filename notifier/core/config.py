@@ -43,6 +43,7 @@ __all__ = [
     "TextChannel",
     "WebhookChannel",
     "default_rules_dir",
+    "check_sender_id",
     "parse_duration_s",
 ]
 
@@ -100,6 +101,29 @@ def _check_zone(name: str) -> str:
 TimeZoneName = Annotated[str, BeforeValidator(_check_zone)]
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$", max_length=64)]
+
+# A bot sender id is a plain identifier: ASCII letters and digits and a little punctuation,
+# enough for phone numbers (+440000001), mail-style ids and Matrix user ids
+# (@ana:example.org, whose localparts may hold . _ = - / +; at most 255 characters, and
+# "*" is left out because it is a wildcard: docs/references.md [Matrix identifiers]).
+# No "*", space or control character, so no sender can pass for "everyone".
+SENDER_ID = re.compile(r"[A-Za-z0-9@:._=/+-]{1,255}")
+SENDER_ID_RULE = "letters, digits and @ : . _ = - / + only, 1 to 255 characters"
+
+
+def check_sender_id(value: str) -> str:
+    """``value`` if it is a plain sender id, else ValueError saying what is allowed.
+
+    >>> check_sender_id("@ana:example.org")
+    '@ana:example.org'
+    """
+    if not isinstance(value, str) or not SENDER_ID.fullmatch(value):
+        shown = value if not isinstance(value, str) or len(value) <= 40 else value[:40] + "…"
+        raise ValueError(f"a sender id may use {SENDER_ID_RULE}, got: {shown!r}")
+    return value
+
+
+SenderId = Annotated[str, AfterValidator(check_sender_id)]
 
 
 class _Model(BaseModel):
@@ -238,7 +262,7 @@ class Subscriber(_Model):
     warnings_in_quiet_hours: bool = True
     timezone: TimeZoneName | None = None
     operator: bool = False
-    senders: tuple[str, ...] = ()  # bot sender ids that speak for this subscriber
+    senders: tuple[SenderId, ...] = ()  # bot sender ids that speak for this subscriber
 
     @field_validator("quiet_hours")
     @classmethod
@@ -299,8 +323,9 @@ class AlertSettings(_Model):
 
 class BotSettings(_Model):
     secret: str | None = None
-    allow: tuple[str, ...] = ()  # sender ids allowed without a join code
-    join_codes: dict[str, str] = {}  # code → site id
+    allow: tuple[SenderId, ...] = ()  # sender ids allowed without a join code (every site)
+    # code → what it grants: a site id, "tag:NAME" (the sites with that tag) or "all"
+    join_codes: dict[str, str] = {}
     rate_per_minute: int = Field(default=20, gt=0)
     channel: str = "stdout"  # where alerts for people who follow a site through the bot go
 

@@ -368,6 +368,16 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
             known = ", ".join([*site_ids, *sorted(other_sites - set(site_ids))])
             add(loc, f"unknown site {ref!r} (known: {known})")
 
+    def check_selector(loc: Loc, sel: str) -> None:
+        """A choice of sites: a site id, ``tag:NAME`` or ``all``."""
+        if sel == "all":
+            return
+        if sel.startswith("tag:"):
+            if other_tags is not None and sel[4:] not in tags | other_tags:
+                add(loc, f"no site has tag {sel[4:]!r}")
+        else:
+            check_site_ref(loc, sel)
+
     for i, src in enumerate(config.sources):
         if isinstance(src, FileDropSource):
             if src.site is not None:
@@ -402,15 +412,9 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
                 if not re.match(r"^[^@\s<>,;]+@[^@\s<>,;]+\.[^@\s<>,;]+$", sub.address):
                     add(("subscribers", i, "address"), f"not an email address: {sub.address!r}")
         for sel in sub.sites:
-            if sel == "all":
-                continue
-            if sel.startswith("tag:"):
-                if other_tags is not None and sel[4:] not in tags | other_tags:
-                    add(("subscribers", i, "sites"), f"no site has tag {sel[4:]!r}")
-            else:
-                check_site_ref(("subscribers", i, "sites"), sel)
-    for code, site_id in config.bot.join_codes.items():
-        check_site_ref(("bot", "join_codes", code), site_id)
+            check_selector(("subscribers", i, "sites"), sel)
+    for code, granted in config.bot.join_codes.items():
+        check_selector(("bot", "join_codes", code), granted)  # a site, "tag:NAME" or "all"
     if not channel_known(config.bot.channel):
         add(
             ("bot", "channel"),

@@ -10,8 +10,9 @@ A subscriber gets an event when all of these hold:
   ``data_back``) go to everyone who subscribes to the ``data_gap`` hazard whatever their
   ``min_level``: a dead feed means they could miss a warning, and silence must not look
   like safety;
-- no mute covers it: a mute is ``(subscriber id or "*", site id or "*", until)`` and
-  covers events before ``until``.
+- no mute covers it: a :class:`Mute` names a subscriber id (``None``: every subscriber)
+  and a site id (``None``: every site) and covers events before ``until``. "Every" is
+  ``None``, never a string, so no id can stand for everyone.
 
 Quiet hours (``"22:00-06:30"``, may cross midnight) are read in the subscriber's time
 zone, else the site's. Watch-level news inside them is held: ``not_before`` is the end
@@ -26,7 +27,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 from datetime import UTC, date, datetime, time, timedelta
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, NamedTuple
 from zoneinfo import ZoneInfo
 
 from notifier.core.config import Subscriber
@@ -45,7 +46,14 @@ __all__ = [
     "route",
 ]
 
-Mute = tuple[str, str, datetime]  # (subscriber id or "*", site id or "*", until)
+
+class Mute(NamedTuple):
+    """``subscriber`` hears nothing of ``site`` before ``until`` (``None``: every one)."""
+
+    subscriber: str | None
+    site: str | None
+    until: datetime
+
 
 # With no subscribers configured, everything is printed (DESIGN.md: "text to stdout").
 DEFAULT_SUBSCRIBER = Subscriber(id="console", name="console", channel="stdout")
@@ -116,8 +124,12 @@ def quiet_until(window: tuple[time, time] | None, zone_name: str, at: datetime) 
 
 def muted(mutes: Iterable[Mute], subscriber_id: str, site_id: str, at: datetime) -> bool:
     """Whether a mute covers this subscriber's news of this site at ``at``."""
-    for who, site, until in mutes:
-        if who in ("*", subscriber_id) and site in ("*", site_id) and at < until:
+    for mute in mutes:
+        if (
+            mute.subscriber in (None, subscriber_id)
+            and mute.site in (None, site_id)
+            and at < mute.until
+        ):
             return True
     return False
 

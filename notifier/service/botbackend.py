@@ -6,6 +6,7 @@ from collections.abc import Sequence
 from datetime import datetime
 
 from notifier.bot.grammar import SiteStatus
+from notifier.service.access import Access
 from notifier.service.cycle import Service
 
 __all__ = ["ServiceBackend"]
@@ -28,25 +29,30 @@ class ServiceBackend:
     def site_timezone(self, site_id: str) -> str:
         return self.config.site(site_id).timezone
 
-    def _config_senders(self) -> set[str]:
-        senders = set(self.config.bot.allow)
-        for sub in self.config.subscribers:
-            senders.update(sub.senders)
-        return senders
+    def _access(self) -> Access:
+        return Access.of(self.config, self.service.bot_state)
 
     def is_known(self, sender: str) -> bool:
-        return sender in self._config_senders() or self.service.bot_state.is_member(sender)
+        return sender in self._access().listed or self.service.bot_state.is_member(sender)
 
     def is_operator(self, sender: str) -> bool:
-        return any(sub.operator and sender in sub.senders for sub in self.config.subscribers)
+        return self._access().is_operator(sender)
+
+    def sites_for(self, sender: str) -> list[str]:
+        return list(self._access().sites(sender))
 
     def join(self, sender: str, code: str) -> str | None:
-        site = self.config.bot.join_codes.get(code)
-        if site is None:
+        """Grants what the code names (a site id, ``tag:NAME`` or ``all``); a site's code
+        also follows that site."""
+        scope = self.config.bot.join_codes.get(code)
+        if scope is None:
             return None
-        self.service.bot_state.add_member(sender, self.now, via=f"code for {site}")
-        self.service.bot_state.follow(sender, site, "watch", self.now)
-        return site
+        state = self.service.bot_state
+        state.add_member(sender, self.now, via=f"code for {scope}")
+        state.grant(sender, scope, self.now)
+        if scope in self.site_names():
+            state.follow(sender, scope, "watch", self.now)
+        return scope
 
     def status(self, site_ids: Sequence[str]) -> list[SiteStatus]:
         from notifier.core.timefmt import local_time
@@ -95,8 +101,9 @@ class ServiceBackend:
         for sub in self.config.subscribers:
             if sender in sub.senders:
                 ids.extend(s.id for s in self.config.sites_matching(sub.sites))
-        known = self.site_names()  # a follow of a site since removed from the config
-        return [sid for sid in dict.fromkeys(ids) if sid in known]
+        # not a follow of a site since removed from the config, or no longer granted
+        allowed = set(self._access().sites(sender))
+        return [sid for sid in dict.fromkeys(ids) if sid in allowed]
 
     def follow(self, sender: str, site_id: str, min_level: str) -> None:
         self.service.bot_state.follow(sender, site_id, min_level, self.now)
@@ -104,8 +111,8 @@ class ServiceBackend:
     def unfollow(self, sender: str, site_id: str) -> bool:
         return self.service.bot_state.unfollow(sender, site_id)
 
-    def mute(self, who: str, site_id: str, until: datetime) -> None:
-        self.service.bot_state.mute(who, site_id, until, self.now)
+    def mute(self, sender: str, site_id: str, until: datetime, everyone: bool = False) -> None:
+        self.service.bot_state.mute(sender, site_id, until, self.now, everyone=everyone)
 
-    def unmute(self, who: str, site_id: str) -> bool:
-        return self.service.bot_state.unmute(who, site_id, self.now)
+    def unmute(self, sender: str, site_id: str, everyone: bool = False) -> bool:
+        return self.service.bot_state.unmute(sender, site_id, self.now, everyone=everyone)

@@ -6,7 +6,6 @@
 
 from __future__ import annotations
 
-import hashlib
 import logging
 import random
 import threading
@@ -14,11 +13,13 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Literal, cast
+from typing import TYPE_CHECKING, Any
 
-from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber
+from notifier.core.config import Config, Subscriber
 from notifier.core.errors import FogwatchError
 from notifier.engine.rules import RuleSet
+from notifier.service.access import Access, bot_subscribers, routing_mutes
+from notifier.service.access import bot_subscriber_id as bot_subscriber_id  # (re-exported)
 from notifier.service.loading import (
     FORECAST_HORIZON,
     Loaded,
@@ -33,6 +34,7 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.delivery.dispatch import DispatchReport
+    from notifier.delivery.routing import Mute
     from notifier.engine.alerts import Event
     from notifier.engine.assessment import SiteAssessment
     from notifier.engine.catalog import FeatureTable
@@ -292,38 +294,20 @@ class Service:
     # -- subscribers and mutes -----------------------------------------------------------
 
     def subscribers(self) -> tuple[Subscriber, ...]:
-        """Configured subscribers plus everyone following a site through the bot."""
+        """Configured subscribers plus every bot follow of a site its sender may name."""
         from notifier.delivery.routing import default_subscribers
 
-        subs = list(default_subscribers(self.config))
-        channel = self.config.bot.channel
-        for sender, site, level in self.bot_state.follows():
-            subs.append(
-                Subscriber(
-                    id=bot_subscriber_id(sender, site),
-                    name=sender,
-                    channel=channel,
-                    address=sender,
-                    sites=(site,),
-                    # the bot stores only levels a Subscriber accepts
-                    min_level=cast(Literal["watch", "warning"], level),
-                )
-            )
-        return tuple(subs)
+        access = Access.of(self.config, self.bot_state)
+        follows = self.bot_state.follows()
+        return (
+            *default_subscribers(self.config),
+            *bot_subscribers(self.config, follows, access),
+        )
 
-    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
-        """Stored mutes, with a sender's mute applied to every subscriber they speak for."""
-        out: list[tuple[str, str, datetime]] = []
-        for who, site, until in self.bot_state.mutes(now):
-            if who == "*":
-                out.append(("*", site, until))
-                continue
-            for sub in self.config.subscribers:
-                if who in sub.senders:
-                    out.append((sub.id, site, until))
-            for sender, followed, _ in self.bot_state.follows(who):
-                out.append((bot_subscriber_id(sender, followed), site, until))
-        return out
+    def mutes(self, now: datetime) -> list[Mute]:
+        """Stored hushes as routing's mutes: a sender's own covers only the subscribers
+        they speak for and their own follows; an operator's for everyone covers all."""
+        return routing_mutes(self.config, self.bot_state.mutes(now), self.bot_state.follows())
 
     # -- outlook, health, housekeeping -----------------------------------------------------
 
@@ -384,11 +368,6 @@ def _shown_url(url: str) -> str:
         return urlunsplit(parts._replace(netloc=f"{parts.username or ''}:***@{host}"))
     except ValueError:
         return "(a URL that cannot be shown)"
-
-
-def bot_subscriber_id(sender: str, site: str) -> str:
-    digest = hashlib.sha256(f"{sender}|{site}".encode()).hexdigest()[:12]
-    return f"{BOT_SUBSCRIBER_PREFIX}{digest}"
 
 
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:

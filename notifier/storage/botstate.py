@@ -1,21 +1,33 @@
-"""The bot's own state in the store: members (who joined with a code), follows (which
-sites a member hears about, from which level) and mutes (hushes, per person or for
-everyone, until a time).
+"""The bot's own state in the store: members (who joined with a code) and what their
+codes grant, follows (which sites a member hears about, from which level) and mutes
+(hushes, a sender's own or, set by an operator, for everyone, until a time).
 
-The tables are created by the store's migration ``0002_alerts``.
+"For everyone" is a flag of its own, never a value of the sender id. The tables are
+created by the store's migrations ``0002_alerts``, ``0006_mutes_for_everyone`` and
+``0007_member_grants``.
 """
 
 from __future__ import annotations
 
 from datetime import datetime
+from typing import NamedTuple
 
 import sqlalchemy as sa
 
 from notifier.core.timefmt import iso_z, parse_iso
-from notifier.storage.migrations import follows, members, mutes
+from notifier.storage.migrations import follows, member_grants, members, mutes
 from notifier.storage.store import Store
 
-__all__ = ["BotState"]
+__all__ = ["BotState", "Hush"]
+
+
+class Hush(NamedTuple):
+    """A stored hush: ``who`` asked for it, for themselves or (``everyone``) for all."""
+
+    who: str
+    site: str
+    until: datetime
+    everyone: bool = False
 
 
 class BotState:
@@ -73,33 +85,66 @@ class BotState:
                 q = q.where(follows.c.sender == sender)
             return [tuple(r) for r in conn.execute(q)]  # type: ignore[misc]
 
-    def mute(self, who: str, site: str, until: datetime, now: datetime) -> None:
+    def grant(self, sender: str, scope: str, now: datetime) -> None:
+        """Records that ``sender`` may name the sites of ``scope`` (a site id, ``tag:NAME``
+        or ``all``); a grant already held is kept as it was."""
+        with self.store.atomic() as conn:
+            conn.execute(
+                self.store._insert(member_grants)
+                .values(sender=sender, scope=scope, granted_at=iso_z(now))
+                .on_conflict_do_nothing(index_elements=["sender", "scope"])
+            )
+
+    def grants(self) -> dict[str, tuple[str, ...]]:
+        """sender → the scopes their join codes granted."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(member_grants.c.sender, member_grants.c.scope).order_by(
+                    member_grants.c.sender, member_grants.c.scope
+                )
+            )
+            out: dict[str, tuple[str, ...]] = {}
+            for sender, scope in rows:
+                out[sender] = (*out.get(sender, ()), scope)
+            return out
+
+    def mute(
+        self, who: str, site: str, until: datetime, now: datetime, *, everyone: bool = False
+    ) -> None:
+        """``who`` hushes ``site`` until ``until``: for themselves, or for everyone."""
         with self.store.atomic() as conn:
             stmt = self.store._insert(mutes).values(
-                who=who, site=site, until=iso_z(until), created_at=iso_z(now)
-            )
+                everyone=int(everyone), who=who, site=site, until=iso_z(until),
+                created_at=iso_z(now),
+            )  # fmt: skip
             conn.execute(
                 stmt.on_conflict_do_update(
-                    index_elements=["who", "site"], set_={"until": stmt.excluded.until}
+                    index_elements=["everyone", "who", "site"],
+                    set_={"until": stmt.excluded.until},
                 )
             )
 
-    def unmute(self, who: str, site: str, now: datetime) -> bool:
+    def unmute(self, who: str, site: str, now: datetime, *, everyone: bool = False) -> bool:
+        """Lifts ``who``'s own hush of ``site``, or (``everyone``) every hush of it for
+        everyone, whoever set it. True if one was in force."""
+        scope = (
+            (mutes.c.everyone == 1) if everyone else (mutes.c.everyone == 0) & (mutes.c.who == who)
+        )
         with self.store.atomic() as conn:
             return bool(
                 conn.execute(
                     mutes.delete().where(
-                        (mutes.c.who == who) & (mutes.c.site == site) & (mutes.c.until > iso_z(now))
+                        scope & (mutes.c.site == site) & (mutes.c.until > iso_z(now))
                     )
                 ).rowcount
             )
 
-    def mutes(self, now: datetime) -> list[tuple[str, str, datetime]]:
-        """Mutes still in force: (who, site, until)."""
+    def mutes(self, now: datetime) -> list[Hush]:
+        """Hushes still in force."""
         with self.engine.connect() as conn:
             rows = conn.execute(
-                sa.select(mutes.c.who, mutes.c.site, mutes.c.until).where(
-                    mutes.c.until > iso_z(now)
-                )
+                sa.select(mutes.c.who, mutes.c.site, mutes.c.until, mutes.c.everyone)
+                .where(mutes.c.until > iso_z(now))
+                .order_by(mutes.c.everyone, mutes.c.who, mutes.c.site)
             )
-            return [(w, s, parse_iso(u)) for w, s, u in rows]  # type: ignore[misc]
+            return [Hush(w, s, parse_iso(u), bool(e)) for w, s, u, e in rows]

@@ -15,8 +15,8 @@ version). To add one:
 The tables: ``observations`` (the canonical table, one row per site, time and kind),
 ``counters``, ``source_health`` and ``seen_files`` for the store itself;
 ``alert_states``, ``events``, ``deliveries`` and ``site_status`` for the outbox
-(:mod:`notifier.storage.outbox`); ``members``, ``follows`` and ``mutes`` for the bot
-(:mod:`notifier.storage.botstate`).
+(:mod:`notifier.storage.outbox`); ``members``, ``member_grants``, ``follows`` and ``mutes``
+for the bot (:mod:`notifier.storage.botstate`).
 """
 
 from __future__ import annotations
@@ -160,6 +160,45 @@ def _m0005_delivery_claims(conn: Connection) -> None:
     conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_by TEXT")
 
 
+def _m0006_mutes_for_everyone(conn: Connection) -> None:
+    """A hush for everyone is a flag, no longer the sender id ``*``: any string could be
+    a sender id, so a sender called ``*`` could hush a site for every subscriber. The
+    table is rebuilt with ``everyone`` in its key (``who`` is then the operator who asked;
+    empty for a hush made before this migration, whose asker is unknown); old rows with
+    ``who = '*'`` become hushes for everyone."""
+    for ddl in (
+        """CREATE TABLE mutes_v6 (
+            everyone INTEGER NOT NULL, who TEXT NOT NULL, site TEXT NOT NULL,
+            until TEXT NOT NULL, created_at TEXT NOT NULL,
+            PRIMARY KEY (everyone, who, site))""",
+        """INSERT INTO mutes_v6 (everyone, who, site, until, created_at)
+            SELECT CASE WHEN who = '*' THEN 1 ELSE 0 END,
+                   CASE WHEN who = '*' THEN '' ELSE who END,
+                   site, until, created_at
+            FROM mutes""",
+        "DROP TABLE mutes",
+        "ALTER TABLE mutes_v6 RENAME TO mutes",
+    ):
+        conn.exec_driver_sql(ddl)
+
+
+def _m0007_member_grants(conn: Connection) -> None:
+    """What a member's join codes grant: a site id, ``tag:NAME`` or ``all``, one row per
+    grant. Members who joined before this migration keep the site their code named,
+    which ``members.via`` recorded as ``code for SITE``. (No LIKE pattern: psycopg would
+    read its percent sign as a parameter.)"""
+    conn.exec_driver_sql(
+        """CREATE TABLE member_grants (
+            sender TEXT NOT NULL, scope TEXT NOT NULL, granted_at TEXT NOT NULL,
+            PRIMARY KEY (sender, scope))"""
+    )
+    conn.exec_driver_sql(
+        """INSERT INTO member_grants (sender, scope, granted_at)
+            SELECT sender, substr(via, 10), joined_at FROM members
+            WHERE substr(via, 1, 9) = 'code for ' AND length(via) > 9"""
+    )
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
@@ -167,6 +206,8 @@ MIGRATIONS: list[Migration] = [
     Migration("0003_observation_batches", _m0003_observation_batches),
     Migration("0004_postgresql_widths", _m0004_postgresql_widths),
     Migration("0005_delivery_claims", _m0005_delivery_claims),
+    Migration("0006_mutes_for_everyone", _m0006_mutes_for_everyone),
+    Migration("0007_member_grants", _m0007_member_grants),
 ]
 
 metadata = sa.MetaData()
@@ -275,7 +316,8 @@ follows = sa.Table(
 mutes = sa.Table(
     "mutes",
     metadata,
-    sa.Column("who", sa.Text, primary_key=True),
+    sa.Column("everyone", sa.Integer, primary_key=True),  # 1: for every subscriber
+    sa.Column("who", sa.Text, primary_key=True),  # the sender who asked ("" if unknown)
     sa.Column("site", sa.Text, primary_key=True),
     sa.Column("until", sa.Text, nullable=False),
     sa.Column("created_at", sa.Text, nullable=False),
@@ -286,4 +328,11 @@ members = sa.Table(
     sa.Column("sender", sa.Text, primary_key=True),
     sa.Column("joined_at", sa.Text, nullable=False),
     sa.Column("via", sa.Text),
+)
+member_grants = sa.Table(
+    "member_grants",
+    metadata,
+    sa.Column("sender", sa.Text, primary_key=True),
+    sa.Column("scope", sa.Text, primary_key=True),  # a site id, "tag:NAME" or "all"
+    sa.Column("granted_at", sa.Text, nullable=False),
 )

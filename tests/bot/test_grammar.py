@@ -9,7 +9,9 @@ import pytest
 
 from notifier.bot.grammar import CAUTION, HELP, handle
 from notifier.cli.main import main
+from notifier.delivery.routing import Mute
 from notifier.service.botbackend import ServiceBackend
+from notifier.storage.botstate import Hush
 from tests.service.scene import FOG_FROM, Scene, utc
 
 AT = FOG_FROM + timedelta(minutes=10)  # 23:10 UTC: the valley is in fog
@@ -212,18 +214,17 @@ def test_handle_over_a_service_backend_stores_follows_and_mutes(assessed: Scene)
     assert service.bot_state.follows("guest-cy") == [("guest-cy", "zz-vale", "warning")]
     handle(backend, "op-ash", "hush zz-quay for 2h for everyone", AT)
     handle(backend, "crew-bo", "hush zz-vale for 30min", AT)
-    stored = {(who, site): until for who, site, until in service.bot_state.mutes(AT)}
-    assert stored == {
-        ("*", "zz-quay"): utc(2026, 11, 21, 1, 10),
-        ("crew-bo", "zz-vale"): utc(2026, 11, 20, 23, 40),
-    }
+    assert service.bot_state.mutes(AT) == [
+        Hush("crew-bo", "zz-vale", utc(2026, 11, 20, 23, 40), everyone=False),
+        Hush("op-ash", "zz-quay", utc(2026, 11, 21, 1, 10), everyone=True),
+    ]
     # the sender's mute covers the subscriber they speak for, the operator's covers all
     expanded = set(service.mutes(AT))
-    assert ("crew", "zz-vale", utc(2026, 11, 20, 23, 40)) in expanded
-    assert ("*", "zz-quay", utc(2026, 11, 21, 1, 10)) in expanded
+    assert Mute("crew", "zz-vale", utc(2026, 11, 20, 23, 40)) in expanded
+    assert Mute(None, "zz-quay", utc(2026, 11, 21, 1, 10)) in expanded
     # and it lapses on its own
     assert service.bot_state.mutes(utc(2026, 11, 20, 23, 40)) == [
-        ("*", "zz-quay", utc(2026, 11, 21, 1, 10))
+        Hush("op-ash", "zz-quay", utc(2026, 11, 21, 1, 10), everyone=True)
     ]
 
 

@@ -6,7 +6,13 @@ from datetime import UTC, datetime, time, timedelta
 
 import pytest
 
-from notifier.delivery.routing import DEFAULT_SUBSCRIBER, default_subscribers, quiet_until, route
+from notifier.delivery.routing import (
+    DEFAULT_SUBSCRIBER,
+    Mute,
+    default_subscribers,
+    quiet_until,
+    route,
+)
 from tests.delivery.scenes import config_with, event, utc
 
 HARBOUR = {"id": "harbour-desk", "channel": "stdout", "sites": ["tag:harbour"]}
@@ -73,14 +79,26 @@ def test_mutes_by_subscriber_site_and_time():
     config = config_with([EVERYONE, HARBOUR])
     ev = event(site_id="quay-two", at=utc(2026, 1, 10, 20, 0))
     until = utc(2026, 1, 10, 21, 0)
-    assert ids(route([ev], config.subscribers, config, [("ops-room", "quay-two", until)])) == [
+    assert ids(route([ev], config.subscribers, config, [Mute("ops-room", "quay-two", until)])) == [
         "harbour-desk"
     ]
-    assert ids(route([ev], config.subscribers, config, [("*", "quay-two", until)])) == []
-    assert ids(route([ev], config.subscribers, config, [("*", "*", until)])) == []
-    assert len(route([ev], config.subscribers, config, [("*", "north-field", until)])) == 2
-    expired = [("*", "quay-two", utc(2026, 1, 10, 19, 59))]
+    assert ids(route([ev], config.subscribers, config, [Mute(None, "quay-two", until)])) == []
+    assert ids(route([ev], config.subscribers, config, [Mute(None, None, until)])) == []
+    assert len(route([ev], config.subscribers, config, [Mute(None, "north-field", until)])) == 2
+    expired = [Mute(None, "quay-two", utc(2026, 1, 10, 19, 59))]
     assert len(route([ev], config.subscribers, config, expired)) == 2
+
+
+def test_a_subscriber_id_of_a_star_is_not_everyone():
+    """Regression: "*" once meant "every subscriber", so a mute for a subscriber or sender
+    called "*" silenced everyone. "Every" is None now; "*" is just an id like any other."""
+    config = config_with([EVERYONE, HARBOUR])
+    ev = event(site_id="quay-two", at=utc(2026, 1, 10, 20, 0))
+    until = utc(2026, 1, 10, 21, 0)
+    star = [Mute("*", "quay-two", until)]
+    assert ids(route([ev], config.subscribers, config, star)) == ["harbour-desk", "ops-room"]
+    star_site = [Mute("ops-room", "*", until)]
+    assert ids(route([ev], config.subscribers, config, star_site)) == ["harbour-desk", "ops-room"]
 
 
 def test_delivery_carries_channel_address_and_a_stable_key():
