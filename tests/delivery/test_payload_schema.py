@@ -19,7 +19,8 @@ import pytest
 from jsonschema import Draft202012Validator
 
 from notifier.core.config import Site, WebhookChannel
-from notifier.delivery.channels.webhook import DELIVERY_HEADER, WebhookSender
+from notifier.core.signing import ID_HEADER
+from notifier.delivery.channels.webhook import WebhookSender
 from notifier.delivery.messages import MESSAGE_SCHEMA, render, render_summary
 from notifier.engine.catalog import FEATURES
 from notifier.service.cycle import Service
@@ -163,7 +164,7 @@ def test_every_body_of_a_real_night_matches_its_schema(night):
     for item in night:
         body = item["body"]
         assert problems(body) == [], (body["type"], body["headline"])
-        assert body["delivery"] == item["headers"][DELIVERY_HEADER]
+        assert body["delivery"] == item["headers"][ID_HEADER]
         assert body["recipient"] in ("duty-room", None)
         # feature names are the catalog's (the README's feature list)
         for one in body.get("events", [body]):
