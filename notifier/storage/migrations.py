@@ -16,7 +16,8 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 ``counters``, ``source_health`` and ``seen_files`` for the store itself;
 ``alert_states``, ``events``, ``deliveries`` and ``site_status`` for the outbox
 (:mod:`notifier.storage.outbox`); ``members``, ``follows`` and ``mutes`` for the bot
-(:mod:`notifier.storage.botstate`).
+(:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot endpoint's replay
+protection (:mod:`notifier.storage.seen`).
 """
 
 from __future__ import annotations
@@ -160,6 +161,19 @@ def _m0005_delivery_claims(conn: Connection) -> None:
     conn.exec_driver_sql("ALTER TABLE deliveries ADD COLUMN claimed_by TEXT")
 
 
+def _m0006_seen_messages(conn: Connection) -> None:
+    """The ``webhook-id`` of every signed request the bot endpoint took, until its
+    timestamp window has passed, so that a captured request is refused after a restart
+    and by every instance sharing the store (Standard Webhooks replay protection)."""
+    seconds = "BIGINT" if conn.dialect.name == "postgresql" else "INTEGER"
+    conn.exec_driver_sql(
+        f"""CREATE TABLE seen_messages (
+            message_id TEXT PRIMARY KEY, seen_at {seconds} NOT NULL,
+            expires_at {seconds} NOT NULL)"""
+    )
+    conn.exec_driver_sql("CREATE INDEX seen_messages_expiry ON seen_messages (expires_at)")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
@@ -167,6 +181,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0003_observation_batches", _m0003_observation_batches),
     Migration("0004_postgresql_widths", _m0004_postgresql_widths),
     Migration("0005_delivery_claims", _m0005_delivery_claims),
+    Migration("0006_seen_messages", _m0006_seen_messages),
 ]
 
 metadata = sa.MetaData()
@@ -286,4 +301,11 @@ members = sa.Table(
     sa.Column("sender", sa.Text, primary_key=True),
     sa.Column("joined_at", sa.Text, nullable=False),
     sa.Column("via", sa.Text),
+)
+seen_messages = sa.Table(
+    "seen_messages",
+    metadata,
+    sa.Column("message_id", sa.Text, primary_key=True),
+    sa.Column("seen_at", sa.BigInteger, nullable=False),  # POSIX seconds
+    sa.Column("expires_at", sa.BigInteger, nullable=False),
 )

@@ -268,6 +268,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0003_observation_batches",
             "0004_postgresql_widths",
             "0005_delivery_claims",
+            "0006_seen_messages",
         ]
         box, bot = Outbox(store), BotState(store)
         after = (box.states(), box.deliveries(), box.snapshots(), bot.follows(), bot.mutes(T0))
