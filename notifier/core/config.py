@@ -26,6 +26,8 @@ from pydantic import (
     model_validator,
 )
 
+from notifier.core.signing import SECRET_HINT, secret_problem
+
 __all__ = [
     "AlertSettings",
     "BotSettings",
@@ -98,6 +100,18 @@ def _check_zone(name: str) -> str:
 
 
 TimeZoneName = Annotated[str, BeforeValidator(_check_zone)]
+
+
+def _check_secret(secret: str) -> str:
+    problem = secret_problem(secret)
+    if problem:  # the message never holds the value: it may be a secret
+        raise ValueError(f"{problem}; {SECRET_HINT}")
+    return secret
+
+
+#: A signing secret in the Standard Webhooks form, ``whsec_`` + base64
+#: (:mod:`notifier.core.signing`).
+SigningSecret = Annotated[str, AfterValidator(_check_secret)]
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$", max_length=64)]
 
@@ -212,7 +226,7 @@ class WebhookChannel(_Model):
     id: Identifier
     type: Literal["webhook"]
     url: str
-    secret: str
+    secret: SigningSecret
     timeout: Duration = 10.0
     headers: dict[str, str] = {}
 
@@ -298,7 +312,7 @@ class AlertSettings(_Model):
 
 
 class BotSettings(_Model):
-    secret: str | None = None
+    secret: SigningSecret | None = None
     allow: tuple[str, ...] = ()  # sender ids allowed without a join code
     join_codes: dict[str, str] = {}  # code → site id
     rate_per_minute: int = Field(default=20, gt=0)
