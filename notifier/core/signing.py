@@ -1,4 +1,5 @@
-"""Signatures by the open Standard Webhooks specification, both ways: the webhooks
+"""Signatures by the open Standard Webhooks specification (docs/references.md
+[Standard Webhooks]), both ways: the webhooks
 fogwatch sends and the bot requests it receives. Pure: no IO, no clock (the caller
 passes the time).
 
