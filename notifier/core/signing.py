@@ -26,7 +26,8 @@ import base64
 import binascii
 import hashlib
 import hmac
-from collections.abc import Mapping
+from collections.abc import Iterable
+from typing import Protocol
 
 __all__ = [
     "ID_HEADER",
@@ -53,6 +54,13 @@ TOLERANCE_S = 300
 MIN_KEY_BYTES = 24
 MAX_KEY_BYTES = 64
 MAX_ID_CHARS = 256  # a message id longer than this is refused unread (common practice)
+
+
+class Headers(Protocol):
+    """A dict of headers, or an HTTP message's (``http.client.HTTPMessage``)."""
+
+    def items(self) -> Iterable[tuple[str, str]]: ...
+
 
 SECRET_HINT = (
     f"expected the Standard Webhooks form {SECRET_PREFIX}<base64 of "
@@ -107,7 +115,7 @@ def sign_headers(secret: str, message_id: str, timestamp: int, body: bytes) -> d
     }
 
 
-def _header(headers: Mapping[str, str], name: str) -> str | None:
+def _header(headers: Headers, name: str) -> str | None:
     """A header by name, whatever its case (a plain dict, or an HTTP message's headers)."""
     get = getattr(headers, "get_all", None)
     if get is not None:  # email.message.Message and http.client.HTTPMessage
@@ -121,7 +129,7 @@ def _header(headers: Mapping[str, str], name: str) -> str | None:
 
 def why_refused(
     secret: str,
-    headers: Mapping[str, str],
+    headers: Headers,
     body: bytes,
     now_s: float,
     tolerance_s: float = TOLERANCE_S,
@@ -160,7 +168,7 @@ def why_refused(
 
 def verify(
     secret: str,
-    headers: Mapping[str, str],
+    headers: Headers,
     body: bytes,
     now_s: float,
     tolerance_s: float = TOLERANCE_S,
