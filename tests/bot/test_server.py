@@ -261,18 +261,6 @@ def test_two_instances_sharing_a_store_share_the_replay_memory(store_url: str):
             stop_b()
 
 
-def test_message_ids_are_kept_for_the_window_then_let_go(store_url: str):
-    with Store(store_url) as store:
-        seen = SeenMessages(store)
-        assert seen.first_time("msg-1", int(T0), T0)
-        assert not seen.first_time("msg-1", int(T0), T0 + 299)
-        assert seen.count() == 1
-        # once the window (and a minute's margin for clocks) has passed, the timestamp
-        # alone refuses the request: the id is deleted with the next one taken
-        assert seen.first_time("msg-2", int(T0 + 400), T0 + 400)
-        assert seen.count() == 1
-
-
 def test_a_store_that_cannot_record_the_id_is_a_503_not_an_unguarded_answer(store_url: str):
     answered: list[str] = []
 
