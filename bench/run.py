@@ -404,8 +404,9 @@ def run_cli(tmp: Path) -> dict[str, Any]:
     config = folder / "demo_sites.yaml"
     shutil.copy(ROOT / "demo_sites.yaml", config)
     env = dict(os.environ)
-    env.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", "bench-not-a-secret")
-    env.setdefault("FOGWATCH_DEMO_BOT_SECRET", "bench-not-a-secret")
+    # dummy Standard Webhooks secrets (whsec_ + base64 of 24 invented bytes)
+    env.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", "whsec_YmVuY2gta2V5LW5vdC1hLXNlY3JldC0yNA==")
+    env.setdefault("FOGWATCH_DEMO_BOT_SECRET", "whsec_YmVuY2gta2V5LW5vdC1hLXNlY3JldC0yNA==")
 
     def wall(args: list[str]) -> float:
         start = time.perf_counter()

@@ -1,24 +1,24 @@
 """The bot's signed HTTP endpoint.
 
 ``POST /message`` with a JSON body ``{"sender": "...", "text": "..."}`` answers
-``{"reply": "..."}``. Every request must carry
+``{"reply": "..."}``. Every request is signed by the open Standard Webhooks
+specification (:mod:`notifier.core.signing`), keyed with ``bot.secret``:
 
-- ``X-Fogwatch-Timestamp``: POSIX seconds when it was sent, and
-- ``X-Fogwatch-Signature``: ``v1=`` + hex HMAC-SHA256, keyed with the shared secret,
-  over ``"{timestamp}.{body}"``.
+- ``webhook-id``: a message id, new for every message (a retry of the same message may
+  reuse it: it is answered once),
+- ``webhook-timestamp``: POSIX seconds when it was signed,
+- ``webhook-signature``: ``v1,`` + base64 HMAC-SHA256 of ``"{id}.{timestamp}.{body}"``.
 
-Refused: no or bad signature (401), a timestamp more than 5 minutes off (401), the same
-signature seen before (409, a replay), a body over 8 KiB (413), no Content-Length (411),
-bad JSON (400), and more than the configured messages per minute from one sender (429).
-
-Extra keys in the body are ignored, so a client that may send the same text twice in
-one second (the same timestamp, hence the same signature) adds a unique ``"id"``.
+Refused: no or bad signature (401), a timestamp more than 5 minutes off (401), a message
+id already taken (409, a replay: the ids are kept in the store, so this holds across a
+restart and across instances sharing the store), a body over 8 KiB (413), no
+Content-Length (411), bad JSON (400), and more than the configured messages per minute
+from one sender (429). When the store cannot record the id, 503: a request is never
+taken without replay protection.
 """
 
 from __future__ import annotations
 
-import hashlib
-import hmac
 import json
 import logging
 import threading
@@ -27,62 +27,31 @@ from collections import deque
 from collections.abc import Callable
 from datetime import UTC, datetime
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from typing import Any
+from typing import Any, Protocol
 
-__all__ = ["MAX_BODY", "BotHTTPServer", "sign_request", "verify_request"]
+from notifier.core.signing import ID_HEADER, TIMESTAMP_HEADER, secret_key, why_refused
+
+__all__ = ["MAX_BODY", "BotHTTPServer", "ReplayMemory"]
 
 log = logging.getLogger(__name__)
 
 MAX_BODY = 8 * 1024
 DRAIN_LIMIT = 256 * 1024  # a larger body is not read at all: the connection is closed
-TOLERANCE_S = 300
-TS_HEADER = "X-Fogwatch-Timestamp"
-SIG_HEADER = "X-Fogwatch-Signature"
 
 
-def sign_request(secret: str, body: bytes, timestamp: int) -> dict[str, str]:
-    """Headers that sign ``body`` at ``timestamp`` (for clients and tests)."""
-    mac = hmac.new(secret.encode(), f"{timestamp}.".encode() + body, hashlib.sha256)
-    return {TS_HEADER: str(timestamp), SIG_HEADER: "v1=" + mac.hexdigest()}
+class ReplayMemory(Protocol):
+    """Where taken message ids are kept (:class:`notifier.storage.seen.SeenMessages`)."""
 
-
-def verify_request(secret: str, headers: Any, body: bytes, now_s: float) -> str | None:
-    """None when the signature is good and fresh, else the reason it is refused."""
-    ts = headers.get(TS_HEADER)
-    sig = headers.get(SIG_HEADER)
-    if not ts or not sig:
-        return "unsigned request"
-    ts = ts.strip()
-    if not ts.isascii() or not ts.isdigit() or len(ts) > 12:
-        return "bad timestamp"
-    ts_i = int(ts)
-    if abs(now_s - ts_i) > TOLERANCE_S:
-        return "stale timestamp"
-    expected = sign_request(secret, body, ts_i)[SIG_HEADER]
-    # compare bytes: a header may hold any Latin-1 text, which compare_digest rejects as str
-    if not hmac.compare_digest(expected.encode(), sig.strip().encode("utf-8", "replace")):
-        return "bad signature"
-    return None
+    def first_time(self, message_id: str, timestamp: int, now_s: float) -> bool: ...
 
 
 class _Guard:
-    """Replay memory and per-sender rate limits, shared by the handler threads."""
+    """Per-sender rate limits, shared by the handler threads."""
 
     def __init__(self, rate_per_minute: int):
         self.rate = rate_per_minute
-        self.seen: dict[str, float] = {}
         self.calls: dict[str, deque[float]] = {}
         self.lock = threading.Lock()
-
-    def replayed(self, signature: str, now_s: float) -> bool:
-        with self.lock:
-            for sig, t in list(self.seen.items()):
-                if now_s - t > 2 * TOLERANCE_S:
-                    del self.seen[sig]
-            if signature in self.seen:
-                return True
-            self.seen[signature] = now_s
-            return False
 
     def over_rate(self, sender: str, now_s: float) -> bool:
         with self.lock:
@@ -96,7 +65,8 @@ class _Guard:
 
 
 class BotHTTPServer(ThreadingHTTPServer):
-    """Serves the bot on ``host:port``; ``answer(sender, text, now)`` makes the reply."""
+    """Serves the bot on ``host:port``; ``answer(sender, text, now)`` makes the reply;
+    ``seen`` keeps the message ids taken (in the store, for replay protection)."""
 
     daemon_threads = True
 
@@ -105,13 +75,16 @@ class BotHTTPServer(ThreadingHTTPServer):
         address: tuple[str, int],
         secret: str,
         answer: Callable[[str, str, datetime], str],
+        seen: ReplayMemory,
         rate_per_minute: int = 20,
         clock: Callable[[], float] = time.time,
     ):
         if not secret:
             raise ValueError("the bot needs a shared secret (bot.secret: ${NAME})")
+        secret_key(secret)  # a secret of another form: ValueError now, not 500s later
         self.secret = secret
         self.answer = answer
+        self.seen = seen
         self.clock = clock
         self.guard = _Guard(rate_per_minute)
         self._busy = 0
@@ -158,6 +131,18 @@ class _Handler(BaseHTTPRequestHandler):
         self.end_headers()
         self.wfile.write(data)
 
+    def _first_time(self, now_s: float) -> bool | None:
+        """Record the (verified) message id: True the first time, False for a replay,
+        None when the store cannot record it."""
+        message_id = self.headers[ID_HEADER]
+        timestamp = int(self.headers[TIMESTAMP_HEADER].strip())
+        try:
+            return self.server.seen.first_time(message_id, timestamp, now_s)
+        except Exception as exc:  # the store is down or locked: refuse, never go unguarded
+            # (the exception's text may hold the store's URL: only its kind is logged)
+            log.error("bot: cannot record the message id: %s", type(exc).__name__)
+            return None
+
     def do_GET(self) -> None:  # noqa: N802
         if self.path == "/health":
             self._reply(200, {"ok": True})
@@ -190,12 +175,16 @@ class _Handler(BaseHTTPRequestHandler):
             return
         body = self.rfile.read(length)
         now_s = self.server.clock()
-        why = verify_request(self.server.secret, self.headers, body, now_s)
+        why = why_refused(self.server.secret, self.headers, body, now_s)
         if why:
             log.warning("bot: refused request: %s", why)
             self._reply(401, {"error": why})
             return
-        if self.server.guard.replayed(self.headers[SIG_HEADER].strip(), now_s):
+        first = self._first_time(now_s)
+        if first is None:
+            self._reply(503, {"error": "cannot check for a replay now; try again later"})
+            return
+        if not first:
             self._reply(409, {"error": "replayed request"})
             return
         try:

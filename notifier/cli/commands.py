@@ -209,6 +209,7 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
     from notifier.bot.server import BotHTTPServer
     from notifier.service.botbackend import ServiceBackend
     from notifier.service.cycle import Service
+    from notifier.storage.seen import SeenMessages
 
     log = logging.getLogger(__name__)
     service = Service(args.config)
@@ -232,6 +233,8 @@ def cli_bot_serve(args: argparse.Namespace) -> int:
                 (args.host, args.port),
                 secret,
                 answer,
+                # replay protection in the store: across restarts and instances
+                seen=SeenMessages(service.store),
                 rate_per_minute=service.config.bot.rate_per_minute,
             )
         except OSError as exc:  # the port is taken or the address is not ours: exit 1

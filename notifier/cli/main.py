@@ -162,8 +162,19 @@ def _add_service_commands(sub: _Subcommands) -> None:
     p.set_defaults(handler=_cmd("cli_status"))
 
 
+def _cmd_secret(args: argparse.Namespace) -> int:
+    import secrets
+
+    from notifier.core.signing import format_secret
+
+    # 32 bytes: within the 24 to 64 the Standard Webhooks specification recommends
+    print(format_secret(secrets.token_bytes(32)))
+    return 0
+
+
 def _add_bot_commands(sub: _Subcommands) -> None:
-    """ask, bot serve: the messaging bot, from the shell or over HTTP."""
+    """ask, bot serve, secret: the messaging bot, from the shell or over HTTP, and the
+    signing secrets it and the webhooks use."""
     p = sub.add_parser("ask", help="send one bot command from the shell")
     _add_common(p)
     p.add_argument("text", help="the command, e.g. 'status' or 'hush SITE for 2h'")
@@ -180,6 +191,12 @@ def _add_bot_commands(sub: _Subcommands) -> None:
     q.add_argument("--host", default="127.0.0.1")
     q.add_argument("--port", type=int, default=8750)
     q.set_defaults(handler=_cmd("cli_bot_serve"))
+
+    p = sub.add_parser(
+        "secret",
+        help="print a fresh signing secret for a webhook channel or the bot",
+    )
+    p.set_defaults(handler=_cmd_secret)
 
 
 def _add_history_commands(sub: _Subcommands) -> None:

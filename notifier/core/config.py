@@ -26,6 +26,8 @@ from pydantic import (
     model_validator,
 )
 
+from notifier.core.signing import SECRET_HINT, secret_problem
+
 __all__ = [
     "AlertSettings",
     "BotSettings",
@@ -99,6 +101,18 @@ def _check_zone(name: str) -> str:
 
 
 TimeZoneName = Annotated[str, BeforeValidator(_check_zone)]
+
+
+def _check_secret(secret: str) -> str:
+    problem = secret_problem(secret)
+    if problem:  # the message never holds the value: it may be a secret
+        raise ValueError(f"{problem}; {SECRET_HINT}")
+    return secret
+
+
+#: A signing secret in the Standard Webhooks form, ``whsec_`` + base64
+#: (:mod:`notifier.core.signing`).
+SigningSecret = Annotated[str, AfterValidator(_check_secret)]
 
 Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$", max_length=64)]
 
@@ -236,7 +250,7 @@ class WebhookChannel(_Model):
     id: Identifier
     type: Literal["webhook"]
     url: str
-    secret: str
+    secret: SigningSecret
     timeout: Duration = 10.0
     headers: dict[str, str] = {}
 
@@ -322,7 +336,7 @@ class AlertSettings(_Model):
 
 
 class BotSettings(_Model):
-    secret: str | None = None
+    secret: SigningSecret | None = None
     allow: tuple[SenderId, ...] = ()  # sender ids allowed without a join code (every site)
     # code → what it grants: a site id, "tag:NAME" (the sites with that tag) or "all"
     join_codes: dict[str, str] = {}

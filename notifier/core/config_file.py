@@ -52,6 +52,8 @@ __all__ = ["load_config", "problems_from_validation", "read_config"]
 
 log = logging.getLogger(__name__)
 
+_SECRET_KEYS = ("secret", "password")
+
 
 def _resolve(base: Path, value: Path) -> Path:
     return value if value.is_absolute() else (base / value).resolve()
@@ -113,6 +115,8 @@ def problems_from_validation(
             got = ""
         if shown in secret_locs:
             got = " (value from the environment, not shown)"
+        elif shown and shown[-1] in _SECRET_KEYS:
+            got = ""  # a secret written in the file is not echoed either
         out.append(ConfigProblem(path, line_of(raw, loc), f"{prefix}{where}: {msg}{got}"))
     return out
 

@@ -32,6 +32,9 @@ __all__ = ["DEMO_CONFIG", "DEMO_EVENING", "demo_nights", "demo_observations", "r
 
 DEMO_CONFIG = Path(__file__).resolve().parents[2] / "demo_sites.yaml"
 DEMO_EVENING = date(2026, 11, 6)
+# the demo's signing secrets (invented, published here: never use them for real)
+DEMO_WEBHOOK_SECRET = "whsec_ZGVtbyB3ZWJob29rIGtleTogaW52ZW50ZWQsIG5vdCBzZWNyZXQ="
+DEMO_BOT_SECRET = "whsec_ZGVtbyBib3Qga2V5OiBpbnZlbnRlZCwgbmV2ZXIgc2VjcmV0"
 START, END = time(16, 0), time(9, 0)
 STEP = timedelta(minutes=10)
 # the showground's logger goes quiet for a while before dawn: silence is not safety
@@ -147,9 +150,10 @@ class _FolderTransport:
             def send(self, request: Any, **kwargs: Any) -> Any:  # type: ignore[override]
                 import requests
 
-                key = request.headers.get("X-Fogwatch-Delivery", "delivery")
+                key = request.headers.get("webhook-id", "delivery")
                 raw = request.body if isinstance(request.body, bytes) else request.body.encode()
-                headers = {k: v for k, v in request.headers.items() if k.startswith("X-Fogwatch")}
+                # the three Standard Webhooks headers: id, timestamp and signature
+                headers = {k: v for k, v in request.headers.items() if k.startswith("webhook-")}
                 # the exact bytes signed, so a reader can check the signature
                 record = {
                     "url": request.url,
@@ -187,8 +191,9 @@ def _prepare(out: Path) -> Path:
     config_path = out / "demo_sites.yaml"
     shutil.copyfile(DEMO_CONFIG, config_path)
     # demo-only secrets, so the config can show the ${NAME} pattern a real one uses
-    os.environ.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", "demo-webhook-secret")
-    os.environ.setdefault("FOGWATCH_DEMO_BOT_SECRET", "demo-bot-secret")
+    # (invented keys in the whsec_ form; `fogwatch secret` makes a real one)
+    os.environ.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", DEMO_WEBHOOK_SECRET)
+    os.environ.setdefault("FOGWATCH_DEMO_BOT_SECRET", DEMO_BOT_SECRET)
     return config_path
 
 

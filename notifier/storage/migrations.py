@@ -16,7 +16,8 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 ``counters``, ``source_health`` and ``seen_files`` for the store itself;
 ``alert_states``, ``events``, ``deliveries`` and ``site_status`` for the outbox
 (:mod:`notifier.storage.outbox`); ``members``, ``member_grants``, ``follows`` and ``mutes``
-for the bot (:mod:`notifier.storage.botstate`).
+for the bot (:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot
+endpoint's replay protection (:mod:`notifier.storage.seen`).
 """
 
 from __future__ import annotations
@@ -197,6 +198,17 @@ def _m0007_member_grants(conn: Connection) -> None:
             SELECT sender, substr(via, 10), joined_at FROM members
             WHERE substr(via, 1, 9) = 'code for ' AND length(via) > 9"""
     )
+def _m0008_seen_messages(conn: Connection) -> None:
+    """The ``webhook-id`` of every signed request the bot endpoint took, until its
+    timestamp window has passed, so that a captured request is refused after a restart
+    and by every instance sharing the store (Standard Webhooks replay protection)."""
+    seconds = "BIGINT" if conn.dialect.name == "postgresql" else "INTEGER"
+    conn.exec_driver_sql(
+        f"""CREATE TABLE seen_messages (
+            message_id TEXT PRIMARY KEY, seen_at {seconds} NOT NULL,
+            expires_at {seconds} NOT NULL)"""
+    )
+    conn.exec_driver_sql("CREATE INDEX seen_messages_expiry ON seen_messages (expires_at)")
 
 
 #: Every schema change, in order. Append only.
@@ -208,6 +220,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0005_delivery_claims", _m0005_delivery_claims),
     Migration("0006_mutes_for_everyone", _m0006_mutes_for_everyone),
     Migration("0007_member_grants", _m0007_member_grants),
+    Migration("0008_seen_messages", _m0008_seen_messages),
 ]
 
 metadata = sa.MetaData()
@@ -335,4 +348,11 @@ member_grants = sa.Table(
     sa.Column("sender", sa.Text, primary_key=True),
     sa.Column("scope", sa.Text, primary_key=True),  # a site id, "tag:NAME" or "all"
     sa.Column("granted_at", sa.Text, nullable=False),
+)
+seen_messages = sa.Table(
+    "seen_messages",
+    metadata,
+    sa.Column("message_id", sa.Text, primary_key=True),
+    sa.Column("seen_at", sa.BigInteger, nullable=False),  # POSIX seconds
+    sa.Column("expires_at", sa.BigInteger, nullable=False),
 )

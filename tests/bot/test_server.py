@@ -3,8 +3,10 @@ real process."""
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import hmac
+import itertools
 import json
 import os
 import re
@@ -23,9 +25,13 @@ import pytest
 import requests
 
 from notifier.bot.grammar import handle
-from notifier.bot.server import BotHTTPServer, sign_request, verify_request
+from notifier.bot.server import BotHTTPServer
+from notifier.core.signing import format_secret
 from notifier.service.botbackend import ServiceBackend
+from notifier.storage.seen import SeenMessages
+from notifier.storage.store import Store
 from tests.service.scene import BOT_SECRET, Scene
+from tests.webhook_reference import reference_headers
 
 T0 = 1_795_000_000.0  # the injected clock's start (POSIX seconds, late 2026)
 # README, The bot: "oversized (over 8 KiB) ... requests are refused" — the documented
@@ -33,12 +39,14 @@ T0 = 1_795_000_000.0  # the injected clock's start (POSIX seconds, late 2026)
 DOCUMENTED_MAX_BODY = 8192
 
 
-def readme_signature(secret: str, timestamp: str, body: bytes) -> str:
-    """Worked out here, not with fogwatch's ``sign_request``. Source: README, The bot:
-    ``X-Fogwatch-Signature: v1=<hex HMAC-SHA256 of "{timestamp}.{body}">`` keyed with
-    ``bot.secret``, ``timestamp`` being X-Fogwatch-Timestamp (POSIX seconds)."""
-    mac = hmac.new(secret.encode(), timestamp.encode() + b"." + body, hashlib.sha256)
-    return "v1=" + mac.hexdigest()
+OTHER_SECRET = format_secret(b"a guessed key, not the bot's own!")
+_ids = itertools.count(1)
+
+
+def signed(body: bytes, at: float, secret: str = BOT_SECRET, message_id: str = "") -> dict:
+    """Headers signed by the Standard Webhooks reference library (README, The bot: the
+    bot's requests are signed by that specification), with a new message id each time."""
+    return reference_headers(secret, message_id or f"msg-{next(_ids)}", body, at)
 
 
 @dataclass
@@ -58,16 +66,24 @@ class Endpoint:
         """POST ``doc`` (or ``raw`` bytes) signed with ``secret`` at ``at`` (default: now)."""
         body = raw if raw is not None else json.dumps(doc).encode()
         ts = int(self.clock[0] if at is None else at)
-        headers = sign_request(secret, body, ts)
-        return requests.post(self.url, data=body, headers=headers, timeout=5)
+        return requests.post(self.url, data=body, headers=signed(body, ts, secret), timeout=5)
 
 
 def start(
-    answer: Callable[[str, str, datetime], str], rate: int = 20
+    answer: Callable[[str, str, datetime], str],
+    store: Store,
+    rate: int = 20,
+    clock: list[float] | None = None,
 ) -> tuple[Endpoint, Callable[[], None]]:
-    clock = [T0]
+    """A bot endpoint on 127.0.0.1 keeping its message ids in ``store``."""
+    clock = clock if clock is not None else [T0]
     server = BotHTTPServer(
-        ("127.0.0.1", 0), BOT_SECRET, answer, rate_per_minute=rate, clock=lambda: clock[0]
+        ("127.0.0.1", 0),
+        BOT_SECRET,
+        answer,
+        seen=SeenMessages(store),
+        rate_per_minute=rate,
+        clock=lambda: clock[0],
     )
     thread = threading.Thread(target=server.serve_forever, kwargs={"poll_interval": 0.05})
     thread.start()
@@ -81,16 +97,23 @@ def start(
     return Endpoint(f"http://{host}:{port}/message", clock, server), stop
 
 
-@pytest.fixture
-def echo() -> Iterator[Endpoint]:
-    def answer(sender: str, text: str, now: datetime) -> str:
-        return f"{sender} said {text!r} at {now:%H:%M:%S}"
+def echo_answer(sender: str, text: str, now: datetime) -> str:
+    return f"{sender} said {text!r} at {now:%H:%M:%S}"
 
-    endpoint, stop = start(answer, rate=3)
-    try:
-        yield endpoint
-    finally:
-        stop()
+
+@pytest.fixture
+def store_url(tmp_path: Path) -> str:
+    return f"sqlite:///{tmp_path / 'bot.sqlite'}"
+
+
+@pytest.fixture
+def echo(store_url: str) -> Iterator[Endpoint]:
+    with Store(store_url) as store:
+        endpoint, stop = start(echo_answer, store, rate=3)
+        try:
+            yield endpoint
+        finally:
+            stop()
 
 
 @pytest.fixture
@@ -101,7 +124,7 @@ def bot(scene: Scene) -> Iterator[Endpoint]:
     def answer(sender: str, text: str, now: datetime) -> str:
         return handle(ServiceBackend(service, now), sender, text, now)
 
-    endpoint, stop = start(answer)
+    endpoint, stop = start(answer, service.store)
     try:
         yield endpoint
     finally:
@@ -118,45 +141,48 @@ def test_a_good_signature_gets_the_bots_reply(bot: Endpoint):
     assert r.json()["reply"].startswith("I don't know you yet.")
 
 
-def test_a_request_signed_by_hand_as_the_readme_says_is_answered(echo: Endpoint):
+def test_a_request_signed_by_the_reference_library_is_answered(echo: Endpoint):
     body = json.dumps({"sender": "op-ash", "text": "help"}).encode()
-    ts = str(int(T0))
-    headers = {
-        "X-Fogwatch-Timestamp": ts,
-        "X-Fogwatch-Signature": readme_signature(BOT_SECRET, ts, body),
-    }
+    headers = signed(body, T0, message_id="msg-by-the-book")
     r = requests.post(echo.url, data=body, headers=headers, timeout=5)
     assert (r.status_code, r.json()) == (200, {"reply": "op-ash said 'help' at 11:06:40"})
-    # what the README does not describe is refused: another layout, another hash
+    # what the specification does not describe is refused: the old layout (a hex HMAC
+    # over "{timestamp}.{body}" in X-Fogwatch-* headers), the id left out, another hash
+    ts = str(int(T0))
+    key = base64.b64decode(BOT_SECRET.removeprefix("whsec_"))
     sha256 = hashlib.sha256
+    old = hmac.new(BOT_SECRET.encode(), ts.encode() + b"." + body, sha256).hexdigest()
+    no_id = hmac.new(key, ts.encode() + b"." + body, sha256).digest()
+    sha1 = hmac.new(key, f"msg-x.{ts}.".encode() + body, hashlib.sha1).digest()
     others = {
-        "body|ts": hmac.new(BOT_SECRET.encode(), body + b"|" + ts.encode(), sha256),
-        "ts+body, no dot": hmac.new(BOT_SECRET.encode(), ts.encode() + body, sha256),
-        "sha1": hmac.new(BOT_SECRET.encode(), ts.encode() + b"." + body, hashlib.sha1),
-    }
-    for name, mac in others.items():
-        wrong = {"X-Fogwatch-Timestamp": ts, "X-Fogwatch-Signature": "v1=" + mac.hexdigest()}
+        "old headers": {"X-Fogwatch-Timestamp": ts, "X-Fogwatch-Signature": "v1=" + old},
+        "id not signed": {**signed(body, T0, message_id="msg-x"),
+                          "webhook-signature": "v1," + base64.b64encode(no_id).decode()},
+        "sha1": {**signed(body, T0, message_id="msg-x"),
+                 "webhook-signature": "v1," + base64.b64encode(sha1).decode()},
+    }  # fmt: skip
+    for name, wrong in others.items():
         r = requests.post(echo.url, data=body, headers=wrong, timeout=5)
-        assert (r.status_code, r.json()) == (401, {"error": "bad signature"}), name
-    # and verify_request, which the endpoint uses, agrees with the hand-made signature
-    by_hand = {"X-Fogwatch-Timestamp": ts, "X-Fogwatch-Signature": readme_signature("k", ts, body)}
-    assert verify_request("k", by_hand, body, T0) is None
+        assert r.status_code == 401, name
+        assert r.json()["error"] in ("unsigned request", "bad signature"), name
 
 
 def test_requests_without_a_good_fresh_signature_are_refused(echo: Endpoint):
     msg = {"sender": "op-ash", "text": "help"}
     body = json.dumps(msg).encode()
-    good = sign_request(BOT_SECRET, body, int(T0))
+    good = signed(body, T0)
     cases = {
         "unsigned": {},
-        "no signature": {"X-Fogwatch-Timestamp": good["X-Fogwatch-Timestamp"]},
-        "no timestamp": {"X-Fogwatch-Signature": good["X-Fogwatch-Signature"]},
-        "other secret": sign_request("not-the-secret", body, int(T0)),
-        "signature of another body": sign_request(BOT_SECRET, b"{}", int(T0)),
-        "timestamp changed": {**good, "X-Fogwatch-Timestamp": str(int(T0) + 1)},
-        "not a number": {**good, "X-Fogwatch-Timestamp": "soon"},
-        "absurd number": {**good, "X-Fogwatch-Timestamp": "9" * 400},
-        "non-ASCII signature": {**good, "X-Fogwatch-Signature": "v1=caf\u00e9"},
+        "no signature": {k: v for k, v in good.items() if k != "webhook-signature"},
+        "no timestamp": {k: v for k, v in good.items() if k != "webhook-timestamp"},
+        "no id": {k: v for k, v in good.items() if k != "webhook-id"},
+        "other secret": signed(body, T0, OTHER_SECRET),
+        "signature of another body": signed(b"{}", T0),
+        "id changed": {**good, "webhook-id": "msg-other"},
+        "timestamp changed": {**good, "webhook-timestamp": str(int(T0) + 1)},
+        "not a number": {**good, "webhook-timestamp": "soon"},
+        "absurd number": {**good, "webhook-timestamp": "9" * 400},
+        "non-ASCII signature": {**good, "webhook-signature": "v1,caf\u00e9"},
     }
     for name, headers in cases.items():
         encoded = {k: v.encode("latin-1") for k, v in headers.items()}
@@ -164,15 +190,18 @@ def test_requests_without_a_good_fresh_signature_are_refused(echo: Endpoint):
         assert r.status_code == 401, name
         assert r.json()["error"] in ("unsigned request", "bad signature", "bad timestamp"), name
     # each refusal left the good request unspent
-    assert echo.post(msg).status_code == 200
+    assert requests.post(echo.url, data=body, headers=good, timeout=5).status_code == 200
 
 
 @pytest.mark.parametrize(
-    "skew_s", [-301, 301, -3600], ids=["5min+1s-old", "5min+1s-ahead", "1h-old"]
+    ("skew_s", "why"),
+    [(-301, "timestamp too old"), (301, "timestamp too new"), (-3600, "timestamp too old")],
+    ids=["5min+1s-old", "5min+1s-ahead", "1h-old"],
 )
-def test_a_stale_timestamp_is_refused(echo: Endpoint, skew_s: int):
+def test_a_stale_timestamp_is_refused(echo: Endpoint, skew_s: int, why: str):
+    # Standard Webhooks: a tolerance of 5 minutes either way (its reference library's too)
     r = echo.post({"sender": "op-ash", "text": "help"}, at=T0 + skew_s)
-    assert (r.status_code, r.json()) == (401, {"error": "stale timestamp"})
+    assert (r.status_code, r.json()) == (401, {"error": why})
 
 
 def test_a_timestamp_within_five_minutes_is_accepted(echo: Endpoint):
@@ -182,14 +211,74 @@ def test_a_timestamp_within_five_minutes_is_accepted(echo: Endpoint):
 
 def test_a_replayed_request_is_refused(echo: Endpoint):
     body = json.dumps({"sender": "op-ash", "text": "hush vale for 2h"}).encode()
-    headers = sign_request(BOT_SECRET, body, int(T0))
+    headers = signed(body, T0)
     first = requests.post(echo.url, data=body, headers=headers, timeout=5)
     assert first.status_code == 200
-    echo.clock[0] += 120  # still inside the window: only the replay memory stops it
+    echo.clock[0] += 120  # still inside the window: only the kept message id stops it
     again = requests.post(echo.url, data=body, headers=headers, timeout=5)
     assert (again.status_code, again.json()) == (409, {"error": "replayed request"})
-    echo.clock[0] += 600  # later still, the timestamp itself is stale
-    assert requests.post(echo.url, data=body, headers=headers, timeout=5).status_code == 401
+    echo.clock[0] += 600  # later still, the timestamp itself is too old
+    r = requests.post(echo.url, data=body, headers=headers, timeout=5)
+    assert (r.status_code, r.json()) == (401, {"error": "timestamp too old"})
+
+
+def test_a_captured_request_is_refused_after_a_restart(store_url: str):
+    # issue 16, defect 4: the replay memory lived in the server's memory, so a request
+    # captured before `bot serve` restarted was taken again. Now it is in the store.
+    body = json.dumps({"sender": "op-ash", "text": "hush vale for 2h"}).encode()
+    captured = signed(body, T0)
+    clock = [T0]
+    with Store(store_url) as store:
+        endpoint, stop = start(echo_answer, store, clock=clock)
+        try:
+            r = requests.post(endpoint.url, data=body, headers=captured, timeout=5)
+            assert r.status_code == 200
+        finally:
+            stop()
+    clock[0] += 60  # restarted a minute later: a new server on the same SQLite file
+    with Store(store_url) as store:
+        endpoint, stop = start(echo_answer, store, clock=clock)
+        try:
+            again = requests.post(endpoint.url, data=body, headers=captured, timeout=5)
+            assert (again.status_code, again.json()) == (409, {"error": "replayed request"})
+            assert endpoint.post({"sender": "op-ash", "text": "status"}).status_code == 200
+        finally:
+            stop()
+
+
+def test_two_instances_sharing_a_store_share_the_replay_memory(store_url: str):
+    body = json.dumps({"sender": "op-ash", "text": "unhush vale"}).encode()
+    captured = signed(body, T0)
+    with Store(store_url) as store_a, Store(store_url) as store_b:
+        a, stop_a = start(echo_answer, store_a)
+        b, stop_b = start(echo_answer, store_b)
+        try:
+            assert requests.post(a.url, data=body, headers=captured, timeout=5).status_code == 200
+            r = requests.post(b.url, data=body, headers=captured, timeout=5)
+            assert (r.status_code, r.json()) == (409, {"error": "replayed request"})
+        finally:
+            stop_a()
+            stop_b()
+
+
+def test_a_store_that_cannot_record_the_id_is_a_503_not_an_unguarded_answer(store_url: str):
+    answered: list[str] = []
+
+    def answer(sender: str, text: str, now: datetime) -> str:
+        answered.append(text)
+        return "ok"
+
+    with Store(store_url) as store:
+        endpoint, stop = start(answer, store)
+        try:
+            with store.atomic() as conn:  # a real failure of the store: the table is gone
+                conn.exec_driver_sql("DROP TABLE seen_messages")
+            r = endpoint.post({"sender": "op-ash", "text": "hush vale for 2h"})
+            assert r.status_code == 503
+            assert "try again" in r.json()["error"]
+        finally:
+            stop()
+    assert answered == []
 
 
 def test_a_body_over_8_kib_is_refused(echo: Endpoint):
@@ -237,7 +326,7 @@ def test_a_sender_over_the_rate_is_refused_until_the_minute_passes(echo: Endpoin
 
 def test_refused_signatures_do_not_use_up_a_senders_rate(echo: Endpoint):
     for _ in range(10):
-        r = echo.post({"sender": "crew-bo", "text": "x"}, secret="guessed")
+        r = echo.post({"sender": "crew-bo", "text": "x"}, secret=OTHER_SECRET)
         assert r.status_code == 401
     assert echo.post({"sender": "crew-bo", "text": "x"}).status_code == 200
 
@@ -265,7 +354,7 @@ def test_a_failing_answer_is_a_500_and_the_endpoint_keeps_serving(caplog):
             raise RuntimeError("a bug")
         return "ok"
 
-    endpoint, stop = start(answer)
+    endpoint, stop = start(answer, Store.memory())
     try:
         assert endpoint.post({"sender": "a", "text": "boom"}).status_code == 500
         assert endpoint.post({"sender": "a", "text": "fine"}).json() == {"reply": "ok"}
@@ -275,21 +364,12 @@ def test_a_failing_answer_is_a_500_and_the_endpoint_keeps_serving(caplog):
     assert "bot: command failed" in caplog.text
 
 
-def test_verify_request_names_each_refusal():
-    body = b'{"sender": "a", "text": "b"}'
-    good = sign_request("k", body, 1000)
-    assert verify_request("k", good, body, 1000.0) is None
-    assert verify_request("k", {}, body, 1000.0) == "unsigned request"
-    assert verify_request("k", good, body, 1301.0) == "stale timestamp"
-    assert verify_request("j", good, body, 1000.0) == "bad signature"
-    assert verify_request("k", {**good, "X-Fogwatch-Timestamp": "-5"}, body, 0.0) == (
-        "bad timestamp"
-    )
-
-
 def test_the_server_needs_a_secret():
-    with pytest.raises(ValueError, match="shared secret"):
-        BotHTTPServer(("127.0.0.1", 0), "", lambda *a: "")
+    with Store.memory() as store:
+        with pytest.raises(ValueError, match="shared secret"):
+            BotHTTPServer(("127.0.0.1", 0), "", lambda *a: "", seen=SeenMessages(store))
+        with pytest.raises(ValueError, match="fogwatch secret"):
+            BotHTTPServer(("127.0.0.1", 0), "plain-s3cret", lambda *a: "", seen=SeenMessages(store))
 
 
 # -- fogwatch bot serve, as a real process ---------------------------------------------------
@@ -312,7 +392,7 @@ def test_bot_serve_answers_a_signed_request_then_stops_on_a_signal(scene: Scene,
         assert int(match.group(2)) > 0  # the ephemeral port the system chose
         body = json.dumps({"sender": "op-ash", "text": "status quay"}).encode()
         r = requests.post(
-            match.group(1), data=body, headers=sign_request(BOT_SECRET, body, int(time.time())),
+            match.group(1), data=body, headers=signed(body, time.time()),
             timeout=10,
         )  # fmt: skip
         assert r.status_code == 200
@@ -320,7 +400,7 @@ def test_bot_serve_answers_a_signed_request_then_stops_on_a_signal(scene: Scene,
 
         def ask(sender: str, text: str) -> str:
             body = json.dumps({"sender": sender, "text": text}).encode()
-            headers = sign_request(BOT_SECRET, body, int(time.time()))
+            headers = signed(body, time.time())
             return requests.post(match.group(1), data=body, headers=headers, timeout=10).json()[
                 "reply"
             ]

@@ -2,27 +2,35 @@
 
 from __future__ import annotations
 
+import base64
 import json
 import re
 import subprocess
 import sys
+from datetime import UTC, datetime
 from pathlib import Path
 
 import pytest
 
 from notifier.cli.main import build_parser, main
+from notifier.core.signing import sign_headers
 from notifier.demo.play import demo_observations
 from notifier.service.loading import load
+from tests.webhook_reference import reference_accepts
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "demo_sites.yaml"
 
 
+# a Standard Webhooks secret: whsec_ + base64 of 28 invented bytes
+TEST_SECRET = "whsec_dGVzdCBrZXkgZm9yIHRoZSBjb21tYW5kIGxpbmU="
+
+
 @pytest.fixture(autouse=True)
 def demo_secrets(monkeypatch):
     # the demo config reads its (demo-only) secrets from the environment, as real ones do
-    monkeypatch.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", "test-webhook-secret")
-    monkeypatch.setenv("FOGWATCH_DEMO_BOT_SECRET", "test-bot-secret")
+    monkeypatch.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", TEST_SECRET)
+    monkeypatch.setenv("FOGWATCH_DEMO_BOT_SECRET", TEST_SECRET)
 
 
 def run(capsys, *argv: str) -> tuple[int, str, str]:
@@ -107,7 +115,9 @@ def test_check_warns_of_a_secret_in_the_file_and_still_exits_0(tmp_path):
     # a real process, so the warning reaches standard error as it does for a person
     cfg = tmp_path / "c.yaml"
     cfg.write_text(
-        SITE + "bot: {secret: plain-s3cret}\n" + 'schedule: {morning_summary_local_time: "07:00"}\n'
+        SITE
+        + f"bot: {{secret: {TEST_SECRET}}}\n"
+        + 'schedule: {morning_summary_local_time: "07:00"}\n'
     )
     done = subprocess.run(
         [sys.executable, "-m", "notifier", "check", str(cfg)],
@@ -123,7 +133,34 @@ def test_check_warns_of_a_secret_in_the_file_and_still_exits_0(tmp_path):
     assert f"{cfg}:4: bot.secret: a secret is written in the file" in warnings[0]
     assert 'write secret: "${FOGWATCH_BOT_SECRET}"' in warnings[0]
     assert f"{cfg}:5: schedule.morning_summary_local_time: no longer used" in warnings[1]
-    assert "plain-s3cret" not in done.stderr
+    assert TEST_SECRET.removeprefix("whsec_") not in done.stderr
+
+
+def test_check_refuses_a_secret_of_another_form_with_a_hint(tmp_path, capsys, monkeypatch):
+    # Standard Webhooks secrets are whsec_ + base64; the value itself is never shown
+    monkeypatch.setenv("FW_CLI_OLD", "an-old-style-shared-secret")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text(SITE + 'bot: {secret: "${FW_CLI_OLD}"}\n')
+    code, out, err = run(capsys, "check", str(cfg))
+    assert code == 2 and out == ""
+    assert err.startswith(
+        f"fogwatch: {cfg}:4: bot.secret: not a Standard Webhooks secret (no whsec_ prefix)"
+    )
+    assert "`fogwatch secret` prints a fresh one" in err
+    assert "an-old-style-shared-secret" not in err
+
+
+def test_secret_prints_a_fresh_secret_the_reference_library_can_use(capsys):
+    code, first, _ = run(capsys, "secret")
+    code_again, second, _ = run(capsys, "secret")
+    assert code == code_again == 0
+    first, second = first.strip(), second.strip()
+    assert first != second  # fresh each time
+    assert first.startswith("whsec_") and len(base64.b64decode(first[6:], validate=True)) == 32
+    # the Standard Webhooks reference library takes it and verifies fogwatch's signature
+    body = b'{"type":"raised"}'
+    now = int(datetime.now(UTC).timestamp())
+    assert reference_accepts(first, sign_headers(first, "msg-1", now, body), body)
 
 
 def test_check_bad_rule_file_exit_2(tmp_path, capsys):

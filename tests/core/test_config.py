@@ -15,6 +15,9 @@ from notifier.core.config_file import load_config, read_config
 from notifier.core.errors import ConfigError
 from notifier.core.yamlio import expand_env, expand_env_all
 
+# a Standard Webhooks secret (whsec_ + base64 of 32 invented bytes)
+HOOK_KEY = "whsec_aW52ZW50ZWQga2V5IGZvciB0aGUgY29uZmlnIHRlc3Q="
+
 MINIMAL = """\
 version: 1
 sites:
@@ -67,8 +70,8 @@ def test_env_secret_is_read_and_a_missing_one_is_located(tmp_path, monkeypatch):
             secret: ${FW_TEST_SECRET}
         """)
     path = write(tmp_path, text)
-    monkeypatch.setenv("FW_TEST_SECRET", "s3cret")
-    assert load_config(path).channels[0].secret == "s3cret"
+    monkeypatch.setenv("FW_TEST_SECRET", HOOK_KEY)
+    assert load_config(path).channels[0].secret == HOOK_KEY
     monkeypatch.delenv("FW_TEST_SECRET")
     with pytest.raises(
         ConfigError,
@@ -251,7 +254,7 @@ EVERYTHING_WRONG = (
 def test_every_missing_variable_and_every_other_problem_at_once(tmp_path, monkeypatch):
     for name in ("FW_TEST_PORT", "FW_TEST_SMTP_PASSWORD", "FW_TEST_HOST", "FW_TEST_PATH"):
         monkeypatch.delenv(name, raising=False)
-    monkeypatch.setenv("FW_TEST_HOOK_KEY", "from-the-environment")
+    monkeypatch.setenv("FW_TEST_HOOK_KEY", HOOK_KEY)
     with pytest.raises(ConfigError) as info:
         load_config(write(tmp_path, EVERYTHING_WRONG))
     got = [(p.line, p.message) for p in info.value.problems]
@@ -290,20 +293,60 @@ def test_a_reference_to_an_entry_that_failed_validation_is_not_reported_twice(tm
     assert not any("unknown" in m for m in messages)
 
 
+# -- signing secrets in the Standard Webhooks form --------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("secret", "why"),
+    [
+        ("hook-s3cret-1", "not a Standard Webhooks secret (no whsec_ prefix)"),
+        ("whsec_not base64 at all", "the part after whsec_ is not base64"),
+        ("whsec_c2hvcnQta2V5", "the key is 9 bytes"),
+    ],
+    ids=["plain", "not-base64", "short"],
+)
+@pytest.mark.parametrize("where", ["file", "environment"])
+def test_a_secret_of_another_form_is_refused_with_file_line_field_and_a_hint(
+    tmp_path, monkeypatch, secret, why, where
+):
+    # the Standard Webhooks specification: secrets are whsec_ + base64 of the key
+    value = secret if where == "file" else "${FW_T_FORM}"
+    monkeypatch.setenv("FW_T_FORM", secret)
+    text = MINIMAL + (
+        "channels:\n"
+        f'  - {{id: desk, type: webhook, url: "https://d.example.test/h", secret: "{value}"}}\n'
+        f'bot: {{secret: "{value}"}}\n'
+    )
+    path = write(tmp_path, text)
+    with pytest.raises(ConfigError) as info:
+        read_config(path)
+    got = [(p.line, p.message) for p in info.value.problems]
+    assert [(line, m.split(":")[0]) for line, m in got] == [
+        (11, "channels[0].secret"),
+        (12, "bot.secret"),
+    ]
+    for _, message in got:
+        assert why in message
+        assert "whsec_<base64 of 24 to 64 random bytes>" in message
+        assert "`fogwatch secret` prints a fresh one" in message
+        assert secret.removeprefix("whsec_") not in message  # never echoed
+    assert str(info.value).startswith(f"{path}:11: channels[0].secret:")
+
+
 # -- warnings: secrets written in the file, keys no longer used --------------------------
 
 SECRETS = {
     "webhook": (
         'channels:\n  - {id: desk, type: webhook, url: "https://d.example.test/h",'
-        " secret: hook-s3cret-1}\n",
+        " secret: whsec_aG9vay1zM2NyZXQtMS1ob29rLXMzY3JldC0x}\n",
         r":11: channels\[0\]\.secret: a secret is written in the file; .*"
         r'write secret: "\$\{FOGWATCH_DESK_SECRET\}" and set FOGWATCH_DESK_SECRET',
-        "hook-s3cret-1",
+        "aG9vay1zM2NyZXQtMS1ob29rLXMzY3JldC0x",
     ),
     "bot": (
-        "bot:\n  secret: bot-s3cret-2\n",
+        "bot:\n  secret: whsec_Ym90LXMzY3JldC0yLWJvdC1zM2NyZXQtMg==\n",
         r':11: bot\.secret: a secret .*write secret: "\$\{FOGWATCH_BOT_SECRET\}"',
-        "bot-s3cret-2",
+        "Ym90LXMzY3JldC0yLWJvdC1zM2NyZXQtMg==",
     ),
     "smtp": (
         "channels:\n  - id: mail\n    type: email\n    host: smtp.example.test\n"
@@ -350,8 +393,10 @@ def test_a_secret_written_in_the_file_is_a_warning_with_its_line(tmp_path, case,
 
 
 def test_secrets_from_the_environment_and_harmless_urls_are_not_warned(tmp_path, monkeypatch):
-    for name in ("FW_T_HOOK", "FW_T_BOT", "FW_T_SMTP", "FW_T_DB", "FW_T_KEY", "FW_T_TOKEN"):
+    for name in ("FW_T_SMTP", "FW_T_DB", "FW_T_KEY", "FW_T_TOKEN"):
         monkeypatch.setenv(name, "x")
+    for name in ("FW_T_HOOK", "FW_T_BOT"):
+        monkeypatch.setenv(name, HOOK_KEY)
     text = MINIMAL + textwrap.dedent("""\
         channels:
           - {id: desk, type: webhook, url: "https://d.example.test/h?site=1",
@@ -396,7 +441,10 @@ def test_the_retired_morning_summary_key_loads_with_a_warning(tmp_path):
 def test_a_warning_does_not_hide_the_errors_and_an_error_does_not_hide_the_warnings(
     tmp_path, caplog
 ):
-    text = MINIMAL.replace("lat: 52.6", "lat: 95") + "bot: {secret: literal-s3cret}\n"
+    text = (
+        MINIMAL.replace("lat: 52.6", "lat: 95")
+        + "bot: {secret: whsec_bGl0ZXJhbC1zM2NyZXQtbGl0ZXJhbC1zM2NyZXQ=}\n"
+    )
     path = write(tmp_path, text)
     with caplog.at_level(logging.WARNING, logger="notifier.core.config_file"):
         with pytest.raises(ConfigError) as info:

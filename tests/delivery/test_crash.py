@@ -25,13 +25,13 @@ from typing import Any
 
 import pytest
 
-from notifier.delivery.channels.webhook import verify_signature
 from notifier.service.cycle import Service
 from notifier.storage.outbox import Outbox
 from notifier.storage.store import Store
 from tests.delivery.conftest import WEBHOOK_SECRET, HookServer, Wire
 from tests.delivery.outbox_kit import HOOK_ENV, SMTP_ENV, queue, webhook_channel, write_config
 from tests.delivery.scenes import event, utc
+from tests.webhook_reference import reference_accepts
 
 pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs SIGKILL")
 
@@ -94,7 +94,7 @@ class Gate:
             self.cond.wait_for(lambda: self.run != run or self.left > 0, DEADLINE_S)
             if self.run != run or self.left <= 0:
                 return 503, {}  # held past its sender's death: not delivered
-            if not verify_signature(self.secret, wire.headers, wire.body, time.time()):
+            if not reference_accepts(self.secret, wire.headers, wire.body):
                 self.bad_signatures += 1
                 return 401, {}
             self.left -= 1

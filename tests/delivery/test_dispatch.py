@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 
 from notifier.cli import main as cli
-from notifier.delivery.channels.webhook import DELIVERY_HEADER
+from notifier.core.signing import ID_HEADER
 from notifier.delivery.dispatch import MAX_TRANSIENT_IN_A_ROW, backoff_s
 from notifier.delivery.messages import CAUTION
 from notifier.service.cycle import Service
@@ -225,7 +225,7 @@ def test_webhook_500s_are_retried_then_delivered_once(webhook_server, make_servi
         now += timedelta(minutes=1)
     assert now <= T0 + timedelta(minutes=5)
     assert hook.rejected_signatures == 0  # every request was signed correctly
-    got = [a["headers"][DELIVERY_HEADER] for a in hook.accepted]
+    got = [a["headers"][ID_HEADER] for a in hook.accepted]
     assert sorted(got) == sorted(d.key for d in queued)  # each exactly once
     assert len(hook.attempts) == 10
     assert all(r.status == "sent" and r.attempts == 2 for r in service.outbox.deliveries())

@@ -19,7 +19,8 @@ import pytest
 from jsonschema import Draft202012Validator
 
 from notifier.core.config import Site, WebhookChannel
-from notifier.delivery.channels.webhook import DELIVERY_HEADER, WebhookSender
+from notifier.core.signing import ID_HEADER
+from notifier.delivery.channels.webhook import WebhookSender
 from notifier.delivery.messages import MESSAGE_SCHEMA, render, render_summary
 from notifier.engine.catalog import FEATURES
 from notifier.service.cycle import Service
@@ -163,7 +164,10 @@ def test_every_body_of_a_real_night_matches_its_schema(night):
     for item in night:
         body = item["body"]
         assert problems(body) == [], (body["type"], body["headline"])
-        assert body["delivery"] == item["headers"][DELIVERY_HEADER]
+        # as both schemas say: `delivery` is the webhook-id, the event's type is in the
+        # body, and no header but the three Standard Webhooks ones carries fogwatch's news
+        assert body["delivery"] == item["headers"][ID_HEADER]
+        assert not [h for h in item["headers"] if h.lower().startswith("x-fogwatch")]
         assert body["recipient"] in ("duty-room", None)
         # feature names are the catalog's (the README's feature list)
         for one in body.get("events", [body]):
@@ -239,3 +243,12 @@ def test_a_body_with_a_field_too_many_or_too_few_fails(real_bodies):
         if not problems(body):
             accepted.append(f"{which}-{name}")
     assert accepted == []  # every broken body is refused
+
+
+def test_the_schemas_name_the_standard_webhooks_headers():
+    # the schemas document the headers a receiver sees; the old X-Fogwatch-* pair is gone
+    for schema in (ALERT, SUMMARY):
+        text = json.dumps(schema)
+        assert "X-Fogwatch" not in text
+        assert "`webhook-id` header" in schema["properties"]["delivery"]["description"]
+        assert "webhook-signature" in schema["description"]

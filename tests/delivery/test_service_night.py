@@ -18,7 +18,7 @@ import pytest
 from notifier.cli import main as cli
 from notifier.core.columns import text_columns_as_objects
 from notifier.core.config import Site
-from notifier.delivery.channels.webhook import DELIVERY_HEADER
+from notifier.core.signing import ID_HEADER
 from notifier.delivery.messages import CAUTION
 from notifier.service.cycle import Service
 from notifier.service.loading import observations_for
@@ -142,7 +142,7 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
     assert hook.rejected_signatures == 0
     posted = [a["body"] for a in hook.accepted]
     assert [b["type"] for b in posted] == ["escalated", *["reminder"] * 4, "cleared"]
-    assert [a["headers"][DELIVERY_HEADER] for a in hook.accepted] == [
+    assert [a["headers"][ID_HEADER] for a in hook.accepted] == [
         delivery_key(e.id, "duty-bridge", "hook") for e in events if e is not raised
     ]
     assert posted[0]["headline"] == f"Fog WARNING · Clear Field · {zone_now[escalated.id]}"

@@ -3,12 +3,10 @@
 from __future__ import annotations
 
 import email
-import hashlib
-import hmac
 import io
 import json
 from collections import Counter
-from datetime import datetime, time, timedelta
+from datetime import UTC, datetime, time, timedelta
 from email import policy
 from pathlib import Path
 from typing import Any
@@ -16,19 +14,24 @@ from zoneinfo import ZoneInfo
 
 import pytest
 import yaml
+from standardwebhooks import Webhook
 
 import notifier.demo.play as demo_play
-from notifier.delivery.channels.webhook import verify_signature
+from notifier.core.signing import format_secret, verify
 from notifier.demo.play import run_demo
 from notifier.storage.outbox import Outbox
 from notifier.storage.store import Store
+
+# Standard Webhooks secrets for the demo's channels (invented keys)
+HOOK_SECRET = format_secret(b"the demo's webhook key for tests")
+BOT_SECRET = format_secret(b"the demo's bot key for the tests!")
 
 
 def play(out: Path, config: Path | None = None) -> tuple[dict[str, Any], str]:
     stream = io.StringIO()
     with pytest.MonkeyPatch.context() as mp:
-        mp.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", "demo-webhook-secret")
-        mp.setenv("FOGWATCH_DEMO_BOT_SECRET", "demo-bot-secret")
+        mp.setenv("FOGWATCH_DEMO_WEBHOOK_SECRET", HOOK_SECRET)
+        mp.setenv("FOGWATCH_DEMO_BOT_SECRET", BOT_SECRET)
         if config is not None:
             # run_demo takes no config: it copies the file DEMO_CONFIG names into `out`
             mp.setattr(demo_play, "DEMO_CONFIG", config)
@@ -121,16 +124,16 @@ def test_webhook_bodies_verify_with_the_shared_secret(demo):
         assert record["body"]["site"] == "skerrow-berth"
         assert "caution" in record["body"]
         headers = record["headers"]
-        assert headers["X-Fogwatch-Delivery"] == path.stem
+        assert sorted(headers) == ["webhook-id", "webhook-signature", "webhook-timestamp"]
+        assert headers["webhook-id"] == path.stem
         raw = record["raw_body"].encode()
-        sent_at = int(headers["X-Fogwatch-Timestamp"])
-        assert verify_signature("demo-webhook-secret", headers, raw, sent_at)
-        assert not verify_signature("another-secret", headers, raw, sent_at)
-        # README, Webhooks: v1=<hex HMAC-SHA256 of "{delivery}.{timestamp}.{body}">,
-        # worked out here rather than with fogwatch's own code
-        signed = f"{path.stem}.{sent_at}.".encode() + raw
-        mac = hmac.new(b"demo-webhook-secret", signed, hashlib.sha256).hexdigest()
-        assert headers["X-Fogwatch-Signature"] == f"v1={mac}"
+        sent_at = int(headers["webhook-timestamp"])
+        assert verify(HOOK_SECRET, headers, raw, sent_at)
+        assert not verify(BOT_SECRET, headers, raw, sent_at)
+        # README, Webhooks: the Standard Webhooks signature, worked out by the
+        # specification's reference library rather than fogwatch's own code
+        at = datetime.fromtimestamp(sent_at, UTC)
+        assert headers["webhook-signature"] == Webhook(HOOK_SECRET).sign(path.stem, at, raw)
 
 
 def test_bot_answers(demo):

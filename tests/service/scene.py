@@ -17,8 +17,9 @@ import pytest
 
 from notifier.service.cycle import Service
 
-BOT_SECRET = "loopback-bot-secret"
-HOOK_SECRET = "loopback-hook-secret-7f3a"
+# Standard Webhooks secrets (whsec_ + base64 of invented bytes)
+BOT_SECRET = "whsec_dGVzdCBib3Qga2V5IG9uIHRoZSBsb29wYmFjayBvbmx5"
+HOOK_SECRET = "whsec_bG9vcGJhY2sgaG9vayBrZXksIGludmVudGVkIDdmM2E="
 
 START = datetime(2026, 11, 20, 18, 0, tzinfo=UTC)  # first reading (UTC, winter: = local)
 FOG_FROM = datetime(2026, 11, 20, 23, 0, tzinfo=UTC)  # the valley saturates from here

@@ -14,7 +14,7 @@ from notifier.delivery.channels.base import BaseChannel, Channel, RetryLater
 from notifier.delivery.channels.email import EmailSender
 from notifier.delivery.channels.folder import FolderWriter
 from notifier.delivery.channels.text import TextWriter
-from notifier.delivery.channels.webhook import WebhookSender, verify_signature
+from notifier.delivery.channels.webhook import WebhookSender
 
 __all__ = [
     "STDOUT",
@@ -27,7 +27,6 @@ __all__ = [
     "WebhookSender",
     "build_channel",
     "channel_config_for",
-    "verify_signature",
 ]
 
 # the built-in channel a subscriber may name without configuring it
