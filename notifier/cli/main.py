@@ -212,7 +212,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(handler(args))
     except FogwatchError as exc:
-        print(f"fogwatch: {exc}" if "\n" not in str(exc) else str(exc), file=sys.stderr)
+        from notifier.core.redact import redact
+
+        text = redact(str(exc))  # a URL's password or a value from the environment
+        print(f"fogwatch: {text}" if "\n" not in text else text, file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
         return 130

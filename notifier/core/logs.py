@@ -15,6 +15,8 @@ import logging
 import time
 from typing import TextIO
 
+from notifier.core.redact import redact
+
 __all__ = ["DATE_FORMAT", "LINE_FORMAT", "UTCFormatter", "level_for", "setup_logging"]
 
 LINE_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
@@ -28,6 +30,11 @@ class UTCFormatter(logging.Formatter):
 
     def __init__(self) -> None:
         super().__init__(fmt=LINE_FORMAT, datefmt=DATE_FORMAT)
+
+    def format(self, record: logging.LogRecord) -> str:
+        """The line, with every secret cut (:func:`notifier.core.redact.redact`): a library's
+        message or a traceback may carry a URL's key or a value from the environment."""
+        return redact(super().format(record))
 
     def formatTime(self, record: logging.LogRecord, datefmt: str | None = None) -> str:
         """The record's time in UTC (the Z in :data:`DATE_FORMAT` promises it)."""

@@ -163,6 +163,7 @@ class Expansion:
     missing: dict[Loc, list[str]] = field(default_factory=dict)  # names not set
     expanded: set[Loc] = field(default_factory=set)  # values read from the environment
     written: dict[Loc, str] = field(default_factory=dict)  # the text before expansion
+    values: set[str] = field(default_factory=set)  # what the environment gave (secrets, maybe)
 
     def is_missing(self, loc: Loc) -> bool:
         return any(loc[: len(m)] == m for m in self.missing)
@@ -182,6 +183,8 @@ def expand_all(node: Any, loc: Loc, found: Expansion) -> Any:
             found.missing[loc] = missing
             return node  # left as written: validation skips this place
         found.expanded.add(loc)
+        env = os.environ
+        found.values.update(env[name] for name in _ENV.findall(node) if name in env)
         return value
     return node
 

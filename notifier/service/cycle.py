@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any, Literal, cast
 
 from notifier.core.config import BOT_SUBSCRIBER_PREFIX, Config, Subscriber
 from notifier.core.errors import FogwatchError
+from notifier.core.redact import redact_url
 from notifier.engine.rules import RuleSet
 from notifier.service.loading import (
     FORECAST_HORIZON,
@@ -147,8 +148,8 @@ class Service:
                 "store.url changed in %s (%s → %s); the running store stays in use: "
                 "restart fogwatch to use the new one",
                 self.config_path,
-                _shown_url(self._store_url),
-                _shown_url(loaded.config.store_url),
+                redact_url(self._store_url),
+                redact_url(loaded.config.store_url),
             )
             running = loaded.config.store.model_copy(update={"url": self._store_url})
             loaded = Loaded(loaded.config.model_copy(update={"store": running}), loaded.rules)
@@ -368,20 +369,6 @@ class Service:
         self._stop.set()
         with self._lock:
             self.store.close()
-
-
-def _shown_url(url: str) -> str:
-    """A store URL fit for a log line: its password, if any, replaced by ``***``."""
-    from urllib.parse import urlsplit, urlunsplit
-
-    try:
-        parts = urlsplit(url)
-        if parts.password is None:
-            return url
-        host = parts.netloc.rsplit("@", 1)[1]
-        return urlunsplit(parts._replace(netloc=f"{parts.username or ''}:***@{host}"))
-    except ValueError:
-        return "(a URL that cannot be shown)"
 
 
 def bot_subscriber_id(sender: str, site: str) -> str:
