@@ -175,6 +175,8 @@ def fetch_json(
         ) from exc
     except (UnicodeDecodeError, RecursionError) as exc:
         raise SourceUnavailable(f"not usable JSON: {exc}") from exc
+    except ValueError as exc:  # an integer over Python's 4300-digit limit
+        raise SourceUnavailable(f"not usable JSON: {str(exc).split(';')[0]}") from exc
 
 
 def _dig(node: Any, path: str) -> Any:
