@@ -56,8 +56,20 @@ REJECTED = "rejected"
 WHY_SUFFIX = ".why.txt"
 
 
+#: a line of a why file longer than this is cut, saying how long it was (a 20 MB bad line
+#: must not become a 20 MB why file)
+WHY_LINE_CHARS = 300
+
+
+def _cut(line: str) -> str:
+    if len(line) <= WHY_LINE_CHARS:
+        return line
+    return f"{line[:WHY_LINE_CHARS]}… (cut: the line was {len(line):,} characters)"
+
+
 def why_text(name: str, status: str, parsed: ParsedFile | None, note: str | None = None) -> str:
-    """The NAME.why.txt beside a moved file: one problem per line."""
+    """The NAME.why.txt beside a moved file: one problem per line, each cut to
+    :data:`WHY_LINE_CHARS` characters."""
     out = [f"{name}: {status}"]
     if note:
         out.append(note)
@@ -74,7 +86,7 @@ def why_text(name: str, status: str, parsed: ParsedFile | None, note: str | None
         if parsed.warnings:
             out.append("notes:")
             out.extend(f"  {w}" for w in parsed.warnings)
-    return "\n".join(out) + "\n"
+    return "\n".join(_cut(line) for line in out) + "\n"
 
 
 def _free_name(folder: Path, name: str) -> Path:

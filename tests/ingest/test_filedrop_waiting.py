@@ -85,3 +85,16 @@ def test_sources_lists_what_waits_and_why(make_config):
         "  drop: slow.csv: changed 2 s ago: waits 5 s",
         "  drop: x.csv: a folder, not a file: left alone",
     ]
+
+
+def test_a_huge_bad_value_is_cut_in_the_why_file(drop: Drop):
+    # regression (issue 16, defect 8): a 20 MB bad line was copied whole into .why.txt
+    huge = "x" * 3_000_000
+    rows = ["site,time,temp_c,rh_pct", "zz-quay,2024-01-12T04:00:00Z,2.0,91"]
+    put(drop.folder, "long.csv", "\n".join([*rows, f"zz-quay,2024-01-12T05:00:00Z,{huge},93"]))
+    result = drop.poll()
+    assert result.files == [("long.csv", "partial")]
+    why = (drop.folder / "processed" / "long.csv.why.txt").read_text(encoding="utf-8")
+    assert len(why) < 2000
+    line = next(x for x in why.splitlines() if x.startswith("line 3"))
+    assert line.endswith("characters)") and "(cut: the line was 3,0" in line
