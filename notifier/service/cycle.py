@@ -88,6 +88,10 @@ class Service:
         self.session = session
         self.channel_kwargs = dict(channel_kwargs or {})
         self._fixed_sources = sources
+        # built once and kept until a reload or stop: one HTTP session (one connection
+        # pool) per service, not a new one on every poll
+        self._sources: list[ObservationSource] | None = None
+        self._own_session: Any = None
         self.rng = rng or random.Random()
         self._mtimes = self._file_mtimes()
         # The hold windows look 10, 20 … minutes back: times the previous cycles already
@@ -157,6 +161,7 @@ class Service:
             self.loaded = loaded
             self._features.clear()
             self._window = None  # the sites or the window's length may have changed
+            self._drop_sources()  # built again from the new config, with a fresh session
             self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
             self._mtimes = self._file_mtimes()
         return True, "reloaded"
@@ -164,14 +169,33 @@ class Service:
     # -- the cycle ---------------------------------------------------------------------
 
     def poll(self, now: datetime, source_ids: Sequence[str] | None = None) -> list[PollResult]:
-        from notifier.ingest.poll import build_sources, poll_sources
+        from notifier.ingest.poll import poll_sources
 
-        sources = self._fixed_sources
-        if sources is None:
-            sources = build_sources(self.config, self.store, session=self.session)
+        sources = self._built_sources()
         if source_ids is not None:
             sources = [s for s in sources if s.id in source_ids]
         return poll_sources(sources, self.store, now)
+
+    def _built_sources(self) -> Sequence[ObservationSource]:
+        if self._fixed_sources is not None:
+            return self._fixed_sources
+        if self._sources is None:
+            from notifier.ingest.poll import build_sources
+
+            session = self.session
+            if session is None and any(s.type == "http_json" for s in self.config.sources):
+                import requests
+
+                session = self._own_session = requests.Session()
+            self._sources = build_sources(self.config, self.store, session=session)
+        return self._sources
+
+    def _drop_sources(self) -> None:
+        """Forget the built sources and close the session made for them (reload, stop)."""
+        self._sources = None
+        if self._own_session is not None:
+            self._own_session.close()
+            self._own_session = None
 
     def poll_and_assess(
         self, now: datetime, source_ids: Sequence[str] | None = None
@@ -368,6 +392,7 @@ class Service:
     def close(self) -> None:
         self._stop.set()
         with self._lock:
+            self._drop_sources()
             self.store.close()
 
 
