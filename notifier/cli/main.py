@@ -207,7 +207,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "handler", None):
         parser.print_help()
         return 2
-    setup_logging(args.verbose)
+    setup_logging(args.verbose, service=args.command == "run")
     handler: Any = args.handler
     try:
         return int(handler(args))

@@ -250,8 +250,8 @@ class Service:
         added = self.outbox.commit_cycle(
             previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
         )
-        for ev in events:
-            log.info("%s %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
+        for ev in events:  # at INFO: shown by `fogwatch run` without -v
+            log.info("alert %s: %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
         return CycleReport(now, assessments, events, added, polls)
 
     def _charts(
