@@ -37,7 +37,7 @@ from notifier.core.config import (
 )
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
-from notifier.core.redact import MASK, redact, remember_env_value
+from notifier.core.redact import remember_env_value
 from notifier.core.yamlio import (
     Expansion,
     Loc,
@@ -47,6 +47,7 @@ from notifier.core.yamlio import (
     line_of,
     load_yaml,
     loc_text,
+    without_env_value,
 )
 
 __all__ = ["load_config", "problems_from_validation", "read_config"]
@@ -206,25 +207,11 @@ def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, li
         if found.is_missing(raw_loc):
             continue
         if raw_loc in found.expanded:  # never echo what the environment gave
-            message = _without_env_value(message, raw, raw_loc)
+            message = without_env_value(message, raw, raw_loc)
         problems.append(
             ConfigProblem(str(path), line_of(raw, raw_loc), f"{loc_text(raw_loc)}: {message}")
         )
     return config, problems
-
-
-def _without_env_value(message: str, raw: Any, loc: Loc) -> str:
-    """``message`` with the value at ``loc`` (read from the environment) not shown."""
-    node = raw
-    for part in loc:
-        try:
-            node = node[part]
-        except (KeyError, IndexError, TypeError):
-            return redact(message)
-    if isinstance(node, str) and node:
-        for shown in (repr(node), node):
-            message = message.replace(shown, f"{MASK} (value from the environment, not shown)")
-    return redact(message)
 
 
 _LISTS = ("sites", "sources", "channels", "subscribers", "rules")

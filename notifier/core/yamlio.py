@@ -23,6 +23,7 @@ from typing import Any
 import yaml
 
 from notifier.core.errors import ConfigError, ConfigProblem
+from notifier.core.redact import MASK, redact
 
 __all__ = [
     "MAX_ALIAS_NODES",
@@ -37,6 +38,7 @@ __all__ = [
     "line_of",
     "load_yaml",
     "loc_text",
+    "without_env_value",
 ]
 
 #: A place in a loaded file: the keys and list indexes from its top (``("sites", 0, "id")``).
@@ -283,6 +285,20 @@ def expand_all(node: Any, loc: Loc, found: Expansion) -> Any:
         found.values.update(env[name] for name in _ENV.findall(node) if name in env)
         return value
     return node
+
+
+def without_env_value(message: str, raw: Any, loc: Loc) -> str:
+    """``message`` with the value at ``loc`` (read from the environment) not shown."""
+    node = raw
+    for part in loc:
+        try:
+            node = node[part]
+        except (KeyError, IndexError, TypeError):
+            return redact(message)
+    if isinstance(node, str) and node:
+        for shown in (repr(node), node):
+            message = message.replace(shown, f"{MASK} (value from the environment, not shown)")
+    return redact(message)
 
 
 def loc_text(loc: Loc) -> str:
