@@ -163,6 +163,12 @@ FEATURES: dict[str, FeatureSpec] = {
     "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
     "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),
     "data_age_min": FeatureSpec("data age", "min", decimals=0),
+    "data_stale": FeatureSpec(
+        "data stale",
+        "",
+        kind="bool",
+        description="no reading for longer than alerts.stale_after; never unknown",
+    ),
 }
 
 
@@ -237,6 +243,10 @@ class FeatureSettings:
     # docs/references.md [LW check]); 80 W/m² is taken as "full" radiative cooling.
     full_loss_wm2: float = 80.0
     surface_emissivity: float = 0.98
+    # data older than this is stale: the config's alerts.stale_after (90 min by default,
+    # three missed half-hourly reports, common practice) sets it, and with it the
+    # data_stale feature the data-gap rule tests, so one setting drives both
+    stale_after_min: float = 90.0
 
 
 @dataclass

@@ -319,6 +319,8 @@ def _features_at(
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }
+    # known even for a site that never reported (its age is +inf): silence is stale
+    found["data_stale"] = found["data_age_min"] > settings.stale_after_min
     # in the order of FEATURES (what a row and the JSON output list them in)
     values = {name: np.asarray(found[name], dtype=float) for name in FEATURES}
     table = FeatureTable(
