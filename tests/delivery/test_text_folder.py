@@ -160,8 +160,8 @@ def test_public_api_of_channels():
 
 def test_folder_flushes_the_file_and_then_its_folder(tmp_path, monkeypatch):
     # regression (issue 16, defect 8): the .eml was renamed into place without an fsync
-    # of the folder. POSIX fsync(2): flushing a file does not flush the directory entry
-    # naming it; an explicit fsync on a descriptor of the directory is needed too.
+    # of the folder. Flushing a file does not flush the directory entry naming it; an
+    # fsync of the directory is needed too (POSIX fsync(2), from memory; common practice).
     import stat
 
     box = tmp_path / "outbox"

@@ -32,8 +32,8 @@ def test_polls_reuse_one_connection_and_a_reload_starts_a_fresh_one(
         polls = service.poll(FOG_FROM + timedelta(minutes=minutes), source_ids=["near-feed"])
         assert polls[0].ok, polls[0].error
     assert len(loopback_json.requests) == 5
-    # HTTP/1.1 keep-alive (RFC 9112 section 9.3): one session keeps one connection open;
-    # a new session per poll would open five
+    # HTTP/1.1 keep-alive (docs/references.md [RFC 9112] section 9.3): one session keeps
+    # one connection open; a new session per poll would open five
     assert connections(loopback_json) == 1
     assert service.reload() == (True, "reloaded")
     service.poll(FOG_FROM + timedelta(minutes=6), source_ids=["near-feed"])
