@@ -53,6 +53,7 @@ Responder = Callable[["Request"], tuple[int, dict[str, str], bytes | Iterable[by
 class Request:
     path: str
     headers: dict[str, str]
+    client: tuple[str, int] | None = None  # the client's address and port (its connection)
 
 
 @dataclass
@@ -100,7 +101,8 @@ def loopback_json() -> Iterator[LoopbackJson]:
 
         def do_GET(self) -> None:  # noqa: N802 - the name http.server calls
             server = state["server"]
-            request = Request(self.path, {k.lower(): v for k, v in self.headers.items()})
+            headers = {k.lower(): v for k, v in self.headers.items()}
+            request = Request(self.path, headers, tuple(self.client_address[:2]))
             server.requests.append(request)
             path = self.path.split("?", 1)[0]
             responder = server.routes.get(path)

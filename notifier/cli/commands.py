@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -176,6 +177,7 @@ def cli_status(args: argparse.Namespace) -> int:
         print("Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty"))
         for row in outbox.deliveries(["failed", "expired", "cancelled"])[-10:]:
             print(f"  {row.status}: {row.subscriber} via {row.channel}: {row.last_error}")
+        _print_holds(outbox.deliveries(["pending"]), config)
         pending = [r for r in outbox.deliveries(["pending"]) if r.attempts]
         for row in pending[-10:]:
             print(
@@ -183,6 +185,20 @@ def cli_status(args: argparse.Namespace) -> int:
                 f"{row.last_error}"
             )
     return 0
+
+
+def _print_holds(rows: Sequence[Any], config: Any) -> None:
+    """Deliveries held for quiet hours, each with the local time its hold ends."""
+    from notifier.core.timefmt import local_time
+
+    now = datetime.now(UTC)
+    zones = {s.id: s.timezone for s in config.subscribers}
+    held = [r for r in rows if r.not_before is not None and r.not_before > now]
+    for row in held[-10:]:
+        zone = zones.get(row.subscriber) or "UTC"
+        print(
+            f"  held until {local_time(row.not_before, zone)}: {row.subscriber} via {row.channel}"
+        )
 
 
 def cli_ask(args: argparse.Namespace) -> int:

@@ -244,12 +244,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "handler", None):
         parser.print_help()
         return 2
-    setup_logging(args.verbose)
+    setup_logging(args.verbose, service=args.command == "run")
     handler: Any = args.handler
     try:
         return int(handler(args))
     except FogwatchError as exc:
-        print(f"fogwatch: {exc}" if "\n" not in str(exc) else str(exc), file=sys.stderr)
+        from notifier.core.redact import redact
+
+        text = redact(str(exc))  # a URL's password or a value from the environment
+        print(f"fogwatch: {text}" if "\n" not in text else text, file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
         return 130

@@ -37,6 +37,7 @@ from notifier.core.config import (
 )
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
+from notifier.core.redact import remember_env_value
 from notifier.core.yamlio import (
     Expansion,
     Loc,
@@ -46,6 +47,7 @@ from notifier.core.yamlio import (
     line_of,
     load_yaml,
     loc_text,
+    without_env_value,
 )
 
 __all__ = ["load_config", "problems_from_validation", "read_config"]
@@ -159,6 +161,8 @@ def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[Co
         raise ConfigError(ConfigProblem(str(path), 1, "expected a mapping at the top level"))
     found = Expansion()
     expand_all(raw, (), found)
+    for value in found.values:  # from now on cut from every message and log line
+        remember_env_value(value)
     warnings = sorted(
         retire_keys(str(path), raw) + literal_secrets(str(path), raw, found),
         key=lambda p: p.line or 0,
@@ -204,10 +208,13 @@ def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, li
     config = _resolve_paths(config)
     for loc, message in _cross_check(config, view):
         raw_loc = view.raw_loc(loc)
-        if not found.is_missing(raw_loc):
-            problems.append(
-                ConfigProblem(str(path), line_of(raw, raw_loc), f"{loc_text(raw_loc)}: {message}")
-            )
+        if found.is_missing(raw_loc):
+            continue
+        if raw_loc in found.expanded:  # never echo what the environment gave
+            message = without_env_value(message, raw, raw_loc)
+        problems.append(
+            ConfigProblem(str(path), line_of(raw, raw_loc), f"{loc_text(raw_loc)}: {message}")
+        )
     return config, problems
 
 

@@ -12,6 +12,7 @@ from typing import Any
 from urllib.parse import parse_qsl, urlsplit
 
 from notifier.core.errors import ConfigProblem
+from notifier.core.redact import SECRET_NAME as _SECRET_NAME
 from notifier.core.yamlio import Expansion, Loc, line_of, loc_text
 
 __all__ = ["RETIRED_KEYS", "literal_secrets", "retire_keys"]
@@ -40,12 +41,6 @@ def retire_keys(path: str, raw: Any) -> list[ConfigProblem]:
     return out
 
 
-# a query parameter or header that carries a credential (common practice in API URLs:
-# token, access_token, api_key, apikey, key, sig, password, secret, client_secret …)
-_SECRET_NAME = re.compile(
-    r"token|secret|passw|pwd|api_?key|access_?key|signature|^sig$|^key$|^auth|cookie",
-    re.IGNORECASE,
-)
 _PLACEHOLDER = re.compile(r"^\{[a-z_]+\}$")  # {lat}, {lon}, {site}: filled in per site
 
 

@@ -15,12 +15,24 @@ import logging
 import time
 from typing import TextIO
 
-__all__ = ["DATE_FORMAT", "LINE_FORMAT", "UTCFormatter", "level_for", "setup_logging"]
+from notifier.core.redact import redact
+
+__all__ = [
+    "CHATTY_LIBRARIES",
+    "DATE_FORMAT",
+    "LINE_FORMAT",
+    "UTCFormatter",
+    "level_for",
+    "setup_logging",
+]
 
 LINE_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 # ISO 8601 with a literal Z: a service's log is read beside other machines' logs, and
 # UTC with whole seconds sorts and compares as text.
 DATE_FORMAT = "%Y-%m-%dT%H:%M:%SZ"
+# libraries that log every job run at INFO (the five-second config watch alone is some
+# 700 lines an hour): kept at WARNING unless -vv asks for everything
+CHATTY_LIBRARIES = ("apscheduler",)
 
 
 class UTCFormatter(logging.Formatter):
@@ -28,6 +40,11 @@ class UTCFormatter(logging.Formatter):
 
     def __init__(self) -> None:
         super().__init__(fmt=LINE_FORMAT, datefmt=DATE_FORMAT)
+
+    def format(self, record: logging.LogRecord) -> str:
+        """The line, with every secret cut (:func:`notifier.core.redact.redact`): a library's
+        message or a traceback may carry a URL's key or a value from the environment."""
+        return redact(super().format(record))
 
     def formatTime(self, record: logging.LogRecord, datefmt: str | None = None) -> str:
         """The record's time in UTC (the Z in :data:`DATE_FORMAT` promises it)."""
@@ -43,13 +60,21 @@ def level_for(verbosity: int) -> int:
     return logging.WARNING - 10 * min(verbosity, 2)
 
 
-def setup_logging(verbosity: int = 0, stream: TextIO | None = None) -> None:
+def setup_logging(
+    verbosity: int = 0, stream: TextIO | None = None, *, service: bool = False
+) -> None:
     """Sends log lines to ``stream`` (standard error by default) in the :class:`UTCFormatter`
     layout at :func:`level_for` ``verbosity``.
+
+    ``service`` (``fogwatch run``) starts one step lower, at INFO, so that a running
+    service's log shows each alert raised and cleared, and its reloads, without ``-v``.
+    The :data:`CHATTY_LIBRARIES` stay at WARNING below ``-vv``.
 
     Like :func:`logging.basicConfig` it does nothing when the root logger already has a
     handler (an embedding program, or a test's log capture, chose where lines go).
     """
     handler = logging.StreamHandler(stream)
     handler.setFormatter(UTCFormatter())
-    logging.basicConfig(level=level_for(verbosity), handlers=[handler])
+    logging.basicConfig(level=level_for(verbosity + int(service)), handlers=[handler])
+    for name in CHATTY_LIBRARIES:
+        logging.getLogger(name).setLevel(logging.NOTSET if verbosity >= 2 else logging.WARNING)

@@ -3,6 +3,12 @@
 ``load_yaml`` returns plain dicts and lists (subclasses ``MarkedDict`` / ``MarkedList``)
 that carry the 1-based line of every key and item, so that validation errors can be
 reported as ``path:line: ...``. Only ``yaml.SafeLoader`` is used: no tags, no objects.
+
+Two bounds keep a hostile or broken file from holding a CPU for minutes ("billion laughs",
+an anchor aliased within an anchor, nine levels deep): a file over :data:`MAX_FILE_BYTES`
+is refused before it is read, and a document whose aliases would add more than
+:data:`MAX_ALIAS_NODES` nodes beyond those written is refused before it is built, at the
+line of the costliest alias. Both checks take well under a second.
 """
 
 from __future__ import annotations
@@ -17,8 +23,11 @@ from typing import Any
 import yaml
 
 from notifier.core.errors import ConfigError, ConfigProblem
+from notifier.core.redact import MASK, redact
 
 __all__ = [
+    "MAX_ALIAS_NODES",
+    "MAX_FILE_BYTES",
     "Expansion",
     "Loc",
     "MarkedDict",
@@ -29,6 +38,7 @@ __all__ = [
     "line_of",
     "load_yaml",
     "loc_text",
+    "without_env_value",
 ]
 
 #: A place in a loaded file: the keys and list indexes from its top (``("sites", 0, "id")``).
@@ -49,8 +59,75 @@ class MarkedList(list):  # type: ignore[type-arg]
     item_lines: list[int]
 
 
+#: a config or rule file larger than this is refused unread (the shipped ones are ~10 kB)
+MAX_FILE_BYTES = 2 * 1024 * 1024
+#: how many nodes aliases may add beyond those written (a shared block reused a few times
+#: adds tens; an alias bomb adds hundreds of millions)
+MAX_ALIAS_NODES = 10_000
+
+
 class _Loader(yaml.SafeLoader):
+    """A SafeLoader that remembers where each alias stands and which node it names."""
+
+    def __init__(self, stream: str) -> None:
+        super().__init__(stream)
+        self.aliases: list[tuple[int, yaml.Node]] = []
+
+    def compose_node(self, parent: yaml.Node | None, index: Any) -> yaml.Node:
+        if self.check_event(yaml.AliasEvent):
+            line = self.peek_event().start_mark.line + 1
+            node = super().compose_node(parent, index)
+            self.aliases.append((line, node))
+            return node
+        return super().compose_node(parent, index)
+
+
+def _children(node: yaml.Node) -> list[yaml.Node]:
+    if isinstance(node, yaml.MappingNode):
+        return [n for pair in node.value for n in pair]
+    if isinstance(node, yaml.SequenceNode):
+        return list(node.value)
+    return []
+
+
+class _Loop(Exception):
     pass
+
+
+def _alias_problem(root: yaml.Node, aliases: list[tuple[int, yaml.Node]]) -> tuple[int, str] | None:
+    """(line, why) when the aliases would blow the document up, else None.
+
+    Sizes are counted once per distinct node (memoised), so the check is linear in the
+    file even when the document it describes is astronomically large.
+    """
+    size: dict[int, int] = {}
+    visiting: set[int] = set()
+
+    def expanded(node: yaml.Node) -> int:
+        key = id(node)
+        if key in size:
+            return size[key]
+        if key in visiting:
+            raise _Loop  # an anchor that contains an alias to itself
+        visiting.add(key)
+        total = 1 + sum(expanded(child) for child in _children(node))
+        visiting.discard(key)
+        size[key] = total
+        return total
+
+    try:
+        total = expanded(root)
+    except _Loop:
+        line = aliases[0][0] if aliases else None
+        return line or 1, "an alias refers to the node that contains it (a loop)"
+    extra = total - len(size)
+    if extra <= MAX_ALIAS_NODES:
+        return None
+    line, _ = max(aliases, key=lambda a: size.get(id(a[1]), 0))
+    return line, (
+        f"aliases expand the document by {extra:,} nodes, over the limit of "
+        f"{MAX_ALIAS_NODES:,} (an alias bomb?); write the repeated parts out instead"
+    )
 
 
 def _construct_mapping(loader: _Loader, node: yaml.MappingNode) -> MarkedDict:
@@ -84,13 +161,30 @@ def load_yaml(path: str | os.PathLike[str]) -> Any:
     """Read ``path`` with line marks; a syntax error becomes a ``ConfigError`` at its line."""
     path = Path(path)
     try:
+        size = path.stat().st_size
+        if size > MAX_FILE_BYTES:
+            raise ConfigError(
+                ConfigProblem(
+                    str(path),
+                    None,
+                    f"file of {size:,} bytes is over the {MAX_FILE_BYTES:,}-byte "
+                    "limit for a config or rule file",
+                )
+            )
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError as exc:
         raise ConfigError(ConfigProblem(str(path), None, "file not found")) from exc
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(ConfigProblem(str(path), None, f"cannot read: {exc}")) from exc
+    loader = _Loader(text)
     try:
-        return yaml.load(text, Loader=_Loader)  # noqa: S506 - _Loader is a SafeLoader
+        root = loader.get_single_node()
+        if root is None:
+            return None
+        problem = _alias_problem(root, loader.aliases)
+        if problem is not None:
+            raise ConfigError(ConfigProblem(str(path), *problem))
+        return loader.construct_document(root)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line = mark.line + 1 if mark else None
@@ -98,6 +192,10 @@ def load_yaml(path: str | os.PathLike[str]) -> Any:
         raise ConfigError(ConfigProblem(str(path), line, f"YAML syntax: {what}")) from exc
     except yaml.YAMLError as exc:
         raise ConfigError(ConfigProblem(str(path), None, f"YAML: {exc}")) from exc
+    except RecursionError as exc:
+        raise ConfigError(ConfigProblem(str(path), None, "YAML nested too deeply")) from exc
+    finally:
+        loader.dispose()
 
 
 def line_of(data: Any, loc: Sequence[Any]) -> int | None:
@@ -163,6 +261,7 @@ class Expansion:
     missing: dict[Loc, list[str]] = field(default_factory=dict)  # names not set
     expanded: set[Loc] = field(default_factory=set)  # values read from the environment
     written: dict[Loc, str] = field(default_factory=dict)  # the text before expansion
+    values: set[str] = field(default_factory=set)  # what the environment gave (secrets, maybe)
 
     def is_missing(self, loc: Loc) -> bool:
         return any(loc[: len(m)] == m for m in self.missing)
@@ -182,8 +281,24 @@ def expand_all(node: Any, loc: Loc, found: Expansion) -> Any:
             found.missing[loc] = missing
             return node  # left as written: validation skips this place
         found.expanded.add(loc)
+        env = os.environ
+        found.values.update(env[name] for name in _ENV.findall(node) if name in env)
         return value
     return node
+
+
+def without_env_value(message: str, raw: Any, loc: Loc) -> str:
+    """``message`` with the value at ``loc`` (read from the environment) not shown."""
+    node = raw
+    for part in loc:
+        try:
+            node = node[part]
+        except (KeyError, IndexError, TypeError):
+            return redact(message)
+    if isinstance(node, str) and node:
+        for shown in (repr(node), node):
+            message = message.replace(shown, f"{MASK} (value from the environment, not shown)")
+    return redact(message)
 
 
 def loc_text(loc: Loc) -> str:

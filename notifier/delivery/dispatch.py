@@ -119,7 +119,13 @@ class _Lease:
 
     def __init__(self, outbox: Outbox, token: str, rows: list[DeliveryRow], since: datetime):
         self.outbox, self.token, self.since = outbox, token, since
+        self.started = since
         self.held = {r.key for r in rows}
+
+    def left_at(self, now: datetime) -> datetime:
+        """When a message left: the run's ``now`` moved on by the real time the run has
+        taken so far (a run of slow sends lasts seconds; a simulated clock stays simulated)."""
+        return now + max(self.outbox.wall_clock() - self.started, timedelta(0))
 
     def keep_up(self) -> None:
         now = self.outbox.wall_clock()
@@ -278,7 +284,7 @@ def _deliver(
         report.retried += len(batch)
         report.errors.append(error)
         return False
-    lease.mark(keys, "sent", now)
+    lease.mark(keys, "sent", lease.left_at(now))  # sent_at: when it left, not the run's start
     report.sent += len(batch)
     return True
 

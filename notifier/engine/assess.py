@@ -8,6 +8,7 @@ moment a value touches its threshold.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, timedelta
@@ -94,6 +95,8 @@ def assess_times(
     if any(t.tzinfo is None for t in times):
         raise ValueError("evaluation time must be timezone-aware")
     times = [t.astimezone(UTC) for t in times]
+    # one setting for the stale flag and the data_stale feature the data-gap rule tests
+    settings = dataclasses.replace(settings or FeatureSettings(), stale_after_min=stale_after_min)
     tables: dict[float, FeatureTable] = {} if cache is None else cache
     max_hold = max((math.ceil(r.hold_s / HOLD_STEP_S) for r in rules.rules), default=0)
     _add_feature_tables(tables, obs, sites, times, [max_hold] * len(times), settings, feature_cache)

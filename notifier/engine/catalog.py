@@ -171,6 +171,12 @@ FEATURES: dict[str, FeatureSpec] = {
         "unknown without a model (fogwatch learn)",
     ),
     "data_age_min": FeatureSpec("data age", "min", decimals=0),
+    "data_stale": FeatureSpec(
+        "data stale",
+        "",
+        kind="bool",
+        description="no reading for longer than alerts.stale_after; never unknown",
+    ),
 }
 
 
@@ -248,6 +254,10 @@ class FeatureSettings:
     # a site model from `fogwatch learn` (notifier.engine.model); None: fog_probability
     # is unknown
     model: FogModel | None = None
+    # data older than this is stale: the config's alerts.stale_after (90 min by default,
+    # three missed half-hourly reports, common practice) sets it, and with it the
+    # data_stale feature the data-gap rule tests, so one setting drives both
+    stale_after_min: float = 90.0
 
 
 @dataclass

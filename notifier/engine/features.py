@@ -324,6 +324,8 @@ def _features_at(
         if settings.model is not None
         else np.full(len(st.ids), np.nan)
     )
+    # known even for a site that never reported (its age is +inf): silence is stale
+    found["data_stale"] = found["data_age_min"] > settings.stale_after_min
     # in the order of FEATURES (what a row and the JSON output list them in)
     values = {name: np.asarray(found[name], dtype=float) for name in FEATURES}
     table = FeatureTable(

@@ -123,6 +123,20 @@ def parse_file(
         raise _Unreadable(f"unknown format {fmt!r}")
     except _Unreadable as exc:
         return ParsedFile(fatal=str(exc))
+    except Exception as exc:  # a parser's own failure is a reason too: the file is filed
+        return ParsedFile(fatal=f"cannot be read: {type(exc).__name__}: {_first_line(exc)}")
+
+
+def _first_line(exc: BaseException) -> str:
+    return (str(exc).strip().splitlines() or [""])[0][:200]
+
+
+def _json_value_error(exc: ValueError) -> str:
+    """Why ``json`` refused a syntactically valid text (an integer too long to convert)."""
+    if "digits" in str(exc):
+        # Python refuses int strings over sys.get_int_max_str_digits() (4300 by default)
+        return "a number has more digits than can be read (over 4300)"
+    return f"not usable JSON: {_first_line(exc)}"
 
 
 def _result(frame: pd.DataFrame, rejections: list[Rejection], notes: list[str]) -> ParsedFile:
@@ -223,6 +237,8 @@ def _json_records(text: str, origin: str) -> tuple[list[Any], list[int] | None, 
         ) from exc
     except RecursionError as exc:
         raise _Unreadable("not usable JSON: nested too deeply") from exc
+    except ValueError as exc:
+        raise _Unreadable(_json_value_error(exc)) from exc
     if isinstance(doc, list):
         records = doc
     elif isinstance(doc, dict) and isinstance(doc.get("observations"), list):
@@ -296,4 +312,6 @@ def _ndjson_records(text: str, origin: str) -> tuple[list[Any], list[int], list[
             rejections.append(Rejection(origin, number, None, reason))
         except RecursionError:
             rejections.append(Rejection(origin, number, None, "JSON nested too deeply"))
+        except ValueError as exc:
+            rejections.append(Rejection(origin, number, None, _json_value_error(exc)))
     return records, lines, rejections

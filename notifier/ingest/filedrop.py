@@ -56,8 +56,20 @@ REJECTED = "rejected"
 WHY_SUFFIX = ".why.txt"
 
 
+#: a line of a why file longer than this is cut, saying how long it was (a 20 MB bad line
+#: must not become a 20 MB why file)
+WHY_LINE_CHARS = 300
+
+
+def _cut(line: str) -> str:
+    if len(line) <= WHY_LINE_CHARS:
+        return line
+    return f"{line[:WHY_LINE_CHARS]}… (cut: the line was {len(line):,} characters)"
+
+
 def why_text(name: str, status: str, parsed: ParsedFile | None, note: str | None = None) -> str:
-    """The NAME.why.txt beside a moved file: one problem per line."""
+    """The NAME.why.txt beside a moved file: one problem per line, each cut to
+    :data:`WHY_LINE_CHARS` characters."""
     out = [f"{name}: {status}"]
     if note:
         out.append(note)
@@ -74,7 +86,7 @@ def why_text(name: str, status: str, parsed: ParsedFile | None, note: str | None
         if parsed.warnings:
             out.append("notes:")
             out.extend(f"  {w}" for w in parsed.warnings)
-    return "\n".join(out) + "\n"
+    return "\n".join(_cut(line) for line in out) + "\n"
 
 
 def _free_name(folder: Path, name: str) -> Path:
@@ -122,6 +134,8 @@ class FileDrop:
         self.sites = sites
         self.store = store
         self.wall_clock = wall_clock
+        # files modified "in the future", by (size, mtime) at the last poll
+        self._future: dict[Path, tuple[int, float]] = {}
 
     @property
     def id(self) -> str:
@@ -129,26 +143,65 @@ class FileDrop:
 
     def candidates(self, now: datetime) -> list[Path]:
         """Complete files waiting in the folder, in name order."""
+        return self.scan(now)[0]
+
+    def waiting(self, now: datetime) -> list[tuple[str, str]]:
+        """What matches the glob but is not taken yet, with why (``fogwatch sources``)."""
+        return self.scan(now, remember=False)[1]
+
+    def scan(
+        self, now: datetime, remember: bool = True
+    ) -> tuple[list[Path], list[tuple[str, str]]]:
+        """(complete files, in name order; (name, why) for each entry left waiting).
+
+        A file whose modification time is ahead of both ``now`` and the wall clock (an
+        uploader's clock running fast, or ``touch -d`` in the future) cannot be judged by
+        its age: it is taken once two polls in a row saw the same size and time
+        (``remember``: this scan is a poll's, and counts as the first look).
+        """
         folder = self.source.path
-        ready = []
+        ready: list[Path] = []
+        waiting: list[tuple[str, str]] = []
+        future: dict[Path, tuple[int, float]] = {}
         for path in sorted(folder.glob(self.source.glob)):
             rel = path.relative_to(folder).parts
             if rel[0] in (PROCESSED, REJECTED) or any(part.startswith(".") for part in rel):
                 continue
-            if path.name.endswith(IN_PROGRESS_SUFFIXES) or path.name.endswith(WHY_SUFFIX):
+            name = str(path.relative_to(folder))
+            if path.name.endswith(WHY_SUFFIX):
+                continue
+            if path.name.endswith(IN_PROGRESS_SUFFIXES):
+                waiting.append((name, "upload in progress (waits until renamed)"))
                 continue
             try:
-                if not path.is_file():
+                if path.is_dir():
+                    waiting.append((name, "a folder, not a file: left alone"))
                     continue
-                mtime = path.stat().st_mtime
-            except OSError:
+                if not path.is_file():
+                    waiting.append((name, "not a regular file: left alone"))
+                    continue
+                stat = path.stat()
+            except OSError as exc:
+                waiting.append((name, f"cannot be read: {exc.strerror or exc}"))
                 continue  # gone or unreadable since the listing; next poll will tell
-            age_s = now.timestamp() - mtime
+            age_s = now.timestamp() - stat.st_mtime
             if age_s < 0:  # a simulated clock behind the file: judge by the wall clock
-                age_s = self.wall_clock() - mtime
-            if age_s >= self.source.settle:
+                age_s = self.wall_clock() - stat.st_mtime
+            if age_s < 0:
+                seen = (stat.st_size, stat.st_mtime)
+                future[path] = seen
+                if remember and self._future.get(path) == seen:
+                    ready.append(path)
+                else:
+                    waiting.append((name, f"modified {-age_s:.0f} s in the future: taken when "
+                                    "two polls running find it unchanged"))  # fmt: skip
+            elif age_s >= self.source.settle:
                 ready.append(path)
-        return ready
+            else:
+                waiting.append((name, f"changed {age_s:.0f} s ago: waits {self.source.settle:g} s"))
+        if remember:
+            self._future = future
+        return ready, waiting
 
     def poll(self, now: datetime) -> PollResult:
         result = PollResult(source_id=self.id, stored=True)

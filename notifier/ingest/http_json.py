@@ -10,8 +10,10 @@ passes ``max_bytes``.
 Every error from requests, urllib3 or json is translated here into
 :class:`~notifier.core.errors.SourceUnavailable` with a reason a person can act on, and a poll
 turns that into a failed :class:`~notifier.ingest.base.PollResult`; nothing from the
-libraries underneath leaks. Query strings and credentials are cut from URLs in messages,
-since they may carry keys.
+libraries underneath leaks. A URL in a message keeps its path and plain parameters (so an
+error says which site a request was for) but not its credentials or key-like parameters
+(:func:`notifier.core.redact.redact_url`). A read timeout is reported as one, whether it
+comes while waiting for the answer or half-way through the body.
 
 Mapping records to the canonical table (config keys of ``HttpJsonSource``):
 
@@ -45,6 +47,7 @@ from notifier.core.columns import ALTERNATIVES, INPUT_COLUMNS, UNITS, missing_co
 from notifier.core.config import FieldSpec
 from notifier.core.errors import SourceUnavailable
 from notifier.core.observations import normalize
+from notifier.core.redact import redact, redact_url
 from notifier.ingest.base import PollResult
 
 if TYPE_CHECKING:
@@ -55,15 +58,41 @@ __all__ = ["HttpJsonFeed", "fetch_json", "records_at", "safe_url"]
 _CHUNK_BYTES = 64 * 1024
 _MISSING = object()
 _ERRNO = re.compile(r"\[Errno -?\d+\] [^'\")]+")
+# urllib3's pool and object reprs, which say nothing a person can act on
+_POOL = re.compile(r"\w*ConnectionPool\([^)]*\):\s*|<[\w.]+ object at 0x[0-9a-f]+>:?\s*")
 
 
 def safe_url(url: str) -> str:
-    """The URL without credentials or query string, fit for logs and health tables."""
+    """The URL without user name, password, fragment or key-like query values; the path
+    and plain parameters (``site=quay``) stay. Fit for logs and health tables.
+
+    >>> safe_url("https://u:pw@feed.invalid:8443/points?site=zz-quay&key=abc#top")
+    'https://feed.invalid:8443/points?site=zz-quay&key=***'
+    """
     parts = urlsplit(url)
     host = parts.hostname or ""
     if parts.port:
         host = f"{host}:{parts.port}"
-    return urlunsplit((parts.scheme, host, parts.path, "…" if parts.query else "", ""))
+    return redact_url(urlunsplit((parts.scheme, host, parts.path, parts.query, "")))
+
+
+def _read_timed_out(exc: BaseException) -> bool:
+    """True when urllib3's read timeout lies somewhere under ``exc``: with retries mounted
+    (``read=0``), or in the middle of a body, requests hands it on as a ConnectionError."""
+    from urllib3.exceptions import ReadTimeoutError
+
+    seen: set[int] = set()
+    todo: list[BaseException] = [exc]
+    while todo:
+        node = todo.pop()
+        if id(node) in seen:
+            continue
+        seen.add(id(node))
+        if isinstance(node, ReadTimeoutError | requests.exceptions.ReadTimeout):
+            return True
+        inner = [getattr(node, "reason", None), node.__cause__, node.__context__, *node.args]
+        todo.extend(i for i in inner if isinstance(i, BaseException))
+    return False
 
 
 def _connection_reason(exc: BaseException) -> str:
@@ -71,6 +100,10 @@ def _connection_reason(exc: BaseException) -> str:
     found = _ERRNO.search(str(exc))
     if found:
         return found.group(0).strip()
+    return redact(_POOL.sub("", _innermost(exc))).strip()
+
+
+def _innermost(exc: BaseException) -> str:
     node: BaseException = exc
     for _ in range(5):  # requests wraps urllib3, which wraps the socket error
         inner = getattr(node, "reason", None)
@@ -126,9 +159,12 @@ def fetch_json(
     ) as exc:
         raise SourceUnavailable(f"response cut off or garbled: {_connection_reason(exc)}") from exc
     except requests.exceptions.ConnectionError as exc:
+        if _read_timed_out(exc):
+            raise SourceUnavailable(f"no answer within the {read_s:g} s read timeout") from exc
         raise SourceUnavailable(f"cannot connect: {_connection_reason(exc)}") from exc
     except requests.exceptions.RequestException as exc:
-        raise SourceUnavailable(f"request failed: {type(exc).__name__}: {exc}") from exc
+        reason = redact(_POOL.sub("", str(exc)))
+        raise SourceUnavailable(f"request failed: {type(exc).__name__}: {reason}") from exc
     if not body.strip():
         raise SourceUnavailable("empty response (expected JSON)")
     try:
@@ -139,6 +175,8 @@ def fetch_json(
         ) from exc
     except (UnicodeDecodeError, RecursionError) as exc:
         raise SourceUnavailable(f"not usable JSON: {exc}") from exc
+    except ValueError as exc:  # an integer over Python's 4300-digit limit
+        raise SourceUnavailable(f"not usable JSON: {str(exc).split(';')[0]}") from exc
 
 
 def _dig(node: Any, path: str) -> Any:

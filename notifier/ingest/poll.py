@@ -174,8 +174,23 @@ def _when(moment: datetime | None) -> str:
     return moment.astimezone(UTC).strftime("%Y-%m-%d %H:%MZ") if moment else "never"
 
 
-def health_report(store: Store, config: Config) -> str:
-    """A plain-text table: each source's last success, rows, polls and last error.
+def _waiting_files(config: Config, store: Store, now: datetime) -> list[str]:
+    """One line per entry of a file-drop folder that is not taken yet, and why."""
+    from notifier.core.config import FileDropSource
+    from notifier.ingest.filedrop import FileDrop
+
+    sites = {site.id: site for site in config.sites}
+    lines = []
+    for source in config.sources:
+        if isinstance(source, FileDropSource) and source.path.is_dir():
+            for name, why in FileDrop(source, sites=sites, store=store).waiting(now):
+                lines.append(f"  {source.id}: {name}: {why}")
+    return lines
+
+
+def health_report(store: Store, config: Config, now: datetime | None = None) -> str:
+    """A plain-text table: each source's last success, rows, polls and last error; then
+    every file left waiting in a drop folder, with why.
 
     The last error comes last so that a long one does not push the counts around.
     """
@@ -203,4 +218,7 @@ def health_report(store: Store, config: Config) -> str:
     for r in table:
         cells = [r[i].ljust(widths[i]) for i in range(len(widths))]
         lines.append("  ".join([*cells, r[-1]]).rstrip())
+    waiting = _waiting_files(config, store, now or datetime.now(UTC))
+    if waiting:
+        lines += ["", "waiting in file drops:", *waiting]
     return "\n".join(lines)

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 
 from notifier.core.config import Config, Subscriber
 from notifier.core.errors import FogwatchError
+from notifier.core.redact import redact_url
 from notifier.engine.rules import RuleSet
 from notifier.service.access import Access, bot_subscribers, routing_mutes
 from notifier.service.access import bot_subscriber_id as bot_subscriber_id  # (re-exported)
@@ -89,6 +90,10 @@ class Service:
         self.session = session
         self.channel_kwargs = dict(channel_kwargs or {})
         self._fixed_sources = sources
+        # built once and kept until a reload or stop: one HTTP session (one connection
+        # pool) per service, not a new one on every poll
+        self._sources: list[ObservationSource] | None = None
+        self._own_session: Any = None
         self.rng = rng or random.Random()
         self._mtimes = self._file_mtimes()
         # The hold windows look 10, 20 … minutes back: times the previous cycles already
@@ -149,8 +154,8 @@ class Service:
                 "store.url changed in %s (%s → %s); the running store stays in use: "
                 "restart fogwatch to use the new one",
                 self.config_path,
-                _shown_url(self._store_url),
-                _shown_url(loaded.config.store_url),
+                redact_url(self._store_url),
+                redact_url(loaded.config.store_url),
             )
             running = loaded.config.store.model_copy(update={"url": self._store_url})
             loaded = Loaded(
@@ -160,6 +165,7 @@ class Service:
             self.loaded = loaded
             self._features.clear()
             self._window = None  # the sites or the window's length may have changed
+            self._drop_sources()  # built again from the new config, with a fresh session
             self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
             self._mtimes = self._file_mtimes()
         return True, "reloaded"
@@ -167,14 +173,33 @@ class Service:
     # -- the cycle ---------------------------------------------------------------------
 
     def poll(self, now: datetime, source_ids: Sequence[str] | None = None) -> list[PollResult]:
-        from notifier.ingest.poll import build_sources, poll_sources
+        from notifier.ingest.poll import poll_sources
 
-        sources = self._fixed_sources
-        if sources is None:
-            sources = build_sources(self.config, self.store, session=self.session)
+        sources = self._built_sources()
         if source_ids is not None:
             sources = [s for s in sources if s.id in source_ids]
         return poll_sources(sources, self.store, now)
+
+    def _built_sources(self) -> Sequence[ObservationSource]:
+        if self._fixed_sources is not None:
+            return self._fixed_sources
+        if self._sources is None:
+            from notifier.ingest.poll import build_sources
+
+            session = self.session
+            if session is None and any(s.type == "http_json" for s in self.config.sources):
+                import requests
+
+                session = self._own_session = requests.Session()
+            self._sources = build_sources(self.config, self.store, session=session)
+        return self._sources
+
+    def _drop_sources(self) -> None:
+        """Forget the built sources and close the session made for them (reload, stop)."""
+        self._sources = None
+        if self._own_session is not None:
+            self._own_session.close()
+            self._own_session = None
 
     def poll_and_assess(
         self, now: datetime, source_ids: Sequence[str] | None = None
@@ -229,8 +254,8 @@ class Service:
         added = self.outbox.commit_cycle(
             previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
         )
-        for ev in events:
-            log.info("%s %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
+        for ev in events:  # at INFO: shown by `fogwatch run` without -v
+            log.info("alert %s: %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
         return CycleReport(now, assessments, events, added, polls)
 
     def _charts(
@@ -353,21 +378,10 @@ class Service:
     def close(self) -> None:
         self._stop.set()
         with self._lock:
+            self._drop_sources()
             self.store.close()
 
 
-def _shown_url(url: str) -> str:
-    """A store URL fit for a log line: its password, if any, replaced by ``***``."""
-    from urllib.parse import urlsplit, urlunsplit
-
-    try:
-        parts = urlsplit(url)
-        if parts.password is None:
-            return url
-        host = parts.netloc.rsplit("@", 1)[1]
-        return urlunsplit(parts._replace(netloc=f"{parts.username or ''}:***@{host}"))
-    except ValueError:
-        return "(a URL that cannot be shown)"
 
 
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:

@@ -50,7 +50,12 @@ def _guarded(name: str, fn: Callable[[], Any]) -> Callable[[], None]:
 def build_scheduler(
     service: Service, scheduler: BaseScheduler | None = None, clock: Callable[[], datetime] = _now
 ) -> BaseScheduler:
-    """Add every job for ``service`` to ``scheduler`` (a BlockingScheduler by default)."""
+    """Add every job for ``service`` to ``scheduler`` (a BlockingScheduler by default).
+
+    Called again on a reload: a job whose trigger is unchanged keeps its next run time
+    (only its function is replaced), a changed one is replaced, a job no longer
+    configured is removed.
+    """
     from apscheduler.schedulers.blocking import BlockingScheduler
     from apscheduler.triggers.cron import CronTrigger
     from apscheduler.triggers.interval import IntervalTrigger
@@ -63,8 +68,27 @@ def build_scheduler(
         "misfire_grace_time": int(config.schedule.misfire_grace),
     }
 
+    existing = {job.id: job for job in sched.get_jobs()}
+    wanted: set[str] = set()
+
     def add(job_id: str, fn: Callable[[], Any], trigger: Any, **kwargs: Any) -> None:
-        sched.add_job(_guarded(job_id, fn), trigger, id=job_id, name=job_id, **defaults, **kwargs)
+        wanted.add(job_id)
+        old = existing.get(job_id)
+        if old is not None and _same_trigger(old.trigger, trigger):
+            # a reload: the job keeps its schedule (restarting the timer on every reload
+            # would starve a job whose interval is longer than the time between reloads)
+            old.modify(func=_guarded(job_id, fn), **defaults)
+            return
+        if old is not None:
+            sched.remove_job(job_id)  # (a scheduler not yet started keeps duplicates)
+        sched.add_job(
+            _guarded(job_id, fn),
+            trigger,
+            id=job_id,
+            name=job_id,
+            **defaults,
+            **kwargs,
+        )
 
     for source in config.sources:
 
@@ -118,7 +142,18 @@ def build_scheduler(
         lambda: _reload_if_changed(service, sched, clock),
         IntervalTrigger(seconds=CONFIG_WATCH_S),
     )
+    for job_id in set(existing) - wanted:  # a source or a time zone no longer configured
+        sched.remove_job(job_id)
     return sched
+
+
+def _same_trigger(old: Any, new: Any) -> bool:
+    """The same kind, interval or fields, and zone: a schedule a reload may keep."""
+    return (
+        type(old) is type(new)
+        and str(old) == str(new)
+        and str(getattr(old, "timezone", "")) == str(getattr(new, "timezone", ""))
+    )
 
 
 def _reload_if_changed(
@@ -135,9 +170,7 @@ def reload(service: Service, sched: BaseScheduler, clock: Callable[[], datetime]
         if not ok:
             log.error("reload failed, keeping the running config: %s", message)
             return False
-        for job in list(sched.get_jobs()):
-            job.remove()
-        build_scheduler(service, sched, clock)
+        build_scheduler(service, sched, clock)  # unchanged jobs keep their next run
     log.warning("reloaded %s", service.config.path)
     return True
 

@@ -22,6 +22,7 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
+from notifier.core.redact import redact
 from notifier.core.timefmt import iso_z, parse_iso
 from notifier.engine.alerts import AlertState, Event, StateKey
 from notifier.storage.deliveries import Delivery, DeliveryRow
@@ -320,7 +321,8 @@ class Outbox:
         keys = list(keys)
         if not keys:
             return
-        values: dict[str, Any] = {"status": status, "last_error": error}
+        # a channel's error may carry a URL's key or a value from the environment
+        values: dict[str, Any] = {"status": status, "last_error": error and redact(error)}
         values.update(claimed_until=None, claimed_by=None)  # marked: no longer anyone's
         if status == "sent":
             values["sent_at"] = iso_z(now)

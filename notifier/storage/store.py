@@ -22,6 +22,7 @@ from sqlalchemy.pool import StaticPool
 
 from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS, text_columns_as_objects
 from notifier.core.errors import StoreError
+from notifier.core.redact import redact, redact_url
 from notifier.core.timefmt import iso_z, parse_iso
 from notifier.storage.connect import make_engine, sqlite_events
 from notifier.storage.migrations import (
@@ -70,7 +71,8 @@ class Store:
                 self.engine.dispose()
                 raise
         except sa.exc.SQLAlchemyError as exc:
-            raise StoreError(f"cannot open store {url}: {exc}") from exc
+            # the URL may carry the database password, and the driver's text may repeat it
+            raise StoreError(redact(f"cannot open store {redact_url(url)}: {exc}")) from exc
 
     @classmethod
     def memory(cls) -> Store:
@@ -356,7 +358,7 @@ class Store:
             if ok:
                 values["last_success"] = when
             if error:
-                values["last_error"] = error
+                values["last_error"] = redact(error)
                 values["last_error_at"] = when
             c.execute(source_health.update().where(h.source_id == source_id).values(**values))
 

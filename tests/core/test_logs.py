@@ -142,10 +142,35 @@ def test_setup_logging_leaves_a_configured_root_alone():
 def test_the_fogwatch_command_sets_up_logging_with_its_v_count(monkeypatch, tmp_path, capsys):
     from notifier.cli import main as cli
 
-    seen: list[int] = []
-    monkeypatch.setattr(cli, "setup_logging", seen.append)
+    seen: list[tuple[int, bool]] = []
+    monkeypatch.setattr(cli, "setup_logging", lambda v, service: seen.append((v, service)))
     missing = str(tmp_path / "missing.yaml")
-    for argv in (["check", missing], ["-v", "check", missing], ["-vv", "check", missing]):
+    for argv in (["check", missing], ["-v", "check", missing], ["-vv", "run", missing]):
         cli.main(argv)  # fails on the missing file, after logging is set up
     capsys.readouterr()
-    assert seen == [0, 1, 2]
+    assert seen == [(0, False), (1, False), (2, True)]
+
+
+def test_the_service_logs_alerts_by_default_and_keeps_scheduler_chatter_out_of_dash_v():
+    # regression (issue 16): raised and cleared alerts were invisible at the default
+    # level, and with -v nine lines in ten were APScheduler's runs of the config watch
+    scheduler_log = logging.getLogger("apscheduler.executors.default")
+    for verbosity, chatter_shown in [(0, False), (1, False), (2, True)]:
+        out = io.StringIO()
+        with bare_root():
+            setup_logging(verbosity, stream=out, service=True)
+            logging.getLogger("notifier.service.cycle").info("alert zz-vale: fog raised warning")
+            scheduler_log.info('Running job "watch-config"')
+            scheduler_log.warning("Run time of job was missed")
+        text = out.getvalue()
+        assert "alert zz-vale: fog raised warning" in text, verbosity
+        assert ('Running job "watch-config"' in text) is chatter_shown, verbosity
+        assert "Run time of job was missed" in text  # its warnings always show
+    logging.getLogger("apscheduler").setLevel(logging.NOTSET)
+
+
+def test_other_commands_stay_at_warning_by_default():
+    out = io.StringIO()
+    with bare_root() as root:
+        setup_logging(0, stream=out)
+        assert root.level == logging.WARNING

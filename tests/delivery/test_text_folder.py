@@ -158,3 +158,25 @@ def test_public_api_of_channels():
         channel = build_channel(cfg)
         assert isinstance(channel, Channel) and channel.id == cfg.id
         channel.close()
+
+
+def test_folder_flushes_the_file_and_then_its_folder(tmp_path, monkeypatch):
+    # regression (issue 16, defect 8): the .eml was renamed into place without an fsync
+    # of the folder. Flushing a file does not flush the directory entry naming it; an
+    # fsync of the directory is needed too (POSIX fsync(2), from memory; common practice).
+    import stat
+
+    box = tmp_path / "outbox"
+    writer = FolderWriter(FolderChannel(id="box", type="folder", path=box))
+    synced: list[tuple[str, bool]] = []
+    real_fsync = os.fsync
+
+    def spy(fd: int) -> None:
+        mode = os.fstat(fd).st_mode
+        synced.append(("dir" if stat.S_ISDIR(mode) else "file", (box / "fw-sync.eml").exists()))
+        real_fsync(fd)
+
+    monkeypatch.setattr(os, "fsync", spy)
+    writer.send(message(), delivery(), "fw-sync", None)
+    # the file is flushed before the rename, the folder after it
+    assert synced == [("file", False), ("dir", True)]

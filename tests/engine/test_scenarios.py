@@ -257,6 +257,24 @@ def test_fresh_feed_has_no_data_gap():
     assert "data-gap" not in fired([s], obs, at)[s.id]
 
 
+@pytest.mark.parametrize(
+    ("stale_after_min", "age_min", "gap"),
+    [(30, 45, True), (90, 45, False), (90, 100, True), (120, 100, False)],
+    ids=["short-setting-45min", "default-45min", "default-100min", "long-setting-100min"],
+)
+def test_one_setting_drives_the_stale_flag_and_the_data_gap_rule(stale_after_min, age_min, gap):
+    # regression (issue 16): alerts.stale_after only set the flag while the data-gap rule
+    # tested a fixed 90 min; now both follow the one setting (assess's stale_after_min)
+    s = site("far-field")
+    stop = utc(2026, 10, 14, 20, 0)
+    obs = _night(s).pipe(lambda f: f[f["time"] <= pd.Timestamp(stop)])
+    a = assess(RULES, [s], obs, stop + timedelta(minutes=age_min), stale_after_min=stale_after_min)
+    a = a[0]
+    assert a.stale is gap
+    assert ("data_gap" in a.hazards) is gap
+    assert a.features["data_stale"] == float(gap)
+
+
 def test_site_that_never_reported_is_a_data_gap():
     s = site("silent")
     at = utc(2026, 10, 14, 21, 0)

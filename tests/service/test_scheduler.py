@@ -290,3 +290,38 @@ def test_a_changed_store_url_keeps_the_running_store_and_says_a_restart_is_neede
     with caplog.at_level(logging.WARNING):
         assert service.reload() == (True, "reloaded")
     assert "store.url" not in caplog.text
+
+
+def test_a_reload_keeps_the_schedule_of_every_unchanged_job(wide: Scene, sched):
+    # regression (issue 16): each reload removed and re-added every job, restarting its
+    # interval timer, so with reloads every 40 s a 60 s job never ran. APScheduler computes
+    # a job's next run when the (here paused) scheduler starts; a kept job keeps it.
+    service = wide.service()
+    build_scheduler(service, sched)
+    sched.start(paused=True)
+    before = {job.id: job.next_run_time for job in sched.get_jobs()}
+    text = wide.config_path.read_text().replace("deliver_every: 30s", "deliver_every: 45s")
+    wide.config_path.write_text(text, encoding="utf-8")
+    time.sleep(0.01)  # a rebuilt job would be due measurably later
+    assert reload(service, sched, lambda: FOG_FROM) is True
+    after = {job.id: job.next_run_time for job in sched.get_jobs()}
+    assert set(after) == set(before)
+    for job_id in ("health", "housekeeping", "assess", "watch-config", "poll:loggers"):
+        assert after[job_id] == before[job_id], job_id
+    assert after["outlook:Europe/London"] == before["outlook:Europe/London"]
+    # the changed one runs on its new interval, counted from the reload
+    assert jobs(sched)["deliver"].trigger.interval == timedelta(seconds=45)
+    assert after["deliver"] > before["deliver"]
+
+
+def test_a_reload_drops_the_jobs_of_a_source_no_longer_configured(wide: Scene, sched):
+    service = wide.service()
+    build_scheduler(service, sched)
+    sched.start(paused=True)
+    text = wide.config_path.read_text()
+    start = text.index("sources:\n")
+    end = text.index("channels:\n")
+    wide.config_path.write_text(text[:start] + text[end:], encoding="utf-8")
+    assert reload(service, sched, lambda: FOG_FROM) is True
+    assert "poll:loggers" not in jobs(sched)
+    assert len(sched.get_jobs()) == 7

@@ -3,6 +3,8 @@
 Each delivery is one file named by its idempotency key, written to a temporary file in
 the same folder, flushed to disk and renamed into place (``os.replace``), so a reader
 never sees half a message and a resend overwrites the same file instead of adding one.
+The folder itself is then flushed too (``fsync`` of the directory): the rename lives in
+the folder's entry, and without it a power cut could lose a message the store calls sent.
 """
 
 from __future__ import annotations
@@ -25,7 +27,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.delivery.messages import Message
     from notifier.storage.deliveries import Delivery
 
-__all__ = ["DEFAULT_SENDER", "FolderWriter", "write_atomic"]
+__all__ = ["DEFAULT_SENDER", "FolderWriter", "fsync_folder", "write_atomic"]
 
 DEFAULT_SENDER = "fogwatch <fogwatch@localhost.localdomain>"
 # errors a person must fix (a retry cannot): the rest (disk full, I/O) may pass
@@ -57,6 +59,22 @@ def write_atomic(path: Path, data: bytes) -> None:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         raise
+    fsync_folder(path.parent)
+
+
+def fsync_folder(folder: Path) -> None:
+    """Flush a folder's entries (a rename into it) to disk, where the system allows it."""
+    try:
+        fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    except OSError:
+        return  # a system that cannot open folders (Windows): nothing more to do
+    try:
+        os.fsync(fd)
+    except OSError as exc:
+        if exc.errno not in (errno.EINVAL, errno.ENOTSUP, errno.EBADF):
+            raise
+    finally:
+        os.close(fd)
 
 
 class FolderWriter(BaseChannel):
