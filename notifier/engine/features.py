@@ -319,6 +319,8 @@ def _features_at(
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }
+    # fog seen now is fog now: its time to fog is 0, whatever the projection says
+    found["hours_to_fog"] = np.where(found["observed_fog"] == 1.0, 0.0, found["hours_to_fog"])
     # in the order of FEATURES (what a row and the JSON output list them in)
     values = {name: np.asarray(found[name], dtype=float) for name in FEATURES}
     table = FeatureTable(

@@ -10,16 +10,23 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
 - **Up at once.** When the assessed level rises above the current one: ``raised``
   (none → watch or warning) or ``escalated`` (watch → warning). The hazard
   ``data_gap`` says ``data_gap`` instead of ``raised``.
-- **Down only when it has really eased.** The level used for dropping is the
-  assessment's *sustain* level (each rule re-tested with its clearing margin). Only when
-  that has stayed below the current level *continuously* for ``clearing_time`` (45 min)
-  does the alert drop: ``downgraded`` (warning → watch) or ``cleared`` (the all-clear;
-  it needs the sustain level at none for the whole ``clearing_time``). Any return to the
-  current level restarts the clock, so a value hovering at a threshold never flaps.
-  ``data_gap`` ends with ``data_back`` as soon as fresh data returns.
-- **Reminders.** Still at warning ``reminder_every`` (3 h) after the warning began or
-  after the last reminder: ``reminder``. None is sent while the warning is easing
-  (its clearing clock is running) or while the site's data is stale.
+- **Seen, or sooner: news at once.** Under a warning, a rule of a kind that means the
+  hazard is *seen* (``SIGHT_KINDS``: fog reported, dense fog, freezing fog, frost
+  depositing) firing for the first time in the episode gives ``observed``; an expected
+  time an hour or more earlier than the one last announced gives ``sooner``. Both go
+  through quiet hours like a rise (``Event.urgent``).
+- **Down only to a level that holds, else all clear.** The level used for dropping is
+  the assessment's *sustain* level (each rule re-tested with its clearing margin). Only
+  when that has stayed below the current level *continuously* for ``clearing_time``
+  (45 min) does the alert drop: to ``downgraded`` (warning → watch) only if a watch rule
+  fires now, with that rule's own reasons; otherwise straight to ``cleared`` (the
+  all-clear). Any return to the current level restarts the clock, so a value hovering at
+  a threshold never flaps. ``data_gap`` ends with ``data_back`` as soon as fresh data
+  returns. An ending carries the episode's highest level (``peak_level``), so whoever
+  heard the warning hears its end.
+- **Reminders per site.** Once ``reminder_every`` (3 h) has passed since any news of the
+  site, one ``reminder`` for each of its warnings that is not easing, all in the same
+  cycle (so they go out as one message). None while the site's data is stale.
 - **Cooldown** (``cooldown``, 60 min): a level is not announced again (``raised``,
   ``escalated`` or ``data_gap`` to that level) within ``cooldown`` of the last time it
   was announced for the same site and hazard. A rise that falls inside the cooldown is
@@ -51,12 +58,16 @@ from notifier.engine.rules import HAZARDS
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
-    from notifier.engine.assessment import SiteAssessment
+    from notifier.engine.assessment import HazardAssessment, SiteAssessment
 
 __all__ = ["step"]
 
 
 DATA_GAP = "data_gap"
+SOONER = timedelta(hours=1)  # an expected time this much earlier is news at once
+#: rule kinds that mean the hazard is seen, not forecast (at warning level): fog
+#: reported, dense fog, freezing fog, frost depositing
+SIGHT_KINDS = ("observed", "dense", "freezing-fog", "frost")
 
 
 def _rank(level: str) -> int:
@@ -148,8 +159,26 @@ def _make_event(
         features=_shown_features(sa, rules + state.rules),
         data_age_min=None if age is None else float(age),
         projection_method=sa.projection_method,
+        eta_method=hazard.eta_method if hazard else "",
+        seen_since=_seen_since(state, hazard, now),
+        peak_level=max(state.peak, state.level, key=_rank),
         **extra,
     )
+
+
+def _sighted(hazard: HazardAssessment | None) -> tuple[str, ...]:
+    """The kinds of what is seen now (not forecast) at warning level."""
+    if hazard is None or hazard.level != "warning":
+        return ()
+    return tuple(k for k in hazard.kinds if k in SIGHT_KINDS)
+
+
+def _seen_since(
+    state: AlertState, hazard: HazardAssessment | None, now: datetime
+) -> datetime | None:
+    if hazard is None or hazard.eta_method not in ("observed", "surface-now"):
+        return None
+    return state.seen_since or now
 
 
 def _step_one(
@@ -185,11 +214,51 @@ def _step_one(
 
     clearing = timedelta(seconds=settings.clearing_time)
     if below_since is not None and now - below_since >= clearing:
-        if clear_since is not None and now - clear_since >= clearing:
-            return _end("cleared", state, sa, now, eased_since=clear_since)
-        return _downgrade(state, sa, now, below_since, clear_since)
+        # no false steps: down only to a level whose own rules fire now, with their
+        # reasons; when none does, the all-clear comes directly
+        if hazard is not None and _rank(assessed) < _rank(state.level):
+            return _downgrade(state, sa, now, below_since, clear_since)
+        if hazard is None:
+            return _end("cleared", state, sa, now, eased_since=below_since)
+    state = _with_since(state, below_since, clear_since)
+    if hazard is not None and hazard.level == state.level:
+        return _news(state, hazard, sa, now)
+    return state, []
 
-    return _remind(_with_since(state, below_since, clear_since), sa, now, settings)
+
+def _news(
+    state: AlertState, hazard: HazardAssessment, sa: SiteAssessment, now: datetime
+) -> tuple[AlertState, list[Event]]:
+    """At the same level, what a person needs at once: the hazard now seen (fog formed,
+    turned dense, freezing fog, ice), or its expected time an hour or more sooner."""
+    new_seen = tuple(k for k in _sighted(hazard) if k not in state.seen)
+    if new_seen:
+        event = _make_event(
+            "observed", state, state.level, sa, now, state.episode_start, seen=new_seen
+        )
+    elif (
+        hazard.eta is not None
+        and state.eta is not None
+        and hazard.eta_method not in ("observed", "surface-now")
+        and state.eta - hazard.eta >= SOONER
+    ):
+        event = _make_event("sooner", state, state.level, sa, now, state.episode_start)
+    else:
+        return state, []
+    return _announced(state, event, now), [event]
+
+
+def _announced(state: AlertState, event: Event, now: datetime) -> AlertState:
+    """``state`` once ``event`` (at its own level) has been announced."""
+    return replace(
+        state,
+        last_event_at=now,
+        rules=event.rules or state.rules,
+        reasons=event.reasons or state.reasons,
+        seen=tuple(dict.fromkeys((*state.seen, *event.seen))),
+        seen_since=event.seen_since or state.seen_since,
+        eta=event.eta if event.eta is not None else state.eta,
+    )
 
 
 def _rise(
@@ -201,7 +270,9 @@ def _rise(
     else:
         type_ = "raised" if state.level == "none" else "escalated"
     episode = now if state.level == "none" else state.episode_start
-    event = _make_event(type_, state, assessed, sa, now, episode)
+    hazard = sa.hazards.get(state.hazard)
+    fresh = state if state.level != "none" else replace(state, seen=(), seen_since=None)
+    event = _make_event(type_, fresh, assessed, sa, now, episode, seen=_sighted(hazard))
     raised = dict(state.last_raised)
     raised[assessed] = now
     new = replace(
@@ -216,6 +287,10 @@ def _rise(
         last_raised=tuple(sorted(raised.items(), key=lambda p: _rank(p[0]))),
         rules=event.rules,
         reasons=event.reasons,
+        peak=max(state.peak, assessed, key=_rank) if state.level != "none" else assessed,
+        seen=tuple(dict.fromkeys((*fresh.seen, *event.seen))),
+        seen_since=event.seen_since,
+        eta=event.eta,
     )
     return new, [event]
 
@@ -264,37 +339,49 @@ def _downgrade(
         clear_since=clear_since,
         last_event_at=now,
         last_reminder_at=None,
-        rules=event.rules or state.rules,
-        reasons=event.reasons or state.reasons,
+        rules=event.rules,
+        reasons=event.reasons,
+        eta=event.eta,
     )
     return new, [event]
 
 
-def _remind(
-    state: AlertState, sa: SiteAssessment, now: datetime, settings: AlertSettings
-) -> tuple[AlertState, list[Event]]:
-    """A ``reminder`` when a warning that is not easing has run ``reminder_every``."""
+def _remind_site(
+    states: dict[StateKey, AlertState],
+    site_keys: Sequence[StateKey],
+    sa: SiteAssessment,
+    now: datetime,
+    settings: AlertSettings,
+) -> list[Event]:
+    """Reminders per site, not per hazard: once ``reminder_every`` has passed since any
+    news of the site, one ``reminder`` for each of its warnings that is not easing (they
+    go out together as one message). None while the site's data is stale."""
     every = timedelta(seconds=settings.reminder_every)
-    last = state.last_reminder_at or state.since
-    if (
-        state.level == "warning"
-        and state.below_since is None
-        and every > timedelta(0)
-        and last is not None
-        and now - last >= every
-    ):
+    if every <= timedelta(0) or sa.stale:
+        return []
+    mine = [states[k] for k in site_keys if k in states]
+    due = [
+        st
+        for st in mine
+        if st.level == "warning" and st.below_since is None and st.hazard != DATA_GAP
+    ]
+    times = [st.last_event_at for st in mine if st.last_event_at is not None]
+    if not due or (times and now - max(times) < every):
+        return []
+    events = []
+    for state in due:
         event = _make_event(
             "reminder", state, state.level, sa, now, state.episode_start, level_since=state.since
         )
-        new = replace(
+        states[state.key] = replace(
             state,
             last_event_at=now,
             last_reminder_at=now,
             rules=event.rules or state.rules,
             reasons=event.reasons or state.reasons,
         )
-        return new, [event]
-    return state, []
+        events.append(event)
+    return events
 
 
 def _with_since(
@@ -319,6 +406,10 @@ def _ended(state: AlertState, now: datetime) -> AlertState:
         last_reminder_at=None,
         rules=(),
         reasons=(),
+        peak="none",
+        seen=(),
+        seen_since=None,
+        eta=None,
     )
 
 
@@ -358,13 +449,14 @@ def step(
         hazards = by_site.get(site_id, set()) | set(sa.hazards) | set(sa.sustain)
         if not hazards:
             continue  # nothing active, nothing remembered: nothing can happen here
-        for hazard in sorted(hazards, key=_hazard_order):
-            key = (site_id, hazard)
-            state = previous.get(key) or AlertState(site_id=site_id, hazard=hazard)
+        keys = [(site_id, hazard) for hazard in sorted(hazards, key=_hazard_order)]
+        for key in keys:
+            state = previous.get(key) or AlertState(site_id=site_id, hazard=key[1])
             new, found = _step_one(state, sa, now, settings)
             events.extend(found)
-            if _prunable(new, now, settings):
+            states[key] = new
+        events.extend(_remind_site(states, keys, sa, now, settings))
+        for key in keys:
+            if _prunable(states[key], now, settings):
                 states.pop(key, None)
-            else:
-                states[key] = new
     return states, events
