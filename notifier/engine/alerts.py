@@ -45,8 +45,8 @@ EVENT_TYPES = (
     "data_back",
 )
 #: news that goes at once, through quiet hours like a warning (where a subscriber lets
-#: warnings through): the level rose, or the hazard arrived or is coming sooner
-URGENT_TYPES = ("raised", "escalated", "observed", "sooner")
+#: warnings through), whatever its level: the hazard is seen, or is coming sooner
+URGENT_TYPES = ("observed", "sooner")
 
 StateKey = tuple[str, str]  # (site id, hazard)
 

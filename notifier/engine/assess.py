@@ -9,6 +9,7 @@ moment a value touches its threshold.
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, timedelta
 from functools import partial
@@ -314,12 +315,20 @@ def _aggregate(
 
 
 def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
+    """Each value once: two rules testing the same value against 0 °C (≤ and <) give
+    one line, the first rule's."""
     out: list[str] = []
+    said: set[str] = set()
     for ev in evals:
         for text in ev[i].reasons():
-            if text not in out:
+            value = _COMPARED.split(text, maxsplit=1)[0]
+            if value not in said:
+                said.add(value)
                 out.append(text)
     return out
+
+
+_COMPARED = re.compile(r" (?:[<>≤≥]|in|is) ")
 
 
 def _explanations(

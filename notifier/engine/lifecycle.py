@@ -25,8 +25,10 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
   returns. An ending carries the episode's highest level (``peak_level``), so whoever
   heard the warning hears its end.
 - **Reminders per site.** Once ``reminder_every`` (3 h) has passed since any news of the
-  site, one ``reminder`` for each of its warnings that is not easing, all in the same
-  cycle (so they go out as one message). None while the site's data is stale.
+  site (of any hazard), one ``reminder`` for each of its warnings that is not easing,
+  all in the same cycle (so they go out as one message); a hazard already seen and
+  announced waits twice as long, as its next news is usually its change (dense,
+  freezing, ended). None while the site's data is stale.
 - **Cooldown** (``cooldown``, 60 min): a level is not announced again (``raised``,
   ``escalated`` or ``data_gap`` to that level) within ``cooldown`` of the last time it
   was announced for the same site and hazard. A rise that falls inside the cooldown is
@@ -68,6 +70,8 @@ SOONER = timedelta(hours=1)  # an expected time this much earlier is news at onc
 #: rule kinds that mean the hazard is seen, not forecast (at warning level): fog
 #: reported, dense fog, freezing fog, frost depositing
 SIGHT_KINDS = ("observed", "dense", "freezing-fog", "frost")
+#: the night's clock: an ended test of these is told as the night being over
+SUN_FEATURES = frozenset({"is_night", "hours_to_sunrise", "hours_since_sunset"})
 
 
 def _rank(level: str) -> int:
@@ -92,27 +96,35 @@ def _shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, fl
 
 
 def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
-    """What is no longer true: each test of the ended rules that does not hold now."""
+    """What is no longer true: the tests of the ended rules that do not hold now, one
+    line per value (the rules of what was seen first: "visibility now 9000 m" says more
+    than a forecast's margin), leaving out whether a value is reported at all."""
     lines: list[str] = []
     unknown: list[str] = []
-    for result in results_where(sa, lambda rule: rule.id in state.rules):
+    said: set[str] = set()
+    ended = results_where(sa, lambda rule: rule.id in state.rules)
+    for result in sorted(ended, key=lambda r: r.rule.kind not in SIGHT_KINDS):
         if not result.applies:
             continue
         for outcome in result.outcomes:
-            if outcome.held:
+            name = outcome.test.feature
+            if outcome.held or name in said or name.endswith("_known"):
                 continue
-            spec = FEATURES[outcome.test.feature]
+            said.add(name)
+            spec = FEATURES[name]
             if not outcome.known:
-                if f"{spec.label} now unknown" not in unknown:
-                    unknown.append(f"{spec.label} now unknown")
-                continue
-            if outcome.test.op == "is":
-                text = f"{spec.label} now {format_value(outcome.test.feature, outcome.value)}"
+                unknown.append(f"{spec.label} now unknown")
+            elif name in SUN_FEATURES:
+                # "time to sunrise now 22.7 h" says only that the night is over
+                if "the night is over" not in lines:
+                    lines.append("the night is over")
+            elif outcome.test.op == "is":
+                lines.append(f"{spec.label} now {format_value(name, outcome.value)}")
             else:
-                value = format_value(outcome.test.feature, outcome.value)
-                text = f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
-            if text not in lines:
-                lines.append(text)
+                value = format_value(name, outcome.value)
+                lines.append(
+                    f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
+                )
     lines += unknown
     if not lines:
         lines.append(f"no {state.hazard.replace('_', ' ')} rule at {state.level} holds now")
@@ -233,8 +245,15 @@ def _news(
     turned dense, freezing fog, ice), or its expected time an hour or more sooner."""
     new_seen = tuple(k for k in _sighted(hazard) if k not in state.seen)
     if new_seen:
+        # "since" is when this newly seen thing appeared, not the first sighting
         event = _make_event(
-            "observed", state, state.level, sa, now, state.episode_start, seen=new_seen
+            "observed",
+            replace(state, seen_since=now),
+            state.level,
+            sa,
+            now,
+            state.episode_start,
+            seen=new_seen,
         )
     elif (
         hazard.eta is not None
@@ -360,13 +379,16 @@ def _remind_site(
     if every <= timedelta(0) or sa.stale:
         return []
     mine = [states[k] for k in site_keys if k in states]
+    times = [st.last_event_at for st in mine if st.last_event_at is not None]
+    quiet = now - max(times) if times else None
     due = [
         st
         for st in mine
         if st.level == "warning" and st.below_since is None and st.hazard != DATA_GAP
     ]
-    times = [st.last_event_at for st in mine if st.last_event_at is not None]
-    if not due or (times and now - max(times) < every):
+    # once seen, the next news is usually its change (dense, freezing, ended): a hazard
+    # seen and announced is reminded of half as often; when one is due, all go together
+    if not any(quiet is None or quiet >= (every * 2 if st.seen else every) for st in due):
         return []
     events = []
     for state in due:
@@ -450,11 +472,18 @@ def step(
         if not hazards:
             continue  # nothing active, nothing remembered: nothing can happen here
         keys = [(site_id, hazard) for hazard in sorted(hazards, key=_hazard_order)]
+        told = False
         for key in keys:
             state = previous.get(key) or AlertState(site_id=site_id, hazard=key[1])
             new, found = _step_one(state, sa, now, settings)
             events.extend(found)
             states[key] = new
+            told = told or bool(found)
+        if told:  # news of one hazard is news of the site: the reminder clocks restart
+            for key in keys:
+                st = states[key]
+                if st.level != "none" and st.last_event_at != now:
+                    states[key] = replace(st, last_event_at=now)
         events.extend(_remind_site(states, keys, sa, now, settings))
         for key in keys:
             if _prunable(states[key], now, settings):

@@ -267,10 +267,13 @@ def test_simulated_night_gives_one_watch_one_warning_fog_seen_and_one_all_clear(
         ("observed", "warning", ("dense",)),  # and turns dense
         ("cleared", "none", ()),
     ]
-    # a reminder only 3 h after the site's last news of any kind
+    # a reminder only 3 h after the site's last news of any kind while the fog is still
+    # to come; 6 h once it has been seen
     reminders = [e for e in events if e.type == "reminder"]
-    before = {r.id: max(e.time for e in events if e.time < r.time) for r in reminders}
-    assert reminders and all(r.time - before[r.id] == timedelta(hours=3) for r in reminders)
+    quiet = [r.time - max(e.time for e in events if e.time < r.time) for r in reminders]
+    seen_by = [any(e.seen for e in events if e.time < r.time) for r in reminders]
+    assert seen_by == [False, True]
+    assert quiet == [timedelta(hours=3), timedelta(hours=6)]
     cleared = events[-1]
     assert cleared.previous_level == "warning" and cleared.changes
     assert cleared.time.astimezone(ZoneInfo(s.timezone)).time() >= time(9, 30)
