@@ -121,7 +121,7 @@ def test_smtp_refusing_for_a_while_is_retried_with_backoff_then_sent_once(
     assert msg["Message-ID"] == f"<{d.key}@example.test>"
     assert msg["X-Fogwatch-Delivery"] == d.key
     assert msg["X-Fogwatch-Event"] == ev.id
-    assert msg["Subject"] == "Fog WARNING · Quay Two · 20:00 GMT"
+    assert msg["Subject"] == "Fog now a warning · Quay Two · 20:00 GMT"
     body = msg.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
     assert " ".join(CAUTION.split()) in " ".join(body.split())
 
@@ -231,7 +231,7 @@ def test_webhook_500s_are_retried_then_delivered_once(webhook_server, make_servi
     assert all(r.status == "sent" and r.attempts == 2 for r in service.outbox.deliveries())
     body = hook.accepted[0]["body"]
     assert body["recipient"] == "ops-room" and body["delivery"] == got[0]
-    assert body["headline"].startswith("Fog WATCH · Quay Two")
+    assert body["headline"].startswith("Fog watch · Quay Two")
     assert body["caution"] == CAUTION
 
 
@@ -284,7 +284,7 @@ def test_held_watch_news_goes_as_one_morning_summary_per_subscriber(
     # inside quiet hours only the warning went to night-desk; yard-lead's quiet
     # hours began at 23:00, so it had the first watch at once
     assert [parse(m.data)["Subject"] for m in inbox.messages] == [
-        "Fog WARNING · Quay Two · 02:00 GMT"
+        "Fog now a warning · Quay Two · 02:00 GMT"
     ]
     assert [a["body"]["id"] for a in hook.accepted] == [watch_quay.id, warning.id]
 
