@@ -298,3 +298,28 @@ def test_each_reader_gets_at_most_six_messages_and_every_piece_of_news(demo, rea
     ]
     assert {e.type for e in expected} >= {"escalated", "observed", "cleared"}
     assert [e.type for e in expected if e.id not in sent] == []
+
+
+def test_the_words_a_reader_gets(demo):
+    result, _ = demo
+    out = result["out"]
+    texts = [
+        " ".join(
+            email.message_from_bytes(p.read_bytes(), policy=policy.default)
+            .get_body(preferencelist=("plain",))
+            .get_content()
+            .split()
+        )
+        for p in (out / "mail").glob("*.eml")
+    ]
+    texts += [json.loads(p.read_text())["body"]["text"] for p in (out / "webhook").glob("*.json")]
+    assert len(texts) >= 12
+    for text in texts:
+        assert "?" not in text  # an unknown number leaves its clause out
+        assert "Type: radiation" not in text and "above dew point -" not in text
+        assert "time to sunrise now" not in text  # an all-clear says the night is over
+        assert "not an official forecast" in " ".join(text.split())
+    flat = " ".join(texts)
+    # kinds in plain words, and how each arrival time was worked out or that it is now
+    assert "clear-sky cooling fog" in flat and "sea fog" in flat
+    assert "here now, since" in flat
