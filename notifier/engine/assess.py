@@ -53,6 +53,7 @@ ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
 OBSERVED_KINDS = frozenset({"observed", "dense"})
 SEA_KINDS = frozenset({"advection"})
 COOLING_KINDS = frozenset({"radiation", "valley"})
+SEEN_FIRST = frozenset({"observed", "dense", "freezing-fog", "frost"})
 #: how an expected time was worked out: observed (now), cooling-curve (tonight's
 #: cooling meets the dew point), sea-fog (onshore air closing on saturation over colder
 #: water), surface-now (a surface at or below 0 °C and the frost point), surface-cooling
@@ -296,6 +297,8 @@ def _aggregate(
         lead = fired_evals[0][0].rule
         # the rules at the top level explain the alert; the lower ones are listed only
         top_evals = [ev for ev, rank in fired_evals if rank == top]
+        # what is seen explains the alert before what was forecast
+        top_evals.sort(key=lambda ev: ev.rule.kind not in SEEN_FIRST)
         refs = list(dict.fromkeys(x for ev, _ in fired_evals for x in ev.rule.safety))
         eta, method = _eta(hazard, lead, sa, at)
         sa.hazards[hazard] = HazardAssessment(

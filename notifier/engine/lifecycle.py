@@ -47,15 +47,14 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping, Sequence
 from dataclasses import replace
 from datetime import UTC, datetime, timedelta
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
-from notifier.engine.alerts import AlertState, Event, StateKey, event_id
-from notifier.engine.assessment import level_rank, results_where
-from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
+from notifier.engine.alerts import AlertState, Event, StateKey
+from notifier.engine.assessment import level_rank
+from notifier.engine.event_parts import changes, make_event, sighted
 from notifier.engine.rules import HAZARDS
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -67,130 +66,10 @@ __all__ = ["step"]
 
 DATA_GAP = "data_gap"
 SOONER = timedelta(hours=1)  # an expected time this much earlier is news at once
-#: rule kinds that mean the hazard is seen, not forecast (at warning level): fog
-#: reported, dense fog, freezing fog, frost depositing
-SIGHT_KINDS = ("observed", "dense", "freezing-fog", "frost")
-#: the night's clock: an ended test of these is told as the night being over
-SUN_FEATURES = frozenset({"is_night", "hours_to_sunrise", "hours_since_sunset"})
 
 
 def _rank(level: str) -> int:
     return level_rank(level)
-
-
-def _shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
-    names = list(SHOWN_FEATURES)
-    for result in results_where(sa, lambda rule: rule.id in rule_ids):
-        names.extend(sorted(result.rule.features()))
-    out: dict[str, float] = {}
-    for name in names:
-        value = sa.features.get(name)
-        if name in out or value is None or name == "data_age_min":
-            continue
-        if FEATURES.get(name) is not None and FEATURES[name].kind == "bool":
-            continue
-        value = float(value)
-        if math.isfinite(value):
-            out[name] = value
-    return out
-
-
-def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
-    """What is no longer true: the tests of the ended rules that do not hold now, one
-    line per value (the rules of what was seen first: "visibility now 9000 m" says more
-    than a forecast's margin), leaving out whether a value is reported at all."""
-    lines: list[str] = []
-    unknown: list[str] = []
-    said: set[str] = set()
-    ended = results_where(sa, lambda rule: rule.id in state.rules)
-    for result in sorted(ended, key=lambda r: r.rule.kind not in SIGHT_KINDS):
-        if not result.applies:
-            continue
-        for outcome in result.outcomes:
-            name = outcome.test.feature
-            if outcome.held or name in said or name.endswith("_known"):
-                continue
-            said.add(name)
-            spec = FEATURES[name]
-            if not outcome.known:
-                unknown.append(f"{spec.label} now unknown")
-            elif name in SUN_FEATURES:
-                # "time to sunrise now 22.7 h" says only that the night is over
-                if "the night is over" not in lines:
-                    lines.append("the night is over")
-            elif outcome.test.op == "is":
-                lines.append(f"{spec.label} now {format_value(name, outcome.value)}")
-            else:
-                value = format_value(name, outcome.value)
-                lines.append(
-                    f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
-                )
-    lines += unknown
-    if not lines:
-        lines.append(f"no {state.hazard.replace('_', ' ')} rule at {state.level} holds now")
-    return tuple(lines)
-
-
-def _sustaining_rules(sa: SiteAssessment, hazard: str, level: str) -> tuple[str, ...]:
-    same = results_where(sa, lambda rule: rule.hazard == hazard and rule.level == level)
-    return tuple(r.rule.id for r in same if r.applies and r.sustains)
-
-
-def _make_event(
-    type_: str,
-    state: AlertState,
-    new_level: str,
-    sa: SiteAssessment,
-    now: datetime,
-    episode_start: datetime | None,
-    **extra: Any,
-) -> Event:
-    hazard = sa.hazards.get(state.hazard)
-    if new_level == "none":
-        hazard = None  # an ending: the rules are those of the alert that ended
-        rules = state.rules
-    else:
-        rules = tuple(hazard.rules) if hazard else _sustaining_rules(sa, state.hazard, new_level)
-    age = sa.features.get("data_age_min")
-    return Event(
-        id=event_id(state.site_id, state.hazard, episode_start, type_, new_level, now),
-        type=type_,
-        site_id=state.site_id,
-        hazard=state.hazard,
-        level=new_level,
-        previous_level=state.level,
-        time=now,
-        episode_start=episode_start,
-        kind=hazard.kind if hazard else "",
-        eta=hazard.eta if hazard else None,
-        rules=rules,
-        reasons=tuple(hazard.reasons) if hazard else (),
-        explanations=tuple(hazard.explanations) if hazard else (),
-        safety_refs=tuple(hazard.safety_refs) if hazard else (),
-        previous_reasons=state.reasons,
-        features=_shown_features(sa, rules + state.rules),
-        data_age_min=None if age is None else float(age),
-        projection_method=sa.projection_method,
-        eta_method=hazard.eta_method if hazard else "",
-        seen_since=_seen_since(state, hazard, now),
-        peak_level=max(state.peak, state.level, key=_rank),
-        **extra,
-    )
-
-
-def _sighted(hazard: HazardAssessment | None) -> tuple[str, ...]:
-    """The kinds of what is seen now (not forecast) at warning level."""
-    if hazard is None or hazard.level != "warning":
-        return ()
-    return tuple(k for k in hazard.kinds if k in SIGHT_KINDS)
-
-
-def _seen_since(
-    state: AlertState, hazard: HazardAssessment | None, now: datetime
-) -> datetime | None:
-    if hazard is None or hazard.eta_method not in ("observed", "surface-now"):
-        return None
-    return state.seen_since or now
 
 
 def _step_one(
@@ -243,10 +122,10 @@ def _news(
 ) -> tuple[AlertState, list[Event]]:
     """At the same level, what a person needs at once: the hazard now seen (fog formed,
     turned dense, freezing fog, ice), or its expected time an hour or more sooner."""
-    new_seen = tuple(k for k in _sighted(hazard) if k not in state.seen)
+    new_seen = tuple(k for k in sighted(hazard) if k not in state.seen)
     if new_seen:
         # "since" is when this newly seen thing appeared, not the first sighting
-        event = _make_event(
+        event = make_event(
             "observed",
             replace(state, seen_since=now),
             state.level,
@@ -261,7 +140,7 @@ def _news(
         and hazard.eta_method not in ("observed", "surface-now")
         and state.eta - hazard.eta >= SOONER
     ):
-        event = _make_event("sooner", state, state.level, sa, now, state.episode_start)
+        event = make_event("sooner", state, state.level, sa, now, state.episode_start)
     else:
         return state, []
     return _announced(state, event, now), [event]
@@ -291,7 +170,7 @@ def _rise(
     episode = now if state.level == "none" else state.episode_start
     hazard = sa.hazards.get(state.hazard)
     fresh = state if state.level != "none" else replace(state, seen=(), seen_since=None)
-    event = _make_event(type_, fresh, assessed, sa, now, episode, seen=_sighted(hazard))
+    event = make_event(type_, fresh, assessed, sa, now, episode, seen=sighted(hazard))
     raised = dict(state.last_raised)
     raised[assessed] = now
     new = replace(
@@ -318,14 +197,14 @@ def _end(
     type_: str, state: AlertState, sa: SiteAssessment, now: datetime, eased_since: datetime
 ) -> tuple[AlertState, list[Event]]:
     """``cleared`` or ``data_back``: the alert is over."""
-    event = _make_event(
+    event = make_event(
         type_,
         state,
         "none",
         sa,
         now,
         state.episode_start,
-        changes=_changes(sa, state),
+        changes=changes(sa, state),
         eased_since=eased_since,
     )
     return _ended(state, now), [event]
@@ -340,14 +219,14 @@ def _downgrade(
 ) -> tuple[AlertState, list[Event]]:
     """``downgraded``: warning eased to watch, the only level between warning and none."""
     target = "watch"
-    event = _make_event(
+    event = make_event(
         "downgraded",
         state,
         target,
         sa,
         now,
         state.episode_start,
-        changes=_changes(sa, state),
+        changes=changes(sa, state),
         eased_since=below_since,
     )
     new = replace(
@@ -392,7 +271,7 @@ def _remind_site(
         return []
     events = []
     for state in due:
-        event = _make_event(
+        event = make_event(
             "reminder", state, state.level, sa, now, state.episode_start, level_since=state.since
         )
         states[state.key] = replace(
