@@ -208,7 +208,7 @@ def _main_reason(event: Any) -> str:
     reasons = list(event.changes or event.reasons or ())
     if event.type == "observed":  # what was seen, not the forecast behind the warning
         seen = [r for r in reasons if r.startswith(("visibility", "fog", "surface", "air"))]
-        reasons = seen or reasons
+        return (seen or reasons or [""])[0]
     compared = [
         r
         for r in reasons
