@@ -280,6 +280,7 @@ def _remind_site(
             last_reminder_at=now,
             rules=event.rules or state.rules,
             reasons=event.reasons or state.reasons,
+            eta=event.eta if event.eta is not None else state.eta,  # as announced
         )
         events.append(event)
     return events
