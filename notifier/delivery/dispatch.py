@@ -16,6 +16,11 @@ pending delivery while the service waits (the rest stay due and go next run). An
 unexpected exception from a channel is logged and retried like a transient failure, so
 one bad row or adapter bug never stops the others.
 
+The deliveries of one cycle for one subscriber and one site (fog and icing news of the
+same moment) go as one message (except to a webhook, whose program reads one event per
+body), keyed by the set of their delivery keys (the same set
+gives the same key on a retry); held summary rows go as one morning summary.
+
 What was queued for someone who has since hushed the site (a mute covering it now) or
 stopped following it (no longer among ``subscribers``) is not sent but recorded as
 cancelled, with the reason: a held morning summary must not bring back a site its
@@ -33,11 +38,11 @@ from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
 
-from notifier.core.config import Config
+from notifier.core.config import Config, WebhookChannel
 from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
 from notifier.delivery.channels import build_channel, channel_config_for
 from notifier.delivery.channels.base import RetryLater
-from notifier.delivery.messages import Message, render, render_summary
+from notifier.delivery.messages import Message, render, render_site, render_summary
 from notifier.delivery.routing import Mute, muted
 from notifier.engine.rules import RuleSet
 from notifier.storage.deliveries import DeliveryRow
@@ -183,6 +188,7 @@ def _dispatch_claimed(
     by_channel: dict[str, list[DeliveryRow]] = defaultdict(list)
     for row in due:
         by_channel[row.channel].append(row)
+    moments = outbox.event_moments({r.event_id for r in due if not r.summary})
     for channel_id, rows in by_channel.items():
         try:
             cfg = channel_config_for(config, channel_id)
@@ -198,7 +204,10 @@ def _dispatch_claimed(
         channel = build_channel(cfg, **dict((channel_kwargs or {}).get(channel_id, {})))
         try:
             failing = 0
-            for batch in _batches(rows):
+            # people read one message per site and moment; a webhook's receiver is a
+            # program and gets each event in its own body (docs/schema/)
+            together = {} if isinstance(cfg, WebhookChannel) else moments
+            for batch in _batches(rows, together):
                 if should_stop():
                     return
                 lease.keep_up()
@@ -221,14 +230,21 @@ def _dispatch_claimed(
                 log.exception("closing channel %s failed", channel_id)
 
 
-def _batches(rows: list[DeliveryRow]) -> list[list[DeliveryRow]]:
-    """Single deliveries one by one; held summary rows grouped per subscriber."""
-    singles = [[r] for r in rows if not r.summary]
+def _batches(
+    rows: list[DeliveryRow], moments: Mapping[str, tuple[str, str]]
+) -> list[list[DeliveryRow]]:
+    """One message per subscriber, site and moment: the deliveries of one cycle's
+    events for one site (fog and icing together) go as one; held summary rows are
+    grouped per subscriber."""
+    together: dict[tuple[str, str | None, tuple[str, str]], list[DeliveryRow]] = defaultdict(list)
     held: dict[tuple[str, str | None], list[DeliveryRow]] = defaultdict(list)
     for r in rows:
         if r.summary:
             held[(r.subscriber, r.address)].append(r)
-    return singles + list(held.values())
+        else:
+            moment = moments.get(r.event_id, (r.key, ""))
+            together[(r.subscriber, r.address, moment)].append(r)
+    return list(together.values()) + list(held.values())
 
 
 def _deliver(
@@ -296,6 +312,14 @@ def _compose(
     if len(batch) == 1 and not batch[0].summary:
         event, chart = outbox.event(batch[0].event_id)
         return render(event, config.site(event.site_id), rules, zone), chart, batch[0].key
+    if not batch[0].summary:
+        # one site at one moment: one message, keyed by the set of its deliveries
+        found = [outbox.event(r.event_id) for r in batch]
+        events = sorted((e for e, _ in found), key=lambda e: (e.hazard, e.type))
+        chart = next((c for _, c in found if c), None)
+        digest = hashlib.sha256("|".join(sorted(r.key for r in batch)).encode()).hexdigest()
+        site = config.site(events[0].site_id)
+        return render_site(events, site, rules, zone), chart, f"fw-site-{digest[:32]}"
     items = []
     for row in batch:
         event, _ = outbox.event(row.event_id)

@@ -1,19 +1,24 @@
 """Events → messages a person reads on a phone: subject, plain text, and a JSON body.
 
-The layout is fogwatch's own: a headline, then short blocks under one-word labels, each
-line at most :data:`WIDTH` characters::
+The layout is fogwatch's own: a headline, a line with the date and what is new, then
+short paragraphs that each open with a plain word and a colon, lines at most
+:data:`WIDTH` characters::
 
-    Fog WARNING · Quay Two · 20:20 BST
-    Wed 14 Oct 20:20 BST · up from watch
+    Fog has formed · Quay Two · 00:30 GMT
+    Sat 07 Nov 00:30 GMT · fog now seen, under the warning since 23:30 GMT
 
-    WHEN
-    Fog expected from about 20:40 BST (in 20 min).
+    When: here now, reported since 00:30 GMT.
+    What: sea fog (moist air carried in over colder water).
+
+    Why:
+    • visibility 959 m < 1000 m
     ...
-    WHY · ICE · DATA · DO · NOTE
 
-Every message ends with the same caution (:data:`CAUTION`). An all-clear or a
-downgrade says what changed: the level it ends, since when it has eased, each test
-that no longer holds (value against the threshold the alert needed), and the values now.
+Events of one site at one moment (fog and icing together) go out as one message
+(:func:`render_site`). Every message ends with the same caution (:data:`CAUTION`). An
+all-clear or a downgrade says what changed: the level it ends, since when it has eased,
+each test that no longer holds (value against the threshold the alert needed), and the
+values now. A time that cannot be worked out is left out, never shown as "?".
 """
 
 from __future__ import annotations
@@ -26,6 +31,15 @@ from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.core.timefmt import iso_text, local_time
+from notifier.delivery.wording import (
+    HAZARD_NAMES,
+    KIND_WORDS,
+    SEEN_WORDS,
+    hhmm,
+    lead,
+    status_note,
+    when_text,
+)
 from notifier.engine.catalog import FEATURES, NOW_FEATURES, format_value
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -33,17 +47,25 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.alerts import Event
     from notifier.engine.rules import RuleSet
 
-__all__ = ["CAUTION", "WIDTH", "Message", "headline", "render", "render_summary"]
+__all__ = [
+    "CAUTION",
+    "WIDTH",
+    "Message",
+    "headline",
+    "render",
+    "render_site",
+    "render_summary",
+    "site_headline",
+]
 
 WIDTH = 68
-MESSAGE_SCHEMA = 1
+MESSAGE_SCHEMA = 2  # 2: event types observed and sooner, fields eta_method and seen
 CAUTION = (
     "This is an automated estimate from site data, not an official forecast. "
     "Follow official warnings, the harbour authority, local codes and licensed practice."
 )
 ICING_NEAR_C = 1.0  # "near or below 0 °C": within 1 °C of freezing (common practice)
 
-HAZARD_NAMES = {"fog": "Fog", "icing": "Icing", "data_gap": "Data gap"}
 PROJECTIONS = {
     "forecast": "forecast rows for this site",
     "cooling-fit": "fit to tonight's cooling so far",
@@ -72,7 +94,7 @@ def _wrap(text: str, bullet: bool = False) -> list[str]:
 
 
 def _block(label: str, paragraphs: Sequence[str] = (), bullets: Sequence[str] = ()) -> list[str]:
-    lines = ["", label]
+    lines = ["", f"{label}:"] if label else [""]
     for para in paragraphs:
         lines.extend(_wrap(para))
     for bullet in bullets:
@@ -86,50 +108,10 @@ def _capped(items: Sequence[str], limit: int) -> list[str]:
     return [*items[: limit - 1], f"and {len(items) - limit + 1} more"]
 
 
-def _hhmm(t: datetime | None, zone: str) -> str:
-    return local_time(t, zone)
-
-
-def _in_about(delta_min: float) -> str:
-    minutes = round(delta_min)
-    if minutes < 60:
-        return f"{minutes} min"
-    hours, rest = divmod(minutes, 60)
-    return f"{hours} h {rest:02d} min" if rest else f"{hours} h"
-
-
 def headline(event: Event, site: Site, tz_name: str | None = None) -> str:
-    """One line: hazard, level, site and local time, worded by event type."""
+    """One line: what happened, site and local time, worded by event type."""
     zone = tz_name or site.timezone
-    haz = HAZARD_NAMES.get(event.hazard, event.hazard)
-    name = _one_line(site.name)
-    when = _hhmm(event.time, zone)
-    lead = {
-        "raised": f"{haz} {event.level.upper()}",
-        "escalated": f"{haz} {event.level.upper()}",
-        "reminder": f"{haz} {event.level.upper()} continues",
-        "downgraded": f"{haz} eased to {event.level.upper()}",
-        "cleared": f"All clear: {haz.lower()}",
-        "data_gap": "No fresh data",
-        "data_back": "Data back",
-        "outlook": "Tonight's outlook",
-    }.get(event.type, f"{haz} {event.type}")
-    return f"{lead} · {name} · {when}"
-
-
-def _status_line(event: Event, zone: str) -> str:
-    stamp = local_time(event.time, zone, with_date=True)
-    note = {
-        "raised": "new",
-        "escalated": f"up from {event.previous_level}",
-        "reminder": f"in force since {_hhmm(event.level_since, zone)}",
-        "downgraded": f"down from {event.previous_level}",
-        "cleared": f"{event.hazard} {event.previous_level} has ended",
-        "data_gap": "site cannot be judged",
-        "data_back": "site can be judged again",
-        "outlook": f"now {event.previous_level}",
-    }.get(event.type, event.type)
-    return f"{stamp} · {note}"
+    return f"{lead(event)} · {_one_line(site.name)} · {hhmm(event.time, zone)}"
 
 
 def _value(name: str, value: float) -> str:
@@ -139,30 +121,23 @@ def _value(name: str, value: float) -> str:
 def _when_block(event: Event, zone: str) -> list[str]:
     if event.hazard == "data_gap":
         if event.type == "data_gap":
-            return _block(
-                "WHEN",
-                [
-                    "Now, and until readings return: fog and icing cannot be "
-                    "judged at this site meanwhile."
-                ],
+            return _para(
+                "When",
+                "now, and until readings return: fog and icing cannot be judged at this "
+                "site meanwhile.",
             )
         return []
     if event.level == "none":
         return []
-    haz = HAZARD_NAMES.get(event.hazard, event.hazard)
-    paras = []
-    if event.eta is not None:
-        ahead_min = (event.eta - event.time).total_seconds() / 60.0
-        if ahead_min <= 5:
-            paras.append(f"{haz} conditions now ({event.kind or 'observed'}).")
-        else:
-            at = local_time(event.eta, zone, with_date=ahead_min > 12 * 60)
-            paras.append(f"{haz} expected from about {at} (in {_in_about(ahead_min)}).")
-    else:
-        paras.append("No time projected yet; the conditions below hold now.")
-    if event.kind and event.kind != "observed":
-        paras.append(f"Type: {event.kind}.")
-    return _block("WHEN", paras)
+    lines = _para("When", when_text(event, zone))
+    kind = KIND_WORDS.get(event.kind)
+    if kind and event.kind != "observed":
+        lines += _wrap(f"What: {kind}.")
+    return lines
+
+
+def _para(label: str, text: str) -> list[str]:
+    return ["", *_wrap(f"{label}: {text}")]
 
 
 def _ice_block(event: Event) -> list[str]:
@@ -176,7 +151,7 @@ def _ice_block(event: Event) -> list[str]:
         return []
     said = ", ".join(parts)
     return _block(
-        "ICE",
+        "Ice",
         [
             f"{said[0].upper()}{said[1:]}: at or near freezing. "
             "Surfaces may be icy even where they look only wet."
@@ -190,10 +165,10 @@ def _data_block(event: Event) -> list[str]:
         paras = ["No readings have been received from this site."]
     else:
         paras = [f"Newest reading {round(max(age, 0.0)):d} min old."]
-    if event.projection_method and event.hazard != "data_gap" and event.level != "none":
+    if event.projection_method and event.eta_method in ("cooling-curve", "surface-cooling"):
         method = PROJECTIONS.get(event.projection_method, event.projection_method)
         paras.append(f"Projection: {method}.")
-    return _block("DATA", paras)
+    return _block("Data", paras)
 
 
 def _now_bullets(event: Event) -> list[str]:
@@ -210,41 +185,81 @@ def _notes(event: Event, site: Site, rules: RuleSet) -> list[str]:
 
 
 def _body(event: Event, site: Site, rules: RuleSet, zone: str) -> list[str]:
-    lines = [*_wrap(headline(event, site, zone)), *_wrap(_status_line(event, zone))]
+    lines = [*_wrap(headline(event, site, zone)), *_wrap(status_note(event, zone))]
     if event.type == "outlook":
-        lines += _block("TONIGHT", list(event.explanations))
+        lines += _block("Tonight", list(event.explanations))
         lines += _data_block(event)
-        lines += _block("NOTE", [CAUTION])
+        lines += _block("", [CAUTION])
         return lines
-    lines += _when_block(event, zone)
-    if event.type in ("downgraded", "cleared", "data_back"):
-        since = f" since {_hhmm(event.eased_since, zone)}" if event.eased_since else ""
-        haz = HAZARD_NAMES.get(event.hazard, event.hazard).lower()
-        if event.type == "data_back":
-            lead = "Fresh readings are arriving again."
-        elif event.type == "cleared":
-            lead = f"No {haz} alert level has held{since}."
-        else:
-            lead = f"Below {event.previous_level} level{since}."
-        lines += _block("WHAT CHANGED", [lead], bullets=_capped(event.changes, 6))
-        now = _now_bullets(event)
-        if now:
-            lines += _block("NOW", bullets=now)
-        if event.type == "downgraded" and event.reasons:
-            lines += _block("STILL HOLDS", bullets=event.reasons)
-        if event.previous_reasons:
-            lines += _block("WAS", bullets=_capped(event.previous_reasons, 4))
-    else:
-        lines += _block("WHY", list(event.explanations), bullets=event.reasons)
+    lines += _event_lines(event, zone)
     lines += _ice_block(event)
     lines += _data_block(event)
-    notes = _notes(event, site, rules)
-    if notes:
-        label = "KEEP IN MIND" if event.level == "none" else "DO"
-        lines += _block(label, bullets=notes)
-    lines += _block("NOTE", [CAUTION])
+    lines += _notes_block([event], site, rules)
+    lines += _block("", [CAUTION])
     lines += ["", f"ref {event.id[:12]} · fogwatch"]
     return lines
+
+
+def _event_lines(event: Event, zone: str) -> list[str]:
+    """When, what and why of one event (or, for an ending, what changed)."""
+    lines = _when_block(event, zone)
+    if event.type not in ("downgraded", "cleared", "data_back"):
+        return lines + _block("Why", list(event.explanations), bullets=event.reasons)
+    since = f" since {hhmm(event.eased_since, zone)}" if event.eased_since else ""
+    haz = HAZARD_NAMES.get(event.hazard, event.hazard).lower()
+    if event.type == "data_back":
+        lead = "Fresh readings are arriving again."
+    elif event.type == "cleared":
+        lead = f"No {haz} alert level has held{since}."
+    else:
+        lead = f"Below {event.previous_level} level{since}."
+    lines += _block("What changed", [lead], bullets=_capped(event.changes, 6))
+    now = _now_bullets(event)
+    if now:
+        lines += _block("Now", bullets=now)
+    if event.type == "downgraded" and event.reasons:
+        lines += _block(f"Why it is still a {event.level}", bullets=event.reasons)
+    if event.previous_reasons:
+        lines += _block("Was", bullets=_capped(event.previous_reasons, 4))
+    return lines
+
+
+def _notes_block(events: Sequence[Event], site: Site, rules: RuleSet) -> list[str]:
+    notes: list[str] = []
+    for event in events:
+        notes += [n for n in _notes(event, site, rules) if n not in notes]
+    if not notes:
+        return []
+    ending = all(e.level == "none" for e in events)
+    return _block("Keep in mind" if ending else "What to do", bullets=notes)
+
+
+def _site_body(events: Sequence[Event], site: Site, rules: RuleSet, zone: str) -> list[str]:
+    """Several events of one site at one moment, as one message: each event's own part
+    under its own line, then the data, what to do and the caution once."""
+    first = events[0]
+    lines = [*_wrap(site_headline(events, site, zone))]
+    stamp = local_time(first.time, zone, with_date=True)
+    lines += _wrap(f"{stamp} · {len(events)} updates for this site")
+    for event in events:
+        lines += ["", *_wrap(f"{lead(event)} ({status_note(event, zone).split(' · ', 1)[1]})")]
+        if event.type == "outlook":
+            lines += _block("Tonight", list(event.explanations))
+        else:
+            lines += _event_lines(event, zone)
+    lines += _ice_block(max(events, key=lambda e: len(e.features)))
+    lines += _data_block(first)
+    lines += _notes_block(events, site, rules)
+    lines += _block("", [CAUTION])
+    lines += ["", f"ref {' '.join(e.id[:12] for e in events)} · fogwatch"]
+    return lines
+
+
+def site_headline(events: Sequence[Event], site: Site, tz_name: str | None = None) -> str:
+    """One line for one or more events of a site at one moment."""
+    zone = tz_name or site.timezone
+    leads = "; ".join(dict.fromkeys(lead(e) for e in events))
+    return f"{leads} · {_one_line(site.name)} · {hhmm(events[0].time, zone)}"
 
 
 def _age(age: float | None) -> float | None:
@@ -267,11 +282,38 @@ def _event_json(event: Event, site: Site, head: str, text: str) -> dict[str, Any
         "reasons": list(event.reasons),
         "changes": list(event.changes),
         "eta": iso_text(event.eta),
+        "eta_method": event.eta_method or None,
+        "seen": list(event.seen),
         "time": iso_text(event.time),
         "data_age_min": _age(event.data_age_min),
         "features": {k: round(v, 3) for k, v in event.features.items() if math.isfinite(v)},
         "caution": CAUTION,
     }
+
+
+def render_site(
+    events: Sequence[Event], site: Site, rules: RuleSet, tz_name: str | None = None
+) -> Message:
+    """One message for the events of one site at one moment (fog and icing together)."""
+    if len(events) == 1:
+        return render(events[0], site, rules, tz_name)
+    if not events:
+        raise ValueError("a message needs at least one event")
+    zone = tz_name or site.timezone
+    head = site_headline(events, site, zone)
+    text = "\n".join(_site_body(events, site, rules, zone)) + "\n"
+    body = {
+        "schema": MESSAGE_SCHEMA,
+        "type": "site",
+        "site": site.id,
+        "site_name": site.name,
+        "headline": head,
+        "text": text,
+        "time": iso_text(events[0].time),
+        "events": [_event_json(e, site, headline(e, site, zone), "") for e in events],
+        "caution": CAUTION,
+    }
+    return Message(subject=head, text=text, json=body)
 
 
 def render(event: Event, site: Site, rules: RuleSet, tz_name: str | None = None) -> Message:
@@ -289,13 +331,15 @@ def _summary_line(event: Event, site: Site, zone: str) -> str:
         "escalated": f"{haz} up to {event.level}",
         "reminder": f"{haz} {event.level} continued",
         "downgraded": f"{haz} eased to {event.level}",
-        "cleared": f"{haz} {event.previous_level} ended (all clear)",
+        "cleared": f"{haz} {event.news_level} ended (all clear)",
+        "observed": " and ".join(SEEN_WORDS.get(k, k) for k in event.seen).lower() or "seen",
+        "sooner": f"{haz} expected sooner",
         "data_gap": "no fresh data",
         "data_back": "data back",
     }.get(event.type, event.type)
     first = (event.changes or event.reasons or ("",))[0]
     tail = f": {first}" if first else ""
-    return f"{_hhmm(event.time, zone)} {what}{tail}"
+    return f"{hhmm(event.time, zone)} {what}{tail}"
 
 
 def render_summary(
@@ -315,7 +359,7 @@ def render_summary(
     plural = "s" if count != 1 else ""
     head = (
         f"Overnight: {count} update{plural} for {sites} site{'s' if sites != 1 else ''}"
-        f" · {_hhmm(at, zone)}"
+        f" · {hhmm(at, zone)}"
     )
     lines = [*_wrap(head), *_wrap(local_time(at, zone, with_date=True) + " · held for quiet hours")]
     current = None
@@ -330,8 +374,8 @@ def render_summary(
             if note not in notes:
                 notes.append(note)
     if notes:
-        lines += _block("KEEP IN MIND", bullets=notes)
-    lines += _block("NOTE", [CAUTION])
+        lines += _block("Keep in mind", bullets=notes)
+    lines += _block("", [CAUTION])
     text = "\n".join(lines) + "\n"
     body = {
         "schema": MESSAGE_SCHEMA,

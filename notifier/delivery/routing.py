@@ -4,12 +4,12 @@ A subscriber gets an event when all of these hold:
 
 - the event's site is among ``subscriber.sites`` (ids, ``tag:NAME`` or ``all``);
 - its hazard is among ``subscriber.hazards``;
-- its *news level* reaches ``subscriber.min_level``. The news level is the event's level,
-  except for ``downgraded``, ``cleared`` and ``data_back``, which carry the level they
-  end: whoever got the warning gets its all-clear. Data gaps (``data_gap`` and
-  ``data_back``) go to everyone who subscribes to the ``data_gap`` hazard whatever their
-  ``min_level``: a dead feed means they could miss a warning, and silence must not look
-  like safety;
+- its *news level* reaches ``subscriber.min_level``. The news level is the event's
+  level, except for ``downgraded``, ``cleared`` and ``data_back``, which carry the
+  highest level of the episode they end: whoever got the warning gets its all-clear.
+  Data gaps (``data_gap`` and ``data_back``) go to everyone who subscribes to the
+  ``data_gap`` hazard whatever their ``min_level``: a dead feed means they could miss a
+  warning, and silence must not look like safety;
 - no mute covers it: a :class:`Mute` names a subscriber id (``None``: every subscriber)
   and a site id (``None``: every site) and covers events before ``until``. "Every" is
   ``None``, never a string, so no id can stand for everyone.
@@ -17,8 +17,10 @@ A subscriber gets an event when all of these hold:
 Quiet hours (``"22:00-06:30"``, may cross midnight) are read in the subscriber's time
 zone, else the site's. Watch-level news inside them is held: ``not_before`` is the end
 of the quiet window and ``summary`` is true, so the dispatcher bundles everything held
-for one subscriber into a single morning summary. Warning-level news goes at once unless
-the subscriber set ``warnings_in_quiet_hours: false``, in which case it is held too.
+for one subscriber into a single morning summary. Warning-level news, and news that
+cannot wait (the hazard now seen, its expected time an hour sooner: ``Event.urgent``),
+goes at once unless the subscriber set ``warnings_in_quiet_hours: false``, in which case
+it is held too. A reminder is not news: inside quiet hours it is not sent at all.
 Window ends are computed on the local calendar, so a window across a daylight-saving
 change lasts an hour longer or shorter in UTC, as a person would expect.
 """
@@ -159,7 +161,10 @@ def route(
                 continue
             zone = sub.timezone or site.timezone
             held_until = quiet_until(sub.quiet_window(), zone, event.time)
-            if held_until is not None and news == "warning" and sub.warnings_in_quiet_hours:
+            if held_until is not None and event.type == "reminder":
+                continue  # a reminder is no news: none inside quiet hours, none held
+            urgent = news == "warning" or event.urgent
+            if held_until is not None and urgent and sub.warnings_in_quiet_hours:
                 held_until = None
             out.append(
                 Delivery(

@@ -211,6 +211,9 @@ def _write_drop(folder: Path, frame: pd.DataFrame, name: str) -> None:
 def _main_reason(event: Any) -> str:
     """The most telling reason: a value against its threshold, not a yes/no."""
     reasons = list(event.changes or event.reasons or ())
+    if event.type == "observed":  # what was seen, not the forecast behind the warning
+        seen = [r for r in reasons if r.startswith(("visibility", "fog", "surface", "air"))]
+        return (seen or reasons or [""])[0]
     compared = [
         r
         for r in reasons
@@ -283,11 +286,11 @@ def _play_night(
         step = readings[(readings["time"] > previous) & (readings["time"] <= t)]
         _write_drop(out / "drop", step, f"loggers-{t.astimezone(zone):%m%d-%H%M}.csv")
         previous = t
-        report, _ = service.cycle(t)
-        if t == outlook_at:
+        report = service.poll_and_assess(t)
+        if t == outlook_at:  # with the cycle's own news of a site: one message
             service.outlook(t, [s.id for s in config.sites])
-            service.deliver(t)
             say(f"{t:%a %H:%M}  evening outlook sent for every site")
+        service.deliver(t)
         for ev in report.events:
             events_seen.append(ev)
             site = config.site(ev.site_id)
@@ -312,7 +315,10 @@ def _sent_by(service: Service) -> dict[str, Counter[str]]:
     sent_by: dict[str, Counter[str]] = defaultdict(Counter)
     for row in service.outbox.deliveries():
         event, _ = service.outbox.event(row.event_id)
-        label = f"{event.type} {event.hazard}" if event.type != "outlook" else "outlook"
+        if event.type == "outlook" or event.hazard == "data_gap":
+            label = event.type.replace("_", " ")
+        else:
+            label = f"{event.type} {event.hazard}"
         sent_by[row.subscriber][f"{label} ({row.status})"] += 1
     return sent_by
 

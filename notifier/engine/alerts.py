@@ -20,12 +20,33 @@ from notifier.engine.assessment import level_rank
 if TYPE_CHECKING:  # pragma: no cover
     pass
 
-__all__ = ["AlertState", "EVENT_TYPES", "Event", "STATE_VERSION", "StateKey", "event_id"]
+__all__ = [
+    "AlertState",
+    "EVENT_TYPES",
+    "URGENT_TYPES",
+    "Event",
+    "STATE_VERSION",
+    "StateKey",
+    "event_id",
+]
 
 
 STATE_VERSION = 1
 
-EVENT_TYPES = ("raised", "escalated", "downgraded", "cleared", "reminder", "data_gap", "data_back")
+EVENT_TYPES = (
+    "raised",
+    "escalated",
+    "observed",  # under a warning, the hazard is now seen: fog formed, dense, freezing, ice
+    "sooner",  # the expected time moved earlier by an hour or more
+    "downgraded",
+    "cleared",
+    "reminder",
+    "data_gap",
+    "data_back",
+)
+#: news that goes at once, through quiet hours like a warning (where a subscriber lets
+#: warnings through), whatever its level: the hazard is seen, or is coming sooner
+URGENT_TYPES = ("observed", "sooner")
 
 StateKey = tuple[str, str]  # (site id, hazard)
 
@@ -46,6 +67,10 @@ class AlertState:
     last_raised: tuple[tuple[str, datetime], ...] = ()  # level → last announced (cooldown)
     rules: tuple[str, ...] = ()  # rules behind the current level
     reasons: tuple[str, ...] = ()  # the reasons last announced
+    peak: str = "none"  # the highest level announced in this episode
+    seen: tuple[str, ...] = ()  # kinds seen in this episode (observed, dense, frost …)
+    seen_since: datetime | None = None  # when the hazard was first seen in this episode
+    eta: datetime | None = None  # the expected time last announced
 
     @property
     def key(self) -> StateKey:
@@ -70,6 +95,10 @@ class AlertState:
             "last_raised": {lvl: iso_text(t) for lvl, t in self.last_raised},
             "rules": list(self.rules),
             "reasons": list(self.reasons),
+            "peak": self.peak,
+            "seen": list(self.seen),
+            "seen_since": iso_text(self.seen_since),
+            "eta": iso_text(self.eta),
         }
 
     @classmethod
@@ -94,6 +123,10 @@ class AlertState:
             last_raised=tuple((lvl, t) for lvl, t in raised if t is not None),
             rules=tuple(data.get("rules", ())),
             reasons=tuple(data.get("reasons", ())),
+            peak=data.get("peak") or data["level"],
+            seen=tuple(data.get("seen", ())),
+            seen_since=parse_iso(data.get("seen_since")),
+            eta=parse_iso(data.get("eta")),
         )
 
 
@@ -128,13 +161,24 @@ class Event:
     features: Mapping[str, float] = field(default_factory=dict)
     data_age_min: float | None = None
     projection_method: str = ""
+    eta_method: str = ""  # how ``eta`` was worked out (assess.ETA_METHODS)
+    seen_since: datetime | None = None  # when the hazard was first seen this episode
+    seen: tuple[str, ...] = ()  # for ``observed``: the kinds newly seen
+    peak_level: str = ""  # for endings: the highest level announced in the episode
 
     @property
     def news_level(self) -> str:
-        """The level this news is about: the one it ends, for an ending."""
+        """The level this news is about: for an ending, the highest level the episode
+        announced (whoever was told of a warning hears it has ended)."""
         if self.type in ("downgraded", "cleared", "data_back"):
-            return self.previous_level
+            peak = self.peak_level or self.previous_level
+            return max(peak, self.previous_level, key=level_rank)
         return self.level
+
+    @property
+    def urgent(self) -> bool:
+        """News that goes through quiet hours like a warning."""
+        return self.type in URGENT_TYPES
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-ready form for the outbox (NaN and ±inf become null)."""
@@ -162,6 +206,10 @@ class Event:
             "features": dict(self.features),
             "data_age_min": age if age is not None and math.isfinite(age) else None,
             "projection_method": self.projection_method,
+            "eta_method": self.eta_method,
+            "seen_since": iso_text(self.seen_since),
+            "seen": list(self.seen),
+            "peak_level": self.peak_level,
         }
 
     @classmethod
@@ -191,6 +239,10 @@ class Event:
             features=dict(data.get("features", {})),
             data_age_min=math.inf if age is None else float(age),
             projection_method=data.get("projection_method", ""),
+            eta_method=data.get("eta_method", ""),
+            seen_since=parse_iso(data.get("seen_since")),
+            seen=tuple(data.get("seen", ())),
+            peak_level=data.get("peak_level", ""),
         )
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import re
 from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, timedelta
 from functools import partial
@@ -48,6 +49,17 @@ HOLD_REACH_S = 3600.0
 
 
 ETA_HORIZON_H = 48.0  # beyond this a projected time says nothing
+
+# Which clock a hazard's expected time is read from, by the kind of its leading rule.
+OBSERVED_KINDS = frozenset({"observed", "dense"})
+SEA_KINDS = frozenset({"advection"})
+COOLING_KINDS = frozenset({"radiation", "valley"})
+SEEN_FIRST = frozenset({"observed", "dense", "freezing-fog", "frost"})
+#: how an expected time was worked out: observed (now), cooling-curve (tonight's
+#: cooling meets the dew point), sea-fog (onshore air closing on saturation over colder
+#: water), surface-now (a surface at or below 0 °C and the frost point), surface-cooling
+#: (the surface carried down tonight's cooling curve to them)
+ETA_METHODS = ("observed", "cooling-curve", "sea-fog", "surface-now", "surface-cooling")
 
 
 def assess(
@@ -288,12 +300,17 @@ def _aggregate(
         lead = fired_evals[0][0].rule
         # the rules at the top level explain the alert; the lower ones are listed only
         top_evals = [ev for ev, rank in fired_evals if rank == top]
+        # what is seen explains the alert before what was forecast
+        top_evals.sort(key=lambda ev: ev.rule.kind not in SEEN_FIRST)
         refs = list(dict.fromkeys(x for ev, _ in fired_evals for x in ev.rule.safety))
+        eta, method = _eta(hazard, lead, sa, at)
         sa.hazards[hazard] = HazardAssessment(
             hazard=hazard,
             level=LEVELS[top],
             kind=lead.kind,
-            eta=_eta(hazard, lead, sa.features, at),
+            eta=eta,
+            eta_method=method,
+            kinds=tuple(dict.fromkeys(ev.rule.kind for ev in top_evals)),
             rules=[ev.rule.id for ev, _ in fired_evals],
             reasons=LazyTexts(partial(_reasons, top_evals, i)),
             explanations=LazyTexts(partial(_explanations, top_evals, i, sa.features)),
@@ -304,12 +321,20 @@ def _aggregate(
 
 
 def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
+    """Each value once: two rules testing the same value against 0 °C (≤ and <) give
+    one line, the first rule's."""
     out: list[str] = []
+    said: set[str] = set()
     for ev in evals:
         for text in ev[i].reasons():
-            if text not in out:
+            value = _COMPARED.split(text, maxsplit=1)[0]
+            if value not in said:
+                said.add(value)
                 out.append(text)
     return out
+
+
+_COMPARED = re.compile(r" (?:[<>≤≥]|in|is) ")
 
 
 def _explanations(
@@ -320,13 +345,85 @@ def _explanations(
     return [ev[i].explanation(values) for ev in evals if ev.rule.explain]
 
 
-def _eta(hazard: str, lead: Rule, features: Mapping[str, float], at: datetime) -> datetime | None:
-    """When the hazard is expected: now if observed, else the projected time of fog."""
+def _eta(hazard: str, lead: Rule, sa: SiteAssessment, at: datetime) -> tuple[datetime | None, str]:
+    """When the hazard is expected, and how that was worked out (``ETA_METHODS``).
+
+    Each kind of hazard has its own clock; where it cannot be read, there is no time
+    rather than a wrong one (None, "").
+    """
+    features = sa.features
     if hazard == "data_gap":
-        return None
-    if lead.kind == "observed" or features.get("observed_fog") == 1.0:
-        return at
-    hours = features.get("hours_to_fog", float("nan"))
-    if hours is None or not np.isfinite(hours) or hours > ETA_HORIZON_H:
-        return None
-    return at + timedelta(hours=float(hours))
+        return None, ""
+    if lead.kind in OBSERVED_KINDS or features.get("observed_fog") == 1.0:
+        if hazard == "fog" or features.get("observed_fog") == 1.0:
+            return at, "observed"
+    if hazard == "icing":
+        return _icing_eta(sa, at)
+    if lead.kind in SEA_KINDS:
+        return _sea_fog_eta(features, at)
+    if lead.kind in COOLING_KINDS:
+        return _cooling_eta(sa, at)
+    return None, ""
+
+
+def _cooling_eta(sa: SiteAssessment, at: datetime) -> tuple[datetime | None, str]:
+    """Radiation (and valley) fog: when tonight's fitted cooling curve meets the dew
+    point, before sunrise. Before the curve can be fitted (the evening's first hours) a
+    straight trend would give times far out, so there is no time yet."""
+    hours = sa.features.get("hours_to_fog", math.nan)
+    if hours == 0.0:
+        return at, "cooling-curve"
+    sunrise_h = sa.features.get("hours_to_sunrise", math.nan)
+    if sa.projection is None or not (hours <= sunrise_h):
+        return None, ""
+    return _hours_ahead(at, hours, "cooling-curve")
+
+
+def _hours_ahead(at: datetime, hours: float | None, method: str) -> tuple[datetime | None, str]:
+    if hours is None or not np.isfinite(hours) or hours < 0 or hours > ETA_HORIZON_H:
+        return None, ""
+    return at + timedelta(hours=float(hours)), method
+
+
+def _sea_fog_eta(features: Mapping[str, float], at: datetime) -> tuple[datetime | None, str]:
+    """Sea or advection fog: onshore air with its dew point above the water temperature
+    is chilled from below towards saturation, so the fog comes when the dew-point
+    depression, at its present rate of closing, reaches zero (Taylor 1917's picture of
+    advection fog over cold water: docs/references.md [Taylor 1917]). Offshore wind, water
+    warmer than the dew point, or a depression that is not closing: no time."""
+    if features.get("onshore") != 1.0 or not features.get("dewpoint_minus_water_c", -1.0) > 0.0:
+        return None, ""
+    return _hours_ahead(at, features.get("hours_to_saturation", math.nan), "sea-fog")
+
+
+def _icing_eta(sa: SiteAssessment, at: datetime) -> tuple[datetime | None, str]:
+    """Ice: when the surface (or, with no surface sensor, the air) falls to 0 °C and to
+    the frost point, whichever is lower: frost deposits only on a surface at or below
+    both (docs/references.md [Karlsson 2001]). Now if it is there already; else the
+    surface carried down tonight's fitted cooling curve at its present offset from the
+    air, before sunrise; else no time."""
+    features = sa.features
+    air = features.get("temp_c", math.nan)
+    surface = features.get("surface_temp_c", math.nan)
+    if not np.isfinite(surface):
+        surface = air
+    frost = features.get("frost_point_c", math.nan)
+    if not np.isfinite(surface):
+        return None, ""
+    target = min(0.0, frost) if np.isfinite(frost) else 0.0
+    if surface <= target:
+        return at, "surface-now"
+    if sa.projection is None or not np.isfinite(air):
+        return None, ""
+    t0, k, sunset = sa.projection
+    if k <= 0:
+        return None, ""
+    # T(h) = T0 − k·√h (the fitted square-root law), shifted by the surface's offset
+    needed = (t0 + (surface - air) - target) / k
+    if needed <= 0 or needed * needed > ETA_HORIZON_H + (at - sunset).total_seconds() / 3600:
+        return None, ""
+    eta = sunset + timedelta(hours=needed * needed)
+    sunrise_h = features.get("hours_to_sunrise", math.nan)
+    if eta <= at or not np.isfinite(sunrise_h) or eta > at + timedelta(hours=sunrise_h):
+        return None, ""
+    return eta, "surface-cooling"

@@ -74,6 +74,10 @@ class HazardAssessment:
     reasons: Sequence[str]
     explanations: Sequence[str]
     safety_refs: list[str]
+    # how ``eta`` was worked out (``ETA_METHODS`` in assess); "" when there is none
+    eta_method: str = ""
+    # the kinds of the rules that fired at the hazard's level (e.g. observed, dense)
+    kinds: tuple[str, ...] = ()
 
 
 class FeatureRow(Mapping[str, float]):
@@ -189,6 +193,7 @@ def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
                 "level": h.level,
                 "kind": h.kind,
                 "eta": iso_z(h.eta),
+                "eta_method": h.eta_method or None,
                 "rules": h.rules,
                 "reasons": list(h.reasons),
             }

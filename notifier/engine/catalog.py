@@ -107,12 +107,12 @@ FEATURES: dict[str, FeatureSpec] = {
         "else Craddock–Pritchard from midday values",
     ),
     "min_margin_c": FeatureSpec(
-        "projected minimum above dew point", "°C", description="projected minimum minus dew point"
+        "projected minimum minus dew point", "°C", description="negative: below the dew point"
     ),
     "crossover_temp_c": FeatureSpec(
         "crossover temperature", "°C", description="lowest dew point of the afternoon"
     ),
-    "min_minus_crossover_c": FeatureSpec("projected minimum above crossover", "°C"),
+    "min_minus_crossover_c": FeatureSpec("projected minimum minus crossover", "°C"),
     "cloud_pct": FeatureSpec("cloud cover", "%", decimals=0),
     "cloud_known": FeatureSpec(
         "cloud cover reported",
@@ -139,16 +139,16 @@ FEATURES: dict[str, FeatureSpec] = {
     "surface_temp_c": FeatureSpec("surface temperature", "°C"),
     "frost_point_c": FeatureSpec("frost point", "°C"),
     "surface_minus_frost_point_c": FeatureSpec(
-        "surface above frost point",
+        "surface minus frost point",
         "°C",
         description="surface temperature minus frost point (minus dew point above 0 °C)",
     ),
     "water_temp_c": FeatureSpec("water temperature", "°C"),
-    "dewpoint_minus_water_c": FeatureSpec("dew point above water temperature", "°C"),
+    "dewpoint_minus_water_c": FeatureSpec("dew point minus water temperature", "°C"),
     "water_temp_known": FeatureSpec(
         "water temperature reported", "", kind="bool", description="never unknown"
     ),
-    "water_minus_air_c": FeatureSpec("water above air temperature", "°C"),
+    "water_minus_air_c": FeatureSpec("water minus air temperature", "°C"),
     "onshore": FeatureSpec("onshore wind", "", kind="bool"),
     "visibility_m": FeatureSpec("visibility", "m", decimals=0),
     "visibility_known": FeatureSpec(

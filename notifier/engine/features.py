@@ -319,6 +319,8 @@ def _features_at(
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }
+    # fog seen now is fog now: its time to fog is 0, whatever the projection says
+    found["hours_to_fog"] = np.where(found["observed_fog"] == 1.0, 0.0, found["hours_to_fog"])
     found["fog_probability"] = (
         settings.model.probability(found, st.ids, at)
         if settings.model is not None

@@ -10,16 +10,25 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
 - **Up at once.** When the assessed level rises above the current one: ``raised``
   (none → watch or warning) or ``escalated`` (watch → warning). The hazard
   ``data_gap`` says ``data_gap`` instead of ``raised``.
-- **Down only when it has really eased.** The level used for dropping is the
-  assessment's *sustain* level (each rule re-tested with its clearing margin). Only when
-  that has stayed below the current level *continuously* for ``clearing_time`` (45 min)
-  does the alert drop: ``downgraded`` (warning → watch) or ``cleared`` (the all-clear;
-  it needs the sustain level at none for the whole ``clearing_time``). Any return to the
-  current level restarts the clock, so a value hovering at a threshold never flaps.
-  ``data_gap`` ends with ``data_back`` as soon as fresh data returns.
-- **Reminders.** Still at warning ``reminder_every`` (3 h) after the warning began or
-  after the last reminder: ``reminder``. None is sent while the warning is easing
-  (its clearing clock is running) or while the site's data is stale.
+- **Seen, or sooner: news at once.** Under a warning, a rule of a kind that means the
+  hazard is *seen* (``SIGHT_KINDS``: fog reported, dense fog, freezing fog, frost
+  depositing) firing for the first time in the episode gives ``observed``; an expected
+  time an hour or more earlier than the one last announced gives ``sooner``. Both go
+  through quiet hours like a rise (``Event.urgent``).
+- **Down only to a level that holds, else all clear.** The level used for dropping is
+  the assessment's *sustain* level (each rule re-tested with its clearing margin). Only
+  when that has stayed below the current level *continuously* for ``clearing_time``
+  (45 min) does the alert drop: to ``downgraded`` (warning → watch) only if a watch rule
+  fires now, with that rule's own reasons; otherwise straight to ``cleared`` (the
+  all-clear). Any return to the current level restarts the clock, so a value hovering at
+  a threshold never flaps. ``data_gap`` ends with ``data_back`` as soon as fresh data
+  returns. An ending carries the episode's highest level (``peak_level``), so whoever
+  heard the warning hears its end.
+- **Reminders per site.** Once ``reminder_every`` (3 h) has passed since any news of the
+  site (of any hazard), one ``reminder`` for each of its warnings that is not easing,
+  all in the same cycle (so they go out as one message); a hazard already seen and
+  announced waits twice as long, as its next news is usually its change (dense,
+  freezing, ended). None while the site's data is stale.
 - **Cooldown** (``cooldown``, 60 min): a level is not announced again (``raised``,
   ``escalated`` or ``data_gap`` to that level) within ``cooldown`` of the last time it
   was announced for the same site and hazard. A rise that falls inside the cooldown is
@@ -38,118 +47,29 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping, Sequence
 from dataclasses import replace
 from datetime import UTC, datetime, timedelta
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
-from notifier.engine.alerts import AlertState, Event, StateKey, event_id
-from notifier.engine.assessment import level_rank, results_where
-from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
+from notifier.engine.alerts import AlertState, Event, StateKey
+from notifier.engine.assessment import level_rank
+from notifier.engine.event_parts import changes, make_event, sighted
 from notifier.engine.rules import HAZARDS
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
-    from notifier.engine.assessment import SiteAssessment
+    from notifier.engine.assessment import HazardAssessment, SiteAssessment
 
 __all__ = ["step"]
 
 
 DATA_GAP = "data_gap"
+SOONER = timedelta(hours=1)  # an expected time this much earlier is news at once
 
 
 def _rank(level: str) -> int:
     return level_rank(level)
-
-
-def _shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
-    names = list(SHOWN_FEATURES)
-    for result in results_where(sa, lambda rule: rule.id in rule_ids):
-        names.extend(sorted(result.rule.features()))
-    out: dict[str, float] = {}
-    for name in names:
-        value = sa.features.get(name)
-        if name in out or value is None or name == "data_age_min":
-            continue
-        if FEATURES.get(name) is not None and FEATURES[name].kind == "bool":
-            continue
-        value = float(value)
-        if math.isfinite(value):
-            out[name] = value
-    return out
-
-
-def _changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
-    """What is no longer true: each test of the ended rules that does not hold now."""
-    lines: list[str] = []
-    unknown: list[str] = []
-    for result in results_where(sa, lambda rule: rule.id in state.rules):
-        if not result.applies:
-            continue
-        for outcome in result.outcomes:
-            if outcome.held:
-                continue
-            spec = FEATURES[outcome.test.feature]
-            if not outcome.known:
-                if f"{spec.label} now unknown" not in unknown:
-                    unknown.append(f"{spec.label} now unknown")
-                continue
-            if outcome.test.op == "is":
-                text = f"{spec.label} now {format_value(outcome.test.feature, outcome.value)}"
-            else:
-                value = format_value(outcome.test.feature, outcome.value)
-                text = f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
-            if text not in lines:
-                lines.append(text)
-    lines += unknown
-    if not lines:
-        lines.append(f"no {state.hazard.replace('_', ' ')} rule at {state.level} holds now")
-    return tuple(lines)
-
-
-def _sustaining_rules(sa: SiteAssessment, hazard: str, level: str) -> tuple[str, ...]:
-    same = results_where(sa, lambda rule: rule.hazard == hazard and rule.level == level)
-    return tuple(r.rule.id for r in same if r.applies and r.sustains)
-
-
-def _make_event(
-    type_: str,
-    state: AlertState,
-    new_level: str,
-    sa: SiteAssessment,
-    now: datetime,
-    episode_start: datetime | None,
-    **extra: Any,
-) -> Event:
-    hazard = sa.hazards.get(state.hazard)
-    if new_level == "none":
-        hazard = None  # an ending: the rules are those of the alert that ended
-        rules = state.rules
-    else:
-        rules = tuple(hazard.rules) if hazard else _sustaining_rules(sa, state.hazard, new_level)
-    age = sa.features.get("data_age_min")
-    return Event(
-        id=event_id(state.site_id, state.hazard, episode_start, type_, new_level, now),
-        type=type_,
-        site_id=state.site_id,
-        hazard=state.hazard,
-        level=new_level,
-        previous_level=state.level,
-        time=now,
-        episode_start=episode_start,
-        kind=hazard.kind if hazard else "",
-        eta=hazard.eta if hazard else None,
-        rules=rules,
-        reasons=tuple(hazard.reasons) if hazard else (),
-        explanations=tuple(hazard.explanations) if hazard else (),
-        safety_refs=tuple(hazard.safety_refs) if hazard else (),
-        previous_reasons=state.reasons,
-        features=_shown_features(sa, rules + state.rules),
-        data_age_min=None if age is None else float(age),
-        projection_method=sa.projection_method,
-        **extra,
-    )
 
 
 def _step_one(
@@ -185,11 +105,58 @@ def _step_one(
 
     clearing = timedelta(seconds=settings.clearing_time)
     if below_since is not None and now - below_since >= clearing:
-        if clear_since is not None and now - clear_since >= clearing:
-            return _end("cleared", state, sa, now, eased_since=clear_since)
-        return _downgrade(state, sa, now, below_since, clear_since)
+        # no false steps: down only to a level whose own rules fire now, with their
+        # reasons; when none does, the all-clear comes directly
+        if hazard is not None and _rank(assessed) < _rank(state.level):
+            return _downgrade(state, sa, now, below_since, clear_since)
+        if hazard is None:
+            return _end("cleared", state, sa, now, eased_since=below_since)
+    state = _with_since(state, below_since, clear_since)
+    if hazard is not None and hazard.level == state.level:
+        return _news(state, hazard, sa, now)
+    return state, []
 
-    return _remind(_with_since(state, below_since, clear_since), sa, now, settings)
+
+def _news(
+    state: AlertState, hazard: HazardAssessment, sa: SiteAssessment, now: datetime
+) -> tuple[AlertState, list[Event]]:
+    """At the same level, what a person needs at once: the hazard now seen (fog formed,
+    turned dense, freezing fog, ice), or its expected time an hour or more sooner."""
+    new_seen = tuple(k for k in sighted(hazard) if k not in state.seen)
+    if new_seen:
+        # "since" is when this newly seen thing appeared, not the first sighting
+        event = make_event(
+            "observed",
+            replace(state, seen_since=now),
+            state.level,
+            sa,
+            now,
+            state.episode_start,
+            seen=new_seen,
+        )
+    elif (
+        hazard.eta is not None
+        and state.eta is not None
+        and hazard.eta_method not in ("observed", "surface-now")
+        and state.eta - hazard.eta >= SOONER
+    ):
+        event = make_event("sooner", state, state.level, sa, now, state.episode_start)
+    else:
+        return state, []
+    return _announced(state, event, now), [event]
+
+
+def _announced(state: AlertState, event: Event, now: datetime) -> AlertState:
+    """``state`` once ``event`` (at its own level) has been announced."""
+    return replace(
+        state,
+        last_event_at=now,
+        rules=event.rules or state.rules,
+        reasons=event.reasons or state.reasons,
+        seen=tuple(dict.fromkeys((*state.seen, *event.seen))),
+        seen_since=event.seen_since or state.seen_since,
+        eta=event.eta if event.eta is not None else state.eta,
+    )
 
 
 def _rise(
@@ -201,7 +168,9 @@ def _rise(
     else:
         type_ = "raised" if state.level == "none" else "escalated"
     episode = now if state.level == "none" else state.episode_start
-    event = _make_event(type_, state, assessed, sa, now, episode)
+    hazard = sa.hazards.get(state.hazard)
+    fresh = state if state.level != "none" else replace(state, seen=(), seen_since=None)
+    event = make_event(type_, fresh, assessed, sa, now, episode, seen=sighted(hazard))
     raised = dict(state.last_raised)
     raised[assessed] = now
     new = replace(
@@ -216,6 +185,10 @@ def _rise(
         last_raised=tuple(sorted(raised.items(), key=lambda p: _rank(p[0]))),
         rules=event.rules,
         reasons=event.reasons,
+        peak=max(state.peak, assessed, key=_rank) if state.level != "none" else assessed,
+        seen=tuple(dict.fromkeys((*fresh.seen, *event.seen))),
+        seen_since=event.seen_since,
+        eta=event.eta,
     )
     return new, [event]
 
@@ -224,14 +197,14 @@ def _end(
     type_: str, state: AlertState, sa: SiteAssessment, now: datetime, eased_since: datetime
 ) -> tuple[AlertState, list[Event]]:
     """``cleared`` or ``data_back``: the alert is over."""
-    event = _make_event(
+    event = make_event(
         type_,
         state,
         "none",
         sa,
         now,
         state.episode_start,
-        changes=_changes(sa, state),
+        changes=changes(sa, state),
         eased_since=eased_since,
     )
     return _ended(state, now), [event]
@@ -246,14 +219,14 @@ def _downgrade(
 ) -> tuple[AlertState, list[Event]]:
     """``downgraded``: warning eased to watch, the only level between warning and none."""
     target = "watch"
-    event = _make_event(
+    event = make_event(
         "downgraded",
         state,
         target,
         sa,
         now,
         state.episode_start,
-        changes=_changes(sa, state),
+        changes=changes(sa, state),
         eased_since=below_since,
     )
     new = replace(
@@ -264,37 +237,53 @@ def _downgrade(
         clear_since=clear_since,
         last_event_at=now,
         last_reminder_at=None,
-        rules=event.rules or state.rules,
-        reasons=event.reasons or state.reasons,
+        rules=event.rules,
+        reasons=event.reasons,
+        eta=event.eta,
     )
     return new, [event]
 
 
-def _remind(
-    state: AlertState, sa: SiteAssessment, now: datetime, settings: AlertSettings
-) -> tuple[AlertState, list[Event]]:
-    """A ``reminder`` when a warning that is not easing has run ``reminder_every``."""
+def _remind_site(
+    states: dict[StateKey, AlertState],
+    site_keys: Sequence[StateKey],
+    sa: SiteAssessment,
+    now: datetime,
+    settings: AlertSettings,
+) -> list[Event]:
+    """Reminders per site, not per hazard: once ``reminder_every`` has passed since any
+    news of the site, one ``reminder`` for each of its warnings that is not easing (they
+    go out together as one message). None while the site's data is stale."""
     every = timedelta(seconds=settings.reminder_every)
-    last = state.last_reminder_at or state.since
-    if (
-        state.level == "warning"
-        and state.below_since is None
-        and every > timedelta(0)
-        and last is not None
-        and now - last >= every
-    ):
-        event = _make_event(
+    if every <= timedelta(0) or sa.stale:
+        return []
+    mine = [states[k] for k in site_keys if k in states]
+    times = [st.last_event_at for st in mine if st.last_event_at is not None]
+    quiet = now - max(times) if times else None
+    due = [
+        st
+        for st in mine
+        if st.level == "warning" and st.below_since is None and st.hazard != DATA_GAP
+    ]
+    # once seen, the next news is usually its change (dense, freezing, ended): a hazard
+    # seen and announced is reminded of half as often; when one is due, all go together
+    if not any(quiet is None or quiet >= (every * 2 if st.seen else every) for st in due):
+        return []
+    events = []
+    for state in due:
+        event = make_event(
             "reminder", state, state.level, sa, now, state.episode_start, level_since=state.since
         )
-        new = replace(
+        states[state.key] = replace(
             state,
             last_event_at=now,
             last_reminder_at=now,
             rules=event.rules or state.rules,
             reasons=event.reasons or state.reasons,
+            eta=event.eta if event.eta is not None else state.eta,  # as announced
         )
-        return new, [event]
-    return state, []
+        events.append(event)
+    return events
 
 
 def _with_since(
@@ -319,6 +308,10 @@ def _ended(state: AlertState, now: datetime) -> AlertState:
         last_reminder_at=None,
         rules=(),
         reasons=(),
+        peak="none",
+        seen=(),
+        seen_since=None,
+        eta=None,
     )
 
 
@@ -358,13 +351,21 @@ def step(
         hazards = by_site.get(site_id, set()) | set(sa.hazards) | set(sa.sustain)
         if not hazards:
             continue  # nothing active, nothing remembered: nothing can happen here
-        for hazard in sorted(hazards, key=_hazard_order):
-            key = (site_id, hazard)
-            state = previous.get(key) or AlertState(site_id=site_id, hazard=hazard)
+        keys = [(site_id, hazard) for hazard in sorted(hazards, key=_hazard_order)]
+        told = False
+        for key in keys:
+            state = previous.get(key) or AlertState(site_id=site_id, hazard=key[1])
             new, found = _step_one(state, sa, now, settings)
             events.extend(found)
-            if _prunable(new, now, settings):
+            states[key] = new
+            told = told or bool(found)
+        if told:  # news of one hazard is news of the site: the reminder clocks restart
+            for key in keys:
+                st = states[key]
+                if st.level != "none" and st.last_event_at != now:
+                    states[key] = replace(st, last_event_at=now)
+        events.extend(_remind_site(states, keys, sa, now, settings))
+        for key in keys:
+            if _prunable(states[key], now, settings):
                 states.pop(key, None)
-            else:
-                states[key] = new
     return states, events

@@ -11,6 +11,7 @@ No expressions and no ``eval``: a rule can only compare named features to consta
 
 from __future__ import annotations
 
+import re
 import string
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -395,19 +396,38 @@ def _reason(o: Outcome) -> str:
     return f"{spec.label} {format_value(o.test.feature, o.value)} {o.test.describe_threshold()}"
 
 
+_UNKNOWN = "\x00"  # stands in for an unknown value until its clause is dropped
+
+
 class _SafeFormatter(string.Formatter):
     def get_value(self, key: Any, args: Any, kwargs: Any) -> Any:
         return kwargs.get(key, float("nan"))
 
     def format_field(self, value: Any, format_spec: str) -> str:
-        if isinstance(value, float) and np.isnan(value):
-            return "?"
+        if isinstance(value, float) and not np.isfinite(value):
+            return _UNKNOWN
         return super().format_field(value, format_spec)
 
 
 def render_template(template: str, values: Mapping[str, Any]) -> str:
-    """Fill ``{feature:.1f}`` placeholders; an unknown value shows as '?'."""
-    return _SafeFormatter().format(template, **{k: _plain(v) for k, v in values.items()})
+    """Fill ``{feature:.1f}`` placeholders; a clause with an unknown value is left out.
+
+    A clause is a bracketed aside or a stretch ending in ``, ; : .``; a text whose
+    every clause needs an unknown value comes back empty.
+
+    >>> render_template("Fog within {h:.1f} h; air {t:.1f} °C.", {"h": float("nan"), "t": 2})
+    'Air 2.0 °C.'
+    """
+    text = _SafeFormatter().format(template, **{k: _plain(v) for k, v in values.items()})
+    if _UNKNOWN not in text:
+        return text
+    text = re.sub(r"\s*\([^()]*\x00[^()]*\)", "", text)
+    pieces = [p for p in re.split(r"(?<=[,;:.])\s+", text) if _UNKNOWN not in p]
+    if not pieces:
+        return ""
+    out = " ".join(pieces).strip()
+    out = out[0].upper() + out[1:]
+    return out[:-1] + "." if out[-1] in ",;:" else out
 
 
 def _plain(v: Any) -> Any:

@@ -202,6 +202,18 @@ class Outbox:
             rows = conn.execute(sa.select(events.c.id, events.c.site).where(events.c.id.in_(ids)))
             return {event_id: site for event_id, site in rows}
 
+    def event_moments(self, event_ids: Iterable[str]) -> dict[str, tuple[str, str]]:
+        """The site and time (ISO text) of each of these events (those still stored):
+        what one message per site and moment groups by."""
+        ids = list(event_ids)
+        if not ids:
+            return {}
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                sa.select(events.c.id, events.c.site, events.c.time).where(events.c.id.in_(ids))
+            )
+            return {event_id: (site, time) for event_id, site, time in rows}
+
     def events_between(self, start: datetime, end: datetime) -> list[Event]:
         with self.engine.connect() as conn:
             rows = conn.execute(

@@ -209,7 +209,7 @@ def test_assess_json_shape(capsys, night_csv):
         assert d["time"] == "2026-11-07T02:00:00Z"
         assert d["level"] in ("none", "watch", "warning")
         for h in d["hazards"]:
-            assert set(h) == {"hazard", "level", "kind", "eta", "rules", "reasons"}
+            assert set(h) == {"hazard", "level", "kind", "eta", "eta_method", "rules", "reasons"}
             assert h["reasons"] and h["rules"]
         assert set(d["data"]) == {"last_time", "age_min", "stale"}
     by_site = {d["site"]: d for d in data}

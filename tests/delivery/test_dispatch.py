@@ -121,7 +121,7 @@ def test_smtp_refusing_for_a_while_is_retried_with_backoff_then_sent_once(
     assert msg["Message-ID"] == f"<{d.key}@example.test>"
     assert msg["X-Fogwatch-Delivery"] == d.key
     assert msg["X-Fogwatch-Event"] == ev.id
-    assert msg["Subject"] == "Fog WARNING · Quay Two · 20:00 GMT"
+    assert msg["Subject"] == "Fog now a warning · Quay Two · 20:00 GMT"
     body = msg.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
     assert " ".join(CAUTION.split()) in " ".join(body.split())
 
@@ -231,7 +231,7 @@ def test_webhook_500s_are_retried_then_delivered_once(webhook_server, make_servi
     assert all(r.status == "sent" and r.attempts == 2 for r in service.outbox.deliveries())
     body = hook.accepted[0]["body"]
     assert body["recipient"] == "ops-room" and body["delivery"] == got[0]
-    assert body["headline"].startswith("Fog WATCH · Quay Two")
+    assert body["headline"].startswith("Fog watch · Quay Two")
     assert body["caution"] == CAUTION
 
 
@@ -284,7 +284,7 @@ def test_held_watch_news_goes_as_one_morning_summary_per_subscriber(
     # inside quiet hours only the warning went to night-desk; yard-lead's quiet
     # hours began at 23:00, so it had the first watch at once
     assert [parse(m.data)["Subject"] for m in inbox.messages] == [
-        "Fog WARNING · Quay Two · 02:00 GMT"
+        "Fog now a warning · Quay Two · 02:00 GMT"
     ]
     assert [a["body"]["id"] for a in hook.accepted] == [watch_quay.id, warning.id]
 
@@ -540,3 +540,39 @@ def test_a_reload_takes_a_new_claim_lease(make_service, tmp_path, smtp_server):
     write_config(tmp_path, [email_channel(smtp_server.port)], [OPS], alerts={"claim_lease": "2min"})
     assert service.reload()[0]
     assert service.outbox.lease == timedelta(minutes=2)
+
+
+# -- one message per site and moment -----------------------------------------------------
+
+
+def test_fog_and_icing_of_one_moment_go_as_one_email_but_two_webhook_bodies(
+    make_service, smtp_server, webhook_server
+):
+    service = make_service(
+        [email_channel(smtp_server.port), webhook_channel(webhook_server.url)], [OPS, BOT]
+    )
+    fog = event("escalated", "warning", "watch", hazard="fog", at=T0)
+    ice = event("raised", "warning", hazard="icing", at=T0)
+    later = event("raised", "watch", hazard="fog", site_id="quay-two", at=T0 + timedelta(hours=1))
+    queue(service, [fog, ice], T0)
+    report = service.deliver(T0)
+    assert report.sent == 4 and report.failed == 0  # each delivery recorded as sent
+    (mail,) = smtp_server.inbox.messages  # the email reader gets one message ...
+    msg = parse(mail.data)
+    assert msg["Subject"] == "Fog now a warning; Icing warning · Quay Two · 20:00 GMT"
+    text = msg.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
+    flat = " ".join(text.split())
+    assert "2 updates for this site" in flat and flat.count(" ".join(CAUTION.split())) == 1
+    assert msg["Message-ID"].startswith("<fw-site-")
+    # ... the program behind the webhook one body per event (docs/schema/)
+    assert sorted(a["body"]["hazard"] for a in webhook_server.hook.accepted) == ["fog", "icing"]
+    # the same set of deliveries again (a retry after a lost answer) gets the same key
+    key = msg["Message-ID"]
+    for row in service.outbox.deliveries():
+        service.outbox.mark([row.key], "pending", T0)
+    service.deliver(T0 + timedelta(minutes=1))
+    assert parse(smtp_server.inbox.messages[-1].data)["Message-ID"] == key
+    # news of another moment is a message of its own
+    queue(service, [later], later.time)
+    service.deliver(later.time)
+    assert parse(smtp_server.inbox.messages[-1].data)["Subject"].startswith("Fog watch ·")

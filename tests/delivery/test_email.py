@@ -67,7 +67,7 @@ def test_message_arrives_with_mime_message_id_and_chart(smtp_server):
     assert msg["Message-ID"] == "<fw-key-one@example.test>"
     assert msg["Date"] == "Sat, 10 Jan 2026 20:01:00 +0000"
     assert msg["To"] == TO and msg["From"] == "fogwatch <alerts@example.test>"
-    assert msg["Subject"].startswith("Fog WARNING · Quay Two")
+    assert msg["Subject"].startswith("Fog now a warning · Quay Two")
     assert msg["X-Fogwatch-Delivery"] == "fw-key-one"
     body = msg.get_body(preferencelist=("plain",))
     assert body is not None and body.get_content_charset() == "utf-8"

@@ -60,8 +60,10 @@ def test_reasons_carry_units(night_events):
     warning = next(e for e in night_events if e.type == "escalated")
     text = render(warning, site("clear-field"), RULES).text
     assert re.search(r"wind \d+\.\d m/s ≤ 3\.5 m/s", text)
-    assert "°C/h" in text and "WHY" in text
-    assert "expected from about" in text
+    assert "°C/h" in text and "Why:" in text
+    # a time, or plainly none: never a "?" (before tonight's cooling curve is fitted)
+    assert re.search(r"When: (from about \d\d:\d\d|no arrival time can be worked out)", text)
+    assert "?" not in text
 
 
 def test_all_clear_says_what_changed(night_events):
@@ -70,7 +72,7 @@ def test_all_clear_says_what_changed(night_events):
     text = render(cleared, site("clear-field", use="port"), RULES).text
     assert text.startswith("All clear: fog · ")
     assert "fog warning has ended" in text
-    assert "WHAT CHANGED" in text and "NOW" in text and "WAS" in text
+    assert "What changed:" in text and "Now:" in text and "Was:" in text
     # what ended it, value against the threshold the alert needed
     assert re.search(r"visibility now \d+ m, alert needs < 200 m", text)
     assert re.search(r"air temperature \d+\.\d °C", text)
@@ -86,7 +88,7 @@ def test_downgrade_says_from_which_level():
     )
     text = render(ev, site("quay-two", use="port"), RULES).text
     assert "down from warning" in text and "Below warning level since 19:10 GMT" in text
-    assert "STILL HOLDS" in text
+    assert "Why it is still a watch:" in text
     check_common(text, ev, "port")
 
 
@@ -103,7 +105,7 @@ def test_downgrade_says_from_which_level():
 def test_icing_note_near_or_below_zero(features, has_ice):
     ev = event(hazard="icing", features=features, safety_refs=("icing-general",))
     text = render(ev, site("quay-two", use="venue"), RULES).text
-    assert ("ICE\n" in text) is has_ice
+    assert ("Ice:\n" in text) is has_ice
     if features.get("surface_temp_c") == -1.2:
         assert "Air 0.6 °C, surface -1.2 °C: at or near freezing" in text
     check_common(text, ev, "venue")
@@ -135,7 +137,10 @@ def test_data_gap_message():
 
 def test_headline_has_hazard_level_site_and_local_time():
     ev = event("escalated", "warning", "watch", at=utc(2026, 7, 1, 21, 5))
-    assert headline(ev, site("quay-two", name="Quay Two")) == "Fog WARNING · Quay Two · 22:05 BST"
+    assert (
+        headline(ev, site("quay-two", name="Quay Two"))
+        == "Fog now a warning · Quay Two · 22:05 BST"
+    )
     assert headline(ev, site("quay-two", name="Quay Two"), "UTC").endswith("21:05 UTC")
 
 

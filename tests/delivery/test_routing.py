@@ -251,3 +251,37 @@ def test_equal_start_and_end_means_no_quiet_hours():
 def test_event_for_a_site_no_longer_configured_is_not_routed():
     config = config_with([EVERYONE])
     assert route([event(site_id="gone-site")], config.subscribers, config) == []
+
+
+# -- news that cannot wait, reminders that can, and endings of a warning ------------------
+
+
+def test_a_reminder_inside_quiet_hours_is_not_sent_at_all():
+    config = config_with([NIGHT, EVERYONE])
+    inside = utc(2026, 1, 11, 2, 0)  # 02:00 London, inside 22:00-06:30
+    got = route([event("reminder", "warning", "warning", at=inside)], config.subscribers, config)
+    assert ids(got) == ["ops-room"]  # no quiet hours there; none held for the night shift
+    outside = utc(2026, 1, 11, 7, 0)
+    got = route([event("reminder", "warning", "warning", at=outside)], config.subscribers, config)
+    assert ids(got) == ["night-shift", "ops-room"]
+
+
+@pytest.mark.parametrize("type_", ["observed", "sooner"])
+def test_seen_and_sooner_go_through_quiet_hours_even_at_watch(type_):
+    config = config_with([NIGHT])
+    at = utc(2026, 1, 11, 2, 0)
+    (d,) = route([event(type_, "watch", "watch", at=at)], config.subscribers, config)
+    assert d.not_before is None and not d.summary
+    opted_out = config_with([{**NIGHT, "warnings_in_quiet_hours": False}])
+    (d,) = route([event(type_, "watch", "watch", at=at)], opted_out.subscribers, opted_out)
+    assert d.not_before == utc(2026, 1, 11, 6, 30) and d.summary
+
+
+def test_the_all_clear_reaches_whoever_heard_the_warning_after_a_downgrade():
+    # warning → eased to watch → all clear: the all-clear ends an episode that was a
+    # warning, so a warnings-only subscriber hears it (they never heard the watch)
+    config = config_with([WARN_ONLY])
+    ev = event("cleared", "none", "watch", peak_level="warning")
+    assert ids(route([ev], config.subscribers, config)) == ["duty-manager"]
+    ev = event("cleared", "none", "watch", peak_level="watch")
+    assert route([ev], config.subscribers, config) == []

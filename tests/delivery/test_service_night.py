@@ -90,23 +90,27 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
     finally:
         service.close()
 
-    # -- the events: one watch, one warning, one all-clear, reminders every 3 h
+    # -- the events: one watch, one warning, the fog seen forming and turning dense, one
+    # all-clear; a reminder only while the warning waits for its fog, 3 h after the news
     assert cycles == int((end - start) / STEP) + 1
-    news = [(e.type, e.level) for e in events if e.type != "reminder"]
-    assert news == [("raised", "watch"), ("escalated", "warning"), ("cleared", "none")]
-    assert {e.hazard for e in events} == {"fog"}
-    raised, escalated, cleared = (e for e in events if e.type != "reminder")
-    reminders = [e for e in events if e.type == "reminder"]
-    # the warning lasts from the evening until the fog has lifted well after sunrise:
-    # a reminder every 3 h while it holds, and nothing else
-    assert [r.time - escalated.time for r in reminders] == [
-        timedelta(hours=3 * n) for n in range(1, 5)
+    news = [(e.type, e.level, e.seen) for e in events if e.type != "reminder"]
+    assert news == [
+        ("raised", "watch", ()),
+        ("escalated", "warning", ()),
+        ("observed", "warning", ("observed",)),
+        ("observed", "warning", ("dense",)),
+        ("cleared", "none", ()),
     ]
+    assert {e.hazard for e in events} == {"fog"}
+    raised, escalated, formed, dense, cleared = (e for e in events if e.type != "reminder")
+    reminders = [e for e in events if e.type == "reminder"]
+    # 3 h after the warning while the fog is to come, 6 h after the news once it is seen
+    assert [r.time - escalated.time for r in reminders][:1] == [timedelta(hours=3)]
+    assert [r.time - dense.time for r in reminders][1:] == [timedelta(hours=6)]
+    assert reminders[0].time < formed.time
     local = {e.type: e.time.astimezone(ZONE) for e in events}
     assert local["raised"].date() == EVENING
     assert local["escalated"].date() == EVENING and local["escalated"].hour >= 18
-    assert raised.time < escalated.time < reminders[0].time
-    assert reminders[-1].time < cleared.time
     assert local["cleared"].time() >= time(9, 30)
     assert cleared.previous_level == "warning" and cleared.changes
     assert final_states == {}  # back at none and past its cooldown by 10:30
@@ -116,9 +120,12 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
     mails = [parse(m.data) for m in smtp_server.inbox.messages]
     assert len(mails) == len(events) == 7
     assert [m["Subject"] for m in mails] == [
-        f"Fog WATCH · Clear Field · {zone_now[raised.id]}",
-        f"Fog WARNING · Clear Field · {zone_now[escalated.id]}",
-        *(f"Fog WARNING continues · Clear Field · {zone_now[r.id]}" for r in reminders),
+        f"Fog watch · Clear Field · {zone_now[raised.id]}",
+        f"Fog now a warning · Clear Field · {zone_now[escalated.id]}",
+        f"Fog warning still in force · Clear Field · {zone_now[reminders[0].id]}",
+        f"Fog has formed · Clear Field · {zone_now[formed.id]}",
+        f"Dense fog · Clear Field · {zone_now[dense.id]}",
+        f"Fog warning still in force · Clear Field · {zone_now[reminders[1].id]}",
         f"All clear: fog · Clear Field · {zone_now[cleared.id]}",
     ]
     assert [m["Message-ID"] for m in mails] == [
@@ -129,9 +136,9 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
         text = m.get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
         assert " ".join(CAUTION.split()) in " ".join(text.split())
     first_text = mails[0].get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
-    assert "WHY" in first_text and "°C" in first_text
+    assert "Why:" in first_text and "°C" in first_text
     all_clear = mails[-1].get_body(preferencelist=("plain",)).get_content()  # type: ignore[union-attr]
-    assert "WHAT CHANGED" in all_clear
+    assert "What changed:" in all_clear
     charts = [a for m in mails for a in m.iter_attachments()]
     assert len(charts) == 7 and all(a.get_content_type() == "image/png" for a in charts)
     assert all(a.get_content()[:8] == b"\x89PNG\r\n\x1a\n" for a in charts)
@@ -141,11 +148,18 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
     hook = webhook_server.hook
     assert hook.rejected_signatures == 0
     posted = [a["body"] for a in hook.accepted]
-    assert [b["type"] for b in posted] == ["escalated", *["reminder"] * 4, "cleared"]
+    assert [b["type"] for b in posted] == [
+        "escalated",
+        "reminder",
+        "observed",
+        "observed",
+        "reminder",
+        "cleared",
+    ]
     assert [a["headers"][ID_HEADER] for a in hook.accepted] == [
         delivery_key(e.id, "duty-bridge", "hook") for e in events if e is not raised
     ]
-    assert posted[0]["headline"] == f"Fog WARNING · Clear Field · {zone_now[escalated.id]}"
+    assert posted[0]["headline"] == f"Fog now a warning · Clear Field · {zone_now[escalated.id]}"
     assert posted[-1]["headline"].startswith("All clear: fog · Clear Field")
     assert all(b["caution"] == CAUTION and b["recipient"] == "duty-room" for b in posted)
     assert posted[0]["reasons"] and posted[0]["site"] == "clear-field"
@@ -154,7 +168,7 @@ def test_a_night_gives_one_watch_one_warning_one_all_clear_delivered(
     capsys.readouterr()
     assert cli.main(["status", str(config)]) == 0
     out = capsys.readouterr().out
-    assert "Outbox: 13 sent" in out
+    assert "Outbox: 13 sent" in out  # 7 to the farm, 6 to the duty bridge
     assert "clear-field" in out and "NONE" in out
     assert sorted(p.name for p in (folder / "processed").iterdir()) == sorted(
         f"clear-field-{t:%Y%m%dT%H%M}.csv" for t in (start + STEP * i for i in range(cycles))
@@ -190,7 +204,7 @@ def test_fogwatch_once_queues_delivers_and_says_how_it_went(
     assert out.startswith("1 site(s) assessed, 1 event(s), 2 delivery(ies) queued; sent 1, ")
     assert "retrying 0, failed 1, expired 0" in out
     (mail,) = smtp_server.inbox.messages
-    assert parse(mail.data)["Subject"] == "Fog WARNING · Clear Field · 21:00 BST"
+    assert parse(mail.data)["Subject"] == "Fog warning · Clear Field · 21:00 BST"
 
     code, out = once(at)  # the same cycle again
     assert (code, out.splitlines()[0]) == (

@@ -44,8 +44,8 @@ def test_text_to_stdout_and_file(tmp_path):
         channel.send(message("warning"), delivery(), "fw-text-2", None)
     written = path.read_text(encoding="utf-8")
     assert written == out.getvalue()
-    assert written.count("Fog WATCH · North Field") == 1
-    assert written.count("Fog WARNING · North Field") == 1
+    assert written.count("Fog watch · North Field") == 1
+    assert written.count("Fog warning · North Field") == 1
     assert "[fw-text-1]" in written and "[fw-text-2]" in written
 
 
@@ -88,7 +88,7 @@ def test_folder_writes_eml_atomically_and_a_resend_overwrites(tmp_path):
         writer.send(message(), delivery(), "fw-eml-2", None)
     assert sorted(os.listdir(box)) == ["fw-eml-1.eml", "fw-eml-2.eml"]  # no temp files
     msg = email.message_from_bytes((box / "fw-eml-1.eml").read_bytes(), policy=policy.default)
-    assert msg["Subject"].startswith("Fog WARNING")  # the resend replaced the first
+    assert msg["Subject"].startswith("Fog warning")  # the resend replaced the first
     assert msg["Message-ID"] == "<fw-eml-1@localhost.localdomain>"
     assert msg["To"] == "field-lead@example.test"
     assert msg["Date"] == "Sat, 10 Jan 2026 20:02:00 +0000"

@@ -91,7 +91,9 @@ def test_sea_fog_comes_after_the_wind_turns_onshore(demo):
 
 def test_timeline_and_summary_are_printed(demo):
     _, text = demo
-    assert "Fog WARNING · Marrowby Showground" in text
+    assert "Fog now a warning · Marrowby Showground" in text
+    assert "Fog has formed · Skerrow Estuary Berth 4" in text
+    assert "data_gap data_gap" not in text and "1 × data gap (sent)" in text
     assert "All clear: fog · Skerrow Estuary Berth 4" in text
     assert "evening outlook sent" in text
     assert "What was sent to whom:" in text
@@ -180,21 +182,40 @@ def manager_night(result: dict[str, Any]) -> list[tuple[Any, Any, bool, datetime
 def news_level(event: Any) -> str:
     # README, Configuration: quiet hours hold watch news, warnings go through; a
     # downgrade or all-clear is news of the level it ends (routing, news level)
-    return event.previous_level if event.type in ("downgraded", "cleared") else event.level
+    # an ending is news of the highest level its episode announced
+    return event.news_level
 
 
-def test_warnings_go_through_the_orchard_managers_quiet_hours(demo):
+def test_no_reminder_inside_the_orchard_managers_quiet_hours(demo):
     result, _ = demo
     night = manager_night(result)
-    inside = [(row, ev) for row, ev, quiet, _ in night if quiet]
-    # the orchard is at warning all night: its reminders arrive as they happen
-    assert len(inside) >= 4
+    # the orchard's fog and freezing fog were seen and announced before 22:00; inside
+    # the quiet hours nothing rose, so nothing was sent, reminders least of all
+    assert [ev.type for _, ev, quiet, _ in night if quiet] == []
+    assert [ev.type for _, ev, quiet, _ in night if not quiet] != []
+    for row, ev, _quiet, _ in night:
+        assert row.status == "sent" and row.sent_at == ev.time
+
+
+def test_urgent_news_goes_through_quiet_hours_at_once(
+    demo_with_the_berth_for_the_orchard_manager,
+):
+    result, _ = demo_with_the_berth_for_the_orchard_manager
+    night = manager_night(result)
+    inside = [(row, ev) for row, ev, quiet, _ in night if quiet and ev.site_id == "skerrow-berth"]
+    # the berth's warning, its fog forming and turning dense, and its all-clear (05:20)
+    # reach the manager as they happen, though inside the quiet hours
+    urgent = [(ev.type, ev.seen) for row, ev in inside if not row.summary]
+    assert urgent == [
+        ("escalated", ()),
+        ("observed", ("observed",)),
+        ("observed", ("dense",)),
+        ("cleared", ()),
+    ]
     for row, ev in inside:
-        assert news_level(ev) == "warning", ev
-        assert not row.summary and row.sent_at == ev.time
-    # outside the quiet hours everything went at once too
-    for row, ev, quiet, _ in night:
-        assert row.status == "sent" and (quiet or row.sent_at == ev.time)
+        if not row.summary:
+            assert news_level(ev) == "warning" or ev.urgent, ev
+            assert row.sent_at == ev.time
 
 
 def test_quiet_hours_hold_watch_news_for_the_orchard_manager(
@@ -232,3 +253,76 @@ def test_quiet_hours_hold_watch_news_for_the_orchard_manager(
     text = " ".join(summary.get_body(preferencelist=("plain",)).get_content().split())
     assert "held for quiet hours" in text
     assert "Skerrow Estuary Berth 4 • 23:20 GMT Fog watch raised" in text
+
+
+# -- one message per site and moment: the night as its three readers had it --------------
+
+READERS = {  # subscriber: (site, where their messages land, address)
+    "orchard-manager": ("hollin-orchard", "mail", "manager@hollin-vale.example"),
+    "harbour-ops": ("skerrow-berth", "webhook", None),
+    "show-safety": ("marrowby-showground", "mail", "safety@marrowby-show.example"),
+}
+NEWS = ("raised", "escalated", "observed", "cleared")
+
+
+@pytest.mark.parametrize("reader", sorted(READERS))
+def test_each_reader_gets_at_most_six_messages_and_every_piece_of_news(demo, reader):
+    result, _ = demo
+    site, kind, address = READERS[reader]
+    out = result["out"]
+    if kind == "mail":
+        messages = [
+            p
+            for p in (out / "mail").glob("*.eml")
+            if email.message_from_bytes(p.read_bytes())["To"] == address
+        ]
+    else:
+        messages = list((out / "webhook").glob("*.json"))
+    assert 1 <= len(messages) <= 6, [p.name for p in messages]
+    store_file = yaml.safe_load((out / "demo_sites.yaml").read_text())["store"]["url"]
+    with Store(f"sqlite:///{out / store_file.removeprefix('sqlite:///')}") as store:
+        outbox = Outbox(store)
+        sent = {r.event_id for r in outbox.deliveries() if r.subscriber == reader}
+        assert all(r.status == "sent" for r in outbox.deliveries() if r.subscriber == reader)
+    # every rise, sighting and all-clear of the reader's site that concerns them arrived
+    # (the safety officer follows warnings only: their first news is the warning itself)
+    warned = {e.episode_start for e in result["events"] if e.level == "warning"}
+    expected = [
+        e
+        for e in result["events"]
+        if e.site_id == site
+        and e.hazard != "data_gap"
+        and e.type in NEWS
+        and (
+            reader != "show-safety"
+            or e.level == "warning"
+            or (e.type == "cleared" and e.episode_start in warned)
+        )
+    ]
+    assert {e.type for e in expected} >= {"escalated", "observed", "cleared"}
+    assert [e.type for e in expected if e.id not in sent] == []
+
+
+def test_the_words_a_reader_gets(demo):
+    result, _ = demo
+    out = result["out"]
+    texts = [
+        " ".join(
+            email.message_from_bytes(p.read_bytes(), policy=policy.default)
+            .get_body(preferencelist=("plain",))
+            .get_content()
+            .split()
+        )
+        for p in (out / "mail").glob("*.eml")
+    ]
+    texts += [json.loads(p.read_text())["body"]["text"] for p in (out / "webhook").glob("*.json")]
+    assert len(texts) >= 12
+    for text in texts:
+        assert "?" not in text  # an unknown number leaves its clause out
+        assert "Type: radiation" not in text and "above dew point -" not in text
+        assert "time to sunrise now" not in text  # an all-clear says the night is over
+        assert "not an official forecast" in " ".join(text.split())
+    flat = " ".join(texts)
+    # kinds in plain words, and how each arrival time was worked out or that it is now
+    assert "clear-sky cooling fog" in flat and "sea fog" in flat
+    assert "here now, since" in flat

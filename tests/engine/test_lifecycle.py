@@ -69,10 +69,13 @@ CASES = [
     # warning eases to watch, then clears: each drop waits its own 45 min
     ("W" + "w" * 10, None, [(0, "raised", "warning"), (10, "downgraded", "watch")]),
     (
-        "W" + "w" * 3 + "." * 12,
+        "W" + "w" * 10 + "." * 10,
         None,
-        [(0, "raised", "warning"), (10, "downgraded", "watch"), (13, "cleared", "none")],
+        [(0, "raised", "warning"), (10, "downgraded", "watch"), (20, "cleared", "none")],
     ),
+    # no false step: the watch rules stopped before the warning had eased for 45 min,
+    # so the warning ends in an all-clear, never in a watch that holds no longer
+    ("W" + "w" * 3 + "." * 12, None, [(0, "raised", "warning"), (10, "cleared", "none")]),
     ("W" + "." * 10, None, [(0, "raised", "warning"), (10, "cleared", "none")]),
     # still at warning: a reminder every 3 h (36 steps), none at watch
     ("W" * 40, None, [(0, "raised", "warning"), (36, "reminder", "warning")]),
@@ -115,6 +118,7 @@ IDS = [
     "clears-45-min-after-margin",
     "warning-eases-to-watch",
     "downgrade-then-clear",
+    "no-false-step-to-watch",
     "warning-clears-straight-to-none",
     "reminder-after-3h",
     "reminder-every-3h",
@@ -243,7 +247,7 @@ def test_quiet_state_is_pruned_after_cooldown():
     assert states == {}
 
 
-def test_simulated_night_gives_one_watch_one_warning_one_all_clear():
+def test_simulated_night_gives_one_watch_one_warning_fog_seen_and_one_all_clear():
     # A clear calm night at an open site (tests/delivery/scenes.py: clear_night)
     s = site("clear-field")
     obs, now, end = clear_night(s)
@@ -255,14 +259,22 @@ def test_simulated_night_gives_one_watch_one_warning_one_all_clear():
         assert step(states, assessments, now, SETTINGS)[1] == []
         events.extend(found)
         now += timedelta(minutes=10)
-    news = [(e.type, e.level) for e in events if e.type != "reminder"]
-    assert news == [("raised", "watch"), ("escalated", "warning"), ("cleared", "none")]
-    reminders = [e.time for e in events if e.type == "reminder"]
-    escalated, cleared = events[1], events[-1]
-    assert reminders and all(
-        b - a == timedelta(hours=3)
-        for a, b in zip([escalated.time, *reminders], reminders, strict=False)
-    )
+    news = [(e.type, e.level, e.seen) for e in events if e.type != "reminder"]
+    assert news == [
+        ("raised", "watch", ()),
+        ("escalated", "warning", ()),
+        ("observed", "warning", ("observed",)),  # fog forms under the warning
+        ("observed", "warning", ("dense",)),  # and turns dense
+        ("cleared", "none", ()),
+    ]
+    # a reminder only 3 h after the site's last news of any kind while the fog is still
+    # to come; 6 h once it has been seen
+    reminders = [e for e in events if e.type == "reminder"]
+    quiet = [r.time - max(e.time for e in events if e.time < r.time) for r in reminders]
+    seen_by = [any(e.seen for e in events if e.time < r.time) for r in reminders]
+    assert seen_by == [False, True]
+    assert quiet == [timedelta(hours=3), timedelta(hours=6)]
+    cleared = events[-1]
     assert cleared.previous_level == "warning" and cleared.changes
     assert cleared.time.astimezone(ZoneInfo(s.timezone)).time() >= time(9, 30)
     assert len({e.id for e in events}) == len(events)
@@ -286,6 +298,7 @@ def test_public_names():
         "AlertState",
         "Event",
         "StateKey",
+        "URGENT_TYPES",
         "event_id",
     }
     for module in (lifecycle_module, alerts_module):

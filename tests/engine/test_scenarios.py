@@ -7,6 +7,7 @@ definitions (named beside each case) or is marked common practice.
 from __future__ import annotations
 
 from datetime import timedelta
+from types import SimpleNamespace
 
 import pandas as pd
 import pytest
@@ -288,8 +289,23 @@ def test_eta_beyond_the_horizon_is_none_not_an_overflow():
 
     rule = next(r for r in RULES.rules if r.id == "radiation-fog-watch")
     at = utc(2026, 11, 20, 3)
-    assert _eta("fog", rule, {"hours_to_fog": 3.0e15}, at) is None
-    assert _eta("fog", rule, {"hours_to_fog": 2.0}, at) == at + timedelta(hours=2)
+    fitted = (8.0, 1.5, at - timedelta(hours=8))  # a cooling curve fitted tonight
+
+    def scene(**features: float) -> SimpleNamespace:
+        return SimpleNamespace(features={"hours_to_sunrise": 5.0, **features}, projection=fitted)
+
+    assert _eta("fog", rule, scene(hours_to_fog=3.0e15), at) == (None, "")
+    assert _eta("fog", rule, scene(hours_to_fog=2.0), at) == (
+        at + timedelta(hours=2),
+        "cooling-curve",
+    )
+    # icing from a curve that would need longer than the horizon: no time, no overflow
+    frost = next(r for r in RULES.rules if r.id == "ground-frost-watch")
+    far = SimpleNamespace(
+        features={"temp_c": 5.0, "frost_point_c": -1.0, "hours_to_sunrise": 5.0},
+        projection=(8.0, 1.0e-12, at - timedelta(hours=8)),
+    )
+    assert _eta("icing", frost, far, at) == (None, "")
 
 
 # -- saturated air that is not fog, and the coast without a water temperature --------------

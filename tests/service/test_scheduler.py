@@ -135,7 +135,7 @@ def test_each_job_calls_the_service_with_the_injected_clock(wide: Scene, sched):
     snaps = service.outbox.snapshots()
     assert snaps["zz-vale"][:2] == (at, "warning")
     found["deliver"].func()
-    assert "Fog WARNING · Lower Vale Orchard" in wide.out("duty.txt")
+    assert "Fog warning · Lower Vale Orchard" in wide.out("duty.txt")
     found["outlook:Europe/London"].func()
     outlooks = [r for r in service.outbox.deliveries() if r.status == "pending"]
     assert {r.subscriber for r in outlooks} == {"desk", "crew"}
