@@ -42,13 +42,24 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from notifier.core.config_file import read_config
+    """Every problem of the config and its rule files in one report; exit 2 if any."""
+    from notifier.core.config_file import check_config
+    from notifier.core.errors import ConfigError
     from notifier.engine.rule_files import load_rule_set
 
-    config, warnings = read_config(args.config)
+    config, problems, warnings = check_config(args.config)
     for warning in warnings:
         print(f"warning: {warning}", file=sys.stderr)
-    rules = load_rule_set(config.rule_paths())
+    rules = None
+    if config is not None:
+        # a rule path that does not exist is one of the config's problems already
+        paths = [p for p in config.rule_paths() if p.exists()]
+        try:
+            rules = load_rule_set(paths) if paths else None
+        except ConfigError as exc:  # reported beside the config's own problems
+            problems = problems + [p for p in exc.problems if p not in problems]
+    if problems or config is None or rules is None:
+        raise ConfigError(problems)
     print(
         f"ok: {config.path}: {len(config.sites)} site(s), {len(config.sources)} source(s), "
         f"{len(rules.rules)} rule(s) from {len(rules.files)} file(s), "
