@@ -13,8 +13,9 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, cast
 
+from notifier.core.config import Config
 from notifier.core.config_file import load_config
-from notifier.core.errors import FogwatchError, UsageError
+from notifier.core.errors import DataError, FogwatchError, UsageError
 from notifier.service.loading import (
     Loaded,
     evaluate,
@@ -35,20 +36,52 @@ class ObservationBatch:
     warnings: list[str] = field(default_factory=list)
 
 
+def read_data(paths: list[str], config: Config, now: datetime) -> ObservationBatch:
+    """The ``--data`` files of any command as one table.
+
+    A file that does not exist or cannot be read is an error (exit 2), and so is input
+    of which not one row could be taken: a command must not judge (or score) a night on
+    no data as if it had been quiet. Every rejection is shown on stderr first.
+    """
+    from notifier.ingest.poll import read_files
+
+    unreadable = []
+    for name in paths:
+        path = Path(name)
+        if not path.exists():
+            unreadable.append(f"{path}: file not found")
+        elif path.is_dir():
+            unreadable.append(f"{path}: is a folder, not a file")
+    if unreadable:
+        raise DataError("\n".join(unreadable))
+    frame, rejections, warnings = read_files([Path(p) for p in paths], config, now)
+    batch = ObservationBatch(frame, rejections, warnings)
+    cannot = [r for r in rejections if r.line is None and r.reason.startswith("cannot read")]
+    if cannot:
+        _report_input(ObservationBatch(frame, [r for r in rejections if r not in cannot], warnings))
+        raise DataError("\n".join(str(r) for r in cannot))
+    if frame.empty:
+        _report_input(batch)
+        raise DataError(
+            f"no observation could be taken from {', '.join(paths)}: every input row was "
+            f"rejected ({len(rejections)} reason(s) listed above)"
+        )
+    return batch
+
+
 def _data_for(loaded: Loaded, args: argparse.Namespace) -> tuple[ObservationBatch, datetime]:
     """Observations for a one-off command: the --data files, or a poll into the store."""
     config = loaded.config
     if getattr(args, "data", None):
         at_guess = parse_time(args.at) if args.at else datetime.now(UTC)
-        from notifier.ingest.poll import read_files
-
-        frame, rejections, warnings = read_files([Path(p) for p in args.data], config, at_guess)
+        batch = read_data(args.data, config, at_guess)
+        frame = batch.frame
         if args.at is None and len(frame):
             # replaying a file: judge it at its newest observation, not at today's clock
             observed = frame[frame["kind"] == "obs"]
             if len(observed):
                 at_guess = observed["time"].max().to_pydatetime().astimezone(UTC)
-        return ObservationBatch(frame, rejections, warnings), at_guess
+        return batch, at_guess
     at = parse_time(args.at)
     from notifier.ingest.poll import poll_all
 
@@ -270,7 +303,6 @@ def cli_replay(args: argparse.Namespace) -> int:
     from notifier.engine.rule_files import load_rule_set
     from notifier.history import replay as rp
     from notifier.history import report as rt
-    from notifier.ingest.poll import read_files
 
     loaded = load(args.config)
     start, end = parse_time(args.start), parse_time(args.end)
@@ -282,10 +314,9 @@ def cli_replay(args: argparse.Namespace) -> int:
         raise UsageError(f"--step: {exc}") from exc
     if step_s <= 0:
         raise UsageError("--step must be positive")
-    frame, rejections, warnings = read_files(
-        [Path(p) for p in args.data], loaded.config, datetime.now(UTC)
-    )
-    _report_input(ObservationBatch(frame, rejections, warnings))
+    batch = read_data(args.data, loaded.config, datetime.now(UTC))
+    _report_input(batch)
+    frame = batch.frame
     sets = [(loaded, "rules")]
     if args.rules_b:
         other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]))
@@ -308,6 +339,8 @@ def cli_replay(args: argparse.Namespace) -> int:
         print(json.dumps(rt.to_json(results), indent=2, ensure_ascii=False))
     else:
         print(rt.report_text(results))
+    if not results[0].nights:
+        print(f"replay: {_whole_nights_hint(loaded.config, start, end)}", file=sys.stderr)
     if args.csv:
         rt.write_csv(results, Path(args.csv))
     if args.png:
@@ -320,3 +353,22 @@ def cli_replay(args: argparse.Namespace) -> int:
                 file=sys.stderr,
             )
     return 0
+
+
+def _whole_nights_hint(config: Config, start: datetime, end: datetime) -> str:
+    """What to ask instead when --from/--to hold no whole site-night (local noon to noon)."""
+    from datetime import timedelta
+
+    from notifier.core.timefmt import iso_z
+    from notifier.history.verify import night_of
+
+    zone = config.sites[0].timezone
+    first = night_of(start, zone)
+    last = night_of(end, zone)
+    if last < end:
+        last = night_of(last + timedelta(hours=36), zone)  # the local noon after --to
+    return (
+        f"no whole site-night (local noon to noon) between {iso_z(start)} and {iso_z(end)}, "
+        f"so nothing was scored; e.g. --from {iso_z(first)} --to {iso_z(last)} "
+        f"(noon to noon at {config.sites[0].id}, {zone})"
+    )
