@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING, Any, cast
 from notifier.core.config import Config
 from notifier.core.config_file import load_config
 from notifier.core.errors import DataError, FogwatchError, UsageError
+from notifier.core.timefmt import iso_z
 from notifier.service.loading import (
     Loaded,
     evaluate,
@@ -112,17 +113,34 @@ def _report_input(batch: ObservationBatch) -> None:
 
 def cli_assess(args: argparse.Namespace) -> int:
     from notifier.cli.views import assessment_table
+    from notifier.core.freshness import freshness
     from notifier.engine.assessment import to_json
 
     loaded = load(args.config)
     batch, at = _data_for(loaded, args)
     _report_input(batch)
     assessments = evaluate(loaded, batch.frame, at)
+    newest = _store_newest(loaded.config) if not args.data else {}
     if args.json:
-        print(json.dumps(to_json(assessments), indent=2, ensure_ascii=False))
+        records = to_json(assessments)
+        for record, sa in zip(records, assessments, strict=True):
+            # a reading older than the window is still the newest one: say when it was
+            if record["data"]["last_time"] is None and sa.site.id in newest:
+                fresh = freshness(newest[sa.site.id], at, sa.site.timezone, sa.stale_after_min)
+                record["data"] = fresh.as_json()
+        print(json.dumps(records, indent=2, ensure_ascii=False))
     else:
-        print(assessment_table(assessments))
+        print(assessment_table(assessments, newest))
     return 0
+
+
+def _store_newest(config: Config) -> dict[str, datetime]:
+    """The newest observed reading of each site in the store, however old (the window
+    the rules read holds only the last hours: older rows are not "no readings")."""
+    from notifier.cli.state_views import newest_by
+
+    with open_store(config) as store:
+        return newest_by(store.newest_readings(), 0)
 
 
 def cli_explain(args: argparse.Namespace) -> int:
@@ -141,12 +159,24 @@ def cli_explain(args: argparse.Namespace) -> int:
 
 
 def cli_sources(args: argparse.Namespace) -> int:
-    from notifier.ingest.poll import health_report
+    """Each source's poll health and the newest reading it brought, with its age."""
+    from notifier.cli.state_views import public, source_states, sources_text
 
     config = load_config(args.config)
+    now = parse_time(getattr(args, "at", None))
     with open_store(config) as store:
-        print(health_report(store, config))
+        records = source_states(config, store.source_health(), store.newest_readings(), now)
+    if getattr(args, "json", False):
+        out = {"time": iso_z(now), "sources": public(records)}
+        print(json.dumps(out, indent=2, ensure_ascii=False))
+    else:
+        print(sources_text(records, now, _zone(config)))
     return 0
+
+
+def _zone(config: Config) -> str:
+    """The zone times are shown in when they belong to no one site: the first site's."""
+    return config.sites[0].timezone if config.sites else "UTC"
 
 
 def cli_once(args: argparse.Namespace) -> int:
@@ -181,40 +211,46 @@ def cli_run(args: argparse.Namespace) -> int:
 
 
 def cli_status(args: argparse.Namespace) -> int:
-    from notifier.core.timefmt import local_time
-    from notifier.ingest.poll import health_report
+    """Each site's last level with its data's date and age, the sources, the outbox."""
+    from notifier.cli.state_views import public, site_states, source_states, status_text
     from notifier.storage.outbox import Outbox
 
     config = load_config(args.config)
+    now = parse_time(getattr(args, "at", None))
     with open_store(config) as store:
         outbox = Outbox(store)
-        snaps = outbox.snapshots()
-        print("Sites")
-        for site in config.sites:
-            snap = snaps.get(site.id)
-            if snap is None:
-                print(f"  {site.id:<24} not assessed yet")
-                continue
-            when, level, payload = snap
-            hazards = ", ".join(f"{h['hazard']} {h['level']}" for h in payload["hazards"])
-            stale = " DATA STALE" if payload["data"]["stale"] else ""
-            print(
-                f"  {site.id:<24} {level.upper():<8} {hazards or '-'}{stale} "
-                f"(at {local_time(when, site.timezone)})"
-            )
-        print()
-        print(health_report(store, config))
-        print()
+        readings = store.newest_readings()
+        sites = site_states(config, outbox.snapshots(), readings, now)
+        sources = source_states(config, store.source_health(), readings, now)
         backlog = outbox.backlog()
-        print("Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty"))
-        for row in outbox.deliveries(["failed", "expired", "cancelled"])[-10:]:
-            print(f"  {row.status}: {row.subscriber} via {row.channel}: {row.last_error}")
-        pending = [r for r in outbox.deliveries(["pending"]) if r.attempts]
-        for row in pending[-10:]:
-            print(
-                f"  retrying ({row.attempts} tries): {row.subscriber} via {row.channel}: "
-                f"{row.last_error}"
-            )
+        trouble = outbox.deliveries(["failed", "expired", "cancelled"])[-10:]
+        retrying = [r for r in outbox.deliveries(["pending"]) if r.attempts][-10:]
+    if getattr(args, "json", False):
+        problem = [
+            {
+                "status": r.status,
+                "subscriber": r.subscriber,
+                "channel": r.channel,
+                "attempts": r.attempts,
+                "last_error": r.last_error,
+            }
+            for r in [*trouble, *retrying]
+        ]
+        out = {
+            "time": iso_z(now),
+            "sites": public(sites),
+            "sources": public(sources),
+            "outbox": {"backlog": dict(sorted(backlog.items())), "problems": problem},
+        }
+        print(json.dumps(out, indent=2, ensure_ascii=False))
+        return 0
+    lines = ["Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty")]
+    lines += [f"  {r.status}: {r.subscriber} via {r.channel}: {r.last_error}" for r in trouble]
+    lines += [
+        f"  retrying ({r.attempts} tries): {r.subscriber} via {r.channel}: {r.last_error}"
+        for r in retrying
+    ]
+    print(status_text(sites, sources, lines, now, _zone(config)))
     return 0
 
 

@@ -105,6 +105,11 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", help="the fogwatch YAML config file")
 
 
+def _add_at_and_json(p: argparse.ArgumentParser, at_help: str) -> None:
+    p.add_argument("--at", metavar="TIME", help=f"{at_help} (ISO 8601; default now)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The ``fogwatch`` parser; each subcommand's ``handler`` is what it runs."""
     parser = _Parser(
@@ -146,8 +151,9 @@ def _add_reading_commands(sub: _Subcommands) -> None:
     p.add_argument("--at", metavar="TIME", help="evaluation time (ISO 8601; default now)")
     p.set_defaults(handler=_cmd_explain)
 
-    p = sub.add_parser("sources", help="poll health of each configured source")
+    p = sub.add_parser("sources", help="poll health of each source and its newest reading")
     _add_common(p)
+    _add_at_and_json(p, "the time ages are counted to")
     p.set_defaults(handler=_cmd_sources)
 
 
@@ -162,8 +168,9 @@ def _add_service_commands(sub: _Subcommands) -> None:
     _add_common(p)
     p.set_defaults(handler=_cmd("cli_run"))
 
-    p = sub.add_parser("status", help="current levels, source health, outbox backlog")
+    p = sub.add_parser("status", help="current levels, data age, source health, outbox")
     _add_common(p)
+    _add_at_and_json(p, "the time ages are counted to")
     p.set_defaults(handler=_cmd("cli_status"))
 
 
