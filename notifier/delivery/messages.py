@@ -24,6 +24,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
 
 from notifier.core.timefmt import iso_text, local_time
 from notifier.engine.catalog import FEATURES, NOW_FEATURES, format_value
@@ -313,9 +314,12 @@ def render_summary(
     count = len(items)
     sites = len({s.id for _, s in items})
     plural = "s" if count != 1 else ""
+    # "Overnight" only for a summary released in the morning (local 03:00-12:00); one
+    # released at, say, 22:00 after afternoon quiet hours says what it is
+    morning = 3 <= at.astimezone(ZoneInfo(zone)).hour < 12
     head = (
-        f"Overnight: {count} update{plural} for {sites} site{'s' if sites != 1 else ''}"
-        f" · {_hhmm(at, zone)}"
+        f"{'Overnight' if morning else 'While quiet'}: {count} update{plural} for {sites} "
+        f"site{'s' if sites != 1 else ''} · {_hhmm(at, zone)}"
     )
     lines = [*_wrap(head), *_wrap(local_time(at, zone, with_date=True) + " · held for quiet hours")]
     current = None
