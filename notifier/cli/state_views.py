@@ -24,8 +24,8 @@ Reading = tuple[str, str | None, datetime]  # (site, source, time of its newest 
 def newest_by(readings: Iterable[Reading], key: int) -> dict[str, datetime]:
     """The newest reading per site (``key=0``) or per source (``key=1``)."""
     out: dict[str, datetime] = {}
-    for row in readings:
-        name, t = row[key], row[2]
+    for site, source, t in readings:
+        name = site if key == 0 else source
         if name is not None:
             out[name] = max(t, out.get(name, t))
     return out
