@@ -49,6 +49,10 @@ class SiteStatus:
     level: str  # none | watch | warning
     summary: str  # one short line: hazards, eta, key values
     data_age_min: float | None
+    # how old the data is, as a person reads it ("newest reading Sat 07 Nov 09:00 GMT,
+    # 27 days 5 h old: STALE"; core.freshness), and whether it is past alerts.stale_after
+    data_text: str = ""
+    stale: bool = False
 
 
 class BotBackend(Protocol):
@@ -101,8 +105,18 @@ def _unknown_site(backend: BotBackend, text: str) -> str:
 
 
 def _status_line(s: SiteStatus) -> str:
-    age = "" if s.data_age_min is None else f" (data {s.data_age_min:.0f} min old)"
-    return f"{s.name}: {s.level.upper()} — {s.summary}{age}"
+    """``Name: LEVEL — summary (newest reading …)``; on stale data the level is marked as
+    judged from old data, so that silence does not read as safety."""
+    if s.data_text:
+        data = f" ({s.data_text})"
+    elif s.data_age_min is not None:
+        data = f" (data {s.data_age_min:.0f} min old)"
+    else:
+        data = ""
+    level = s.level.upper()
+    if s.stale:
+        level += " on old data" if s.data_age_min is not None else " with no data"
+    return f"{s.name}: {level} — {s.summary}{data}"
 
 
 def handle(backend: BotBackend, sender: str, text: str, now: datetime) -> str:

@@ -14,8 +14,10 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, cast
 
+from notifier.core.config import Config
 from notifier.core.config_file import load_config
-from notifier.core.errors import FogwatchError, UsageError
+from notifier.core.errors import DataError, FogwatchError, UsageError
+from notifier.core.timefmt import iso_z
 from notifier.service.loading import (
     Loaded,
     evaluate,
@@ -36,20 +38,52 @@ class ObservationBatch:
     warnings: list[str] = field(default_factory=list)
 
 
+def read_data(paths: list[str], config: Config, now: datetime) -> ObservationBatch:
+    """The ``--data`` files of any command as one table.
+
+    A file that does not exist or cannot be read is an error (exit 2), and so is input
+    of which not one row could be taken: a command must not judge (or score) a night on
+    no data as if it had been quiet. Every rejection is shown on stderr first.
+    """
+    from notifier.ingest.poll import read_files
+
+    unreadable = []
+    for name in paths:
+        path = Path(name)
+        if not path.exists():
+            unreadable.append(f"{path}: file not found")
+        elif path.is_dir():
+            unreadable.append(f"{path}: is a folder, not a file")
+    if unreadable:
+        raise DataError("\n".join(unreadable))
+    frame, rejections, warnings = read_files([Path(p) for p in paths], config, now)
+    batch = ObservationBatch(frame, rejections, warnings)
+    cannot = [r for r in rejections if r.line is None and r.reason.startswith("cannot read")]
+    if cannot:
+        _report_input(ObservationBatch(frame, [r for r in rejections if r not in cannot], warnings))
+        raise DataError("\n".join(str(r) for r in cannot))
+    if frame.empty:
+        _report_input(batch)
+        raise DataError(
+            f"no observation could be taken from {', '.join(paths)}: every input row was "
+            f"rejected ({len(rejections)} reason(s) listed above)"
+        )
+    return batch
+
+
 def _data_for(loaded: Loaded, args: argparse.Namespace) -> tuple[ObservationBatch, datetime]:
     """Observations for a one-off command: the --data files, or a poll into the store."""
     config = loaded.config
     if getattr(args, "data", None):
         at_guess = parse_time(args.at) if args.at else datetime.now(UTC)
-        from notifier.ingest.poll import read_files
-
-        frame, rejections, warnings = read_files([Path(p) for p in args.data], config, at_guess)
+        batch = read_data(args.data, config, at_guess)
+        frame = batch.frame
         if args.at is None and len(frame):
             # replaying a file: judge it at its newest observation, not at today's clock
             observed = frame[frame["kind"] == "obs"]
             if len(observed):
                 at_guess = observed["time"].max().to_pydatetime().astimezone(UTC)
-        return ObservationBatch(frame, rejections, warnings), at_guess
+        return batch, at_guess
     at = parse_time(args.at)
     from notifier.ingest.poll import poll_all
 
@@ -80,17 +114,34 @@ def _report_input(batch: ObservationBatch) -> None:
 
 def cli_assess(args: argparse.Namespace) -> int:
     from notifier.cli.views import assessment_table
+    from notifier.core.freshness import freshness
     from notifier.engine.assessment import to_json
 
     loaded = load(args.config)
     batch, at = _data_for(loaded, args)
     _report_input(batch)
     assessments = evaluate(loaded, batch.frame, at)
+    newest = _store_newest(loaded.config) if not args.data else {}
     if args.json:
-        print(json.dumps(to_json(assessments), indent=2, ensure_ascii=False))
+        records = to_json(assessments)
+        for record, sa in zip(records, assessments, strict=True):
+            # a reading older than the window is still the newest one: say when it was
+            if record["data"]["last_time"] is None and sa.site.id in newest:
+                fresh = freshness(newest[sa.site.id], at, sa.site.timezone, sa.stale_after_min)
+                record["data"] = fresh.as_json()
+        print(json.dumps(records, indent=2, ensure_ascii=False))
     else:
-        print(assessment_table(assessments))
+        print(assessment_table(assessments, newest))
     return 0
+
+
+def _store_newest(config: Config) -> dict[str, datetime]:
+    """The newest observed reading of each site in the store, however old (the window
+    the rules read holds only the last hours: older rows are not "no readings")."""
+    from notifier.cli.state_views import newest_by
+
+    with open_store(config) as store:
+        return newest_by(store.newest_readings(), 0)
 
 
 def cli_explain(args: argparse.Namespace) -> int:
@@ -109,12 +160,24 @@ def cli_explain(args: argparse.Namespace) -> int:
 
 
 def cli_sources(args: argparse.Namespace) -> int:
-    from notifier.ingest.poll import health_report
+    """Each source's poll health and the newest reading it brought, with its age."""
+    from notifier.cli.state_views import public, source_states, sources_text
 
     config = load_config(args.config)
+    now = parse_time(getattr(args, "at", None))
     with open_store(config) as store:
-        print(health_report(store, config))
+        records = source_states(config, store.source_health(), store.newest_readings(), now)
+    if getattr(args, "json", False):
+        out = {"time": iso_z(now), "sources": public(records)}
+        print(json.dumps(out, indent=2, ensure_ascii=False))
+    else:
+        print(sources_text(records, now, _zone(config)))
     return 0
+
+
+def _zone(config: Config) -> str:
+    """The zone times are shown in when they belong to no one site: the first site's."""
+    return config.sites[0].timezone if config.sites else "UTC"
 
 
 def cli_once(args: argparse.Namespace) -> int:
@@ -149,41 +212,48 @@ def cli_run(args: argparse.Namespace) -> int:
 
 
 def cli_status(args: argparse.Namespace) -> int:
-    from notifier.core.timefmt import local_time
-    from notifier.ingest.poll import health_report
+    """Each site's last level with its data's date and age, the sources, the outbox."""
+    from notifier.cli.state_views import public, site_states, source_states, status_text
     from notifier.storage.outbox import Outbox
 
     config = load_config(args.config)
+    now = parse_time(getattr(args, "at", None))
     with open_store(config) as store:
         outbox = Outbox(store)
-        snaps = outbox.snapshots()
-        print("Sites")
-        for site in config.sites:
-            snap = snaps.get(site.id)
-            if snap is None:
-                print(f"  {site.id:<24} not assessed yet")
-                continue
-            when, level, payload = snap
-            hazards = ", ".join(f"{h['hazard']} {h['level']}" for h in payload["hazards"])
-            stale = " DATA STALE" if payload["data"]["stale"] else ""
-            print(
-                f"  {site.id:<24} {level.upper():<8} {hazards or '-'}{stale} "
-                f"(at {local_time(when, site.timezone)})"
-            )
-        print()
-        print(health_report(store, config))
-        print()
+        readings = store.newest_readings()
+        sites = site_states(config, outbox.snapshots(), readings, now)
+        sources = source_states(config, store.source_health(), readings, now)
         backlog = outbox.backlog()
-        print("Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty"))
-        for row in outbox.deliveries(["failed", "expired", "cancelled"])[-10:]:
-            print(f"  {row.status}: {row.subscriber} via {row.channel}: {row.last_error}")
-        _print_holds(outbox.deliveries(["pending"]), config)
-        pending = [r for r in outbox.deliveries(["pending"]) if r.attempts]
-        for row in pending[-10:]:
-            print(
-                f"  retrying ({row.attempts} tries): {row.subscriber} via {row.channel}: "
-                f"{row.last_error}"
-            )
+        trouble = outbox.deliveries(["failed", "expired", "cancelled"])[-10:]
+        pending_rows = outbox.deliveries(["pending"])
+        retrying = [r for r in pending_rows if r.attempts][-10:]
+    if getattr(args, "json", False):
+        problem = [
+            {
+                "status": r.status,
+                "subscriber": r.subscriber,
+                "channel": r.channel,
+                "attempts": r.attempts,
+                "last_error": r.last_error,
+            }
+            for r in [*trouble, *retrying]
+        ]
+        out = {
+            "time": iso_z(now),
+            "sites": public(sites),
+            "sources": public(sources),
+            "outbox": {"backlog": dict(sorted(backlog.items())), "problems": problem},
+        }
+        print(json.dumps(out, indent=2, ensure_ascii=False))
+        return 0
+    lines = ["Outbox: " + (", ".join(f"{n} {s}" for s, n in sorted(backlog.items())) or "empty")]
+    lines += [f"  {r.status}: {r.subscriber} via {r.channel}: {r.last_error}" for r in trouble]
+    lines += [
+        f"  retrying ({r.attempts} tries): {r.subscriber} via {r.channel}: {r.last_error}"
+        for r in retrying
+    ]
+    print(status_text(sites, sources, lines, now, _zone(config)))
+    _print_holds(pending_rows, config)
     return 0
 
 
@@ -289,7 +359,6 @@ def cli_replay(args: argparse.Namespace) -> int:
     from notifier.engine.rule_files import load_rule_set
     from notifier.history import replay as rp
     from notifier.history import report as rt
-    from notifier.ingest.poll import read_files
 
     loaded = load(args.config, getattr(args, "model", None))
     start, end = parse_time(args.start), parse_time(args.end)
@@ -301,10 +370,9 @@ def cli_replay(args: argparse.Namespace) -> int:
         raise UsageError(f"--step: {exc}") from exc
     if step_s <= 0:
         raise UsageError("--step must be positive")
-    frame, rejections, warnings = read_files(
-        [Path(p) for p in args.data], loaded.config, datetime.now(UTC)
-    )
-    _report_input(ObservationBatch(frame, rejections, warnings))
+    batch = read_data(args.data, loaded.config, datetime.now(UTC))
+    _report_input(batch)
+    frame = batch.frame
     sets = [(loaded, "rules")]
     if args.rules_b:
         other = Loaded(loaded.config, load_rule_set([Path(args.rules_b)]), loaded.model)
@@ -327,6 +395,8 @@ def cli_replay(args: argparse.Namespace) -> int:
         print(json.dumps(rt.to_json(results), indent=2, ensure_ascii=False))
     else:
         print(rt.report_text(results))
+    if not results[0].nights:
+        print(f"replay: {_whole_nights_hint(loaded.config, start, end)}", file=sys.stderr)
     if args.csv:
         rt.write_csv(results, Path(args.csv))
     if args.png:
@@ -339,3 +409,22 @@ def cli_replay(args: argparse.Namespace) -> int:
                 file=sys.stderr,
             )
     return 0
+
+
+def _whole_nights_hint(config: Config, start: datetime, end: datetime) -> str:
+    """What to ask instead when --from/--to hold no whole site-night (local noon to noon)."""
+    from datetime import timedelta
+
+    from notifier.core.timefmt import iso_z
+    from notifier.history.verify import night_of
+
+    zone = config.sites[0].timezone
+    first = night_of(start, zone)
+    last = night_of(end, zone)
+    if last < end:
+        last = night_of(last + timedelta(hours=36), zone)  # the local noon after --to
+    return (
+        f"no whole site-night (local noon to noon) between {iso_z(start)} and {iso_z(end)}, "
+        f"so nothing was scored; e.g. --from {iso_z(first)} --to {iso_z(last)} "
+        f"(noon to noon at {config.sites[0].id}, {zone})"
+    )

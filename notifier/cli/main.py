@@ -42,13 +42,24 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from notifier.core.config_file import read_config
+    """Every problem of the config and its rule files in one report; exit 2 if any."""
+    from notifier.core.config_file import check_config
+    from notifier.core.errors import ConfigError
     from notifier.engine.rule_files import load_rule_set
 
-    config, warnings = read_config(args.config)
+    config, problems, warnings = check_config(args.config)
     for warning in warnings:
         print(f"warning: {warning}", file=sys.stderr)
-    rules = load_rule_set(config.rule_paths())
+    rules = None
+    if config is not None:
+        # a rule path that does not exist is one of the config's problems already
+        paths = [p for p in config.rule_paths() if p.exists()]
+        try:
+            rules = load_rule_set(paths) if paths else None
+        except ConfigError as exc:  # reported beside the config's own problems
+            problems = problems + [p for p in exc.problems if p not in problems]
+    if problems or config is None or rules is None:
+        raise ConfigError(problems)
     print(
         f"ok: {config.path}: {len(config.sites)} site(s), {len(config.sources)} source(s), "
         f"{len(rules.rules)} rule(s) from {len(rules.files)} file(s), "
@@ -100,6 +111,11 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", help="the fogwatch YAML config file")
 
 
+def _add_at_and_json(p: argparse.ArgumentParser, at_help: str) -> None:
+    p.add_argument("--at", metavar="TIME", help=f"{at_help} (ISO 8601; default now)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The ``fogwatch`` parser; each subcommand's ``handler`` is what it runs."""
     parser = _Parser(
@@ -141,8 +157,9 @@ def _add_reading_commands(sub: _Subcommands) -> None:
     p.add_argument("--at", metavar="TIME", help="evaluation time (ISO 8601; default now)")
     p.set_defaults(handler=_cmd_explain)
 
-    p = sub.add_parser("sources", help="poll health of each configured source")
+    p = sub.add_parser("sources", help="poll health of each source and its newest reading")
     _add_common(p)
+    _add_at_and_json(p, "the time ages are counted to")
     p.set_defaults(handler=_cmd_sources)
 
 
@@ -157,8 +174,9 @@ def _add_service_commands(sub: _Subcommands) -> None:
     _add_common(p)
     p.set_defaults(handler=_cmd("cli_run"))
 
-    p = sub.add_parser("status", help="current levels, source health, outbox backlog")
+    p = sub.add_parser("status", help="current levels, data age, source health, outbox")
     _add_common(p)
+    _add_at_and_json(p, "the time ages are counted to")
     p.set_defaults(handler=_cmd("cli_status"))
 
 

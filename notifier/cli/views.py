@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from datetime import UTC
+from datetime import UTC, datetime
 
+from notifier.core.freshness import freshness
 from notifier.core.timefmt import local_time
 from notifier.engine.assessment import SiteAssessment, level_rank
 from notifier.engine.catalog import FEATURES, format_value
@@ -22,8 +23,14 @@ def _fmt(name: str, value: float) -> str:
     return format_value(name, value)
 
 
-def assessment_table(assessments: Sequence[SiteAssessment]) -> str:
-    """A compact table: one line per site, then one indented line per hazard."""
+def assessment_table(
+    assessments: Sequence[SiteAssessment], newest: Mapping[str, datetime] | None = None
+) -> str:
+    """A compact table: one line per site, then one indented line per hazard.
+
+    ``newest``: each site's newest reading in the store, for a site whose readings are all
+    older than the window the rules read (its data column then dates that reading)."""
+    newest = newest or {}
     if not assessments:
         return "no sites"
     at = assessments[0].time.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
@@ -42,10 +49,9 @@ def assessment_table(assessments: Sequence[SiteAssessment]) -> str:
             v = f[name]
             return "—" if math.isnan(v) else format(v, spec)
 
-        age = f["data_age_min"]
-        data = ("never" if math.isinf(age) else f"{age:.0f} min ago") + (
-            " STALE" if a.stale else ""
-        )
+        last = a.last_time or newest.get(a.site.id)
+        fresh = freshness(last, a.time, a.site.timezone, a.stale_after_min)
+        data = fresh.text.removeprefix("newest reading ")
         lines.append(
             f"{a.site.id:<{width}}  {_LEVEL_MARK[a.level]:<7}  {num('temp_c'):>6} "
             f"{num('dewpoint_c'):>6} {num('dewpoint_depression_c'):>5} "

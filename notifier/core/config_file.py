@@ -35,6 +35,7 @@ from notifier.core.config import (
     FolderChannel,
     TextChannel,
 )
+from notifier.core.config_hints import did_you_mean, folder_problems
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
 from notifier.core.redact import remember_env_value
@@ -50,7 +51,7 @@ from notifier.core.yamlio import (
     without_env_value,
 )
 
-__all__ = ["load_config", "problems_from_validation", "read_config"]
+__all__ = ["check_config", "load_config", "problems_from_validation", "read_config"]
 
 log = logging.getLogger(__name__)
 
@@ -113,7 +114,8 @@ def problems_from_validation(
             if f"got: {err.get('input')!r}" in msg:
                 got = ""  # the validator's message shows it already
         if err["type"] == "extra_forbidden":
-            msg = "unknown key"
+            hint = did_you_mean(loc)
+            msg = f"unknown key ({hint})" if hint else "unknown key"
             got = ""
         if shown in secret_locs:
             got = " (value from the environment, not shown)"
@@ -150,8 +152,21 @@ def read_config(path: str | Path) -> tuple[Config, list[ConfigProblem]]:
     return config, warnings
 
 
-def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[ConfigProblem]]:
-    """(the config, or ``None`` when there are problems; the problems; the warnings)."""
+def check_config(
+    path: str | Path,
+) -> tuple[Config | None, list[ConfigProblem], list[ConfigProblem]]:
+    """What ``fogwatch check`` reports, in one round: (the config as far as it validated,
+    or ``None``; every problem, including a drop folder that does not exist; the
+    warnings). The config is returned even with problems, so that its rule files can be
+    checked in the same run."""
+    return _read(path, check=True)
+
+
+def _read(
+    path: str | Path, check: bool = False
+) -> tuple[Config | None, list[ConfigProblem], list[ConfigProblem]]:
+    """(the config, or ``None`` when there are problems unless ``check``; the problems;
+    the warnings)."""
     path = Path(path).resolve()
     raw = load_yaml(path)
     if raw is None:
@@ -176,17 +191,23 @@ def _read(path: str | Path) -> tuple[Config | None, list[ConfigProblem], list[Co
         for loc, names in found.missing.items()
         for name in names
     ]
-    config, found_problems = _validate(path, raw, found)
+    config, found_problems, view = _validate(path, raw, found)
     problems += found_problems
+    if check and config is not None:
+        sources = view.index.get("sources", list(range(len(config.sources))))
+        problems += folder_problems(str(path), raw, config, sources, skip=found.is_missing)
+    # in the order of the file (a problem without a line first)
+    problems.sort(key=lambda p: p.line or 0)
     if problems or config is None:
         if not problems:  # pragma: no cover - a failed validation always says why
             problems = [ConfigProblem(str(path), None, "invalid config")]
-        # in the order of the file (a problem without a line first)
-        return None, sorted(problems, key=lambda p: p.line or 0), warnings
+        return (config if check else None), problems, warnings
     return config, [], warnings
 
 
-def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, list[ConfigProblem]]:
+def _validate(
+    path: Path, raw: Any, found: Expansion
+) -> tuple[Config | None, list[ConfigProblem], _View]:
     """Validate and cross-check; on a validation error, cross-check what did validate."""
     view = _View(raw)
     try:
@@ -197,12 +218,12 @@ def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, li
         )
         pruned = _prune(raw, exc)
         if pruned is None:
-            return None, problems
+            return None, problems, view
         view = pruned
         try:
             config = Config.model_validate({**view.data, "path": path})
         except ValidationError:
-            return None, problems
+            return None, problems, view
     else:
         problems = []
     config = _resolve_paths(config)
@@ -215,7 +236,7 @@ def _validate(path: Path, raw: Any, found: Expansion) -> tuple[Config | None, li
         problems.append(
             ConfigProblem(str(path), line_of(raw, raw_loc), f"{loc_text(raw_loc)}: {message}")
         )
-    return config, problems
+    return config, problems, view
 
 
 _LISTS = ("sites", "sources", "channels", "subscribers", "rules")

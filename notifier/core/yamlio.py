@@ -216,23 +216,31 @@ def line_of(data: Any, loc: Sequence[Any]) -> int | None:
     return line
 
 
-_ENV = re.compile(r"\$\{([A-Za-z_][A-Za-z0-9_]*)\}")
+# ``${NAME}``, or ``${NAME:-default}``: the default is used when NAME is unset or empty,
+# as in the POSIX shell's parameter expansion (IEEE Std 1003.1, 2.6.2 "Parameter
+# Expansion"); a default cannot contain "}"
+_ENV = re.compile(r"\$\{([A-Za-z_][A-Za-z0-9_]*)(?::-([^}]*))?\}")
 
 
 def expand_env_all(value: str, environ: Mapping[str, str] | None = None) -> tuple[str, list[str]]:
-    """Replace each ``${NAME}`` that is set; also return the names that are not.
+    """Replace each ``${NAME}`` that is set, and each ``${NAME:-default}`` (by NAME when it
+    is set and not empty, else by the default); also return the names that are missing.
 
     Every missing name is found, not only the first (each once, in order of appearance);
     a missing one is left as written in the returned text.
 
     >>> expand_env_all("${A}:${B}:${C}:${B}", {"A": "1"})
     ('1:${B}:${C}:${B}', ['B', 'C'])
+    >>> expand_env_all("${A:-x}/${B:-}/${C:-y}", {"A": "1", "C": ""})
+    ('1//y', [])
     """
     env = os.environ if environ is None else environ
     missing: list[str] = []
 
     def repl(match: re.Match[str]) -> str:
-        name = match.group(1)
+        name, default = match.group(1), match.group(2)
+        if default is not None:
+            return env.get(name) or default
         if name in env:
             return env[name]
         if name not in missing:
@@ -243,7 +251,8 @@ def expand_env_all(value: str, environ: Mapping[str, str] | None = None) -> tupl
 
 
 def expand_env(value: str, environ: Mapping[str, str] | None = None) -> str:
-    """Replace each ``${NAME}`` with the environment variable; a missing one is an error.
+    """Replace each ``${NAME}`` with the environment variable (``${NAME:-default}`` falls
+    back to its default); a missing one is an error.
 
     Raises ``KeyError`` whose arguments name every missing variable (the first is
     ``args[0]``); config loading uses :func:`expand_env_all` and reports each at its line.
@@ -282,7 +291,7 @@ def expand_all(node: Any, loc: Loc, found: Expansion) -> Any:
             return node  # left as written: validation skips this place
         found.expanded.add(loc)
         env = os.environ
-        found.values.update(env[name] for name in _ENV.findall(node) if name in env)
+        found.values.update(env[name] for name, _ in _ENV.findall(node) if env.get(name))
         return value
     return node
 

@@ -1,6 +1,12 @@
 """A small PNG for email: the last 12 h of air, dew point and surface temperature, with the
 night's projected cooling curve and where it meets the dew point.
 
+The picture stands on its own when forwarded: the site, hazard and level in its title, the
+date and time zone on the time axis, and the caution along its foot. The projection runs
+only through the night: it stops at sunrise, or where the projected air starts to warm.
+An icing chart shows the surface (else the air) against 0 °C and the frost point, and
+marks no dew-point crossing. The legend sits above the plot, clear of the "now" label.
+
 matplotlib is imported inside :func:`chart_png` with the Agg backend, and the figure is
 built with the object API (no pyplot state), so charts can be drawn from any thread of
 a headless service.
@@ -11,15 +17,16 @@ from __future__ import annotations
 import io
 from collections.abc import Sequence
 from datetime import UTC, datetime, timedelta, tzinfo
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
     from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
-__all__ = ["Projection", "chart_png", "projection_points"]
+__all__ = ["Projection", "chart_figure", "chart_png", "night_points", "projection_points"]
 
 # (temperature at sunset °C, cooling coefficient K h^-1/2, sunset time) — Brunt's
 # square-root law, see notifier.physics.cooling — or explicit (time, temp °C) points.
@@ -56,6 +63,21 @@ def projection_points(
     return [(t, float(v)) for t, v in projection]  # type: ignore[misc]
 
 
+def night_points(
+    points: Sequence[tuple[datetime, float]], sunrise: datetime | None
+) -> list[tuple[datetime, float]]:
+    """The projected points up to sunrise and up to the projected minimum: a cooling curve
+    says nothing about the day, and once the air warms the night's question is answered."""
+    out: list[tuple[datetime, float]] = []
+    for t, v in points:
+        if sunrise is not None and t > sunrise:
+            break
+        if out and v > min(p[1] for p in out):
+            break  # the air has started to warm
+        out.append((t, v))
+    return out
+
+
 def _crossing(
     points: Sequence[tuple[datetime, float]], dewpoint_c: float
 ) -> tuple[datetime, float] | None:
@@ -76,14 +98,41 @@ def chart_png(
     dewpoint: float | None = None,
     title: str = "",
     tz_name: str = "UTC",
+    **context: Any,
 ) -> bytes:
-    """PNG bytes (800 × 450) of one site's canonical observations around ``now``.
+    """PNG bytes (800 × 450) of :func:`chart_figure`."""
+    fig = chart_figure(frame, now, projection, dewpoint, title, tz_name, **context)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
+def chart_figure(
+    frame: pd.DataFrame,
+    now: datetime,
+    projection: Projection | None = None,
+    dewpoint: float | None = None,
+    title: str = "",
+    tz_name: str = "UTC",
+    *,
+    hazard: str = "fog",
+    level: str = "",
+    sunrise: datetime | None = None,
+    frost_point: float | None = None,
+    caution: str | None = None,
+) -> Figure:
+    """One site's canonical observations around ``now`` as a matplotlib Figure.
 
     ``frame`` has the canonical columns (``time``, ``temp_c``, ``dewpoint_c``,
     ``surface_temp_c``; missing columns are skipped). ``dewpoint`` is the level the
     projection is compared with (default: the newest dew point in the frame).
+    ``hazard`` and ``level`` go into the title; ``sunrise`` ends the projection;
+    ``frost_point`` is drawn on an icing chart; ``caution`` (default: the one every
+    message carries) runs along the foot.
     """
     import matplotlib
+
+    from notifier.delivery.messages import CAUTION
 
     matplotlib.use("Agg")
     from zoneinfo import ZoneInfo
@@ -104,13 +153,26 @@ def chart_png(
     _plot_observations(ax, data, x)
     if dewpoint is None:
         dewpoint = _newest_dewpoint(data)
-    if projection is not None:
-        _plot_projection(ax, projection_points(projection, now), dewpoint, zone)
-    _set_axes(ax, now, projection is not None, zone, title)
-    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.1)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI)
-    return buf.getvalue()
+    # through the night: to sunrise when it is known (at most 16 h), else AHEAD
+    ahead = AHEAD
+    if sunrise is not None and now < sunrise:
+        ahead = min(sunrise - now + timedelta(minutes=10), timedelta(hours=16))
+    points = night_points(projection_points(projection, now, ahead), sunrise) if projection else []
+    if hazard == "icing":
+        _plot_icing_levels(ax, frost_point)
+        _plot_projection(ax, points, None, zone)
+    else:
+        _plot_projection(ax, points, dewpoint, zone)
+    right = points[-1][0] + timedelta(minutes=30) if points else now + timedelta(hours=1)
+    _set_axes(ax, now, right, zone)
+    head = title or "Temperature, dew point and surface"
+    if level:
+        word = "all clear" if level == "none" else level.upper()
+        head += f" · {hazard.replace('_', ' ').capitalize()} {word}"
+    fig.suptitle(head, fontsize=11, x=0.01, y=0.985, ha="left")
+    fig.text(0.01, 0.012, CAUTION if caution is None else caution, fontsize=6.5, color="#555555")
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.84, bottom=0.2)
+    return fig
 
 
 def _recent_observations(frame: pd.DataFrame, now: datetime) -> tuple[pd.DataFrame, list[datetime]]:
@@ -191,16 +253,29 @@ def _plot_projection(
     )
 
 
-def _set_axes(ax: Axes, now: datetime, projected: bool, zone: tzinfo, title: str) -> None:
-    """The time axis (12 h back, up to 10 h ahead when ``projected``) in local hours, a
-    marked "now", the labels, the grid and the legend."""
+def _plot_icing_levels(ax: Axes, frost_point: float | None) -> None:
+    """0 °C, and the frost point: where a surface below both gathers ice."""
+    ax.axhline(0.0, color="#17202a", linewidth=1.2, label="0 °C")
+    if frost_point is not None and np.isfinite(frost_point):
+        ax.axhline(frost_point, color="#1abc9c", linestyle="-.", linewidth=1.2, label="frost point")
+
+
+def _set_axes(ax: Axes, now: datetime, right: datetime, zone: tzinfo) -> None:
+    """The time axis (12 h back, to ``right``) in local hours with the dates and the time
+    zone under it, a marked "now", the labels, the grid and the legend above the plot."""
     from matplotlib import dates as mdates
 
+    left = now - WINDOW
     ax.axvline(mdates.date2num(now), color="#999999", linewidth=1)
-    right = now + (AHEAD if projected else timedelta(hours=1))
-    ax.set_xlim(mdates.date2num(now - WINDOW), mdates.date2num(right))
+    ax.set_xlim(mdates.date2num(left), mdates.date2num(right))
     ax.xaxis.set_major_locator(mdates.HourLocator(byhour=range(0, 24, 3), tz=zone))
     ax.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=zone))
+    first, last = left.astimezone(zone), right.astimezone(zone)
+    days = (
+        f"{first:%a %d %b}" if first.date() == last.date() else f"{first:%a %d} – {last:%a %d %b}"
+    )
+    names = sorted({first.strftime("%Z"), now.astimezone(zone).strftime("%Z"), last.strftime("%Z")})
+    ax.set_xlabel(f"{days} {last:%Y}, local time ({' / '.join(names)})", fontsize=9)
     ax.annotate(
         "now",
         (mdates.date2num(now), 1.0),
@@ -211,7 +286,13 @@ def _set_axes(ax: Axes, now: datetime, projected: bool, zone: tzinfo, title: str
         color="#777777",
     )
     ax.set_ylabel("°C")
-    ax.set_title(title or "Temperature, dew point and surface", fontsize=11)
     ax.grid(True, alpha=0.3)
     if ax.get_legend_handles_labels()[0]:
-        ax.legend(loc="upper right", fontsize=9, frameon=False)
+        ax.legend(
+            loc="lower left",
+            bbox_to_anchor=(0.0, 1.0),
+            ncol=6,
+            fontsize=8,
+            frameon=False,
+            borderaxespad=0.2,
+        )

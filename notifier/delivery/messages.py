@@ -29,6 +29,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
 
 from notifier.core.timefmt import iso_text, local_time
 from notifier.delivery.wording import (
@@ -357,9 +358,12 @@ def render_summary(
     count = len(items)
     sites = len({s.id for _, s in items})
     plural = "s" if count != 1 else ""
+    # "Overnight" only for a summary released in the morning (local 03:00-12:00); one
+    # released at, say, 22:00 after afternoon quiet hours says what it is
+    morning = 3 <= at.astimezone(ZoneInfo(zone)).hour < 12
     head = (
-        f"Overnight: {count} update{plural} for {sites} site{'s' if sites != 1 else ''}"
-        f" · {hhmm(at, zone)}"
+        f"{'Overnight' if morning else 'While quiet'}: {count} update{plural} for {sites} "
+        f"site{'s' if sites != 1 else ''} · {hhmm(at, zone)}"
     )
     lines = [*_wrap(head), *_wrap(local_time(at, zone, with_date=True) + " · held for quiet hours")]
     current = None

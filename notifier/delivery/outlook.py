@@ -70,21 +70,45 @@ def outlook_lines(sa: SiteAssessment, now: datetime) -> tuple[list[str], str]:
 
 
 def outlook_event(sa: SiteAssessment, now: datetime) -> Event:
-    lines, chance = outlook_lines(sa, now)
+    """The outlook as an event whose fields agree with its text.
+
+    ``level`` and ``previous_level`` are the site's level now (the outlook changes no
+    level, and its text says "now <level>"); routing sends it as watch-level news whatever
+    that level (delivery.routing). ``reasons`` are the outlook's sentences, ``eta`` the
+    middle of the onset window when the cooling curve gives one, and ``kind`` is left
+    empty: the fog chance is a sentence of the text, not a kind of fog."""
+    lines, _chance = outlook_lines(sa, now)
+    if sa.stale:
+        lines.append(
+            "The newest reading is older than alerts.stale_after: this outlook rests on old data."
+        )
+    hours = sa.features.get("hours_to_fog")
+    onset_known = _finite(hours) and any(line.startswith("Onset window: ") for line in lines)
     return Event(
+        # the id keeps "watch": an outlook queued twice for one moment is still one outlook
         id=event_id(sa.site.id, "fog", None, "outlook", "watch", now),
         type="outlook",
         site_id=sa.site.id,
         hazard="fog",
-        level="watch",
+        level=sa.level,
         previous_level=sa.level,
         time=now,
-        kind=f"chance {chance}",
+        eta=now + timedelta(hours=float(hours)) if onset_known else None,  # type: ignore[arg-type]
+        reasons=tuple(lines),
         explanations=tuple(lines),
         features={
             k: v
             for k, v in sa.features.items()
-            if k in ("temp_c", "dewpoint_c", "projected_min_temp_c", "cooling_potential")
+            if k
+            in (
+                "temp_c",
+                "dewpoint_c",
+                "projected_min_temp_c",
+                "cooling_potential",
+                "hours_to_fog",
+                "hours_to_sunrise",
+            )
+            and math.isfinite(v)
         },
         data_age_min=sa.age_min if math.isfinite(sa.age_min) else None,
         projection_method=sa.projection_method,

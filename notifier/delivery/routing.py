@@ -9,7 +9,8 @@ A subscriber gets an event when all of these hold:
   highest level of the episode they end: whoever got the warning gets its all-clear.
   Data gaps (``data_gap`` and ``data_back``) go to everyone who subscribes to the
   ``data_gap`` hazard whatever their ``min_level``: a dead feed means they could miss a
-  warning, and silence must not look like safety;
+  warning, and silence must not look like safety. The evening outlook is watch-level
+  news, whatever the site's level;
 - no mute covers it: a :class:`Mute` names a subscriber id (``None``: every subscriber)
   and a site id (``None``: every site) and covers events before ``until``. "Every" is
   ``None``, never a string, so no id can stand for everyone.
@@ -150,7 +151,8 @@ def route(
             site = config.site(event.site_id)
         except KeyError:  # a site since removed from the config: no one can select it
             continue
-        news = event.news_level
+        # the evening outlook is watch-level news whatever the site's level now
+        news = "watch" if event.type == "outlook" else event.news_level
         data_news = event.hazard == "data_gap"
         for sub in subscribers:
             if event.site_id not in chosen_sites[sub.id] or event.hazard not in sub.hazards:

@@ -26,6 +26,13 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["progress_bar", "report_text", "timeline_figure", "to_json", "write_csv", "write_png"]
 
 
+#: said instead of scores when --from/--to hold no whole site-night (verify's definition)
+NO_WHOLE_NIGHT = [
+    "Nothing scored: no whole site-night lies between --from and --to. A site-night runs",
+    "from local noon to the next local noon at each site; widen the range to cover one.",
+]
+
+
 def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
     """Each result's scores, events, false alarms and misses, keyed by its label."""
     out: dict[str, Any] = {}
@@ -119,6 +126,13 @@ def report_text(results: Sequence[ReplayResult]) -> str:
     ]
     for res in results:
         lines.extend(_timeline_lines(res))
+    if not first.nights:
+        lines += [*NO_WHOLE_NIGHT, ""]
+        lines.append(
+            "Scores of an automated estimate on past data; they do not make it an official "
+            "forecast."
+        )
+        return "\n".join(lines)
     lines.extend(_score_lines(results))
     lines.extend(_reference_lines(results))
     lines.extend(_probability_lines(results))

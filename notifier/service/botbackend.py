@@ -55,15 +55,27 @@ class ServiceBackend:
         return scope
 
     def status(self, site_ids: Sequence[str]) -> list[SiteStatus]:
-        from notifier.core.timefmt import local_time
+        from notifier.core.freshness import freshness, when_text
+        from notifier.core.timefmt import parse_iso
 
         snaps = self.service.outbox.snapshots()
         names = self.site_names()
+        newest: dict[str, datetime] = {}
+        for site, _source, t in self.service.store.newest_readings():
+            newest[site] = max(t, newest.get(site, t))
+        stale_after_min = self.config.alerts.stale_after / 60.0
         out = []
         for sid in site_ids:
+            zone = self.config.site(sid).timezone
             snap = snaps.get(sid)
-            if snap is None:
-                out.append(SiteStatus(sid, names[sid], "none", "not assessed yet", None))
+            stored = parse_iso(snap[2].get("data", {}).get("last_time")) if snap else None
+            last = max([t for t in (newest.get(sid), stored) if t is not None], default=None)
+            # the age as of now, not as of the last assessment
+            fresh = freshness(last, self.now, zone, stale_after_min)
+            age = fresh.age_min if last is not None else None
+            if snap is None:  # no level to doubt yet; readings, if any, are shown
+                text = fresh.text if last is not None else ""
+                out.append(SiteStatus(sid, names[sid], "none", "not assessed yet", age, text))
                 continue
             when, level, payload = snap
             parts = []
@@ -71,20 +83,13 @@ class ServiceBackend:
                 eta = h.get("eta")
                 text = f"{h['hazard']} {h['level']} ({h['kind']})"
                 if eta:
-                    t = datetime.fromisoformat(eta.replace("Z", "+00:00"))
-                    text += f" from {local_time(t, self.config.site(sid).timezone)}"
+                    text += f" from {when_text(parse_iso(eta), self.now, zone)}"
                 parts.append(text)
             f = payload.get("features", {})
             if f.get("temp_c") is not None and f.get("dewpoint_c") is not None:
                 parts.append(f"T {f['temp_c']:.1f} °C, dew point {f['dewpoint_c']:.1f} °C")
-            if payload.get("data", {}).get("stale"):
-                parts.append("DATA STALE")
-            age = payload.get("data", {}).get("age_min")
-            if age is not None:
-                # the age was taken when the snapshot was stored; show it as of now
-                age = max(0.0, age + (self.now - when).total_seconds() / 60.0)
             summary = "; ".join(parts) or "nothing expected"
-            out.append(SiteStatus(sid, names[sid], level, summary, age))
+            out.append(SiteStatus(sid, names[sid], level, summary, age, fresh.text, fresh.stale))
         return out
 
     def reasons(self, site_id: str) -> list[str]:

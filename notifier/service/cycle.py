@@ -7,6 +7,7 @@
 from __future__ import annotations
 
 import logging
+import math
 import random
 import threading
 from collections.abc import Mapping, Sequence
@@ -282,6 +283,9 @@ class Service:
                 continue
             sa = by_site[ev.site_id]
             frame = obs[obs["site"] == ev.site_id] if len(obs) else obs
+            # the projection ends at sunrise (charts.night_points)
+            to_sunrise = sa.features.get("hours_to_sunrise", math.nan)
+            sunrise = now + timedelta(hours=to_sunrise) if math.isfinite(to_sunrise) else None
             try:
                 out[ev.id] = chart_png(
                     frame,
@@ -290,6 +294,10 @@ class Service:
                     dewpoint=sa.features.get("dewpoint_c"),
                     title=sa.site.name,
                     tz_name=sa.site.timezone,
+                    hazard=ev.hazard,
+                    level=ev.level,
+                    sunrise=sunrise,
+                    frost_point=sa.features.get("frost_point_c"),
                 )
             except Exception:  # a chart is a nicety; the alert must go without it
                 log.exception("chart for %s failed", ev.site_id)

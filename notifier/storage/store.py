@@ -327,6 +327,22 @@ class Store:
             result = c.execute(observations.delete().where(observations.c.time < epoch_s(before)))
             return int(result.rowcount or 0)
 
+    def newest_readings(self) -> list[tuple[str, str | None, datetime]]:
+        """(site, source, time) of the newest observed row of each site from each source,
+        whatever its age: what ``status`` and ``sources`` show as the data's age."""
+        o = observations.c
+        query = (
+            sa.select(o.site, o.source, sa.func.max(o.time))
+            .where(o.kind == "obs")
+            .group_by(o.site, o.source)
+            .order_by(o.site, o.source)
+        )
+        with self.engine.connect() as conn:
+            return [
+                (site, source, datetime.fromtimestamp(int(t), UTC))
+                for site, source, t in conn.execute(query)
+            ]
+
     # -- source health -------------------------------------------------------------
 
     def record_poll(

@@ -53,7 +53,7 @@ def test_status_of_one_site_and_of_all_ones_sites(assessed: Scene, capsys):
     one = ask(capsys, assessed, "guest-cy", "status zz-vale")
     assert one.startswith("Lower Vale Orchard: WARNING — fog warning (radiation)")
     assert "T 1.0 °C, dew point 0.9 °C" in one
-    assert "(data 0 min old)" in one
+    assert one.endswith("(newest reading 23:10 GMT today, 0 min old)\n" + CAUTION)
     assert one.endswith(CAUTION)
     # by name, any case, and by a unique part of the name
     assert ask(capsys, assessed, "guest-cy", "Status lower vale orchard") == one
@@ -85,7 +85,21 @@ def test_status_ages_the_stored_data_to_the_time_of_asking(assessed: Scene, caps
     )  # fmt: skip
     out = capsys.readouterr().out
     assert code == 0
-    assert "(data 25 min old)" in out
+    assert "(newest reading 23:10 GMT today, 25 min old)" in out
+
+
+def test_status_on_old_data_says_so_with_the_date_and_age(assessed: Scene, capsys):
+    # asked 27 days after the last reading: the level is marked as judged on old data, the
+    # reading dated, the age readable, and the mark past alerts.stale_after plain
+    later = AT + timedelta(days=27, hours=5)
+    code = main(["ask", str(assessed.config_path), "status zz-quay", "--as", "op-ash",
+                 "--at", later.isoformat()])  # fmt: skip
+    out = capsys.readouterr().out
+    assert code == 0
+    assert out.splitlines()[0] == (
+        "North Quay Basin: NONE on old data — T 9.0 °C, dew point 3.0 °C "
+        "(newest reading Fri 20 Nov 23:10 GMT, 27 days 5 h old: STALE)"
+    )
 
 
 def test_why_lists_the_reasons_with_the_caution(assessed: Scene, capsys):

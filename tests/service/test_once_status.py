@@ -22,12 +22,14 @@ def test_once_then_status_shows_levels_sources_and_outbox(scene: Scene, capsys):
     assert code == 0, err
     assert out.startswith("2 site(s) assessed, 1 event(s), ")
     assert "sent 2, retrying 0, failed 0, expired 0" in out  # the fog warning, desk + crew
-    code, out, err = run(capsys, "status", str(scene.config_path))
+    later = (at + timedelta(minutes=30)).isoformat()
+    code, out, err = run(capsys, "status", str(scene.config_path), "--at", later)
     assert code == 0, err
     lines = out.splitlines()
     assert lines[0] == "Sites"
     assert lines[1].split()[:2] == ["zz-vale", "WARNING"]
-    assert "fog warning" in lines[1] and "(at 23:10 GMT)" in lines[1]
+    assert "fog warning" in lines[1] and "assessed 23:10 GMT today" in lines[1]
+    assert lines[1].endswith("newest reading 23:10 GMT today, 30 min old")
     assert lines[2].split()[:2] == ["zz-quay", "NONE"]
     assert any(line.startswith("loggers") and "filedrop" in line for line in lines)
     assert "Outbox: 2 sent" in out
