@@ -15,7 +15,14 @@ import logging
 import time
 from typing import TextIO
 
-__all__ = ["DATE_FORMAT", "LINE_FORMAT", "UTCFormatter", "level_for", "setup_logging"]
+__all__ = [
+    "DATE_FORMAT",
+    "LINE_FORMAT",
+    "JSONFormatter",
+    "UTCFormatter",
+    "level_for",
+    "setup_logging",
+]
 
 LINE_FORMAT = "%(asctime)s %(levelname)s %(name)s: %(message)s"
 # ISO 8601 with a literal Z: a service's log is read beside other machines' logs, and
@@ -34,6 +41,28 @@ class UTCFormatter(logging.Formatter):
         return time.strftime(datefmt or DATE_FORMAT, time.gmtime(record.created))
 
 
+class JSONFormatter(logging.Formatter):
+    """One JSON object per line (``--log-format json``), for log collectors::
+
+        {"time": "2026-12-04T16:40:05Z", "level": "INFO", "logger": "...", "message": "..."}
+
+    An exception's traceback goes in ``"exc"``, so a record stays one line.
+    """
+
+    def format(self, record: logging.LogRecord) -> str:
+        import json
+
+        out = {
+            "time": time.strftime(DATE_FORMAT, time.gmtime(record.created)),
+            "level": record.levelname,
+            "logger": record.name,
+            "message": record.getMessage(),
+        }
+        if record.exc_info:
+            out["exc"] = self.formatException(record.exc_info)
+        return json.dumps(out, ensure_ascii=False)
+
+
 def level_for(verbosity: int) -> int:
     """The root level for ``-v`` given ``verbosity`` times: WARNING, then INFO, then DEBUG.
 
@@ -43,13 +72,16 @@ def level_for(verbosity: int) -> int:
     return logging.WARNING - 10 * min(verbosity, 2)
 
 
-def setup_logging(verbosity: int = 0, stream: TextIO | None = None) -> None:
+def setup_logging(
+    verbosity: int = 0, stream: TextIO | None = None, *, json_lines: bool = False
+) -> None:
     """Sends log lines to ``stream`` (standard error by default) in the :class:`UTCFormatter`
-    layout at :func:`level_for` ``verbosity``.
+    layout (or as :class:`JSONFormatter` objects with ``json_lines``) at :func:`level_for`
+    ``verbosity``.
 
     Like :func:`logging.basicConfig` it does nothing when the root logger already has a
     handler (an embedding program, or a test's log capture, chose where lines go).
     """
     handler = logging.StreamHandler(stream)
-    handler.setFormatter(UTCFormatter())
+    handler.setFormatter(JSONFormatter() if json_lines else UTCFormatter())
     logging.basicConfig(level=level_for(verbosity), handlers=[handler])
