@@ -10,7 +10,7 @@ One event of the lifecycle is one CAP ``<alert>`` (docs/references.md [OASIS CAP
   judged: it is no weather at all, but silence must not look like safety).
 - ``urgency`` from the arrival time, ``severity`` from the level and hazard,
   ``certainty`` from the level, or from the model's probability when one is loaded (the
-  value lists and their meanings are the standard's, section 3.2.2).
+  value lists and their meanings are the standard's).
 - ``onset`` the arrival time, ``expires`` a fixed time after it, ``headline`` the
   message's own headline, ``description`` the reasons and the caution, ``instruction``
   the safety notes, and the site as an ``area`` circle.
@@ -63,9 +63,12 @@ MSG_TYPES = {
 # an alert is considered for this long after its onset unless updated (common practice:
 # twice the default reminder interval, so a live alert is always renewed before it lapses)
 VALID_FOR = timedelta(hours=6)
-# "Expected: responsive action SHOULD be taken soon (within next hour)" (CAP 1.2, 3.2.2)
+# "Expected: responsive action SHOULD be taken soon (within next hour)"
+# (docs/references.md [OASIS CAP 1.2])
 EXPECTED_WITHIN = timedelta(hours=1)
-_RESTRICTED = re.compile(r"[\s,<&]+")  # not allowed in identifier or sender (CAP 1.2, 3.2.1)
+_RESTRICTED = re.compile(
+    r"[\s,<&]+"
+)  # not allowed in identifier or sender (docs/references.md [OASIS CAP 1.2])
 
 
 def cap_time(moment: datetime) -> str:
@@ -109,7 +112,7 @@ def severity(event: Event) -> str:
     """Icing at warning level is Severe (a significant threat to life: ice on decks,
     roads and steps), fog at warning level Moderate (a possible threat), a watch Minor;
     a data gap Unknown. The level-to-severity choice is common practice; the meanings
-    are CAP 1.2's (3.2.2)."""
+    are CAP 1.2's (docs/references.md [OASIS CAP 1.2])."""
     if event.hazard == "data_gap":
         return "Unknown"
     level = event.news_level
@@ -216,7 +219,7 @@ def cap_message(
         _sub(parameter, "value", value)
     area = _sub(info, "area")
     _sub(area, "areaDesc", site.name)
-    # "lat,lon radius": WGS 84 degrees, radius in kilometres (CAP 1.2, 3.2.4)
+    # "lat,lon radius": WGS 84 degrees, radius in kilometres (docs/references.md [OASIS CAP 1.2])
     _sub(area, "circle", f"{site.lat:.5f},{site.lon:.5f} {radius_km:g}")
     ET.indent(alert)
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(
@@ -227,16 +230,19 @@ def cap_message(
 def atom_index(
     entries: Sequence[tuple[Event, Site]], *, base_url: str, sender: str, now: datetime
 ) -> str:
-    """An Atom feed (RFC 4287) of current CAP messages, each linked at ``/cap/ID.xml``."""
+    """An Atom feed of current CAP messages (docs/references.md [RFC 4287]), each linked
+    at ``/cap/ID.xml``."""
 
     def sub(parent: ET.Element, tag: str, text: str | None = None, **attrs: str) -> ET.Element:
-        el = ET.SubElement(parent, f"{{{ATOM_NS}}}{tag}", attrs)
+        el = ET.SubElement(parent, tag, attrs)
         if text is not None:
             el.text = text
         return el
 
     base = base_url.rstrip("/")
-    feed = ET.Element(f"{{{ATOM_NS}}}feed")
+    # plain names under a literal xmlns: ElementTree's default_namespace cannot carry
+    # the unqualified attributes Atom uses (rel, href)
+    feed = ET.Element("feed", xmlns=ATOM_NS)
     sub(feed, "id", f"{base}/cap.xml")
     sub(feed, "title", "fogwatch: current alerts (CAP 1.2)")
     newest = max((e.time for e, _ in entries), default=now)
@@ -252,6 +258,4 @@ def atom_index(
         sub(entry, "summary", f"{msg_type(event)}: {_event_name(event)} at {site.name}")
         sub(entry, "link", rel="alternate", type=CAP_MIME, href=f"{base}/cap/{event.id}.xml")
     ET.indent(feed)
-    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(
-        feed, encoding="unicode", default_namespace=ATOM_NS
-    )
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(feed, encoding="unicode")

@@ -102,12 +102,12 @@ def test_lifecycle_maps_to_alert_update_cancel():
 
 def test_standard_text_rules_the_schema_does_not_check():
     root = ET.fromstring(build(CLEARED, (RAISED, ESCALATED)))
-    # 3.2.1 identifier and sender: no spaces, commas or restricted characters (< &)
+    # [OASIS CAP 1.2] identifier and sender: no spaces, commas or restricted characters (< &)
     for tag in ("identifier", "sender"):
         assert not re.search(r"[\s,<&]", root.find(N + tag).text)
-    # 3.3.2 dateTime: "Z" must not be used; UTC is written -00:00
+    # [OASIS CAP 1.2] dateTime: "Z" must not be used; UTC is written -00:00
     assert root.find(N + "sent").text == "2026-11-21T02:00:00-00:00"
-    # 3.2.1 references: space-separated "sender,identifier,sent" of the earlier messages
+    # [OASIS CAP 1.2] references: space-separated "sender,identifier,sent" of the earlier messages
     refs = root.find(N + "references").text.split(" ")
     assert refs == [
         f"fogwatch@quay.example,fogwatch-{e.id},{cap_time(e.time)}" for e in (RAISED, ESCALATED)
@@ -115,14 +115,14 @@ def test_standard_text_rules_the_schema_does_not_check():
     info = root.find(N + "info")
     assert info.find(N + "category").text == "Met"
     assert info.find(N + "responseType").text == "AllClear"
-    # 3.2.4 circle: "lat,lon radius" in WGS 84 degrees and kilometres
+    # [OASIS CAP 1.2] circle: "lat,lon radius" in WGS 84 degrees and kilometres
     assert info.find(f"{N}area/{N}circle").text == "53.02000,-3.11000 2"
     assert info.find(f"{N}area/{N}areaDesc").text == SITE.name
     assert "not an official forecast" in info.find(N + "description").text
 
 
 def test_urgency_severity_certainty_follow_arrival_level_and_probability():
-    # CAP 1.2, 3.2.2: Immediate = now, Expected = within the next hour, Future = later
+    # docs/references.md [OASIS CAP 1.2]: Immediate = now, Expected = within the hour
     assert urgency(ICING) == "Immediate"
     assert urgency(RAISED) == "Expected"
     assert urgency(event("raised", "watch", eta=T0 + timedelta(hours=4))) == "Future"
@@ -130,7 +130,7 @@ def test_urgency_severity_certainty_follow_arrival_level_and_probability():
     # level and hazard → severity: common practice, on CAP 1.2's meanings
     assert [severity(e) for e in (RAISED, ICING, GAP)] == ["Moderate", "Severe", "Unknown"]
     assert severity(event("raised", "watch")) == "Minor"
-    # "Likely (p > ~50%)", "Possible (p <= ~50%)" (CAP 1.2, 3.2.2)
+    # "Likely (p > ~50%)", "Possible (p <= ~50%)" (docs/references.md [OASIS CAP 1.2])
     assert certainty(ICING) == "Observed"
     assert certainty(event("raised", "watch", features={"fog_probability": 0.7})) == "Likely"
     assert certainty(event("raised", "warning", features={"fog_probability": 0.3})) == "Possible"

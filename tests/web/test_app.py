@@ -113,7 +113,7 @@ def test_metrics_parse_as_prometheus_text_and_match_the_store(night: Served):
 def test_the_cap_index_is_atom_and_each_message_validates(night: Served, cap_schema):
     feed = ET.fromstring(night.get("/cap.xml").content)
     assert feed.tag == f"{ATOM}feed"
-    # RFC 4287 4.1.1: a feed has exactly one id, title and updated, and an author
+    # docs/references.md [RFC 4287] 4.1.1: one id, title and updated, and an author
     for tag in ("id", "title", "updated", "author"):
         assert len(feed.findall(f"{ATOM}{tag}")) == 1, tag
     entries = feed.findall(f"{ATOM}entry")

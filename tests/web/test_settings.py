@@ -72,7 +72,7 @@ def test_a_cap_channel_path_resolves_against_the_config(tmp_path: Path):
     ],
 )
 def test_loopback_hosts(host: str, loopback: bool):
-    # RFC 1122 3.2.1.3 (127.0.0.0/8) and RFC 4291 2.5.3 (::1) name the loopback addresses
+    # docs/references.md [RFC 1122] (127.0.0.0/8), [RFC 4291] (::1): the loopback addresses
     assert is_loopback_host(host) is loopback
 
 
