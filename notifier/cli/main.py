@@ -266,7 +266,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "handler", None):
         parser.print_help()
         return 2
-    setup_logging(args.verbose, json_lines=args.log_format == "json")
+    if args.log_format == "json":
+        setup_logging(args.verbose, json_lines=True)
+    else:
+        setup_logging(args.verbose)
     handler: Any = args.handler
     try:
         return int(handler(args))
