@@ -6,6 +6,7 @@ from __future__ import annotations
 import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import requests
@@ -56,3 +57,42 @@ def test_serve_beyond_loopback_without_a_token_is_refused(tmp_path: Path):
     )
     assert done.returncode == 2
     assert "needs web.token" in done.stderr
+
+
+def test_run_serves_the_app_when_the_config_has_a_web_section(tmp_path: Path):
+    import socket
+
+    with socket.socket() as s:  # a free port on 127.0.0.1 (bound, then released)
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    write_starter(tmp_path, LAST)
+    config = tmp_path / "fogwatch.yaml"
+    config.write_text(
+        config.read_text(encoding="utf-8")
+        + f"web:\n  port: {port}\nschedule:\n  evaluate_every: 1s\n",
+        encoding="utf-8",
+    )
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "notifier", "run", str(config)],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        deadline = time.monotonic() + 30
+        metrics = None
+        while time.monotonic() < deadline:
+            try:
+                metrics = requests.get(f"http://127.0.0.1:{port}/metrics", timeout=5)
+                if "fogwatch_cycle_duration_seconds_count 0.0" not in metrics.text:
+                    break  # a cycle of this process was measured
+            except requests.ConnectionError:
+                pass
+            time.sleep(0.2)
+        assert metrics is not None and metrics.status_code == 200
+        assert "fogwatch_cycle_duration_seconds_count 0.0" not in metrics.text
+        assert requests.get(f"http://127.0.0.1:{port}/", timeout=10).status_code == 200
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, err
