@@ -17,6 +17,7 @@ __all__ = ["MAX_BODY", "WebServer"]
 
 log = logging.getLogger(__name__)
 
+TICK_S = 0.2  # how often the serving loop looks for a stop
 MAX_BODY = 1024 * 1024  # no request of this app needs more (the bot takes 8 KiB)
 
 
@@ -40,6 +41,7 @@ class WebServer:
                 f"serve: cannot listen on {host}:{port}: {exc.strerror or exc}"
             ) from exc
         self._thread: threading.Thread | None = None
+        self._stop = threading.Event()
 
     @property
     def url(self) -> str:
@@ -48,11 +50,20 @@ class WebServer:
         return f"http://{host}:{port}/"
 
     def run(self) -> None:
-        """Serve in this thread until :meth:`close` is called from another."""
+        """Serve in this thread until :meth:`close` is called from another.
+
+        The loop turns every :data:`TICK_S` to look for a stop, and on its way out closes
+        every connection too: a browser's kept-alive connection must not hold the
+        process up until its timeout."""
+        from waitress import wasyncore
+
+        server = self.server
         try:
-            self.server.run()
-        except (OSError, ValueError):  # the loop ends with its sockets closed under it
-            pass
+            while not self._stop.is_set():
+                server.asyncore.loop(timeout=TICK_S, map=server._map, use_poll=True, count=1)
+        finally:
+            server.task_dispatcher.shutdown()
+            wasyncore.close_all(server._map)
 
     def start(self) -> WebServer:
         self._thread = threading.Thread(target=self.run, name="fogwatch-web", daemon=True)
@@ -60,6 +71,7 @@ class WebServer:
         return self
 
     def close(self, timeout_s: float = 10.0) -> None:
-        self.server.close()
+        """Stop serving; from another thread than :meth:`run`'s, or after ``start``."""
+        self._stop.set()
         if self._thread is not None:
             self._thread.join(timeout=timeout_s)

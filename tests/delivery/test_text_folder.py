@@ -131,6 +131,7 @@ def test_public_api_of_channels():
         [
             "STDOUT",
             "BaseChannel",
+            "CapWriter",
             "Channel",
             "EmailSender",
             "FolderWriter",

@@ -180,3 +180,15 @@ def test_a_token_guards_every_page_but_the_bot(night: Served, monkeypatch: pytes
 def test_serving_beyond_loopback_needs_a_token(night: Served):
     with pytest.raises(UsageError, match="needs web.token"):
         build_web(night.service, "0.0.0.0", 0)
+
+
+def test_closing_does_not_wait_for_a_kept_alive_connection(night: Served):
+    # regression: waitress's own close left open keep-alive connections serving until
+    # their 30 s timeout, so `serve` and `run` hung on SIGTERM after a browser's visit
+    server = build_web(night.service, "127.0.0.1", 0).start()
+    with requests.Session() as browser:
+        assert browser.get(server.url, timeout=10).status_code == 200
+        started = time.monotonic()
+        server.close()
+        assert time.monotonic() - started < 3
+        assert server._thread is not None and not server._thread.is_alive()
