@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import base64
 import hmac
+import json
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
@@ -115,7 +116,14 @@ def create_app(ctx: WebContext) -> Flask:
     _filters(app)
     outbox = Outbox(ctx.store)
     registry, ctx.meter = build_registry(ctx.store, outbox, ctx.config, ctx.clock)
+    _guards(app, ctx)
+    _pages(app, ctx, outbox)
+    _machine_views(app, ctx, outbox, registry)
+    _bot_endpoint(app, ctx)
+    return app
 
+
+def _guards(app: Flask, ctx: WebContext) -> None:
     @app.before_request
     def _guard() -> Any:
         if ctx.token and request.path != "/message" and not _authorised(ctx.token):
@@ -138,6 +146,8 @@ def create_app(ctx: WebContext) -> Flask:
         response.headers.setdefault("Referrer-Policy", "no-referrer")
         return response
 
+
+def _pages(app: Flask, ctx: WebContext, outbox: Outbox) -> None:
     @app.get("/")
     def index() -> str:
         config, now = ctx.config(), ctx.clock()
@@ -173,12 +183,18 @@ def create_app(ctx: WebContext) -> Flask:
             "site.html", view=view, chart=chart, notes=notes, now=now, caution=CAUTION
         )
 
+
+def _machine_views(app: Flask, ctx: WebContext, outbox: Outbox, registry: Any) -> None:
+    """/health, /metrics and the CAP feed: what other programs read."""
+
     @app.get("/health")
     def health() -> Response:
         result = st.health(ctx.store, outbox, ctx.config(), ctx.clock())
-        response = app.json.response(result.to_json())
-        response.status_code = 200 if result.ok else 503
-        return response
+        return Response(
+            json.dumps(result.to_json(), ensure_ascii=False),
+            200 if result.ok else 503,
+            mimetype="application/json",
+        )
 
     @app.get("/metrics")
     def metrics() -> Response:
@@ -223,10 +239,14 @@ def create_app(ctx: WebContext) -> Flask:
         )
         return Response(xml, mimetype="application/cap+xml")
 
+
+def _bot_endpoint(app: Flask, ctx: WebContext) -> None:
     @app.post("/message")
     def message() -> Response:
         if ctx.bot is None:
-            return app.json.response({"error": "the bot has no secret configured"}), 404  # type: ignore[return-value]
+            return Response(
+                '{"error": "the bot has no secret configured"}', 404, mimetype="application/json"
+            )
         length = request.content_length or 0
         body = request.stream.read(min(length, 256 * 1024))
         headers = [(k, v) for k, v in request.headers.items() if k.lower() != "transfer-encoding"]
@@ -234,5 +254,3 @@ def create_app(ctx: WebContext) -> Flask:
             "POST", "/message", headers, body, request.remote_addr or "-"
         )
         return Response(data, code, out_headers)
-
-    return app
