@@ -22,10 +22,11 @@ STAGES = {
     "ingest": 4,
     "delivery": 4,
     "bot": 5,
-    "service": 6,
-    "history": 7,
-    "demo": 7,
-    "cli": 8,
+    "web": 6,
+    "service": 7,
+    "history": 8,
+    "demo": 8,
+    "cli": 9,
 }
 # libraries that do IO: the pure stages must not touch them
 IO_LIBRARIES = ("sqlalchemy", "requests", "smtplib", "socket", "urllib3", "http", "psycopg")

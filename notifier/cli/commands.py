@@ -190,6 +190,10 @@ def cli_once(args: argparse.Namespace) -> int:
         report, sent = service.cycle(now)
     finally:
         service.close()
+    failed_sources = [p for p in report.polls if not p.ok]
+    if getattr(args, "json", False):
+        print(json.dumps(_once_json(report, sent), indent=2, ensure_ascii=False))
+        return 3 if failed_sources else 4 if sent.failed or sent.expired else 0
     print(
         f"{len(report.assessments)} site(s) assessed, {len(report.events)} event(s), "
         f"{report.deliveries_added} delivery(ies) queued; sent {sent.sent}, "
@@ -202,6 +206,28 @@ def cli_once(args: argparse.Namespace) -> int:
     if any(not p.ok for p in report.polls):
         return 3
     return 4 if sent.failed or sent.expired else 0
+
+
+def _once_json(report: Any, sent: Any) -> dict[str, Any]:
+    from notifier.core.timefmt import iso_text
+
+    return {
+        "at": iso_text(report.at),
+        "sites": {sa.site.id: sa.level for sa in report.assessments},
+        "events": [
+            {"site": e.site_id, "hazard": e.hazard, "type": e.type, "level": e.level}
+            for e in report.events
+        ],
+        "queued": report.deliveries_added,
+        "deliveries": {
+            "sent": sent.sent,
+            "retrying": sent.retried,
+            "failed": sent.failed,
+            "expired": sent.expired,
+            "cancelled": sent.cancelled,
+        },
+        "sources": [{"id": p.source_id, "ok": p.ok, "error": p.error} for p in report.polls],
+    }
 
 
 def cli_run(args: argparse.Namespace) -> int:

@@ -60,6 +60,28 @@ def _cmd_check(args: argparse.Namespace) -> int:
             problems = problems + [p for p in exc.problems if p not in problems]
     if problems or config is None or rules is None:
         raise ConfigError(problems)
+    if args.json:
+        import json
+
+        counts = {
+            "sites": len(config.sites),
+            "sources": len(config.sources),
+            "rules": len(rules.rules),
+            "rule_files": len(rules.files),
+            "subscribers": len(config.subscribers),
+        }
+        print(
+            json.dumps(
+                {
+                    "ok": True,
+                    "config": str(config.path),
+                    **counts,
+                    "warnings": [str(w) for w in warnings],
+                },
+                indent=2,
+            )
+        )
+        return 0
     print(
         f"ok: {config.path}: {len(config.sites)} site(s), {len(config.sources)} source(s), "
         f"{len(rules.rules)} rule(s) from {len(rules.files)} file(s), "
@@ -128,11 +150,18 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"fogwatch {__version__}")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    parser.add_argument(
+        "--log-format",
+        choices=("text", "json"),
+        default="text",
+        help="log lines as text (default) or one JSON object each, for log collectors",
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     # the order of the calls is the order of the commands in --help
     _add_reading_commands(sub)
     _add_service_commands(sub)
     _add_bot_commands(sub)
+    _add_web_commands(sub)
     _add_history_commands(sub)
     return parser
 
@@ -141,6 +170,7 @@ def _add_reading_commands(sub: _Subcommands) -> None:
     """check, assess, explain, sources: look at the config, the data and the rules."""
     p = sub.add_parser("check", help="validate the config and every rule file")
     _add_common(p)
+    p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(handler=_cmd_check)
 
     p = sub.add_parser("assess", help="poll (or read --data files), evaluate, send nothing")
@@ -168,6 +198,7 @@ def _add_service_commands(sub: _Subcommands) -> None:
     p = sub.add_parser("once", help="one full cycle: poll, assess, alert, deliver")
     _add_common(p)
     p.add_argument("--at", metavar="TIME", help="cycle time (ISO 8601; default now)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(handler=_cmd("cli_once"))
 
     p = sub.add_parser("run", help="run unattended on a schedule (stop with Ctrl-C/SIGTERM)")
@@ -217,6 +248,34 @@ def _add_bot_commands(sub: _Subcommands) -> None:
     p.set_defaults(handler=_cmd_secret)
 
 
+def _web_cmd(name: str) -> Handler:
+    def run(args: argparse.Namespace) -> int:
+        from notifier.cli import web_commands
+
+        return int(getattr(web_commands, name)(args))
+
+    return run
+
+
+def _add_web_commands(sub: _Subcommands) -> None:
+    """serve, init, schema: the operator's window and the starter files."""
+    p = sub.add_parser("serve", help="the status page, /health, /metrics, CAP and the bot")
+    _add_common(p)
+    p.add_argument("--host", default=None, help="address (default web.host or 127.0.0.1)")
+    p.add_argument("--port", type=int, default=None, help="port (default web.port or 8750)")
+    p.add_argument("--at", metavar="TIME", help=argparse.SUPPRESS)
+    p.set_defaults(handler=_web_cmd("cli_serve"))
+
+    p = sub.add_parser("init", help="write a starter config, sample data and rules")
+    p.add_argument("dir", nargs="?", default=".", help="folder to write into (default .)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(handler=_web_cmd("cli_init"))
+
+    p = sub.add_parser("schema", help="write JSON Schemas of the config and rule files")
+    p.add_argument("--out", default=".", metavar="DIR", help="folder (default .)")
+    p.set_defaults(handler=_web_cmd("cli_schema"))
+
+
 def _add_history_commands(sub: _Subcommands) -> None:
     """replay, demo: the rules over past data, and an invented night."""
     p = sub.add_parser("replay", help="run the rules over history and score them")
@@ -262,7 +321,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "handler", None):
         parser.print_help()
         return 2
-    setup_logging(args.verbose, service=args.command == "run")
+    setup_logging(args.verbose, service=args.command == "run", json_lines=args.log_format == "json")
     handler: Any = args.handler
     try:
         return int(handler(args))

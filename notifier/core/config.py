@@ -22,6 +22,7 @@ from pydantic import (
     ConfigDict,
     Field,
     ValidationInfo,
+    WithJsonSchema,
     field_validator,
     model_validator,
 )
@@ -32,6 +33,7 @@ __all__ = [
     "AlertSettings",
     "BotSettings",
     "CHANNEL_TYPES",
+    "CapChannel",
     "Config",
     "EmailChannel",
     "FieldSpec",
@@ -43,9 +45,11 @@ __all__ = [
     "StoreSettings",
     "Subscriber",
     "TextChannel",
+    "WebSettings",
     "WebhookChannel",
     "default_rules_dir",
     "check_sender_id",
+    "is_loopback_host",
     "parse_duration_s",
 ]
 
@@ -80,7 +84,16 @@ def parse_duration_s(value: Any) -> float:
     return seconds
 
 
-Duration = Annotated[float, BeforeValidator(parse_duration_s)]
+# what an editor may accept for a duration (the JSON Schema from `fogwatch schema`)
+_DURATION_SCHEMA = {
+    "anyOf": [
+        {"type": "number", "minimum": 0},
+        {"type": "string", "pattern": r"^\s*\d+(\.\d+)?\s*([sS]|sec|min|[mM]|[hH]|hr|[dD])?\s*$"},
+    ]
+}
+Duration = Annotated[
+    float, BeforeValidator(parse_duration_s), WithJsonSchema(_DURATION_SCHEMA, mode="validation")
+]
 
 
 def _positive(value: float, info: ValidationInfo) -> float:
@@ -255,11 +268,22 @@ class WebhookChannel(_Model):
     headers: dict[str, str] = {}
 
 
+class CapChannel(_Model):
+    """CAP 1.2 XML files, one per alert message, written into ``path``."""
+
+    id: Identifier
+    type: Literal["cap"]
+    path: Path
+    sender: str = "fogwatch@localhost.localdomain"
+    radius_km: float = Field(default=2.0, gt=0, le=500)
+
+
 Channel = Annotated[
-    TextChannel | FolderChannel | EmailChannel | WebhookChannel, Field(discriminator="type")
+    TextChannel | FolderChannel | EmailChannel | WebhookChannel | CapChannel,
+    Field(discriminator="type"),
 ]
 
-CHANNEL_TYPES = ("text", "folder", "email", "webhook")
+CHANNEL_TYPES = ("text", "folder", "email", "webhook", "cap")
 
 _QUIET = re.compile(r"^\s*(\d{1,2}):(\d{2})\s*-\s*(\d{1,2}):(\d{2})\s*$")
 
@@ -344,6 +368,32 @@ class BotSettings(_Model):
     channel: str = "stdout"  # where alerts for people who follow a site through the bot go
 
 
+def is_loopback_host(host: str) -> bool:
+    """True for an address only this machine can reach (the web app needs no token there).
+
+    >>> [is_loopback_host(h) for h in ("127.0.0.1", "::1", "localhost", "0.0.0.0", "")]
+    [True, True, True, False, False]
+    """
+    import ipaddress
+
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+class WebSettings(_Model):
+    """``fogwatch serve`` and the web app ``fogwatch run`` serves beside the scheduler."""
+
+    host: str = "127.0.0.1"
+    port: int = Field(default=8750, gt=0, lt=65536)
+    token: str | None = None  # required when host is not a loopback address
+    cap_sender: str = "fogwatch@localhost.localdomain"
+    cap_radius_km: float = Field(default=2.0, gt=0, le=500)
+
+
 class Config(_Model):
     version: int = CONFIG_VERSION
     sites: tuple[Site, ...]
@@ -356,6 +406,7 @@ class Config(_Model):
     alerts: AlertSettings = AlertSettings()
     bot: BotSettings = BotSettings()
     model: Path | None = None  # a site model written by `fogwatch learn` (JSON)
+    web: WebSettings | None = None
     path: Path | None = None  # the file this came from (set by load_config)
 
     @field_validator("version")

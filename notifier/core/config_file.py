@@ -29,11 +29,13 @@ from pydantic import (
 
 from notifier.core.config import (
     BOT_SUBSCRIBER_PREFIX,
+    CapChannel,
     Config,
     EmailChannel,
     FileDropSource,
     FolderChannel,
     TextChannel,
+    is_loopback_host,
 )
 from notifier.core.config_hints import did_you_mean, folder_problems
 from notifier.core.config_warnings import literal_secrets, retire_keys
@@ -342,7 +344,7 @@ def _resolve_paths(config: Config) -> Config:
     )
     channels = []
     for ch in config.channels:
-        if isinstance(ch, FolderChannel):
+        if isinstance(ch, FolderChannel | CapChannel):
             ch = ch.model_copy(update={"path": _resolve(base, ch.path)})
         elif isinstance(ch, TextChannel) and ch.file is not None:
             ch = ch.model_copy(update={"file": _resolve(base, ch.file)})
@@ -457,4 +459,6 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
             add(("rules", i), f"rule path not found: {rule_path}")
     if config.model is not None and not config.model.is_file():
         add(("model",), f"model file not found: {config.model} (write one with fogwatch learn)")
+    if config.web is not None and not is_loopback_host(config.web.host) and not config.web.token:
+        add(("web", "token"), f"web.host {config.web.host} is not loopback: a token is needed")
     return problems

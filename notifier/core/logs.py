@@ -21,6 +21,7 @@ __all__ = [
     "CHATTY_LIBRARIES",
     "DATE_FORMAT",
     "LINE_FORMAT",
+    "JSONFormatter",
     "UTCFormatter",
     "level_for",
     "setup_logging",
@@ -51,6 +52,29 @@ class UTCFormatter(logging.Formatter):
         return time.strftime(datefmt or DATE_FORMAT, time.gmtime(record.created))
 
 
+class JSONFormatter(logging.Formatter):
+    """One JSON object per line (``--log-format json``), for log collectors::
+
+        {"time": "2026-12-04T16:40:05Z", "level": "INFO", "logger": "...", "message": "..."}
+
+    An exception's traceback goes in ``"exc"``, so a record stays one line; secrets are
+    cut as in :class:`UTCFormatter`.
+    """
+
+    def format(self, record: logging.LogRecord) -> str:
+        import json
+
+        out = {
+            "time": time.strftime(DATE_FORMAT, time.gmtime(record.created)),
+            "level": record.levelname,
+            "logger": record.name,
+            "message": redact(record.getMessage()),
+        }
+        if record.exc_info:
+            out["exc"] = redact(self.formatException(record.exc_info))
+        return json.dumps(out, ensure_ascii=False)
+
+
 def level_for(verbosity: int) -> int:
     """The root level for ``-v`` given ``verbosity`` times: WARNING, then INFO, then DEBUG.
 
@@ -61,10 +85,15 @@ def level_for(verbosity: int) -> int:
 
 
 def setup_logging(
-    verbosity: int = 0, stream: TextIO | None = None, *, service: bool = False
+    verbosity: int = 0,
+    stream: TextIO | None = None,
+    *,
+    service: bool = False,
+    json_lines: bool = False,
 ) -> None:
     """Sends log lines to ``stream`` (standard error by default) in the :class:`UTCFormatter`
-    layout at :func:`level_for` ``verbosity``.
+    layout (or as :class:`JSONFormatter` objects with ``json_lines``) at :func:`level_for`
+    ``verbosity``.
 
     ``service`` (``fogwatch run``) starts one step lower, at INFO, so that a running
     service's log shows each alert raised and cleared, and its reloads, without ``-v``.
@@ -74,7 +103,7 @@ def setup_logging(
     handler (an embedding program, or a test's log capture, chose where lines go).
     """
     handler = logging.StreamHandler(stream)
-    handler.setFormatter(UTCFormatter())
+    handler.setFormatter(JSONFormatter() if json_lines else UTCFormatter())
     logging.basicConfig(level=level_for(verbosity + int(service)), handlers=[handler])
     for name in CHATTY_LIBRARIES:
         logging.getLogger(name).setLevel(logging.NOTSET if verbosity >= 2 else logging.WARNING)

@@ -202,6 +202,8 @@ def _dispatch_claimed(
             report.failed += len(rows)
             continue
         channel = build_channel(cfg, **dict((channel_kwargs or {}).get(channel_id, {})))
+        if hasattr(channel, "bind"):  # a CAP channel needs the sites, notes and episode
+            channel.bind(config, rules, outbox)
         try:
             failing = 0
             # people read one message per site and moment; a webhook's receiver is a

@@ -10,7 +10,8 @@ import logging
 import math
 import random
 import threading
-from collections.abc import Mapping, Sequence
+import time
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -109,6 +110,8 @@ class Service:
         self._window: RollingWindow | None = None
         self._stop = threading.Event()
         self._lock = threading.Lock()  # one cycle or delivery at a time
+        # called with each poll-and-assess cycle's duration in seconds (the web metrics)
+        self.cycle_listeners: list[Callable[[float], None]] = []
 
     @property
     def config(self) -> Config:
@@ -206,13 +209,17 @@ class Service:
         self, now: datetime, source_ids: Sequence[str] | None = None
     ) -> CycleReport:
         """Poll (all sources, or the given ones), assess, run the lifecycle, queue."""
+        started = time.monotonic()
         with self._lock:
             polls = self.poll(now, source_ids)
             obs = self._observations(now)
             assessments = evaluate(
                 self.loaded, obs, now, self._remembered(now), self._feature_cache
             )
-            return self._advance(now, assessments, obs, polls)
+            report = self._advance(now, assessments, obs, polls)
+        for listener in self.cycle_listeners:
+            listener(time.monotonic() - started)
+        return report
 
     def _observations(self, now: datetime) -> pd.DataFrame:
         """The rolling window at ``now`` (as :func:`observations_for` reads it)."""

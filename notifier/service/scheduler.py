@@ -197,6 +197,9 @@ def run_forever(service: Service) -> int:
     signal.signal(signal.SIGINT, stop)
     if hasattr(signal, "SIGHUP"):
         signal.signal(signal.SIGHUP, hup)
+    from notifier.service.webapp import start_web
+
+    web = start_web(service)  # the web app beside the jobs when the config has web:
     log.info(
         "fogwatch running: %d site(s), %d source(s)",
         len(service.config.sites),
@@ -207,6 +210,8 @@ def run_forever(service: Service) -> int:
     finally:
         for stopper in stopping:
             stopper.join(timeout=60)  # the jobs in flight end before the store closes
+        if web is not None:
+            web.close()
         service.close()
         log.info("fogwatch stopped")
     return 0

@@ -143,7 +143,9 @@ def test_the_fogwatch_command_sets_up_logging_with_its_v_count(monkeypatch, tmp_
     from notifier.cli import main as cli
 
     seen: list[tuple[int, bool]] = []
-    monkeypatch.setattr(cli, "setup_logging", lambda v, service: seen.append((v, service)))
+    monkeypatch.setattr(
+        cli, "setup_logging", lambda v, service, json_lines=False: seen.append((v, service))
+    )
     missing = str(tmp_path / "missing.yaml")
     for argv in (["check", missing], ["-v", "check", missing], ["-vv", "run", missing]):
         cli.main(argv)  # fails on the missing file, after logging is set up

@@ -132,6 +132,7 @@ def test_public_api_of_channels():
         [
             "STDOUT",
             "BaseChannel",
+            "CapWriter",
             "Channel",
             "EmailSender",
             "FolderWriter",

@@ -1,4 +1,4 @@
-"""Delivery channels: text, folder (.eml), email (SMTP) and webhook.
+"""Delivery channels: text, folder (.eml), email (SMTP), webhook and CAP files.
 
 Every channel follows :class:`~notifier.delivery.channels.base.Channel`: ``open()``, ``send(message,
 delivery, idempotency_key, chart_png)`` and ``close()``, or ``with`` for a batch, and
@@ -9,8 +9,16 @@ from __future__ import annotations
 
 from typing import Any
 
-from notifier.core.config import Config, EmailChannel, FolderChannel, TextChannel, WebhookChannel
+from notifier.core.config import (
+    CapChannel,
+    Config,
+    EmailChannel,
+    FolderChannel,
+    TextChannel,
+    WebhookChannel,
+)
 from notifier.delivery.channels.base import BaseChannel, Channel, RetryLater
+from notifier.delivery.channels.cap import CapWriter
 from notifier.delivery.channels.email import EmailSender
 from notifier.delivery.channels.folder import FolderWriter
 from notifier.delivery.channels.text import TextWriter
@@ -19,6 +27,7 @@ from notifier.delivery.channels.webhook import WebhookSender
 __all__ = [
     "STDOUT",
     "BaseChannel",
+    "CapWriter",
     "Channel",
     "EmailSender",
     "FolderWriter",
@@ -37,6 +46,7 @@ _BUILDERS: dict[type, Any] = {
     FolderChannel: FolderWriter,
     EmailChannel: EmailSender,
     WebhookChannel: WebhookSender,
+    CapChannel: CapWriter,
 }
 
 
