@@ -75,11 +75,11 @@ def literal_secrets(path: str, raw: Any, found: Expansion) -> list[ConfigProblem
         for i, item in enumerate(items if isinstance(items, list) else []):
             if isinstance(item, dict):
                 places.append(((section, i), item, str(item.get("id") or f"{section}{i}")))
-    for section, owner in (("bot", "bot"), ("store", "db"), ("web", "web")):
+    for section, owner in (("bot", "bot"), ("store", "db"), ("web", "web"), ("matrix", "matrix")):
         if isinstance(raw.get(section), dict):
             places.append(((section,), raw[section], owner))
     for loc, item, owner in places:
-        for key in ("secret", "password", "token"):
+        for key in ("secret", "password", "token", "access_token"):
             value = found.written.get((*loc, key), item.get(key))
             if item.get(key) in (None, "") or _from_env(value):
                 continue
