@@ -27,9 +27,10 @@ class _Model(BaseModel):
 
 
 # Matrix ids (docs/references.md [Matrix identifiers]): a user @localpart:server, a room
-# !opaque:server, a room alias #name:server; the server name may carry a port
+# !opaque:server (from room version 12, !opaque alone), a room alias #name:server; the
+# server name may carry a port
 MATRIX_USER = re.compile(r"^@[^:\s]+:[^\s]+$")
-MATRIX_ROOM = re.compile(r"^[!#][^:\s]+:[^\s]+$")
+MATRIX_ROOM = re.compile(r"^(![^\s:]+(:\S+)?|#[^:\s]+:\S+)$")
 
 
 def _homeserver_url(value: str | None) -> str | None:
@@ -42,7 +43,7 @@ def _homeserver_url(value: str | None) -> str | None:
 
 def _room_ref(value: str) -> str:
     if not MATRIX_ROOM.match(value):
-        raise ValueError(f"expected a room id (!id:server) or alias (#name:server), got: {value!r}")
+        raise ValueError(f"expected a room id (!id or !id:server) or alias (#name:server), got: {value!r}")
     return value
 
 

@@ -42,10 +42,11 @@ class MatrixState:
 
     def _upsert(self, now: datetime, **values: Any) -> None:
         values = {**values, "updated_at": iso_z(now)}
+        first = {"state": "starting", **values, "account": self.account}
         with self.store.atomic() as conn:
             conn.execute(
                 self.store._insert(matrix_sync)
-                .values(account=self.account, state=values.pop("state", "starting"), **values)
+                .values(**first)
                 .on_conflict_do_update(index_elements=["account"], set_=values)
             )
 
