@@ -43,7 +43,9 @@ def _homeserver_url(value: str | None) -> str | None:
 
 def _room_ref(value: str) -> str:
     if not MATRIX_ROOM.match(value):
-        raise ValueError(f"expected a room id (!id or !id:server) or alias (#name:server), got: {value!r}")
+        raise ValueError(
+            f"expected a room id (!id or !id:server) or alias (#name:server), got: {value!r}"
+        )
     return value
 
 

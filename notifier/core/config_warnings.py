@@ -84,7 +84,12 @@ def literal_secrets(path: str, raw: Any, found: Expansion) -> list[ConfigProblem
             if item.get(key) in (None, "") or _from_env(value):
                 continue
             name = _env_name("FOGWATCH", owner, key)
-            warn((*loc, key), f"a {key}", f'{key}: "${{{name}}}"', name)
+            warn(
+                (*loc, key),
+                f"{'an' if key[0] in 'aeiou' else 'a'} {key}",
+                f'{key}: "${{{name}}}"',
+                name,
+            )
         url = found.written.get((*loc, "url"), item.get("url"))
         if isinstance(url, str):
             for what, write, name in _url_secrets(url, owner):

@@ -283,7 +283,8 @@ def test_an_alert_reaches_the_room_once_across_a_dispatcher_killed_mid_send(
     [row] = [r for r in restarted.outbox.deliveries() if r.channel == "harbour-room"]
     assert row.status == "sent"
     # the room's timeline: the homeserver took the retried transaction as the first one
-    # (Matrix client-server API, PUT /send/{txnId} is idempotent per device: references)
+    # (PUT /send/{txnId} is idempotent per access token: docs/references.md
+    # [Matrix client-server API])
     posted = desk.replies_from(room, bot.user_id)
     assert len(posted) == 1 and "Fog warning · Lower Vale Orchard" in posted[0]
 
