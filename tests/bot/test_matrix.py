@@ -10,6 +10,10 @@ from __future__ import annotations
 
 import json
 import logging
+import os
+import signal
+import subprocess
+import sys
 import time
 import uuid
 from collections.abc import Callable, Iterator
@@ -353,3 +357,47 @@ def test_a_refused_token_is_logged_and_shown_by_status(make_scene, monkeypatch, 
     shown = json.loads(capsys.readouterr().out)["matrix"]
     assert shown["state"] == "stopped"
     assert "M_UNKNOWN_TOKEN" in shown["last_error"]
+
+
+def test_fogwatch_run_answers_on_matrix_beside_the_scheduler_and_stops_on_sigterm(
+    make_scene, people
+):
+    scene = make_scene()
+    bot = people["fogbot"]
+    url = scene.service().config.matrix.homeserver  # type: ignore[union-attr]
+    phone = Client(url, people["member"])
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    err_path = scene.root / "stderr.txt"
+    with open(err_path, "w", encoding="utf-8") as err_file:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "notifier", "run", str(scene.config_path)],
+            stdout=subprocess.DEVNULL,
+            stderr=err_file,
+            env=env,
+            cwd=scene.root,
+        )
+        try:
+            room = room_with_bot(phone, bot, is_direct=True)
+            assert ask(phone, room, bot, "help").startswith("I don't know you yet")
+
+            def shown() -> dict[str, Any]:
+                out = subprocess.run(
+                    [sys.executable, "-m", "notifier", "status", "--json", str(scene.config_path)],
+                    capture_output=True,
+                    text=True,
+                    env=env,
+                    check=True,
+                )
+                return dict(json.loads(out.stdout)["matrix"])
+
+            assert shown()["state"] == "connected"
+            proc.send_signal(signal.SIGTERM)
+            assert proc.wait(timeout=60) == 0
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+                proc.wait()
+    assert shown()["state"] == "stopped"
+    log = err_path.read_text(encoding="utf-8")
+    assert "matrix: connected" in log
+    assert people["fogbot"].access_token not in log  # the token never reaches the log
