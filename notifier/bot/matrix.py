@@ -82,10 +82,22 @@ def retry_delay_s(failures: int, retry_after_ms: float | None = None, jitter: fl
 
 
 class _SyncFailed(Exception):
-    def __init__(self, message: str, retry_after_ms: float | None = None, token: bool = False):
+    def __init__(
+        self,
+        message: str,
+        retry_after_ms: float | None = None,
+        token: bool = False,
+        unreachable: bool = False,
+    ):
         super().__init__(message)
         self.retry_after_ms = retry_after_ms
         self.token_refused = token
+        self.unreachable = unreachable
+
+    @property
+    def about_the_connection(self) -> bool:
+        """Not about one request: the homeserver is away, busy, or refuses the token."""
+        return self.unreachable or self.token_refused or self.retry_after_ms is not None
 
 
 def _txn_for(event_id: str) -> str:
@@ -113,6 +125,7 @@ class MatrixBot:
         self.listed: set[str] = set(settings.rooms)  # room ids, and aliases resolved at start
         self.members: dict[str, int] = {}  # room id → joined members, as far as seen
         self.state = "starting"
+        self.joined_listed = False
         self.rng = random.Random()
 
     def _client(self) -> AsyncClient:
@@ -145,7 +158,7 @@ class MatrixBot:
             since = self.memory.next_batch()
             while not stop.is_set():
                 try:
-                    if failures == 0 and self.state == "starting":
+                    if not self.joined_listed:
                         await self._join_listed(client)
                     since = await self._sync_once(client, since, stop)
                     if since is None:  # stopped mid-sync
@@ -187,7 +200,9 @@ class MatrixBot:
         try:
             response = await coro
         except (OSError, TimeoutError, ClientError) as exc:
-            raise _SyncFailed(f"cannot reach the homeserver: {type(exc).__name__}") from exc
+            raise _SyncFailed(
+                f"cannot reach the homeserver: {type(exc).__name__}", unreachable=True
+            ) from exc
         if isinstance(response, ErrorResponse):
             code = str(response.status_code or "")
             text = redact(f"{code} {response.message or ''}".strip())
@@ -195,13 +210,26 @@ class MatrixBot:
                 f"homeserver error: {text}",
                 getattr(response, "retry_after_ms", None),
                 token=code == "M_UNKNOWN_TOKEN",
+                unreachable=not code.startswith("M_"),  # a proxy's 502, not the homeserver's
             )
         return response
 
     async def _join_listed(self, client: AsyncClient) -> None:
+        """Join each listed room (an alias is resolved first, so that an invitation to
+        it is known as listed even where the bot may not join before it is invited). A
+        room that cannot be joined is logged and left; a connection problem is raised."""
         for room in self.settings.rooms:
-            joined = await self._call(client.join(room))
-            self.listed.add(joined.room_id)
+            try:
+                if room.startswith("#"):
+                    resolved = await self._call(client.room_resolve_alias(room))
+                    self.listed.add(resolved.room_id)
+                joined = await self._call(client.join(room))
+                self.listed.add(joined.room_id)
+            except _SyncFailed as exc:
+                if exc.about_the_connection:
+                    raise
+                log.warning("matrix: cannot join %s (listed in matrix.rooms): %s", room, exc)
+        self.joined_listed = True
 
     async def _sync_once(
         self, client: AsyncClient, since: str | None, stop: asyncio.Event

@@ -4,7 +4,7 @@ Matrix tests: one per test session, because it takes seconds to start.
 The config is Synapse's own ``--generate-config`` output, edited: SQLite, a
 ``registration_shared_secret``, one client listener on 127.0.0.1 and no federation
 listener, ``federation_domain_whitelist: []``, no key servers, the rate limits raised so
-that quick tests are not throttled, and ``report_stats: false``. Users are registered
+that quick tests are not throttled, cheap password hashing, and ``report_stats: false``. Users are registered
 through the shared-secret admin API (``/_synapse/admin/v1/register``, an HMAC-SHA1 of
 nonce, user, password and admin flag: docs/references.md [Synapse shared-secret
 registration]). Where Synapse is not installed or cannot start, the tests that need it
@@ -194,6 +194,7 @@ def _configure(folder: Path, port: int) -> tuple[Path, str]:
             "trusted_key_servers": [],
             "suppress_key_server_warning": True,
             "report_stats": False,
+            "bcrypt_rounds": 4,  # the fewest bcrypt allows: registering is quick, not safe
             "log_config": str(log_config),
             "enable_metrics": False,
             "presence": {"enabled": False},

@@ -50,6 +50,7 @@ def write_config(
     people: dict[str, MatrixUser],
     invites: str = "accept",
     harbour_room: str | None = None,
+    rooms: tuple[str, ...] = (),
 ) -> Path:
     (folder / "drop").mkdir(exist_ok=True)
     harbour = ""
@@ -85,6 +86,7 @@ matrix:
   user_id: "{people["fogbot"].user_id}"
   access_token: ${{{TOKEN_ENV}}}
   invites: {invites}
+  rooms: {json.dumps(list(rooms))}
 """
     path = folder / "fogwatch.yaml"
     path.write_text(text, encoding="utf-8")
@@ -323,11 +325,16 @@ def test_an_encrypted_room_is_refused_with_a_message(make_scene, people):
         wait_until(lambda: not joined(phone, room, bot.user_id), "the bot to leave")
 
 
-def test_only_listed_rooms_are_joined_unless_invites_accept(make_scene, people):
-    service = make_scene(invites="listed").service()
+def test_only_listed_rooms_are_joined_unless_invites_accept(make_scene, people, homeserver):
     bot = people["fogbot"]
+    desk = homeserver.client(people["operator"])
+    alias = f"crew-{uuid.uuid4().hex[:6]}"
+    listed = desk.create_room(room_alias_name=alias)  # private: the bot must be invited
+    service = make_scene(invites="listed", rooms=(f"#{alias}:fog.test",)).service()
     phone = Client(service.config.matrix.homeserver, people["member"])  # type: ignore[union-attr]
     with bot_running(service, Clock(utc(2026, 11, 20, 22, 40))):
+        desk.call("POST", f"/rooms/{listed}/invite", {"user_id": bot.user_id})
+        wait_until(lambda: joined(desk, listed, bot.user_id), "the bot to join the listed room")
         room = phone.create_room(invite=[bot.user_id])
 
         def declined() -> bool:
