@@ -4,9 +4,9 @@ Matrix tests: one per test session, because it takes seconds to start.
 The config is Synapse's own ``--generate-config`` output, edited: SQLite, a
 ``registration_shared_secret``, one client listener on 127.0.0.1 and no federation
 listener, ``federation_domain_whitelist: []``, no key servers, the rate limits raised so
-that quick tests are not throttled, cheap password hashing, and ``report_stats: false``. Users are registered
-through the shared-secret admin API (``/_synapse/admin/v1/register``, an HMAC-SHA1 of
-nonce, user, password and admin flag: docs/references.md [Synapse shared-secret
+that quick tests are not throttled, cheap password hashing, and ``report_stats: false``.
+Users are registered through the shared-secret admin API
+(``/_synapse/admin/v1/register``, an HMAC-SHA1 of nonce, user, password and admin flag: docs/references.md [Synapse shared-secret
 registration]). Where Synapse is not installed or cannot start, the tests that need it
 skip and say why.
 
