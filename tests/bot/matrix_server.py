@@ -6,9 +6,9 @@ The config is Synapse's own ``--generate-config`` output, edited: SQLite, a
 listener, ``federation_domain_whitelist: []``, no key servers, the rate limits raised so
 that quick tests are not throttled, cheap password hashing, and ``report_stats: false``.
 Users are registered through the shared-secret admin API
-(``/_synapse/admin/v1/register``, an HMAC-SHA1 of nonce, user, password and admin flag: docs/references.md [Synapse shared-secret
-registration]). Where Synapse is not installed or cannot start, the tests that need it
-skip and say why.
+(``/_synapse/admin/v1/register``, an HMAC-SHA1 of nonce, user, password and admin flag:
+docs/references.md [Synapse shared-secret registration]). Where Synapse is not installed
+or cannot start, the tests that need it skip and say why.
 
 Every user and room here is invented.
 """
