@@ -9,7 +9,8 @@ and direct messages, in a thread of its own beside the scheduler.
   ``answer(sender, text, now)`` (the same function as the HTTP endpoint's), sent as an
   ``m.notice`` (bots answer with notices, so two bots do not answer each other). In a
   room with more than two members only messages that start with a command word are
-  answered; in a direct chat, every message.
+  answered; in a direct chat, every message. Past ``bot.rate_per_minute`` messages from
+  one sender in a minute, the rest are logged and not answered.
 - **Restarts.** The sync token is saved once a sync's events are handled, so the next
   start asks for what came after: a command sent while fogwatch was down is answered.
   An answered event's id is recorded after its answer is sent, and the answer's
@@ -35,6 +36,7 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any, Protocol
 
 from notifier.bot.grammar import starts_with_command
+from notifier.bot.server import _Guard as RateGuard
 from notifier.core.redact import redact
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -115,6 +117,7 @@ class MatrixBot:
         memory: SyncMemory,
         clock: Callable[[], datetime] = lambda: datetime.now(UTC),
         sync_timeout_ms: int = SYNC_TIMEOUT_MS,
+        rate_per_minute: int = 20,
     ):
         self.settings = settings
         self.answer = answer
@@ -126,6 +129,7 @@ class MatrixBot:
         self.members: dict[str, int] = {}  # room id → joined members, as far as seen
         self.state = "starting"
         self.joined_listed = False
+        self.guard = RateGuard(rate_per_minute)  # messages answered per sender per minute
         self.rng = random.Random()
 
     def _client(self) -> AsyncClient:
@@ -309,6 +313,10 @@ class MatrixBot:
         if not direct and not starts_with_command(text):
             return  # chat between people in a shared room
         if self.memory.handled(event_id):
+            return
+        if self.guard.over_rate(sender, time.time()):  # as bot.rate_per_minute over HTTP
+            log.warning("matrix: %s sends too many messages; not answered", sender)
+            self.memory.mark_handled(event_id, room_id, time.time())
             return
         try:
             reply = self.answer(sender, text[:MAX_TEXT], self.clock())

@@ -40,6 +40,7 @@ def build_matrix(
         MatrixState(service.store, settings.user_id),
         clock=clock or (lambda: datetime.now(UTC)),
         sync_timeout_ms=sync_timeout_ms,
+        rate_per_minute=service.config.bot.rate_per_minute,
     )
     return MatrixLink(bot)
 

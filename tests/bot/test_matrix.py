@@ -30,6 +30,7 @@ from notifier.bot.matrix import ENCRYPTED_REFUSAL, MatrixLink
 from notifier.service.botbackend import ServiceBackend
 from notifier.service.cycle import Service
 from notifier.service.matrixbot import build_matrix
+from notifier.storage.matrixstate import MatrixState
 from tests.bot.matrix_server import Client, Homeserver, MatrixUser
 from tests.service.scene import CONFIG as SCENE_CONFIG
 from tests.service.scene import Scene, utc
@@ -51,6 +52,7 @@ def write_config(
     invites: str = "accept",
     harbour_room: str | None = None,
     rooms: tuple[str, ...] = (),
+    rate_per_minute: int = 20,
 ) -> Path:
     (folder / "drop").mkdir(exist_ok=True)
     harbour = ""
@@ -78,6 +80,7 @@ subscribers:
     operator: true
     senders: ["{people["operator"].user_id}"]
 {harbour}bot:
+  rate_per_minute: {rate_per_minute}
   join_codes:
     VALE-7: zz-vale
   channel: chat
@@ -408,3 +411,15 @@ def test_fogwatch_run_answers_on_matrix_beside_the_scheduler_and_stops_on_sigter
     log = err_path.read_text(encoding="utf-8")
     assert "matrix: connected" in log
     assert people["fogbot"].access_token not in log  # the token never reaches the log
+
+
+def test_past_the_senders_rate_the_bot_stays_quiet(make_scene, people):
+    service = make_scene(rate_per_minute=2).service()
+    bot = people["fogbot"]
+    phone = Client(service.config.matrix.homeserver, people["member"])  # type: ignore[union-attr]
+    memory = MatrixState(service.store, bot.user_id)
+    with bot_running(service, Clock(utc(2026, 11, 20, 22, 40))):
+        room = room_with_bot(phone, bot, is_direct=True)
+        said = [phone.say(room, "help") for _ in range(3)]
+        wait_until(lambda: memory.handled(said[-1]), "the third message to be taken")
+    assert len(phone.replies_from(room, bot.user_id)) == 2  # bot.rate_per_minute
