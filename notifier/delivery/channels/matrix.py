@@ -4,7 +4,8 @@
 ``PUT /_matrix/client/v3/rooms/{room}/send/m.room.message/{txnId}`` with the delivery's
 idempotency key as the transaction id: a homeserver answers a repeated transaction id
 from the same device with the first event, so a send retried after a crash (sent, but
-not yet marked sent) is not posted twice. The content is the plain text as ``body`` and
+not yet marked sent) is not posted twice. (How long a homeserver remembers a transaction
+id is its own choice; Synapse keeps it well past a claim's lease, from memory.) The content is the plain text as ``body`` and
 the same text, HTML-escaped, as ``formatted_body`` (``format: org.matrix.custom.html``),
 the caution included.
 
@@ -12,7 +13,8 @@ Where it goes: the subscriber's ``address`` when it is a room id (``!id:server``
 alias (``#name:server``); a user id (``@ana:server``, a person who followed a site
 through the bot) goes to that person's direct room with the bot, found in the bot's
 ``m.direct`` account data or created (and recorded there) on the first alert; no
-address: the channel's ``room``.
+address: the channel's ``room``. A crash between creating a direct room and recording it
+leaves an empty room behind; the retry creates another and posts there.
 
 Plain ``requests`` rather than matrix-nio: the dispatcher is synchronous and sends one
 delivery at a time, and the channel needs only these few calls, so an event loop per
