@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import logging
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -367,6 +368,11 @@ def test_a_refused_token_is_logged_and_shown_by_status(make_scene, monkeypatch, 
     shown = json.loads(capsys.readouterr().out)["matrix"]
     assert shown["state"] == "stopped"
     assert "M_UNKNOWN_TOKEN" in shown["last_error"]
+    assert main(["status", str(scene.config_path)]) == 0
+    text = capsys.readouterr().out
+    bot = service.config.matrix.user_id  # type: ignore[union-attr]
+    assert f"Matrix {bot}: stopped; last sync never" in text
+    assert re.search(r"\n  last error .+: homeserver error: M_UNKNOWN_TOKEN", text), text
 
 
 def test_fogwatch_run_answers_on_matrix_beside_the_scheduler_and_stops_on_sigterm(
