@@ -5,9 +5,9 @@
 idempotency key as the transaction id: a homeserver answers a repeated transaction id
 from the same device with the first event, so a send retried after a crash (sent, but
 not yet marked sent) is not posted twice. (How long a homeserver remembers a transaction
-id is its own choice; Synapse keeps it well past a claim's lease, from memory.) The content is the plain text as ``body`` and
-the same text, HTML-escaped, as ``formatted_body`` (``format: org.matrix.custom.html``),
-the caution included.
+id is its own choice; Synapse keeps it well past a claim's lease, from memory.) The
+content is the plain text as ``body`` and the same text, HTML-escaped, as
+``formatted_body`` (``format: org.matrix.custom.html``), the caution included.
 
 Where it goes: the subscriber's ``address`` when it is a room id (``!id:server``) or
 alias (``#name:server``); a user id (``@ana:server``, a person who followed a site
