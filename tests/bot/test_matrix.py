@@ -376,8 +376,10 @@ def test_a_refused_token_is_logged_and_shown_by_status(make_scene, monkeypatch, 
 
 
 def test_fogwatch_run_answers_on_matrix_beside_the_scheduler_and_stops_on_sigterm(
-    make_scene, people
+    make_scene, people, capsys
 ):
+    from notifier.cli.main import main
+
     scene = make_scene()
     bot = people["fogbot"]
     url = scene.service().config.matrix.homeserver  # type: ignore[union-attr]
@@ -396,15 +398,9 @@ def test_fogwatch_run_answers_on_matrix_beside_the_scheduler_and_stops_on_sigter
             room = room_with_bot(phone, bot, is_direct=True)
             assert ask(phone, room, bot, "help").startswith("I don't know you yet")
 
-            def shown() -> dict[str, Any]:
-                out = subprocess.run(
-                    [sys.executable, "-m", "notifier", "status", "--json", str(scene.config_path)],
-                    capture_output=True,
-                    text=True,
-                    env=env,
-                    check=True,
-                )
-                return dict(json.loads(out.stdout)["matrix"])
+            def shown() -> dict[str, Any]:  # what `fogwatch status --json` says
+                assert main(["status", "--json", str(scene.config_path)]) == 0
+                return dict(json.loads(capsys.readouterr().out)["matrix"])
 
             assert shown()["state"] == "connected"
             proc.send_signal(signal.SIGTERM)
