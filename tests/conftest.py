@@ -193,4 +193,6 @@ def any_store(request: pytest.FixtureRequest) -> Iterator[Any]:
 
 # the service scene (a config, a drop folder and a store in a temporary folder) serves the
 # service, bot and delivery tests alike
+# a real Matrix homeserver (Synapse on 127.0.0.1), one per session, for the bot on Matrix
+from tests.bot.matrix_server import homeserver  # noqa: E402,F401
 from tests.service.scene import bot_env, scene  # noqa: E402,F401

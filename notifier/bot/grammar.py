@@ -33,7 +33,7 @@ from zoneinfo import ZoneInfo
 
 from notifier.core.config import SENDER_ID, SENDER_ID_RULE, parse_duration_s
 
-__all__ = ["BotBackend", "SiteStatus", "handle"]
+__all__ = ["BotBackend", "SiteStatus", "handle", "starts_with_command"]
 
 CAUTION = "Automated estimate, not an official forecast."
 MAX_MUTE = timedelta(days=14)  # a product bound: a forgotten hush must not silence a season
@@ -282,3 +282,19 @@ _COMMANDS: list[tuple[re.Pattern[str], Reply]] = [
     (re.compile(r"unhush\s+(.+?)(\s+for\s+everyone)?"), _unhush),
     (re.compile(r"why|follow|unfollow|hush|unhush"), _which_site),
 ]
+
+# what a message for the bot starts with, in a room shared with people talking among
+# themselves (greetings are left out there: "hi" is for the people)
+COMMAND_WORDS = frozenset(
+    ("help", "sites", "status", "why", "follow", "unfollow", "hush", "unhush", "join")
+)
+
+
+def starts_with_command(text: str) -> bool:
+    """True when ``text`` begins with one of the bot's command words.
+
+    >>> starts_with_command("Status vale"), starts_with_command("status? no idea")
+    (True, False)
+    """
+    words = text.split(maxsplit=1)
+    return bool(words) and words[0].lower() in COMMAND_WORDS

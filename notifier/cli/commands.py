@@ -239,6 +239,7 @@ def cli_run(args: argparse.Namespace) -> int:
 
 def cli_status(args: argparse.Namespace) -> int:
     """Each site's last level with its data's date and age, the sources, the outbox."""
+    from notifier.cli import state_views
     from notifier.cli.state_views import public, site_states, source_states, status_text
     from notifier.storage.outbox import Outbox
 
@@ -253,6 +254,7 @@ def cli_status(args: argparse.Namespace) -> int:
         trouble = outbox.deliveries(["failed", "expired", "cancelled"])[-10:]
         pending_rows = outbox.deliveries(["pending"])
         retrying = [r for r in pending_rows if r.attempts][-10:]
+        matrix = state_views.matrix_state(config, store)
     if getattr(args, "json", False):
         problem = [
             {
@@ -269,6 +271,7 @@ def cli_status(args: argparse.Namespace) -> int:
             "sites": public(sites),
             "sources": public(sources),
             "outbox": {"backlog": dict(sorted(backlog.items())), "problems": problem},
+            "matrix": matrix,
         }
         print(json.dumps(out, indent=2, ensure_ascii=False))
         return 0
@@ -278,6 +281,7 @@ def cli_status(args: argparse.Namespace) -> int:
         f"  retrying ({r.attempts} tries): {r.subscriber} via {r.channel}: {r.last_error}"
         for r in retrying
     ]
+    lines += ["", state_views.matrix_text(matrix, now, _zone(config))] if matrix else []
     print(status_text(sites, sources, lines, now, _zone(config)))
     _print_holds(pending_rows, config)
     return 0

@@ -16,7 +16,15 @@ from notifier.core.config import Config
 from notifier.core.freshness import freshness, when_text
 from notifier.core.timefmt import iso_z, parse_iso
 
-__all__ = ["newest_by", "site_states", "source_states", "sources_text", "status_text"]
+__all__ = [
+    "matrix_state",
+    "matrix_text",
+    "newest_by",
+    "site_states",
+    "source_states",
+    "sources_text",
+    "status_text",
+]
 
 Reading = tuple[str, str | None, datetime]  # (site, source, time of its newest row)
 
@@ -170,3 +178,31 @@ def status_text(
         )
     lines += ["", sources_text(sources, now, zone), "", *outbox_lines]
     return "\n".join(lines)
+
+
+def matrix_state(config: Config, store: Any) -> dict[str, Any] | None:
+    """The Matrix connection as ``fogwatch run`` last recorded it (None: not configured)."""
+    if config.matrix is None:
+        return None
+    from notifier.storage.matrixstate import MatrixState
+
+    got = MatrixState(store, config.matrix.user_id).status() or {}
+    return {
+        "user_id": config.matrix.user_id,
+        "homeserver": config.matrix.homeserver,
+        "state": got.get("state", "never started"),
+        "last_sync": got.get("last_sync_at"),
+        "last_error": got.get("last_error"),
+        "last_error_at": got.get("last_error_at"),
+        "updated": got.get("updated_at"),
+    }
+
+
+def matrix_text(record: Mapping[str, Any], now: datetime, zone: str) -> str:
+    """One line, and one for the last error: ``Matrix @bot:server: connected; …``."""
+    synced = parse_iso(record["last_sync"]) if record["last_sync"] else None
+    line = f"Matrix {record['user_id']}: {record['state']}; last sync {_when(synced, now, zone)}"
+    if record["last_error"]:
+        when = parse_iso(record["last_error_at"]) if record["last_error_at"] else None
+        line += f"\n  last error {_when(when, now, zone)}: {record['last_error']}"
+    return line

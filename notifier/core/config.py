@@ -23,6 +23,7 @@ from pydantic import (
     model_validator,
 )
 
+from notifier.core.config_matrix import MatrixChannel, MatrixSettings, with_matrix_defaults
 from notifier.core.config_types import (
     SENDER_ID,
     SENDER_ID_RULE,
@@ -55,6 +56,8 @@ __all__ = [  # with the value types of notifier.core.config_types, re-exported
     "FileDropSource",
     "FolderChannel",
     "HttpJsonSource",
+    "MatrixChannel",
+    "MatrixSettings",
     "Schedule",
     "Site",
     "StoreSettings",
@@ -198,11 +201,11 @@ class CapChannel(_Model):
 
 
 Channel = Annotated[
-    TextChannel | FolderChannel | EmailChannel | WebhookChannel | CapChannel,
+    TextChannel | FolderChannel | EmailChannel | WebhookChannel | CapChannel | MatrixChannel,
     Field(discriminator="type"),
 ]
 
-CHANNEL_TYPES = ("text", "folder", "email", "webhook", "cap")
+CHANNEL_TYPES = ("text", "folder", "email", "webhook", "cap", "matrix")
 
 _QUIET = re.compile(r"^\s*(\d{1,2}):(\d{2})\s*-\s*(\d{1,2}):(\d{2})\s*$")
 
@@ -326,7 +329,13 @@ class Config(_Model):
     bot: BotSettings = BotSettings()
     model: Path | None = None  # a site model written by `fogwatch learn` (JSON)
     web: WebSettings | None = None
+    matrix: MatrixSettings | None = None
     path: Path | None = None  # the file this came from (set by load_config)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _matrix_defaults(cls, data: Any) -> Any:
+        return with_matrix_defaults(data)
 
     @field_validator("version")
     @classmethod

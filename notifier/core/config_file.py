@@ -38,6 +38,7 @@ from notifier.core.config import (
     is_loopback_host,
 )
 from notifier.core.config_hints import did_you_mean, folder_problems
+from notifier.core.config_matrix import MatrixChannel, check_matrix_address
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
 from notifier.core.redact import remember_env_value
@@ -445,6 +446,8 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
             if sub.address and ch is not None and isinstance(ch, EmailChannel | FolderChannel):
                 if not re.match(r"^[^@\s<>,;]+@[^@\s<>,;]+\.[^@\s<>,;]+$", sub.address):
                     add(("subscribers", i, "address"), f"not an email address: {sub.address!r}")
+            if isinstance(ch, MatrixChannel):
+                check_matrix_address(add, ("subscribers", i, "address"), sub.address, ch)
         for sel in sub.sites:
             check_selector(("subscribers", i, "sites"), sel)
     for code, granted in config.bot.join_codes.items():

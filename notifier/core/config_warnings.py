@@ -75,16 +75,21 @@ def literal_secrets(path: str, raw: Any, found: Expansion) -> list[ConfigProblem
         for i, item in enumerate(items if isinstance(items, list) else []):
             if isinstance(item, dict):
                 places.append(((section, i), item, str(item.get("id") or f"{section}{i}")))
-    for section, owner in (("bot", "bot"), ("store", "db"), ("web", "web")):
+    for section, owner in (("bot", "bot"), ("store", "db"), ("web", "web"), ("matrix", "matrix")):
         if isinstance(raw.get(section), dict):
             places.append(((section,), raw[section], owner))
     for loc, item, owner in places:
-        for key in ("secret", "password", "token"):
+        for key in ("secret", "password", "token", "access_token"):
             value = found.written.get((*loc, key), item.get(key))
             if item.get(key) in (None, "") or _from_env(value):
                 continue
             name = _env_name("FOGWATCH", owner, key)
-            warn((*loc, key), f"a {key}", f'{key}: "${{{name}}}"', name)
+            warn(
+                (*loc, key),
+                f"{'an' if key[0] in 'aeiou' else 'a'} {key}",
+                f'{key}: "${{{name}}}"',
+                name,
+            )
         url = found.written.get((*loc, "url"), item.get("url"))
         if isinstance(url, str):
             for what, write, name in _url_secrets(url, owner):

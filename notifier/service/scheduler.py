@@ -1,5 +1,8 @@
 """APScheduler wiring for ``fogwatch run``: the jobs only call the service.
 
+The web app (``web:``) and the bot on Matrix (``matrix:``) run beside the jobs, each
+in a thread of its own, and stop before the store closes.
+
 Jobs: one poll per source at its interval (each poll is followed by an assessment and
 the lifecycle), delivery of the outbox, the evening outlook per time zone at the
 configured local time, a data-health check, housekeeping, and a watch on the config and
@@ -197,9 +200,11 @@ def run_forever(service: Service) -> int:
     signal.signal(signal.SIGINT, stop)
     if hasattr(signal, "SIGHUP"):
         signal.signal(signal.SIGHUP, hup)
+    from notifier.service.matrixbot import start_matrix
     from notifier.service.webapp import start_web
 
     web = start_web(service)  # the web app beside the jobs when the config has web:
+    matrix = start_matrix(service)  # the bot on Matrix when the config has matrix:
     log.info(
         "fogwatch running: %d site(s), %d source(s)",
         len(service.config.sites),
@@ -212,6 +217,8 @@ def run_forever(service: Service) -> int:
             stopper.join(timeout=60)  # the jobs in flight end before the store closes
         if web is not None:
             web.close()
+        if matrix is not None:
+            matrix.stop()  # the sync in flight is cancelled; an answer being sent ends first
         service.close()
         log.info("fogwatch stopped")
     return 0

@@ -17,7 +17,8 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 ``alert_states``, ``events``, ``deliveries`` and ``site_status`` for the outbox
 (:mod:`notifier.storage.outbox`); ``members``, ``member_grants``, ``follows`` and ``mutes``
 for the bot (:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot
-endpoint's replay protection (:mod:`notifier.storage.seen`).
+endpoint's replay protection (:mod:`notifier.storage.seen`); ``matrix_sync`` and
+``matrix_events`` for the Matrix connection (:mod:`notifier.storage.matrixstate`).
 """
 
 from __future__ import annotations
@@ -198,6 +199,8 @@ def _m0007_member_grants(conn: Connection) -> None:
             SELECT sender, substr(via, 10), joined_at FROM members
             WHERE substr(via, 1, 9) = 'code for ' AND length(via) > 9"""
     )
+
+
 def _m0008_seen_messages(conn: Connection) -> None:
     """The ``webhook-id`` of every signed request the bot endpoint took, until its
     timestamp window has passed, so that a captured request is refused after a restart
@@ -211,6 +214,23 @@ def _m0008_seen_messages(conn: Connection) -> None:
     conn.exec_driver_sql("CREATE INDEX seen_messages_expiry ON seen_messages (expires_at)")
 
 
+def _m0010_matrix_sync(conn: Connection) -> None:
+    """The Matrix connection's place in its sync stream and the events it answered, so
+    that a restart neither answers a command twice nor misses one sent while it was
+    down; and its state, for ``fogwatch status`` in another process."""
+    seconds = "BIGINT" if conn.dialect.name == "postgresql" else "INTEGER"
+    conn.exec_driver_sql(
+        """CREATE TABLE matrix_sync (
+            account TEXT PRIMARY KEY, next_batch TEXT, state TEXT NOT NULL,
+            last_sync_at TEXT, last_error TEXT, last_error_at TEXT, updated_at TEXT NOT NULL)"""
+    )
+    conn.exec_driver_sql(
+        f"""CREATE TABLE matrix_events (
+            event_id TEXT PRIMARY KEY, room_id TEXT NOT NULL, handled_at {seconds} NOT NULL)"""
+    )
+    conn.exec_driver_sql("CREATE INDEX matrix_events_age ON matrix_events (handled_at)")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
@@ -221,6 +241,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0006_mutes_for_everyone", _m0006_mutes_for_everyone),
     Migration("0007_member_grants", _m0007_member_grants),
     Migration("0008_seen_messages", _m0008_seen_messages),
+    Migration("0010_matrix_sync", _m0010_matrix_sync),
 ]
 
 metadata = sa.MetaData()
@@ -355,4 +376,22 @@ seen_messages = sa.Table(
     sa.Column("message_id", sa.Text, primary_key=True),
     sa.Column("seen_at", sa.BigInteger, nullable=False),  # POSIX seconds
     sa.Column("expires_at", sa.BigInteger, nullable=False),
+)
+matrix_sync = sa.Table(
+    "matrix_sync",
+    metadata,
+    sa.Column("account", sa.Text, primary_key=True),  # the bot's Matrix user id
+    sa.Column("next_batch", sa.Text),  # where the next sync starts
+    sa.Column("state", sa.Text, nullable=False),  # connected | retrying | token refused | …
+    sa.Column("last_sync_at", sa.Text),
+    sa.Column("last_error", sa.Text),
+    sa.Column("last_error_at", sa.Text),
+    sa.Column("updated_at", sa.Text, nullable=False),
+)
+matrix_events = sa.Table(
+    "matrix_events",
+    metadata,
+    sa.Column("event_id", sa.Text, primary_key=True),
+    sa.Column("room_id", sa.Text, nullable=False),
+    sa.Column("handled_at", sa.BigInteger, nullable=False),  # POSIX seconds
 )

@@ -125,7 +125,7 @@ def test_build_channel_refuses_unknown_config():
 
 def test_public_api_of_channels():
     import notifier.delivery.channels as channels
-    from notifier.core.config import EmailChannel, WebhookChannel
+    from notifier.core.config import EmailChannel, MatrixChannel, WebhookChannel
     from notifier.delivery.channels.base import Channel
 
     assert sorted(channels.__all__) == sorted(
@@ -136,6 +136,7 @@ def test_public_api_of_channels():
             "Channel",
             "EmailSender",
             "FolderWriter",
+            "MatrixSender",
             "RetryLater",
             "TextWriter",
             "WebhookSender",
@@ -153,6 +154,13 @@ def test_public_api_of_channels():
         ),
         WebhookChannel(
             id="hook", type="webhook", url="http://hooks.example.test/x", secret=WEBHOOK_SECRET
+        ),
+        MatrixChannel(
+            id="room",
+            type="matrix",
+            homeserver="http://matrix.example.test",
+            access_token="invented-token",
+            room="!quay:example.test",
         ),
     ]
     for cfg in configs:

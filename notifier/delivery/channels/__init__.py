@@ -1,4 +1,4 @@
-"""Delivery channels: text, folder (.eml), email (SMTP), webhook and CAP files.
+"""Delivery channels: text, folder (.eml), email (SMTP), webhook, CAP files and Matrix.
 
 Every channel follows :class:`~notifier.delivery.channels.base.Channel`: ``open()``, ``send(message,
 delivery, idempotency_key, chart_png)`` and ``close()``, or ``with`` for a batch, and
@@ -14,6 +14,7 @@ from notifier.core.config import (
     Config,
     EmailChannel,
     FolderChannel,
+    MatrixChannel,
     TextChannel,
     WebhookChannel,
 )
@@ -21,6 +22,7 @@ from notifier.delivery.channels.base import BaseChannel, Channel, RetryLater
 from notifier.delivery.channels.cap import CapWriter
 from notifier.delivery.channels.email import EmailSender
 from notifier.delivery.channels.folder import FolderWriter
+from notifier.delivery.channels.matrix import MatrixSender
 from notifier.delivery.channels.text import TextWriter
 from notifier.delivery.channels.webhook import WebhookSender
 
@@ -31,6 +33,7 @@ __all__ = [
     "Channel",
     "EmailSender",
     "FolderWriter",
+    "MatrixSender",
     "RetryLater",
     "TextWriter",
     "WebhookSender",
@@ -47,6 +50,7 @@ _BUILDERS: dict[type, Any] = {
     EmailChannel: EmailSender,
     WebhookChannel: WebhookSender,
     CapChannel: CapWriter,
+    MatrixChannel: MatrixSender,
 }
 
 
@@ -65,7 +69,7 @@ def build_channel(channel_config: Any, **injected: Any) -> Channel:
 
     ``injected`` goes to the channel's constructor: ``connect``, ``ssl_context`` and
     ``clock`` for email; ``session`` and ``clock`` for webhook; ``stream`` for text;
-    ``sender`` and ``clock`` for folder.
+    ``sender`` and ``clock`` for folder; ``session`` for matrix.
     """
     builder = _BUILDERS.get(type(channel_config))
     if builder is None:
