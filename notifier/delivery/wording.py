@@ -4,7 +4,7 @@ a phone rather than in the rule files' terms (``messages`` lays them out)."""
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import TYPE_CHECKING
 
 from notifier.core.timefmt import local_time
@@ -17,6 +17,7 @@ __all__ = [
     "HAZARD_NAMES",
     "KIND_WORDS",
     "SEEN_WORDS",
+    "gap_text",
     "hhmm",
     "in_about",
     "lead",
@@ -73,6 +74,8 @@ def lead(event: Event) -> str:
     level = event.level
     if event.type == "observed":
         return " and ".join(SEEN_WORDS.get(k, k) for k in event.seen) or f"{haz} seen"
+    if event.type == "data_back" and event.gap_untold:
+        return "Short data gap, data back"
     return {
         "raised": f"{haz} {level}",
         "escalated": f"{haz} now a {level}",
@@ -102,7 +105,29 @@ def status_note(event: Event, zone: str) -> str:
         "data_back": "site can be judged again",
         "outlook": f"now {event.previous_level}",
     }.get(event.type, event.type)
+    if event.type == "data_back" and event.gap_from is not None:
+        note = f"{gap_text(event, zone)}; {note}"
     return f"{stamp} · {note}"
+
+
+def gap_text(event: Event, zone: str) -> str:
+    """A data gap's span: "no readings after 02:30 GMT" (still open) or "no readings
+    from 02:30 to 04:40 GMT" (back), from the newest reading before it; "" if unknown."""
+    if event.gap_from is None:
+        return ""
+    start = local_time(event.gap_from, zone, with_date=event.time - event.gap_from > _DAY)
+    if event.type == "data_gap":
+        return f"no readings after {start}"
+    return f"no readings from {start.removesuffix(_zone_suffix(start))} to {hhmm(event.time, zone)}"
+
+
+_DAY = timedelta(hours=20)
+
+
+def _zone_suffix(text: str) -> str:
+    """ " GMT" in "02:30 GMT": the zone said once in a span."""
+    parts = text.rsplit(" ", 1)
+    return f" {parts[1]}" if len(parts) == 2 and parts[1].isalpha() else ""
 
 
 def when_text(event: Event, zone: str) -> str:
