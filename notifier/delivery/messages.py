@@ -38,6 +38,7 @@ from notifier.delivery.wording import (
     SEEN_WORDS,
     gap_text,
     hhmm,
+    in_force_text,
     lead,
     status_note,
     when_text,
@@ -224,6 +225,8 @@ def _event_lines(event: Event, zone: str) -> list[str]:
         lead = f"No {haz} alert level has held{since}."
     else:
         lead = f"Below {event.previous_level} level{since}."
+    if event.in_force:
+        lead += f" Still in force here: {in_force_text(event).removesuffix(' still in force')}."
     lines += _block("What changed", [lead], bullets=_capped(event.changes, 6))
     now = _now_bullets(event)
     if now:

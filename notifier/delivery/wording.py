@@ -20,6 +20,7 @@ __all__ = [
     "gap_text",
     "hhmm",
     "in_about",
+    "in_force_text",
     "lead",
     "status_note",
     "when_text",
@@ -103,11 +104,22 @@ def status_note(event: Event, zone: str) -> str:
         "cleared": f"{event.hazard} {event.news_level} has ended",
         "data_gap": "site cannot be judged",
         "data_back": "site can be judged again",
-        "outlook": f"now {event.previous_level}",
+        "outlook": f"{event.previous_level} in force"
+        if event.previous_level != "none"
+        else "no alert in force",
     }.get(event.type, event.type)
     if event.type == "data_back" and event.gap_from is not None:
         note = f"{gap_text(event, zone)}; {note}"
+    if event.in_force:
+        note = f"{note}; {in_force_text(event)}"
     return f"{stamp} · {note}"
+
+
+def in_force_text(event: Event) -> str:
+    """The site's other alerts still in force at an ending: "icing warning still in
+    force" (an all-clear for fog is not the all-clear for the site)."""
+    alerts = [item.replace(":", " ").replace("_", " ") for item in event.in_force]
+    return f"{' and '.join(alerts)} still in force" if alerts else ""
 
 
 def gap_text(event: Event, zone: str) -> str:

@@ -178,6 +178,9 @@ class Event:
     # data back: the gap was never sent on its own (it closed within alerts.gap_grace,
     # under a warning), so this one message tells all of it
     gap_untold: bool = False
+    # endings: the site's other alerts still in force, as "hazard:level" ("icing:warning"),
+    # so an all-clear for fog is not read as the all-clear for the site
+    in_force: tuple[str, ...] = ()
 
     @property
     def news_level(self) -> str:
@@ -225,6 +228,7 @@ class Event:
             "peak_level": self.peak_level,
             "gap_from": iso_text(self.gap_from),
             "gap_untold": self.gap_untold,
+            "in_force": list(self.in_force),
         }
 
     @classmethod
@@ -260,6 +264,7 @@ class Event:
             peak_level=data.get("peak_level", ""),
             gap_from=parse_iso(data.get("gap_from")),
             gap_untold=bool(data.get("gap_untold", False)),
+            in_force=tuple(data.get("in_force", ())),
         )
 
 

@@ -351,6 +351,21 @@ def _prunable(state: AlertState, now: datetime, settings: AlertSettings) -> bool
     return all(now - t >= cooldown for _, t in state.last_raised)
 
 
+def _with_in_force(events: list[Event], site_states: Sequence[AlertState]) -> list[Event]:
+    """Endings that say which other alerts of the site are still in force."""
+    out = []
+    for event in events:
+        if event.type in ("cleared", "downgraded") and event.hazard != DATA_GAP:
+            others = tuple(
+                f"{st.hazard}:{st.level}"
+                for st in site_states
+                if st.hazard not in (event.hazard, DATA_GAP) and st.level != "none"
+            )
+            event = replace(event, in_force=others) if others else event
+        out.append(event)
+    return out
+
+
 def _hazard_order(hazard: str) -> tuple[int, str]:
     return (HAZARDS.index(hazard) if hazard in HAZARDS else len(HAZARDS), hazard)
 
@@ -385,13 +400,13 @@ def step(
             key[1] != DATA_GAP and key in previous and previous[key].level == "warning"
             for key in keys
         )
-        told = False
+        told: list[Event] = []
         for key in keys:
             state = previous.get(key) or AlertState(site_id=site_id, hazard=key[1])
             new, found = _step_one(state, sa, now, settings, warned)
-            events.extend(found)
+            told.extend(found)
             states[key] = new
-            told = told or bool(found)
+        events.extend(_with_in_force(told, [states[k] for k in keys]))
         if told:  # news of one hazard is news of the site: the reminder clocks restart
             for key in keys:
                 st = states[key]

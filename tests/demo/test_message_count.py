@@ -141,3 +141,18 @@ def test_fog_formed_says_what_is_seen_not_the_forecast(night):
         assert "here now, since" in flat and "visibility" in flat
         assert "What to do:" in flat
         assert not [m for m in MOOT if f"• {m}" in flat], flat
+
+
+def test_the_orchards_fog_all_clear_says_the_icing_warning_stands(night):
+    result, _, _ = night
+    (cleared,) = [
+        e
+        for e in result["events"]
+        if e.site_id == "hollin-orchard" and e.hazard == "fog" and e.type == "cleared"
+    ]
+    # the invented night ends at 09:00 with the orchard still below 0 °C (surface -4 °C):
+    # the icing warning is still in force when the fog clears
+    assert cleared.in_force == ("icing:warning",)
+    log = " ".join((result["out"] / "alerts.txt").read_text(encoding="utf-8").split())
+    assert "fog warning has ended; icing warning still in force" in log
+    assert "Still in force here: icing warning." in log

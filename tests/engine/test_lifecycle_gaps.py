@@ -181,3 +181,29 @@ def test_a_held_gap_survives_a_store_round_trip():
     held = states[(sa.site.id, "data_gap")]
     assert held.gap_pending_since == T0 + 2 * STEP and held.gap_from == T0 + STEP
     assert AlertState.from_dict(held.to_dict()) == held
+
+
+ENDINGS = [
+    # (fog, icing, expected (step, hazard, type, in_force))
+    # the fog ends under an icing warning: its all-clear says the icing stands
+    ("W" * 3 + "." * 9, "W" * 12, [(8, "fog", "cleared", ("icing:warning",))]),
+    # both end: the last all-clear is the site's, with nothing left in force (below the
+    # level from step 3 and step 5; each ends 45 min later, alerts.clearing_time)
+    (
+        "W" * 3 + "." * 9,
+        "W" * 5 + "." * 7,
+        [(8, "fog", "cleared", ("icing:warning",)), (10, "icing", "cleared", ())],
+    ),
+    # the fog eases to a watch that holds, under an icing watch
+    ("W" * 3 + "w" * 9, "i" * 12, [(8, "fog", "downgraded", ("icing:watch",))]),
+]
+ENDING_IDS = ["fog-ends-icing-stands", "both-end", "eased-beside-a-watch"]
+
+
+@pytest.mark.parametrize(("fog", "icing", "expected"), ENDINGS, ids=ENDING_IDS)
+def test_an_ending_names_the_sites_alerts_still_in_force(fog, icing, expected):
+    found = night(fog, icing=icing)
+    ends = [
+        (i, e.hazard, e.type, e.in_force) for i, e in found if e.type in ("cleared", "downgraded")
+    ]
+    assert ends == expected
