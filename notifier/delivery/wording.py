@@ -151,6 +151,15 @@ def when_text(event: Event, zone: str) -> str:
     if event.eta_method == "surface-now":
         return f"now: surfaces are at or below 0 °C and the frost point{since}."
     if event.eta is None:
+        trend = event.features.get("hours_to_fog")
+        if event.hazard == "fog" and trend is not None and 0.0 < trend < float("inf"):
+            # a rule may test the evening's straight-line trend, which assess does not
+            # give as a time until tonight's cooling curve can be fitted
+            return (
+                "no firm arrival time yet: tonight's cooling curve cannot be fitted this "
+                "early, and the straight-line trend in the reasons below is a rough guide "
+                "only."
+            )
         return "no arrival time can be worked out from this site's data yet."
     ahead_min = (event.eta - event.time).total_seconds() / 60.0
     how = ETA_WORDS.get(event.eta_method, "")
