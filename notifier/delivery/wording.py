@@ -104,9 +104,9 @@ def status_note(event: Event, zone: str) -> str:
         "cleared": f"{event.hazard} {event.news_level} has ended",
         "data_gap": "site cannot be judged",
         "data_back": "site can be judged again",
-        "outlook": f"{event.previous_level} in force"
+        "outlook": f"site at {event.previous_level} now"
         if event.previous_level != "none"
-        else "no alert in force",
+        else "no alert in force now",
     }.get(event.type, event.type)
     if event.type == "data_back" and event.gap_from is not None:
         note = f"{gap_text(event, zone)}; {note}"
