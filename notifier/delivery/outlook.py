@@ -86,7 +86,7 @@ def outlook_event(sa: SiteAssessment, now: datetime) -> Event:
     """The outlook as an event whose fields agree with its text.
 
     ``level`` and ``previous_level`` are the site's level now (the outlook changes no
-    level, and its text says "now <level>"); routing sends it as watch-level news whatever
+    level, and its text says "site at <level> now"); routing sends it as watch-level news whatever
     that level (delivery.routing). ``reasons`` are the outlook's sentences, ``eta`` the
     middle of the onset window when the cooling curve gives one, and ``kind`` is left
     empty: the fog chance is a sentence of the text, not a kind of fog."""
