@@ -218,8 +218,8 @@ def _event_lines(event: Event, zone: str) -> list[str]:
         lead += " readings are arriving again."
         if event.gap_untold:
             lead += (
-                " The gap was short and the warning here stayed in force throughout, "
-                "so it was not sent on its own (alerts.gap_grace)."
+                " It was not sent on its own: it was short, and a gap never ends a "
+                "warning (alerts.gap_grace)."
             )
     elif event.type == "cleared":
         lead = f"No {haz} alert level has held{since}."

@@ -178,8 +178,8 @@ class Event:
     # data back: the gap was never sent on its own (it closed within alerts.gap_grace,
     # under a warning), so this one message tells all of it
     gap_untold: bool = False
-    # endings: the site's other alerts still in force, as "hazard:level" ("icing:warning"),
-    # so an all-clear for fog is not read as the all-clear for the site
+    # endings and data gaps: the site's other alerts in force, as "hazard:level"
+    # ("icing:warning"), so an all-clear for fog is not read as the site's all-clear
     in_force: tuple[str, ...] = ()
 
     @property

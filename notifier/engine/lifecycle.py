@@ -352,10 +352,10 @@ def _prunable(state: AlertState, now: datetime, settings: AlertSettings) -> bool
 
 
 def _with_in_force(events: list[Event], site_states: Sequence[AlertState]) -> list[Event]:
-    """Endings that say which other alerts of the site are still in force."""
+    """Endings, and data gaps, that say which other alerts of the site are in force."""
     out = []
     for event in events:
-        if event.type in ("cleared", "downgraded") and event.hazard != DATA_GAP:
+        if event.type in ("cleared", "downgraded", "data_gap", "data_back"):
             others = tuple(
                 f"{st.hazard}:{st.level}"
                 for st in site_states

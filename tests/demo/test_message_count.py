@@ -95,6 +95,8 @@ def test_no_news_is_lost(night):
     assert back.id in sent["show-safety"] and back.id in sent["duty-desk"]
     log = " ".join((result["out"] / "alerts.txt").read_text(encoding="utf-8").split())
     assert "No readings from 02:30 to 04:40 GMT: fresh readings are arriving again" in log
+    assert back.in_force == ("fog:warning",)
+    assert "site can be judged again; fog warning still in force" in log
 
 
 def test_no_reminder_once_the_hazard_is_seen(night):

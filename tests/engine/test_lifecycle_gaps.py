@@ -141,6 +141,8 @@ def test_a_short_gap_under_a_warning_is_told_once(fog, data, expected):
         assert back.gap_from == T0 + 2 * STEP
         assert back.gap_untold == (not gaps)
         assert back.news_level == "watch" and back.changes
+        # and says the site's alert that stayed in force through it
+        assert back.in_force == {"W": ("fog:warning",), "w": ("fog:watch",)}.get(fog[0], ())
     for gap in gaps:
         assert gap.gap_from == T0 + 2 * STEP
 
