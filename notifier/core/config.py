@@ -276,6 +276,10 @@ class AlertSettings(_Model):
     cooldown: Duration = 60 * 60.0
     max_delivery_age: Duration = 12 * 3600.0
     stale_after: Duration = 90 * 60.0
+    # under a warning, a data gap is sent on its own only once it has lasted this long
+    # past stale_after; one that closes sooner is told once, with its end
+    # (engine/data_gap.py). 45 min: fogwatch's own choice, equal to clearing_time
+    gap_grace: Duration = 45 * 60.0
     # how long a dispatcher's claim on what it is sending lasts (wall-clock time); it
     # should be well above the longest single send (the channels' timeouts)
     claim_lease: PositiveDuration = 15 * 60.0

@@ -4,7 +4,8 @@ One event of the lifecycle is one CAP ``<alert>`` (docs/references.md [OASIS CAP
 
 - ``msgType``: ``raised`` and ``data_gap`` open an episode (``Alert``); ``escalated``,
   ``downgraded`` and ``reminder`` are ``Update``; ``cleared`` and ``data_back`` end it
-  (``Cancel``). An Update or Cancel names the episode's earlier messages in
+  (``Cancel``; a short data gap told once, when over, is no CAP message). An Update or
+  Cancel names the episode's earlier messages in
   ``references`` (``sender,identifier,sent`` each, as the standard asks).
 - ``category``: ``Met`` for fog and icing; a data gap is ``Other`` (the site cannot be
   judged: it is no weather at all, but silence must not look like safety).
@@ -90,7 +91,11 @@ def cap_identifier(event: Event) -> str:
 
 
 def msg_type(event: Event) -> str | None:
-    """Alert, Update or Cancel; None for what is no alert state (the evening outlook)."""
+    """Alert, Update or Cancel; None for what is no alert state: the evening outlook, and
+    a short data gap told once when it was over (no Alert for it was ever issued, so
+    there is nothing to cancel)."""
+    if event.type == "data_back" and event.gap_untold:
+        return None
     return MSG_TYPES.get(event.type)
 
 

@@ -36,7 +36,9 @@ from notifier.delivery.wording import (
     HAZARD_NAMES,
     KIND_WORDS,
     SEEN_WORDS,
+    gap_text,
     hhmm,
+    in_force_text,
     lead,
     status_note,
     when_text,
@@ -122,10 +124,12 @@ def _value(name: str, value: float) -> str:
 def _when_block(event: Event, zone: str) -> list[str]:
     if event.hazard == "data_gap":
         if event.type == "data_gap":
+            span = gap_text(event, zone)
             return _para(
                 "When",
-                "now, and until readings return: fog and icing cannot be judged at this "
-                "site meanwhile.",
+                f"now{f' ({span})' if span else ''}, and until readings return: fog "
+                "and icing cannot be judged at this site meanwhile. An alert in force "
+                "stays in force: missing data never ends one.",
             )
         return []
     if event.level == "none":
@@ -209,11 +213,20 @@ def _event_lines(event: Event, zone: str) -> list[str]:
     since = f" since {hhmm(event.eased_since, zone)}" if event.eased_since else ""
     haz = HAZARD_NAMES.get(event.hazard, event.hazard).lower()
     if event.type == "data_back":
-        lead = "Fresh readings are arriving again."
+        span = gap_text(event, zone)
+        lead = f"{span[:1].upper()}{span[1:]}: fresh" if span else "Fresh"
+        lead += " readings are arriving again."
+        if event.gap_untold:
+            lead += (
+                " It was not sent on its own: it was short, and a gap never ends a "
+                "warning (alerts.gap_grace)."
+            )
     elif event.type == "cleared":
         lead = f"No {haz} alert level has held{since}."
     else:
         lead = f"Below {event.previous_level} level{since}."
+    if event.in_force:
+        lead += f" Still in force here: {in_force_text(event).removesuffix(' still in force')}."
     lines += _block("What changed", [lead], bullets=_capped(event.changes, 6))
     now = _now_bullets(event)
     if now:
@@ -336,7 +349,7 @@ def _summary_line(event: Event, site: Site, zone: str) -> str:
         "observed": " and ".join(SEEN_WORDS.get(k, k) for k in event.seen).lower() or "seen",
         "sooner": f"{haz} expected sooner",
         "data_gap": "no fresh data",
-        "data_back": "data back",
+        "data_back": f"{gap_text(event, zone) or 'readings missed'}, data back",
     }.get(event.type, event.type)
     first = (event.changes or event.reasons or ("",))[0]
     tail = f": {first}" if first else ""

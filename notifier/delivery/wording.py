@@ -4,7 +4,7 @@ a phone rather than in the rule files' terms (``messages`` lays them out)."""
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import TYPE_CHECKING
 
 from notifier.core.timefmt import local_time
@@ -17,8 +17,10 @@ __all__ = [
     "HAZARD_NAMES",
     "KIND_WORDS",
     "SEEN_WORDS",
+    "gap_text",
     "hhmm",
     "in_about",
+    "in_force_text",
     "lead",
     "status_note",
     "when_text",
@@ -73,6 +75,8 @@ def lead(event: Event) -> str:
     level = event.level
     if event.type == "observed":
         return " and ".join(SEEN_WORDS.get(k, k) for k in event.seen) or f"{haz} seen"
+    if event.type == "data_back" and event.gap_untold:
+        return "Short data gap, data back"
     return {
         "raised": f"{haz} {level}",
         "escalated": f"{haz} now a {level}",
@@ -100,9 +104,42 @@ def status_note(event: Event, zone: str) -> str:
         "cleared": f"{event.hazard} {event.news_level} has ended",
         "data_gap": "site cannot be judged",
         "data_back": "site can be judged again",
-        "outlook": f"now {event.previous_level}",
+        "outlook": f"site at {event.previous_level} now"
+        if event.previous_level != "none"
+        else "no alert in force now",
     }.get(event.type, event.type)
+    if event.type == "data_back" and event.gap_from is not None:
+        note = f"{gap_text(event, zone)}; {note}"
+    if event.in_force:
+        note = f"{note}; {in_force_text(event)}"
     return f"{stamp} · {note}"
+
+
+def in_force_text(event: Event) -> str:
+    """The site's other alerts still in force at an ending: "icing warning still in
+    force" (an all-clear for fog is not the all-clear for the site)."""
+    alerts = [item.replace(":", " ").replace("_", " ") for item in event.in_force]
+    return f"{' and '.join(alerts)} still in force" if alerts else ""
+
+
+def gap_text(event: Event, zone: str) -> str:
+    """A data gap's span: "no readings after 02:30 GMT" (still open) or "no readings
+    from 02:30 to 04:40 GMT" (back), from the newest reading before it; "" if unknown."""
+    if event.gap_from is None:
+        return ""
+    start = local_time(event.gap_from, zone, with_date=event.time - event.gap_from > _DAY)
+    if event.type == "data_gap":
+        return f"no readings after {start}"
+    return f"no readings from {start.removesuffix(_zone_suffix(start))} to {hhmm(event.time, zone)}"
+
+
+_DAY = timedelta(hours=20)
+
+
+def _zone_suffix(text: str) -> str:
+    """ " GMT" in "02:30 GMT": the zone said once in a span."""
+    parts = text.rsplit(" ", 1)
+    return f" {parts[1]}" if len(parts) == 2 and parts[1].isalpha() else ""
 
 
 def when_text(event: Event, zone: str) -> str:
@@ -114,6 +151,15 @@ def when_text(event: Event, zone: str) -> str:
     if event.eta_method == "surface-now":
         return f"now: surfaces are at or below 0 °C and the frost point{since}."
     if event.eta is None:
+        trend = event.features.get("hours_to_fog")
+        if event.hazard == "fog" and trend is not None and 0.0 < trend < float("inf"):
+            # a rule may test the evening's straight-line trend, which assess does not
+            # give as a time until tonight's cooling curve can be fitted
+            return (
+                "no firm arrival time yet: tonight's cooling curve cannot be fitted this "
+                "early, and the straight-line trend in the reasons below is a rough guide "
+                "only."
+            )
         return "no arrival time can be worked out from this site's data yet."
     ahead_min = (event.eta - event.time).total_seconds() / 60.0
     how = ETA_WORDS.get(event.eta_method, "")

@@ -208,12 +208,19 @@ def _write_drop(folder: Path, frame: pd.DataFrame, name: str) -> None:
     tmp.rename(folder / name)  # complete files only: the drop ignores *.part
 
 
-def _main_reason(event: Any) -> str:
+def _main_reason(event: Any, zone: str) -> str:
     """The most telling reason: a value against its threshold, not a yes/no."""
+    from notifier.delivery.wording import gap_text
+
+    if event.hazard == "data_gap" and event.gap_from is not None:
+        return gap_text(event, zone)
     reasons = list(event.changes or event.reasons or ())
-    if event.type == "observed":  # what was seen, not the forecast behind the warning
-        seen = [r for r in reasons if r.startswith(("visibility", "fog", "surface", "air"))]
-        return (seen or reasons or [""])[0]
+    if event.type == "observed":  # what was seen, a value before a yes/no
+        for word in ("visibility", "surface", "air"):
+            reasons.sort(key=lambda r, w=word: not r.startswith(w))  # type: ignore[misc]
+            if reasons and reasons[0].startswith(word):
+                return reasons[0]
+        return (list(event.explanations) or reasons or [""])[0]
     compared = [
         r
         for r in reasons
@@ -301,7 +308,7 @@ def _play_night(
                     if d.event_id == ev.id
                 }
             )
-            why = _main_reason(ev)
+            why = _main_reason(ev, site.timezone)
             say(f"{t.astimezone(zone):%a %H:%M}  {headline(ev, site, site.timezone)}")
             if why:
                 say(f"            because {why}")

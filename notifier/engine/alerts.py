@@ -71,6 +71,10 @@ class AlertState:
     seen: tuple[str, ...] = ()  # kinds seen in this episode (observed, dense, frost …)
     seen_since: datetime | None = None  # when the hazard was first seen in this episode
     eta: datetime | None = None  # the expected time last announced
+    # data gap only: the newest reading before the gap, and when a gap noticed under a
+    # warning began its grace (``alerts.gap_grace``: held, not yet announced)
+    gap_from: datetime | None = None
+    gap_pending_since: datetime | None = None
 
     @property
     def key(self) -> StateKey:
@@ -99,6 +103,8 @@ class AlertState:
             "seen": list(self.seen),
             "seen_since": iso_text(self.seen_since),
             "eta": iso_text(self.eta),
+            "gap_from": iso_text(self.gap_from),
+            "gap_pending_since": iso_text(self.gap_pending_since),
         }
 
     @classmethod
@@ -127,6 +133,8 @@ class AlertState:
             seen=tuple(data.get("seen", ())),
             seen_since=parse_iso(data.get("seen_since")),
             eta=parse_iso(data.get("eta")),
+            gap_from=parse_iso(data.get("gap_from")),
+            gap_pending_since=parse_iso(data.get("gap_pending_since")),
         )
 
 
@@ -165,6 +173,14 @@ class Event:
     seen_since: datetime | None = None  # when the hazard was first seen this episode
     seen: tuple[str, ...] = ()  # for ``observed``: the kinds newly seen
     peak_level: str = ""  # for endings: the highest level announced in the episode
+    # data gap and data back: the newest reading before the gap
+    gap_from: datetime | None = None
+    # data back: the gap was never sent on its own (it closed within alerts.gap_grace,
+    # under a warning), so this one message tells all of it
+    gap_untold: bool = False
+    # endings and data gaps: the site's other alerts in force, as "hazard:level"
+    # ("icing:warning"), so an all-clear for fog is not read as the site's all-clear
+    in_force: tuple[str, ...] = ()
 
     @property
     def news_level(self) -> str:
@@ -210,6 +226,9 @@ class Event:
             "seen_since": iso_text(self.seen_since),
             "seen": list(self.seen),
             "peak_level": self.peak_level,
+            "gap_from": iso_text(self.gap_from),
+            "gap_untold": self.gap_untold,
+            "in_force": list(self.in_force),
         }
 
     @classmethod
@@ -243,6 +262,9 @@ class Event:
             seen_since=parse_iso(data.get("seen_since")),
             seen=tuple(data.get("seen", ())),
             peak_level=data.get("peak_level", ""),
+            gap_from=parse_iso(data.get("gap_from")),
+            gap_untold=bool(data.get("gap_untold", False)),
+            in_force=tuple(data.get("in_force", ())),
         )
 
 

@@ -5,6 +5,7 @@ when an alert ends, the features shown beside it, and what is newly seen.
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Sequence
 from datetime import datetime
 from typing import TYPE_CHECKING, Any
@@ -23,6 +24,7 @@ __all__ = ["SIGHT_KINDS", "changes", "make_event", "seen_since_for", "sighted"]
 SIGHT_KINDS = ("observed", "dense", "freezing-fog", "frost")
 #: the night's clock: an ended test of these is told as the night being over
 SUN_FEATURES = frozenset({"is_night", "hours_to_sunrise", "hours_since_sunset"})
+_COMPARED = re.compile(r" (?:[<>≤≥]|in|is) ")  # a reason's value, before its test
 
 
 def _rank(level: str) -> int:
@@ -103,6 +105,12 @@ def make_event(
     else:
         rules = tuple(hazard.rules) if hazard else sustaining_rules(sa, state.hazard, new_level)
     age = sa.features.get("data_age_min")
+    reasons = tuple(hazard.reasons) if hazard else ()
+    explanations = tuple(hazard.explanations) if hazard else ()
+    if hazard is not None and extra.get("seen"):
+        # what is seen, not the forecast that led to the warning (the projected minimum
+        # or the hours to fog are moot once fog is here)
+        reasons, explanations = seen_texts(sa, hazard) or (reasons, explanations)
     return Event(
         id=event_id(state.site_id, state.hazard, episode_start, type_, new_level, now),
         type=type_,
@@ -115,8 +123,8 @@ def make_event(
         kind=hazard.kind if hazard else "",
         eta=hazard.eta if hazard else None,
         rules=rules,
-        reasons=tuple(hazard.reasons) if hazard else (),
-        explanations=tuple(hazard.explanations) if hazard else (),
+        reasons=reasons,
+        explanations=explanations,
         safety_refs=tuple(hazard.safety_refs) if hazard else (),
         previous_reasons=state.reasons,
         features=shown_features(sa, rules + state.rules),
@@ -127,6 +135,32 @@ def make_event(
         peak_level=max(state.peak, state.level, key=_rank),
         **extra,
     )
+
+
+def seen_texts(
+    sa: SiteAssessment, hazard: HazardAssessment
+) -> tuple[tuple[str, ...], tuple[str, ...]] | None:
+    """The reasons and explanations of the rules that see the hazard (``SIGHT_KINDS``,
+    at its level) and fire now, each value once; None when there are none."""
+    found = results_where(
+        sa,
+        lambda rule: (
+            rule.hazard == hazard.hazard and rule.level == hazard.level and rule.kind in SIGHT_KINDS
+        ),
+    )
+    firing = [r for r in found if r.applies and r.fires]
+    if not firing:
+        return None
+    reasons: list[str] = []
+    said: set[str] = set()
+    for result in firing:
+        for text in result.reasons():
+            value = _COMPARED.split(text, maxsplit=1)[0]  # "≤ 0 °C" and "< 0 °C": one line
+            if value not in said:
+                said.add(value)
+                reasons.append(text)
+    explanations = [r.explanation(sa.features) for r in firing if r.rule.explain]
+    return tuple(reasons), tuple(dict.fromkeys(explanations))
 
 
 def sighted(hazard: HazardAssessment | None) -> tuple[str, ...]:

@@ -24,11 +24,20 @@ Rules, with the defaults of :class:`~notifier.core.config.AlertSettings`:
   a threshold never flaps. ``data_gap`` ends with ``data_back`` as soon as fresh data
   returns. An ending carries the episode's highest level (``peak_level``), so whoever
   heard the warning hears its end.
-- **Reminders per site.** Once ``reminder_every`` (3 h) has passed since any news of the
-  site (of any hazard), one ``reminder`` for each of its warnings that is not easing,
-  all in the same cycle (so they go out as one message); a hazard already seen and
-  announced waits twice as long, as its next news is usually its change (dense,
-  freezing, ended). None while the site's data is stale.
+- **A short gap under a warning is told once.** While another hazard of the site is at
+  warning, a data gap is held for ``gap_grace`` (45 min) once it is noticed: the warning
+  stays in force meanwhile (stale data is not an all-clear), so the gap changes nothing a
+  person should do. If readings return within the grace, one ``data_back`` says it all
+  (``gap_untold``: "no readings from 02:30 to 04:40; fresh readings again"); if not,
+  ``data_gap`` goes at the end of the grace and ``data_back`` when readings return. With
+  no warning in force the gap is said at once: silence could hide a rising hazard. Both
+  events carry ``gap_from``, the newest reading before the gap.
+- **Reminders per site, and only while waiting.** Once ``reminder_every`` (3 h) has
+  passed since any news of the site (of any hazard), one ``reminder`` for each of its
+  warnings that is not easing and has not been seen, all in the same cycle (so they go
+  out as one message). A hazard seen (fog formed, dense, freezing fog, frost) gets no
+  reminder: its next news is its change or its end. None while the site's data is
+  stale; routing drops reminders inside a recipient's quiet hours.
 - **Cooldown** (``cooldown``, 60 min): a level is not announced again (``raised``,
   ``escalated`` or ``data_gap`` to that level) within ``cooldown`` of the last time it
   was announced for the same site and hazard. A rise that falls inside the cooldown is
@@ -54,6 +63,7 @@ from typing import TYPE_CHECKING
 
 from notifier.engine.alerts import AlertState, Event, StateKey
 from notifier.engine.assessment import level_rank
+from notifier.engine.data_gap import DATA_GAP, gap_held, gap_told_once
 from notifier.engine.event_parts import changes, make_event, sighted
 from notifier.engine.rules import HAZARDS
 
@@ -64,7 +74,6 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["step"]
 
 
-DATA_GAP = "data_gap"
 SOONER = timedelta(hours=1)  # an expected time this much earlier is news at once
 
 
@@ -73,7 +82,11 @@ def _rank(level: str) -> int:
 
 
 def _step_one(
-    state: AlertState, sa: SiteAssessment, now: datetime, settings: AlertSettings
+    state: AlertState,
+    sa: SiteAssessment,
+    now: datetime,
+    settings: AlertSettings,
+    warned: bool = False,
 ) -> tuple[AlertState, list[Event]]:
     hazard = sa.hazards.get(state.hazard)
     assessed = hazard.level if hazard else "none"
@@ -84,10 +97,16 @@ def _step_one(
     if _rank(assessed) > _rank(state.level):
         announced = state.raised_at(assessed)
         if announced is None or now - announced >= timedelta(seconds=settings.cooldown):
+            held = gap_held(state, sa, now, settings, warned)
+            if held is not None:
+                return held, []
             return _rise(state, assessed, sa, now)
         # inside the cooldown: hold the rise, announce it when the cooldown ends
 
     if state.level == "none":
+        if state.gap_pending_since is not None and sustain == "none":
+            # readings back within the grace: one message tells the whole gap
+            return _ended(state, now), [gap_told_once(state, sa, now)]
         return state, []
 
     is_data = state.hazard == DATA_GAP
@@ -170,7 +189,9 @@ def _rise(
     episode = now if state.level == "none" else state.episode_start
     hazard = sa.hazards.get(state.hazard)
     fresh = state if state.level != "none" else replace(state, seen=(), seen_since=None)
-    event = make_event(type_, fresh, assessed, sa, now, episode, seen=sighted(hazard))
+    gap_from = (state.gap_from or sa.last_time) if state.hazard == DATA_GAP else None
+    extra = {"gap_from": gap_from} if gap_from is not None else {}
+    event = make_event(type_, fresh, assessed, sa, now, episode, seen=sighted(hazard), **extra)
     raised = dict(state.last_raised)
     raised[assessed] = now
     new = replace(
@@ -189,6 +210,8 @@ def _rise(
         seen=tuple(dict.fromkeys((*fresh.seen, *event.seen))),
         seen_since=event.seen_since,
         eta=event.eta,
+        gap_from=gap_from,
+        gap_pending_since=None,
     )
     return new, [event]
 
@@ -206,6 +229,7 @@ def _end(
         state.episode_start,
         changes=changes(sa, state),
         eased_since=eased_since,
+        gap_from=state.gap_from,
     )
     return _ended(state, now), [event]
 
@@ -252,8 +276,9 @@ def _remind_site(
     settings: AlertSettings,
 ) -> list[Event]:
     """Reminders per site, not per hazard: once ``reminder_every`` has passed since any
-    news of the site, one ``reminder`` for each of its warnings that is not easing (they
-    go out together as one message). None while the site's data is stale."""
+    news of the site, one ``reminder`` for each of its warnings that is not easing and
+    not yet seen (they go out together as one message). None while the site's data is
+    stale, and none for a hazard seen: its next news is its change or its end."""
     every = timedelta(seconds=settings.reminder_every)
     if every <= timedelta(0) or sa.stale:
         return []
@@ -263,11 +288,12 @@ def _remind_site(
     due = [
         st
         for st in mine
-        if st.level == "warning" and st.below_since is None and st.hazard != DATA_GAP
+        if st.level == "warning"
+        and st.below_since is None
+        and st.hazard != DATA_GAP
+        and not st.seen  # seen: fog formed, dense, freezing, frost; told when it changes
     ]
-    # once seen, the next news is usually its change (dense, freezing, ended): a hazard
-    # seen and announced is reminded of half as often; when one is due, all go together
-    if not any(quiet is None or quiet >= (every * 2 if st.seen else every) for st in due):
+    if not due or (quiet is not None and quiet < every):
         return []
     events = []
     for state in due:
@@ -312,15 +338,32 @@ def _ended(state: AlertState, now: datetime) -> AlertState:
         seen=(),
         seen_since=None,
         eta=None,
+        gap_from=None,
+        gap_pending_since=None,
     )
 
 
 def _prunable(state: AlertState, now: datetime, settings: AlertSettings) -> bool:
     """A quiet state whose cooldowns are over carries nothing worth keeping."""
-    if state.level != "none":
+    if state.level != "none" or state.gap_pending_since is not None:
         return False
     cooldown = timedelta(seconds=settings.cooldown)
     return all(now - t >= cooldown for _, t in state.last_raised)
+
+
+def _with_in_force(events: list[Event], site_states: Sequence[AlertState]) -> list[Event]:
+    """Endings, and data gaps, that say which other alerts of the site are in force."""
+    out = []
+    for event in events:
+        if event.type in ("cleared", "downgraded", "data_gap", "data_back"):
+            others = tuple(
+                f"{st.hazard}:{st.level}"
+                for st in site_states
+                if st.hazard not in (event.hazard, DATA_GAP) and st.level != "none"
+            )
+            event = replace(event, in_force=others) if others else event
+        out.append(event)
+    return out
 
 
 def _hazard_order(hazard: str) -> tuple[int, str]:
@@ -352,13 +395,18 @@ def step(
         if not hazards:
             continue  # nothing active, nothing remembered: nothing can happen here
         keys = [(site_id, hazard) for hazard in sorted(hazards, key=_hazard_order)]
-        told = False
+        # a warning in force at the site (the grace a data gap gets under it)
+        warned = any(
+            key[1] != DATA_GAP and key in previous and previous[key].level == "warning"
+            for key in keys
+        )
+        told: list[Event] = []
         for key in keys:
             state = previous.get(key) or AlertState(site_id=site_id, hazard=key[1])
-            new, found = _step_one(state, sa, now, settings)
-            events.extend(found)
+            new, found = _step_one(state, sa, now, settings, warned)
+            told.extend(found)
             states[key] = new
-            told = told or bool(found)
+        events.extend(_with_in_force(told, [states[k] for k in keys]))
         if told:  # news of one hazard is news of the site: the reminder clocks restart
             for key in keys:
                 st = states[key]

@@ -353,7 +353,7 @@ class Service:
 
     def outlook(self, now: datetime, site_ids: Sequence[str]) -> int:
         """The evening outlook for these sites, queued like any other message."""
-        from notifier.delivery.outlook import outlook_event
+        from notifier.delivery.outlook import outlook_event, without_repeats
         from notifier.delivery.routing import route
 
         with self._lock:
@@ -363,6 +363,9 @@ class Service:
             sites = [a for a in found if a.site.id in wanted]
             events = [outlook_event(sa, now) for sa in sites]
             deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
+            # none where it would only repeat an alert the recipient was just told of
+            every = self.config.alerts.reminder_every
+            deliveries = without_repeats(deliveries, events, self.outbox, now, every)
             states = self.outbox.states()
             return self.outbox.commit_cycle(states, states, events, deliveries, now)
 
@@ -395,8 +398,6 @@ class Service:
         with self._lock:
             self._drop_sources()
             self.store.close()
-
-
 
 
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:

@@ -50,9 +50,10 @@ def _outlooks(scene: Scene, at: datetime) -> dict[str, dict]:
 def test_the_outlook_payload_level_is_the_level_its_text_names(scene, hour):
     at = utc(2026, 11, 20, 0, 0) + timedelta(hours=hour)
     for sid, body in _outlooks(_evening(scene, at), at).items():
-        # the level a script reads, the site's stored level and the text's "now <level>"
+        # the level a script reads, the site's stored level and the level the text names
         assert body["level"] == body["site_level"], sid
-        assert f"now {body['level']}" in body["text"], sid
+        said = "no alert in force now" if body["level"] == "none" else f"at {body['level']} now"
+        assert said in body["text"], sid
         assert body["previous_level"] == body["level"]
         # the kind is not "chance …": the chance is a sentence, carried in reasons
         assert body["kind"] is None
