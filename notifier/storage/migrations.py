@@ -17,7 +17,8 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 ``alert_states``, ``events``, ``deliveries`` and ``site_status`` for the outbox
 (:mod:`notifier.storage.outbox`); ``members``, ``member_grants``, ``follows`` and ``mutes``
 for the bot (:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot
-endpoint's replay protection (:mod:`notifier.storage.seen`).
+endpoint's replay protection (:mod:`notifier.storage.seen`). Migration 0009 gave
+``observations`` its ``ceiling_m`` and ``precip_mm`` columns.
 """
 
 from __future__ import annotations
@@ -211,6 +212,15 @@ def _m0008_seen_messages(conn: Connection) -> None:
     conn.exec_driver_sql("CREATE INDEX seen_messages_expiry ON seen_messages (expires_at)")
 
 
+def _m0009_ceiling_precip(conn: Connection) -> None:
+    """Two observed columns: ``ceiling_m`` (the lowest broken or overcast cloud base, or
+    the vertical visibility; 30 000 for no ceiling) and ``precip_mm`` (the last hour's
+    precipitation). Rows written before have neither (NULL: unknown)."""
+    real = "DOUBLE PRECISION" if conn.dialect.name == "postgresql" else "REAL"
+    for column in ("ceiling_m", "precip_mm"):
+        conn.exec_driver_sql(f"ALTER TABLE observations ADD COLUMN {column} {real}")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
@@ -221,6 +231,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0006_mutes_for_everyone", _m0006_mutes_for_everyone),
     Migration("0007_member_grants", _m0007_member_grants),
     Migration("0008_seen_messages", _m0008_seen_messages),
+    Migration("0009_ceiling_precip", _m0009_ceiling_precip),
 ]
 
 metadata = sa.MetaData()
