@@ -160,6 +160,37 @@ FEATURES: dict[str, FeatureSpec] = {
         decimals=0,
         description="Theil–Sen slope of the visibility over the last 3 h; negative = falling",
     ),
+    "ceiling_m": FeatureSpec(
+        "ceiling",
+        "m",
+        decimals=0,
+        description="lowest broken/overcast cloud base or vertical visibility; "
+        "30000 = no ceiling",
+    ),
+    "ceiling_trend_m_per_h": FeatureSpec(
+        "ceiling trend",
+        "m/h",
+        decimals=0,
+        description="Theil–Sen slope of the ceiling (capped at 2000 m) over the last 3 h; "
+        "negative = lowering",
+    ),
+    "ceiling_known": FeatureSpec(
+        "ceiling reported", "", kind="bool", description="never unknown"
+    ),
+    "precip_last_3h_mm": FeatureSpec(
+        "precipitation, last 3 h", "mm", description="from the hourly amounts reported"
+    ),
+    "hours_since_precip": FeatureSpec(
+        "time since precipitation",
+        "h",
+        description="since the last report of 0.1 mm or more; 24 if none in the last 24 h",
+    ),
+    "precip_known": FeatureSpec(
+        "precipitation reported",
+        "",
+        kind="bool",
+        description="precipitation amounts in the last 24 h; never unknown",
+    ),
     "observed_fog": FeatureSpec("fog observed", "", kind="bool"),
     "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
     "observed_freezing_fog": FeatureSpec("freezing fog observed", "", kind="bool"),

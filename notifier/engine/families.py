@@ -40,6 +40,7 @@ __all__ = [
     "observed_window",
     "radiation",
     "surfaces_and_water",
+    "trend_of",
 ]
 
 # every measured column of the canonical table but pressure, which no feature reads
@@ -219,6 +220,10 @@ def _trend(w: Window, d_tail: np.ndarray, a: int, b: int, settings: FeatureSetti
     return trend
 
 
+# the slope of any column's block over the trend window, for the other families
+trend_of = _trend
+
+
 def radiation(
     now: Current, st: SiteArrays, settings: FeatureSettings
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -276,7 +281,8 @@ def observed_weather(
 ) -> dict[str, np.ndarray]:
     """Fog, mist and freezing fog from the newest report that carries weather or visibility.
 
-    Fog is visibility below 1000 m or a reported FG; mist is BR, or 1–5 km with RH ≥ 95 %
+    Fog is visibility below 1000 m or a reported FG at the site (not VCFG, MIFG, BCFG or
+    PRFG: ``readings.FOG_NOT_AT_SITE``); mist is BR, or 1–5 km with RH ≥ 95 %
     (WMO-No. 8 / WMO-No. 306 FM 15); freezing fog is FZFG, or fog below 0 °C.
     """
     blk, start, hi = w.blk, w.report_lo, w.hi

@@ -44,7 +44,7 @@ from typing import TYPE_CHECKING, cast
 import numpy as np
 
 from notifier import physics
-from notifier.engine import families, projection
+from notifier.engine import cloud_rain, families, projection
 from notifier.engine.block import FORECAST_BEFORE_S, Block, SiteArrays
 from notifier.engine.catalog import FEATURES, FeatureSettings, FeatureTable
 
@@ -315,6 +315,7 @@ def _features_at(
         "surface_temp_c": cur["surface_temp_c"],
         "water_temp_c": cur["water_temp_c"],
         "visibility_m": cur["visibility_m"],
+        **cloud_rain.cloud_and_rain(w, now, settings),
         **families.surfaces_and_water(now, st),
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
