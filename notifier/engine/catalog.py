@@ -148,6 +148,12 @@ FEATURES: dict[str, FeatureSpec] = {
     "water_temp_known": FeatureSpec(
         "water temperature reported", "", kind="bool", description="never unknown"
     ),
+    "water_temp_estimated": FeatureSpec(
+        "water temperature from climatology",
+        "",
+        kind="bool",
+        description="the site's monthly water_temp_monthly_c stands in; never unknown",
+    ),
     "water_minus_air_c": FeatureSpec("water minus air temperature", "°C"),
     "onshore": FeatureSpec("onshore wind", "", kind="bool"),
     "visibility_m": FeatureSpec("visibility", "m", decimals=0),

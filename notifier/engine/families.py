@@ -255,9 +255,22 @@ def radiation(
     return np.asarray(net_lw), cooling_potential
 
 
-def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
-    """Frost point and the surface above it, water against dew point and air, onshore."""
+def surfaces_and_water(now: Current, st: SiteArrays, month: int = 0) -> dict[str, np.ndarray]:
+    """Frost point and the surface above it, water against dew point and air, onshore.
+
+    Where no water temperature is reported, the site's monthly climatology (config
+    ``water_temp_monthly_c``; ``month`` 1–12) stands in for it, flagged
+    ``water_temp_estimated`` (``water_temp_known`` stays false: it means measured).
+    Marine forecasters fall back on the climatological sea surface temperature when no
+    observation is near (common practice).
+    """
     dewpoint_c, cur = now.dewpoint_c, now.values
+    measured = ~np.isnan(cur["water_temp_c"])
+    estimated = np.zeros(len(measured), dtype=bool)
+    if month and st.water_monthly is not None and len(measured):
+        climate = st.water_monthly[:, month - 1]
+        estimated = ~measured & ~np.isnan(climate)
+        cur["water_temp_c"] = np.where(estimated, climate, cur["water_temp_c"])
     frost_point = physics.frost_point_from_dewpoint_c(dewpoint_c)
     with np.errstate(invalid="ignore"):
         deposit_ref = np.where(dewpoint_c <= 0, frost_point, dewpoint_c)
@@ -269,7 +282,8 @@ def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
         "surface_minus_frost_point_c": surface_margin,
         "dewpoint_minus_water_c": dew_minus_water,
         # never unknown, so a rule can ask for sites without a water temperature
-        "water_temp_known": (~np.isnan(cur["water_temp_c"])).astype(float),
+        "water_temp_known": measured.astype(float),
+        "water_temp_estimated": estimated.astype(float),
         "cloud_known": (~np.isnan(cur["cloud_pct"])).astype(float),
         "water_minus_air_c": water_minus_air,
         "onshore": _onshore(st.onshore_lo, st.onshore_hi, cur["wind_dir_deg"], cur["wind_ms"]),

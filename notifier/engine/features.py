@@ -38,7 +38,7 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from collections.abc import Sequence
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import TYPE_CHECKING, cast
 
 import numpy as np
@@ -295,6 +295,7 @@ def _features_at(
     proj = projection.projected_minimum(w, sun, now, cooling_potential, st, settings)
     crossover = projection.crossover(w, sun)
     cur = now.values
+    water = families.surfaces_and_water(now, st, at.astimezone(UTC).month)
     found = {
         "temp_c": now.temp_c,
         "dewpoint_c": now.dewpoint_c,
@@ -313,10 +314,10 @@ def _features_at(
         "hours_to_sunrise": sun.hours_to_sunrise,
         "hours_since_sunset": sun.hours_since_sunset,
         "surface_temp_c": cur["surface_temp_c"],
-        "water_temp_c": cur["water_temp_c"],
+        "water_temp_c": cur["water_temp_c"],  # with the climatology, if any
         "visibility_m": cur["visibility_m"],
         **cloud_rain.cloud_and_rain(w, now, settings),
-        **families.surfaces_and_water(now, st),
+        **water,
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }

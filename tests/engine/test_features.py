@@ -584,3 +584,26 @@ def test_without_ceiling_or_rain_reports_they_are_unknown():
     both = steady(s.id, at, temp_c=8.0, dewpoint_c=7.5, ceiling_m=300.0, precip_mm=0.0)
     row, _ = one(both, s, at)
     assert row["ceiling_known"] == 1.0 and row["precip_known"] == 1.0
+
+
+def test_a_monthly_water_climatology_stands_in_for_a_missing_water_temperature():
+    # The operator's climatology for the evaluation time's month (November: the 11th
+    # value) is the water temperature when none is reported, flagged estimated; a
+    # measured one wins (common practice: climatological SST where no observation).
+    from notifier.core.config import Site
+
+    s = Site(
+        id="quay-clim", name="Q", lat=55.3, lon=-160.5, timezone="UTC", exposure="coast",
+        water_temp_monthly_c=tuple(float(m) for m in range(1, 13)),
+    )  # fmt: skip
+    at = utc(2026, 11, 3, 4)
+    row, _ = one(steady(s.id, at, temp_c=12.0, dewpoint_c=11.5), s, at)
+    assert row["water_temp_c"] == 11.0 and row["water_temp_estimated"] == 1.0
+    assert row["water_temp_known"] == 0.0
+    assert row["dewpoint_minus_water_c"] == pytest.approx(0.5)
+    row, _ = one(steady(s.id, at, temp_c=12.0, dewpoint_c=11.5, water_temp_c=9.0), s, at)
+    assert row["water_temp_c"] == 9.0 and row["water_temp_estimated"] == 0.0
+    with pytest.raises(ValueError, match="needs 12 values"):
+        Site(id="q", name="Q", lat=1, lon=1, timezone="UTC", water_temp_monthly_c=(5.0,))
+    with pytest.raises(ValueError, match="-2 to 40"):
+        Site(id="q", name="Q", lat=1, lon=1, timezone="UTC", water_temp_monthly_c=(-5.0,) * 12)
