@@ -170,8 +170,7 @@ FEATURES: dict[str, FeatureSpec] = {
         "ceiling",
         "m",
         decimals=0,
-        description="lowest broken/overcast cloud base or vertical visibility; "
-        "30000 = no ceiling",
+        description="lowest broken/overcast cloud base or vertical visibility; 30000 = no ceiling",
     ),
     "ceiling_trend_m_per_h": FeatureSpec(
         "ceiling trend",
@@ -180,9 +179,7 @@ FEATURES: dict[str, FeatureSpec] = {
         description="Theil–Sen slope of the ceiling (capped at 2000 m) over the last 3 h; "
         "negative = lowering",
     ),
-    "ceiling_known": FeatureSpec(
-        "ceiling reported", "", kind="bool", description="never unknown"
-    ),
+    "ceiling_known": FeatureSpec("ceiling reported", "", kind="bool", description="never unknown"),
     "precip_last_3h_mm": FeatureSpec(
         "precipitation, last 3 h", "mm", description="from the hourly amounts reported"
     ),
