@@ -37,6 +37,7 @@ from datetime import datetime
 
 import numpy as np
 
+from notifier.core.columns import NO_CEILING_M
 from notifier.core.timefmt import quantity_text
 from notifier.engine.model import FogModel
 
@@ -234,7 +235,11 @@ def format_value(feature: str, value: float) -> str:
 
     >>> format_value("dewpoint_depression_c", 0.84), format_value("rh_pct", 97.2)
     ('0.8 °C', '97%')
+    >>> format_value("ceiling_m", 121.9), format_value("ceiling_m", 30000.0)
+    ('122 m', 'no ceiling')
     """
+    if feature == "ceiling_m" and value >= NO_CEILING_M:
+        return "no ceiling"
     spec = FEATURES[feature]
     return quantity_text(value, spec.unit, decimals=spec.decimals, kind=spec.kind)
 
