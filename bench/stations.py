@@ -286,8 +286,15 @@ TMY3_COLUMNS = {
     "cloud_tenths": "TotCld (tenths)",
     "visibility_m": "Hvis (m)",
     "ceiling_m": "CeilHgt (m)",
+    "precip_depth_mm": "Lprecip depth (mm)",
+    "precip_hours": "Lprecip quantity (hr)",
 }
 TMY3_MISSING = -9900.0
+# The liquid precipitation depth is over the "quantity" hours before the stamp (1, 3, 6
+# … ; 99 is unknown); an amount over several hours is given to its last hour as its
+# mean hourly amount, the hours before it left unknown (the mean over a window then
+# stays right).
+TMY3_MAX_PRECIP_HOURS = 24
 
 
 def parse_tmy3(text: str) -> tuple[dict[str, Any], list[dict[str, Any]]]:
@@ -330,6 +337,12 @@ def parse_tmy3(text: str) -> tuple[dict[str, Any], list[dict[str, Any]]]:
         val["ceiling_m"] = (
             math.inf if ceiling == 77777 else None if ceiling in (88888, 99999) else ceiling
         )
+        depth, hours = val.pop("precip_depth_mm"), val.pop("precip_hours")
+        val["precip_mm"] = (
+            round(depth / hours, 3)
+            if depth is not None and hours is not None and 1 <= hours <= TMY3_MAX_PRECIP_HOURS
+            else None
+        )
         records.append({"year": year, "month": month, "day": day, "hour": hour, **val})
     return header, records
 
@@ -353,8 +366,10 @@ NYC_CSV_COLUMNS = {  # fogwatch column ← weather.csv column (°F, mph, miles, 
     "wind_dir_deg": "wind_dir",
     "visibility_mi": "visib",
     "pressure_hpa": "pressure",
+    "precip_in": "precip",  # the hour's precipitation, inches
 }
 UNLIMITED_VISIBILITY_M = 100_000.0  # the largest visibility fogwatch's row checks accept
+NO_CEILING_M = 30000.0  # fogwatch's "no ceiling" (notifier/core/columns.py NO_CEILING_M)
 
 
 def _text(value: float | None) -> str:
@@ -410,6 +425,11 @@ def tmy_rows(site: str, header: dict[str, Any], records: Sequence[dict[str, Any]
             "visibility_m": _text(UNLIMITED_VISIBILITY_M if vis == math.inf else vis),
             "pressure_hpa": _text(rec["pressure_hpa"]),
         }
+        ceiling = rec["ceiling_m"]
+        # unlimited (77777): no ceiling, fogwatch's 30000 (notifier/core/columns.py)
+        row["ceiling_m"] = _text(NO_CEILING_M if ceiling == math.inf else ceiling)
+        if "precip_mm" in rec:
+            row["precip_mm"] = _text(rec["precip_mm"])
         if "present_weather" in rec:
             row["weather"] = tmy_weather(rec)
         rows.append(row)

@@ -257,5 +257,6 @@ def test_only_the_two_airports_are_read(stations: ModuleType) -> None:
             "wind_dir_deg": "270",
             "visibility_mi": "10",
             "pressure_hpa": "1012",
+            "precip_in": "0",  # weather.csv precip: inches in the hour
         }
     ]

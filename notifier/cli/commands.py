@@ -430,7 +430,7 @@ def cli_replay(args: argparse.Namespace) -> int:
     if args.csv:
         rt.write_csv(results, Path(args.csv))
     if args.png:
-        rt.write_png(results, frame, Path(args.png))  # every rule set, one column each
+        rt.write_png(results, frame, Path(args.png))  # and NAME-reliability.png with a model
     if args.deliver_to:
         for res in results:
             print(

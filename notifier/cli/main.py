@@ -60,6 +60,13 @@ def _cmd_check(args: argparse.Namespace) -> int:
             problems = problems + [p for p in exc.problems if p not in problems]
     if problems or config is None or rules is None:
         raise ConfigError(problems)
+    from notifier.ingest.coverage import coverage_warnings
+
+    # rules that can never fire at a site, for want of a column no source gives it
+    gaps = coverage_warnings(config.sites, config.sources, rules.rules)
+    for gap in gaps:
+        print(f"warning: {gap}", file=sys.stderr)
+    warnings = [*warnings, *gaps]
     if args.json:
         import json
 

@@ -3,6 +3,10 @@ empty table with the right dtypes.
 
 Column names carry their unit (``temp_c``, ``wind_ms``); a source may give any listed
 alternative (``temp_f``, ``wind_kt``, ``cloud_okta`` …), converted once on the way in.
+
+``ceiling_m`` is the cloud base of the lowest broken or overcast layer, or the vertical
+visibility, above ground (:data:`NO_CEILING_M` when there is none); ``precip_mm`` is the
+precipitation of the last hour (liquid equivalent).
 """
 
 from __future__ import annotations
@@ -23,6 +27,7 @@ __all__ = [
     "FLOAT_COLUMNS",
     "INPUT_COLUMNS",
     "KINDS",
+    "NO_CEILING_M",
     "Rejection",
     "TEXT_COLUMNS",
     "UNITS",
@@ -46,6 +51,8 @@ CANONICAL_COLUMNS: list[str] = [
     "water_temp_c",
     "visibility_m",
     "pressure_hpa",
+    "ceiling_m",
+    "precip_mm",
     "weather",
     "source",
 ]
@@ -62,6 +69,8 @@ UNITS: dict[str, str] = {
     "water_temp_c": "degC",
     "visibility_m": "m",
     "pressure_hpa": "hPa",
+    "ceiling_m": "m",
+    "precip_mm": "mm",
 }
 
 FLOAT_COLUMNS: list[str] = list(UNITS)
@@ -80,11 +89,22 @@ ALTERNATIVES: dict[str, tuple[str, str]] = {
     "visibility_km": ("visibility_m", "km"),
     "visibility_mi": ("visibility_m", "mile"),
     "pressure_inhg": ("pressure_hpa", "inHg"),
+    "ceiling_ft": ("ceiling_m", "foot"),
+    "precip_in": ("precip_mm", "inch"),
 }
 
 INPUT_COLUMNS: frozenset[str] = frozenset(CANONICAL_COLUMNS) | frozenset(ALTERNATIVES)
 
 KINDS = ("obs", "forecast")
+
+#: ``ceiling_m`` when the sky has no ceiling: no broken or overcast layer and no vertical
+#: visibility (CLR, SKC, NSC, NCD, FEW, SCT or CAVOK). A ceiling is the height of the
+#: lowest layer covering 5/8 or more of the sky (BKN, OVC) or the vertical visibility
+#: into an obscured sky (VV); FMH-1 ch. 9 (docs/references.md [FMH-1]) and WMO-No. 306
+#: FM 15 (docs/references.md [WMO-No. 306]). 30 000 m is above any cloud base a surface
+#: station reports (the METAR height groups end at 999 hundred feet, ~30 450 m), so a
+#: rule asking "ceiling below 300 m" reads "no ceiling" as a high one, never as unknown.
+NO_CEILING_M = 30000.0
 
 
 @dataclass(frozen=True)

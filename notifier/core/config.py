@@ -91,12 +91,30 @@ class Site(_Model):
     onshore_from_deg: float | None = Field(default=None, ge=0, le=360)
     onshore_to_deg: float | None = Field(default=None, ge=0, le=360)
     tags: tuple[str, ...] = ()
+    # the water's mean surface temperature for each month, January first, where no
+    # sensor or feed reports it: the sea-fog rules then work from it, flagged estimated
+    water_temp_monthly_c: tuple[float, ...] | None = None
 
     @model_validator(mode="after")
     def _sector_pair(self) -> Site:
         if (self.onshore_from_deg is None) != (self.onshore_to_deg is None):
             raise ValueError("onshore_from_deg and onshore_to_deg must be given together")
         return self
+
+    @field_validator("water_temp_monthly_c")
+    @classmethod
+    def _twelve_months(cls, value: tuple[float, ...] | None) -> tuple[float, ...] | None:
+        if value is None:
+            return value
+        if len(value) != 12:
+            raise ValueError(
+                f"water_temp_monthly_c needs 12 values (January first), got {len(value)}"
+            )
+        # sea water freezes near -1.9 °C (docs/references.md [Fofonoff & Millard 1983])
+        bad = [v for v in value if not -2.0 <= v <= 40.0]
+        if bad:
+            raise ValueError(f"water_temp_monthly_c must lie in -2 to 40 °C, got: {bad[0]}")
+        return value
 
     @property
     def zone(self) -> ZoneInfo:

@@ -15,7 +15,14 @@ import numpy as np
 import pandas as pd
 
 from notifier import physics
-from notifier.core.columns import ALTERNATIVES, FLOAT_COLUMNS, UNITS, Rejection, unit_registry
+from notifier.core.columns import (
+    ALTERNATIVES,
+    FLOAT_COLUMNS,
+    NO_CEILING_M,
+    UNITS,
+    Rejection,
+    unit_registry,
+)
 
 __all__ = [
     "Checks",
@@ -38,6 +45,11 @@ _RANGES: dict[str, tuple[float, float, str]] = {
     "wind_dir_deg": (0.0, 360.0, "°"),
     "cloud_pct": (0.0, 100.0, "%"),
     "visibility_m": (0.0, 100_000.0, "m"),
+    # a ceiling is a height above ground; "no ceiling" is NO_CEILING_M itself
+    "ceiling_m": (0.0, NO_CEILING_M, "m"),
+    # the heaviest hour of rain on record is about 305 mm (WMO archive of weather and
+    # climate extremes, from memory); a gauge reporting more is faulty
+    "precip_mm": (0.0, 400.0, "mm"),
 }
 
 _SHOWN_UNIT = {
@@ -48,6 +60,8 @@ _SHOWN_UNIT = {
     "degree": "°",
     "knot": "kt",
     "mile": "mi",
+    "foot": "ft",
+    "inch": "in",
 }
 
 # Sensors overshoot saturation by a few percent (WMO-No. 8, Vol. I, ch. 4 notes the

@@ -35,6 +35,9 @@ KIND_WORDS = {
     "valley": "valley fog (cold air pooling in low ground)",
     "advection": "sea fog (moist air carried in over colder water)",
     "steam": "steam fog (rising off water much warmer than the air)",
+    "precipitation": "fog forming in rain or drizzle (the air saturates under the "
+    "cloud and the cloud base comes down)",
+    "stratus-lowering": "low cloud coming down to the ground",
     "observed": "fog reported at the site",
     "dense": "dense fog",
     "freezing-fog": "freezing fog (droplets freeze on contact as rime)",

@@ -67,6 +67,8 @@ class SiteArrays:
     onshore_hi: np.ndarray
     zones: list[str]  # distinct time zones
     zone_code: np.ndarray  # index into ``zones`` per site
+    # the operator's monthly water temperature per site (sites × 12, NaN where none)
+    water_monthly: np.ndarray | None = None
     _index: pd.Index | None = None
 
     @classmethod
@@ -96,6 +98,13 @@ class SiteArrays:
             ),
             zones=list(zone_index),
             zone_code=zone_code,
+            water_monthly=np.array(
+                [
+                    [nan] * 12 if s.water_temp_monthly_c is None else s.water_temp_monthly_c
+                    for s in sites
+                ],
+                dtype=float,
+            ).reshape(len(sites), 12),
         )
 
     @property

@@ -37,6 +37,7 @@ from datetime import datetime
 
 import numpy as np
 
+from notifier.core.columns import NO_CEILING_M
 from notifier.core.timefmt import quantity_text
 from notifier.engine.model import FogModel
 
@@ -148,6 +149,12 @@ FEATURES: dict[str, FeatureSpec] = {
     "water_temp_known": FeatureSpec(
         "water temperature reported", "", kind="bool", description="never unknown"
     ),
+    "water_temp_estimated": FeatureSpec(
+        "water temperature from climatology",
+        "",
+        kind="bool",
+        description="the site's monthly water_temp_monthly_c stands in; never unknown",
+    ),
     "water_minus_air_c": FeatureSpec("water minus air temperature", "°C"),
     "onshore": FeatureSpec("onshore wind", "", kind="bool"),
     "visibility_m": FeatureSpec("visibility", "m", decimals=0),
@@ -159,6 +166,34 @@ FEATURES: dict[str, FeatureSpec] = {
         "m/h",
         decimals=0,
         description="Theil–Sen slope of the visibility over the last 3 h; negative = falling",
+    ),
+    "ceiling_m": FeatureSpec(
+        "ceiling",
+        "m",
+        decimals=0,
+        description="lowest broken/overcast cloud base or vertical visibility; 30000 = no ceiling",
+    ),
+    "ceiling_trend_m_per_h": FeatureSpec(
+        "ceiling trend",
+        "m/h",
+        decimals=0,
+        description="Theil–Sen slope of the ceiling (capped at 2000 m) over the last 3 h; "
+        "negative = lowering",
+    ),
+    "ceiling_known": FeatureSpec("ceiling reported", "", kind="bool", description="never unknown"),
+    "precip_last_3h_mm": FeatureSpec(
+        "precipitation, last 3 h", "mm", description="from the hourly amounts reported"
+    ),
+    "hours_since_precip": FeatureSpec(
+        "time since precipitation",
+        "h",
+        description="since the last report of 0.1 mm or more; 24 if none in the last 24 h",
+    ),
+    "precip_known": FeatureSpec(
+        "precipitation reported",
+        "",
+        kind="bool",
+        description="precipitation amounts in the last 24 h; never unknown",
     ),
     "observed_fog": FeatureSpec("fog observed", "", kind="bool"),
     "observed_mist": FeatureSpec("mist observed", "", kind="bool"),
@@ -200,7 +235,11 @@ def format_value(feature: str, value: float) -> str:
 
     >>> format_value("dewpoint_depression_c", 0.84), format_value("rh_pct", 97.2)
     ('0.8 °C', '97%')
+    >>> format_value("ceiling_m", 121.9), format_value("ceiling_m", 30000.0)
+    ('122 m', 'no ceiling')
     """
+    if feature == "ceiling_m" and value >= NO_CEILING_M:
+        return "no ceiling"
     spec = FEATURES[feature]
     return quantity_text(value, spec.unit, decimals=spec.decimals, kind=spec.kind)
 

@@ -40,6 +40,7 @@ __all__ = [
     "observed_window",
     "radiation",
     "surfaces_and_water",
+    "trend_of",
 ]
 
 # every measured column of the canonical table but pressure, which no feature reads
@@ -219,6 +220,10 @@ def _trend(w: Window, d_tail: np.ndarray, a: int, b: int, settings: FeatureSetti
     return trend
 
 
+# the slope of any column's block over the trend window, for the other families
+trend_of = _trend
+
+
 def radiation(
     now: Current, st: SiteArrays, settings: FeatureSettings
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -250,9 +255,22 @@ def radiation(
     return np.asarray(net_lw), cooling_potential
 
 
-def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
-    """Frost point and the surface above it, water against dew point and air, onshore."""
+def surfaces_and_water(now: Current, st: SiteArrays, month: int = 0) -> dict[str, np.ndarray]:
+    """Frost point and the surface above it, water against dew point and air, onshore.
+
+    Where no water temperature is reported, the site's monthly climatology (config
+    ``water_temp_monthly_c``; ``month`` 1–12) stands in for it, flagged
+    ``water_temp_estimated`` (``water_temp_known`` stays false: it means measured).
+    Marine forecasters fall back on the climatological sea surface temperature when no
+    observation is near (common practice).
+    """
     dewpoint_c, cur = now.dewpoint_c, now.values
+    measured = ~np.isnan(cur["water_temp_c"])
+    estimated = np.zeros(len(measured), dtype=bool)
+    if month and st.water_monthly is not None and len(measured):
+        climate = st.water_monthly[:, month - 1]
+        estimated = ~measured & ~np.isnan(climate)
+        cur["water_temp_c"] = np.where(estimated, climate, cur["water_temp_c"])
     frost_point = physics.frost_point_from_dewpoint_c(dewpoint_c)
     with np.errstate(invalid="ignore"):
         deposit_ref = np.where(dewpoint_c <= 0, frost_point, dewpoint_c)
@@ -264,7 +282,8 @@ def surfaces_and_water(now: Current, st: SiteArrays) -> dict[str, np.ndarray]:
         "surface_minus_frost_point_c": surface_margin,
         "dewpoint_minus_water_c": dew_minus_water,
         # never unknown, so a rule can ask for sites without a water temperature
-        "water_temp_known": (~np.isnan(cur["water_temp_c"])).astype(float),
+        "water_temp_known": measured.astype(float),
+        "water_temp_estimated": estimated.astype(float),
         "cloud_known": (~np.isnan(cur["cloud_pct"])).astype(float),
         "water_minus_air_c": water_minus_air,
         "onshore": _onshore(st.onshore_lo, st.onshore_hi, cur["wind_dir_deg"], cur["wind_ms"]),
@@ -276,7 +295,8 @@ def observed_weather(
 ) -> dict[str, np.ndarray]:
     """Fog, mist and freezing fog from the newest report that carries weather or visibility.
 
-    Fog is visibility below 1000 m or a reported FG; mist is BR, or 1–5 km with RH ≥ 95 %
+    Fog is visibility below 1000 m or a reported FG at the site (not VCFG, MIFG, BCFG or
+    PRFG: ``readings.FOG_NOT_AT_SITE``); mist is BR, or 1–5 km with RH ≥ 95 %
     (WMO-No. 8 / WMO-No. 306 FM 15); freezing fog is FZFG, or fog below 0 °C.
     """
     blk, start, hi = w.blk, w.report_lo, w.hi

@@ -38,13 +38,13 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from collections.abc import Sequence
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import TYPE_CHECKING, cast
 
 import numpy as np
 
 from notifier import physics
-from notifier.engine import families, projection
+from notifier.engine import cloud_rain, families, projection
 from notifier.engine.block import FORECAST_BEFORE_S, Block, SiteArrays
 from notifier.engine.catalog import FEATURES, FeatureSettings, FeatureTable
 
@@ -295,6 +295,7 @@ def _features_at(
     proj = projection.projected_minimum(w, sun, now, cooling_potential, st, settings)
     crossover = projection.crossover(w, sun)
     cur = now.values
+    water = families.surfaces_and_water(now, st, at.astimezone(UTC).month)
     found = {
         "temp_c": now.temp_c,
         "dewpoint_c": now.dewpoint_c,
@@ -313,9 +314,10 @@ def _features_at(
         "hours_to_sunrise": sun.hours_to_sunrise,
         "hours_since_sunset": sun.hours_since_sunset,
         "surface_temp_c": cur["surface_temp_c"],
-        "water_temp_c": cur["water_temp_c"],
+        "water_temp_c": cur["water_temp_c"],  # with the climatology, if any
         "visibility_m": cur["visibility_m"],
-        **families.surfaces_and_water(now, st),
+        **cloud_rain.cloud_and_rain(w, now, settings),
+        **water,
         **families.observed_weather(w, now, moist["rh_pct"]),
         "data_age_min": projection.data_age_min(w),
     }

@@ -91,6 +91,15 @@ INPUTS: Mapping[str, tuple[str, str, Any]] = MappingProxyType(
         "mist": ("mist observed", "observed_mist", lambda v: v.astype(float)),
         "fog_now": ("fog observed", "observed_fog", lambda v: v.astype(float)),
         "temp": ("air temperature", "temp_c", _clip(-30.0, 40.0)),
+        # the cloud base in a log form: 30 m and 300 m differ for fog as 300 m and 3 km
+        # do; "no ceiling" (30000) and anything above 3 km read as 3 km (common practice)
+        "log_ceiling": (
+            "ceiling",
+            "ceiling_m",
+            lambda v: np.log10(np.clip(v, 30.0, 3000.0)),
+        ),
+        "ceiling_trend": ("ceiling trend", "ceiling_trend_m_per_h", _clip(-500.0, 500.0)),
+        "since_precip": ("time since precipitation", "hours_since_precip", _clip(0.0, 24.0)),
     }
 )
 # the season as two inputs (winter and spring nights differ); from the evaluation time

@@ -126,6 +126,13 @@ def float_column(obs: pd.DataFrame, name: str) -> np.ndarray | None:
     return series.to_numpy(dtype=float, na_value=np.nan)
 
 
+# Fog groups that are not fog at the site: VC, in the vicinity (not at the station); MI
+# shallow, BC patches and PR partial, reported only while the visibility at the station
+# is 1000 m or more (WMO-No. 306 FM 15, code table 4678; docs/references.md
+# [WMO-No. 306], [FMH-1]). The same groups history.verify leaves out of its fog nights.
+FOG_NOT_AT_SITE = frozenset({"VC", "MI", "BC", "PR"})
+
+
 def weather_codes(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Present-weather text of ``rows`` → (code per row, flags per code).
 
@@ -144,9 +151,10 @@ def weather_codes(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.n
     for i, value in enumerate(uniques):
         text = str(value).upper()
         tokens = set(text.replace("+", " ").replace("-", " ").split())
+        groups = [[tok[k : k + 2] for k in range(0, len(tok), 2)] for tok in tokens]
         flags[i] = (
             text != "",
-            any(tok.endswith("FG") for tok in tokens),
+            any("FG" in g and not FOG_NOT_AT_SITE.intersection(g) for g in groups),
             "FZFG" in tokens,
             "BR" in tokens,
         )

@@ -23,7 +23,14 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from notifier.history.replay import ReplayResult
 
-__all__ = ["progress_bar", "report_text", "timeline_figure", "to_json", "write_csv", "write_png"]
+__all__ = [
+    "progress_bar",
+    "report_text",
+    "timeline_figure",
+    "to_json",
+    "write_csv",
+    "write_png",
+]
 
 
 #: said instead of scores when --from/--to hold no whole site-night (verify's definition)
@@ -370,9 +377,19 @@ def timeline_figure(results: Sequence[ReplayResult], obs: pd.DataFrame) -> Figur
     return fig
 
 
-def write_png(results: Sequence[ReplayResult], obs: pd.DataFrame, path: Path) -> None:
-    """:func:`timeline_figure` of every rule set, as one PNG file."""
+def write_png(results: Sequence[ReplayResult], obs: pd.DataFrame, path: Path) -> list[Path]:
+    """:func:`timeline_figure` of every rule set, as one PNG file; with a site model,
+    its reliability diagram beside it as ``NAME-reliability.png``. The files written."""
     timeline_figure(results, obs).savefig(path, format="png")
+    written = [path]
+    from notifier.history.reliability_chart import reliability_figure
+
+    diagram = reliability_figure(results)
+    if diagram is not None:
+        beside = path.with_name(f"{path.stem}-reliability{path.suffix or '.png'}")
+        diagram.savefig(beside, format="png")
+        written.append(beside)
+    return written
 
 
 def progress_bar(stream: Any = None) -> Callable[[int, int], None]:

@@ -13,6 +13,13 @@ Values and the practice behind them:
   bands 1–2, 3–4, 5–7 and 8, each taken at or near its upper end, as is common
   practice); vertical visibility ``VV///`` or ``VV001`` (sky obscured) → 100;
   SKC/CLR/NSC/NCD and CAVOK (no cloud of operational significance) → 0;
+- ceiling_m: the height of the lowest BKN or OVC layer, or the vertical visibility VV,
+  in metres (hundreds of feet × 30.48); no such layer (SKC, CLR, NSC, NCD, FEW, SCT,
+  CAVOK) is :data:`~notifier.core.columns.NO_CEILING_M`, "no ceiling"; ``VV///`` (sky
+  obscured, height not measured) is unknown (docs/references.md [FMH-1],
+  [WMO-No. 306]);
+- precip_mm: the US hourly remark ``Prrrr`` in hundredths of an inch (``P0000`` is a
+  trace, 0 mm), × 0.254; a report without it says nothing (docs/references.md [FMH-1]);
 - weather: the present-weather groups as written, e.g. ``FZFG``, ``BR``, ``MIFG``,
   ``-DZ BR`` (WMO-No. 306, FM 15, code table 4678);
 - wind in knots or m/s as reported, converted at the canonical table's edge; a calm
@@ -30,7 +37,7 @@ from typing import Any, cast
 
 from metar import Metar
 
-from notifier.core.columns import Rejection
+from notifier.core.columns import NO_CEILING_M, Rejection
 
 __all__ = ["MetarError", "decode_report", "parse_metar_text", "report_month", "split_reports"]
 
@@ -158,6 +165,7 @@ def _record(parsed: Metar.Metar, report: str) -> dict[str, Any]:
     weather = " ".join(
         "".join(part for part in group if part) for group in parsed.weather if any(group)
     )
+    precip = parsed.precip_1hr.value("IN") if parsed.precip_1hr is not None else None
     return {
         "station": parsed.station_id,
         # the caller has rejected a report without a time group
@@ -169,8 +177,32 @@ def _record(parsed: Metar.Metar, report: str) -> dict[str, Any]:
         "visibility_m": parsed.vis.value("M") if parsed.vis is not None else None,
         "cloud_pct": max(covers) if covers else None,
         "pressure_hpa": parsed.press.value("HPA") if parsed.press is not None else None,
+        "ceiling_m": ceiling_m(parsed.sky, cavok=bool(_CAVOK.search(report))),
+        # hundredths of an inch, read by the package as inches: 0.01 in = 0.254 mm
+        "precip_mm": None if precip is None else round(precip * 25.4, 3),
         "weather": weather or None,
     }
+
+
+def ceiling_m(sky: list[tuple[Any, Any, Any]], *, cavok: bool = False) -> float | None:
+    """The ceiling of a report's sky groups in metres: the lowest BKN or OVC layer, or the
+    vertical visibility; :data:`NO_CEILING_M` if none; None if the sky says nothing, or the
+    ceiling layer's height is not given (``VV///``, ``BKN///``).
+
+    >>> from metar import Metar
+    >>> sky = Metar.Metar("METAR ZZZZ 120550Z 00000KT 9999 FEW005 BKN012 OVC030 05/04").sky
+    >>> ceiling_m(sky)
+    365.8
+    >>> ceiling_m(Metar.Metar("METAR ZZZZ 120550Z 00000KT 9999 SCT008 05/04 Q1020").sky)
+    30000.0
+    """
+    # METAR lists the layers from the lowest up, so the first BKN, OVC or VV is the ceiling
+    for cover, height, _cloud in sky:
+        if cover in ("BKN", "OVC", "VV"):
+            return None if height is None else round(height.value("FT") * 0.3048, 1)
+    if cavok or any(cover in COVER_PCT for cover, _h, _c in sky):
+        return NO_CEILING_M
+    return None
 
 
 def parse_metar_text(

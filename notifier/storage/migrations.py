@@ -19,6 +19,7 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 for the bot (:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot
 endpoint's replay protection (:mod:`notifier.storage.seen`); ``matrix_sync`` and
 ``matrix_events`` for the Matrix connection (:mod:`notifier.storage.matrixstate`).
+Migration 0009 gave ``observations`` its ``ceiling_m`` and ``precip_mm`` columns.
 """
 
 from __future__ import annotations
@@ -214,6 +215,13 @@ def _m0008_seen_messages(conn: Connection) -> None:
     conn.exec_driver_sql("CREATE INDEX seen_messages_expiry ON seen_messages (expires_at)")
 
 
+def _m0009_ceiling_precip(conn: Connection) -> None:
+    """Two observed columns: ``ceiling_m`` (the lowest broken or overcast cloud base, or
+    the vertical visibility; 30 000 for no ceiling) and ``precip_mm`` (the last hour's
+    precipitation). Rows written before have neither (NULL: unknown)."""
+    real = "DOUBLE PRECISION" if conn.dialect.name == "postgresql" else "REAL"
+    for column in ("ceiling_m", "precip_mm"):
+        conn.exec_driver_sql(f"ALTER TABLE observations ADD COLUMN {column} {real}")
 def _m0010_matrix_sync(conn: Connection) -> None:
     """The Matrix connection's place in its sync stream and the events it answered, so
     that a restart neither answers a command twice nor misses one sent while it was
@@ -241,6 +249,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0006_mutes_for_everyone", _m0006_mutes_for_everyone),
     Migration("0007_member_grants", _m0007_member_grants),
     Migration("0008_seen_messages", _m0008_seen_messages),
+    Migration("0009_ceiling_precip", _m0009_ceiling_precip),
     Migration("0010_matrix_sync", _m0010_matrix_sync),
 ]
 

@@ -191,7 +191,8 @@ class Store:
                     present = [
                         name
                         for name in (*FLOAT_COLUMNS, "weather")
-                        if bool(part[name].notna().any())
+                        # a frame from before a column existed lacks it: NULL there
+                        if name in part and bool(part[name].notna().any())
                     ]
                     sql = self._upsert_sql(present, kind, source, received, batch)
                     rows = frame_rows(part, present, nan_is_null=nan_is_null)

@@ -53,7 +53,7 @@ def test_public_names():
     assert CANONICAL_COLUMNS == [
         "site", "time", "kind", "temp_c", "dewpoint_c", "rh_pct", "wind_ms", "wind_dir_deg",
         "cloud_pct", "surface_temp_c", "water_temp_c", "visibility_m", "pressure_hpa",
-        "weather", "source",
+        "ceiling_m", "precip_mm", "weather", "source",
     ]  # fmt: skip
 
 
@@ -80,7 +80,9 @@ def test_rejection_text_is_origin_line_column_reason():
 # -- unit conversion -------------------------------------------------------------------
 
 # Exact definitions: °F by its formula, 1 kt = 1852 m/h, 1 statute mile = 1609.344 m,
-# 1 okta = 1/8 of the sky, 1 inHg = 3386.389 Pa (conventional, at 0 °C and standard g).
+# 1 okta = 1/8 of the sky, 1 inHg = 3386.389 Pa (conventional, at 0 °C and standard g),
+# 1 ft = 0.3048 m and 1 in = 25.4 mm (the international foot and inch of 1959, from
+# memory).
 EXACT = {
     "temp_f": (50.0, (50.0 - 32.0) * 5.0 / 9.0),
     "temp_k": (275.15, 2.0),
@@ -94,6 +96,8 @@ EXACT = {
     "visibility_km": (0.8, 800.0),
     "visibility_mi": (0.25, 402.336),
     "pressure_inhg": (29.92, 29.92 * 33.86389),
+    "ceiling_ft": (300.0, 91.44),
+    "precip_in": (0.12, 3.048),
 }
 
 
@@ -258,6 +262,15 @@ VALIDATORS = [
      "120 km (1.2e+05 m) is outside 0 to 1e+05 m"),
     ("visibility-negative", row(visibility_m=-5.0), "visibility_m",
      "-5 m is outside 0 to 1e+05 m"),
+    # a ceiling is a height above ground, and NO_CEILING_M (30 000 m) is "none"
+    ("ceiling-negative", row(ceiling_ft=-100.0), "ceiling_ft",
+     "-100 ft (-30.48 m) is outside 0 to 3e+04 m"),
+    ("ceiling-high", row(ceiling_m=30_001.0), "ceiling_m",
+     "3e+04 m is outside 0 to 3e+04 m"),
+    # about 305 mm is the wettest hour on record (WMO extremes archive, from memory)
+    ("precip-high", row(precip_in=20.0), "precip_in",
+     "20 in (508 mm) is outside 0 to 400 mm"),
+    ("precip-negative", row(precip_mm=-0.1), "precip_mm", "-0.1 mm is outside 0 to 400 mm"),
     ("future-obs", row(time="2024-01-12T07:11:00Z"), "time",
      "2024-01-12T07:11Z is 11 min ahead of now (2024-01-12T07:00Z); observations may be at "
      "most 10 min ahead"),

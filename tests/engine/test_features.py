@@ -176,10 +176,21 @@ def test_onshore_unknown_without_a_sector():
         (200.0, "FZFG", -2.0, 1, 0, 1),
         (900.0, "", -1.0, 1, 0, 1),
         (9999.0, "", 3.0, 0, 0, 0),
-        (np.nan, "BCFG", 3.0, 1, 0, 0),
+        # WMO-No. 306 FM 15 (code table 4678) and docs/references.md [FMH-1]: VC is in
+        # the vicinity, not at the station; MI, BC and PR fog are reported only while
+        # the visibility at the station is 1000 m or more: their text is not fog here
+        (np.nan, "BCFG", 3.0, 0, 0, 0),
+        (9999.0, "VCFG", 3.0, 0, 0, 0),
+        (np.nan, "MIFG", 3.0, 0, 0, 0),
+        (3000.0, "PRFG BR", 3.0, 0, 1, 0),
+        (800.0, "MIFG", 3.0, 1, 0, 0),  # WMO-No. 8: below 1000 m is fog whatever the text
+        (np.nan, "FG", 3.0, 1, 0, 0),
+        (np.nan, "-DZ FG", 3.0, 1, 0, 0),
     ],
-    ids=["vis-800-fog", "BR-mist", "FZFG", "fog-below-zero", "clear", "patches-BCFG"],
-)
+    ids=["vis-800-fog", "BR-mist", "FZFG", "fog-below-zero", "clear", "patches-BCFG",
+         "vicinity-VCFG", "shallow-MIFG", "partial-PRFG-mist", "MIFG-with-800-m", "FG",
+         "drizzle-and-FG"],
+)  # fmt: skip
 def test_observed_flags_follow_wmo_definitions(visibility, weather, temp, fog, mist, freezing):
     # WMO-No. 8: fog below 1000 m; WMO-No. 306 FM 15: BR, FG, FZFG (fog below 0 °C).
     s = site("obs-site")
@@ -523,3 +534,76 @@ def test_without_a_cloud_report_the_clear_sky_loss_still_caps_the_cooling_fit():
     assert np.isnan(row["net_longwave_wm2"]) and row["cloud_known"] == 0.0
     assert row["temp_c"] == pytest.approx(10.0)
     assert table.fit_k_per_sqrt_h[0] == pytest.approx(4.655, abs=0.01)
+
+
+def test_ceiling_trend_matches_scipy_theil_sen_with_no_ceiling_counted_as_low_cloud_top():
+    # SciPy's theilslopes is the reference for Sen's (1968) slope; heights above the low
+    # étage (2000 m, docs/references.md [WMO cloud atlas]) and "no ceiling" count as 2000 m
+    from scipy.stats import theilslopes
+
+    s = site("ceiling-site")
+    at = utc(2026, 10, 14, 22, 0)
+    ceiling = np.linspace(900.0, 120.0, 19)
+    ceiling[:3] = 30000.0  # no ceiling at first, then a deck forming and lowering
+    obs = steady(s.id, at, temp_c=8.0, dewpoint_c=7.5, wind_ms=5.0, ceiling_m=ceiling)
+    row, _ = one(obs, s, at)
+    expected = theilslopes(np.minimum(ceiling, 2000.0), np.linspace(-3, 0, 19))[0]
+    assert row["ceiling_m"] == pytest.approx(120.0)
+    assert row["ceiling_trend_m_per_h"] == pytest.approx(expected, abs=1e-6)
+    assert row["ceiling_trend_m_per_h"] < 0
+
+
+def test_rain_features_from_hourly_amounts():
+    # Each report is the last hour's amount (docs/references.md [FMH-1], Prrrr): three
+    # hourly reports in the last 3 h sum to the 3-hour amount; the last report of 0.1 mm
+    # or more dates the rain (0.1 mm, the smallest gauge amount: common practice).
+    s = site("rain-site")
+    at = utc(2026, 10, 14, 22, 0)
+    precip = np.zeros(13)
+    precip[[5, 6]] = [2.0, 0.4]  # rain ending 6 h before `at`; traces (0) after
+    obs = steady(s.id, at, hours=12, step_min=60, temp_c=8.0, dewpoint_c=7.5, precip_mm=precip)
+    row, _ = one(obs, s, at)
+    assert row["hours_since_precip"] == pytest.approx(6.0)
+    assert row["precip_last_3h_mm"] == pytest.approx(float(precip[-4:].mean() * 3))
+    wet = obs.assign(precip_mm=np.r_[np.zeros(10), 1.0, 0.5, 0.2])
+    row, _ = one(wet, s, at)
+    # hours -3 … 0 hold 0, 1.0, 0.5, 0.2 mm: the window's mean hourly amount × 3 h
+    assert row["precip_last_3h_mm"] == pytest.approx((0.0 + 1.0 + 0.5 + 0.2) / 4 * 3)
+    assert row["hours_since_precip"] == 0.0
+    dry = obs.assign(precip_mm=0.0)
+    assert one(dry, s, at)[0]["hours_since_precip"] == 24.0  # none in the window
+
+
+def test_without_ceiling_or_rain_reports_they_are_unknown():
+    s = site("bare-site")
+    at = utc(2026, 10, 14, 22, 0)
+    row, _ = one(steady(s.id, at, temp_c=8.0, dewpoint_c=7.5), s, at)
+    for name in ("ceiling_m", "ceiling_trend_m_per_h", "precip_last_3h_mm", "hours_since_precip"):
+        assert np.isnan(row[name]), name
+    assert row["ceiling_known"] == 0.0 and row["precip_known"] == 0.0
+    both = steady(s.id, at, temp_c=8.0, dewpoint_c=7.5, ceiling_m=300.0, precip_mm=0.0)
+    row, _ = one(both, s, at)
+    assert row["ceiling_known"] == 1.0 and row["precip_known"] == 1.0
+
+
+def test_a_monthly_water_climatology_stands_in_for_a_missing_water_temperature():
+    # The operator's climatology for the evaluation time's month (November: the 11th
+    # value) is the water temperature when none is reported, flagged estimated; a
+    # measured one wins (common practice: climatological SST where no observation).
+    from notifier.core.config import Site
+
+    s = Site(
+        id="quay-clim", name="Q", lat=55.3, lon=-160.5, timezone="UTC", exposure="coast",
+        water_temp_monthly_c=tuple(float(m) for m in range(1, 13)),
+    )  # fmt: skip
+    at = utc(2026, 11, 3, 4)
+    row, _ = one(steady(s.id, at, temp_c=12.0, dewpoint_c=11.5), s, at)
+    assert row["water_temp_c"] == 11.0 and row["water_temp_estimated"] == 1.0
+    assert row["water_temp_known"] == 0.0
+    assert row["dewpoint_minus_water_c"] == pytest.approx(0.5)
+    row, _ = one(steady(s.id, at, temp_c=12.0, dewpoint_c=11.5, water_temp_c=9.0), s, at)
+    assert row["water_temp_c"] == 9.0 and row["water_temp_estimated"] == 0.0
+    with pytest.raises(ValueError, match="needs 12 values"):
+        Site(id="q", name="Q", lat=1, lon=1, timezone="UTC", water_temp_monthly_c=(5.0,))
+    with pytest.raises(ValueError, match="-2 to 40"):
+        Site(id="q", name="Q", lat=1, lon=1, timezone="UTC", water_temp_monthly_c=(-5.0,) * 12)

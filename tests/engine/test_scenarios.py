@@ -387,3 +387,78 @@ def test_a_coast_site_with_a_water_temperature_is_left_to_the_sea_fog_rules():
         visibility_m=(9000.0, 2500.0),
     )
     assert not {"coast-fog-watch", "coast-fog-warning"} & fired([s], obs, at)[s.id]
+
+
+# -- rain, and low cloud coming down ---------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("precip", "warn"),
+    [(None, True), ([0.0] * 21 + [0.6, 0.3, 0.0, 0.0], False), ([0.8] + [0.0] * 24, True)],
+    ids=["no-rain-gauge", "rain-in-the-last-3h", "rain-long-before"],
+)
+def test_rain_with_no_cloud_report_is_no_radiation_fog_warning(precip, warn):
+    # With no cloud report, rain in the last 3 h says the sky is overcast and the air is
+    # wet from the rain, not cooled to its dew point: no radiation-fog warning (common
+    # practice; docs/references.md [Tardif & Rasmussen 2007] for fog in rain being a
+    # cloud-base-lowering fog, not a radiation fog). A site without a rain gauge, or dry
+    # for 3 h, is judged as before.
+    s = site("wet-field-2")
+    at = utc(2026, 10, 14, 23, 0)
+    values: dict = dict(
+        temp_c=(6.6, 6.2), dewpoint_c=6.0, wind_ms=1.0, visibility_m=(3000.0, 1500.0)
+    )
+    if precip is not None:
+        values["precip_mm"] = pd.Series(precip).to_numpy()
+    obs = steady(s.id, at, hours=4.0, **values)
+    assert ("radiation-fog-warning" in fired([s], obs, at)[s.id]) == warn
+
+
+@pytest.mark.parametrize(
+    ("ceiling", "visibility", "wind", "expected"),
+    [
+        ((500.0, 70.0), None, 6.0, {"stratus-lowering-watch"}),
+        ((600.0, 20.0), (4000.0, 1200.0), 6.0,
+         {"stratus-lowering-watch", "stratus-lowering-warning"}),
+        ((600.0, 20.0), None, 6.0, {"stratus-lowering-watch"}),
+        ((400.0, 400.0), (4000.0, 1200.0), 6.0, set()),
+        ((600.0, 20.0), (4000.0, 1200.0), 14.0, set()),
+        (None, (4000.0, 1200.0), 6.0, set()),
+    ],
+    ids=["lowering-to-70m", "lowering-to-20m-visibility-falling",
+         "lowering-to-20m-no-visibility-sensor", "steady-stratus-400m", "gale",
+         "no-ceiling-data"],
+)  # fmt: skip
+def test_a_lowering_cloud_base_brings_fog_down_whatever_the_wind_up_to_10_ms(
+    ceiling, visibility, wind, expected
+):
+    # docs/references.md [Tardif & Rasmussen 2007]: cloud-base lowering is a frequent way
+    # fog forms, in winds that rule radiation fog out. Watch at ≤ 150 m (500 ft) and
+    # lowering ≥ 90 m in 3 h, warning at ≤ 60 m (200 ft) still lowering with the
+    # visibility under 2 km and falling (500 ft LIFR from memory; the rest common
+    # practice). Saturated air under a steady 400 m base is stratus, not fog; no ceiling
+    # data leaves the rules as they were.
+    s = site("inland-ridge")
+    at = utc(2026, 11, 20, 14, 0)  # by day: neither is a night-only rule
+    values: dict = dict(temp_c=8.0, dewpoint_c=7.6, wind_ms=wind, cloud_pct=100.0)
+    if ceiling is not None:
+        values["ceiling_m"] = ceiling
+    if visibility is not None:
+        values["visibility_m"] = visibility
+    obs = steady(s.id, at, **values)
+    got = fired([s], obs, at)[s.id]
+    assert got & {"stratus-lowering-watch", "stratus-lowering-warning"} == expected
+
+
+def test_a_monthly_water_climatology_lets_the_sea_fog_rules_judge():
+    # Moist onshore air over water colder than its dew point (Cho et al. 2000, sea fog):
+    # with no water sensor the site's monthly climatology stands in (common practice).
+    clim = tuple([8.0] * 12)
+    s = site("harbour-clim", **COAST, onshore_from_deg=180.0, onshore_to_deg=270.0,
+             water_temp_monthly_c=clim)  # fmt: skip
+    at = utc(2026, 5, 20, 13, 0)
+    obs = steady(s.id, at, temp_c=12.0, dewpoint_c=10.5, wind_ms=4.0, wind_dir_deg=220.0)
+    got = fired([s], obs, at)[s.id]
+    assert "sea-fog-watch" in got
+    bare = site("harbour-bare", **COAST, onshore_from_deg=180.0, onshore_to_deg=270.0)
+    assert "sea-fog-watch" not in fired([bare], obs.assign(site=bare.id), at)[bare.id]

@@ -55,6 +55,32 @@ def test_replay_with_a_model_scores_its_chance(tmp_path, capsys):
     assert "site-model-fog" in text
 
 
+def test_replay_png_with_a_model_draws_its_reliability_diagram(tmp_path, capsys):
+    # the diagram's points are the reliability table's (docs/references.md [Wilks]):
+    # matplotlib reads the PNG back, one panel 4.2 in × 100 dpi wide
+    from matplotlib.image import imread
+
+    model = example_model()
+    model["sites"]["ewr"] = model["sites"].pop("pier")
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(model))
+    png = tmp_path / "night.png"
+    night = str(DATA / "ewr_2013-05-19.csv")
+    args = ["--data", night, "--from", "2013-05-19T12:00-04:00", "--to", "2013-05-20T12:00-04:00"]
+    code = main(
+        ["replay", str(_config(tmp_path)), *args, "--step", "1h", "--model", str(path),
+         "--png", str(png)]
+    )  # fmt: skip
+    capsys.readouterr()
+    beside = tmp_path / "night-reliability.png"
+    assert code == 0 and png.exists() and beside.exists()
+    assert imread(beside).shape[1] == 420
+    # without a model, only the timeline
+    png2 = tmp_path / "plain.png"
+    assert main(["replay", str(_config(tmp_path)), *args, "--step", "1h", "--png", str(png2)]) == 0
+    assert png2.exists() and not (tmp_path / "plain-reliability.png").exists()
+
+
 def test_model_key_in_config_and_bad_model(tmp_path, capsys):
     bad = tmp_path / "bad.json"
     bad.write_text('{"format": "something else"}')

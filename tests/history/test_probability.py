@@ -146,3 +146,18 @@ def test_thresholds_from_the_shipped_rules():
     rules = load_rule_set([default_rules_dir()])
     # rules/fog.yaml: the site-model rules at the cost–loss chances
     assert model_thresholds(rules) == {"watch": 0.1, "warning": 0.25}
+
+
+def test_ceiling_and_rain_inputs_read_no_ceiling_as_three_km_and_unknown_as_unknown():
+    # log10 by NumPy's reference; "no ceiling" is fogwatch's 30000 m (FMH-1: no BKN/OVC
+    # layer, docs/references.md [FMH-1]) and counts as the 3 km cap
+    at = datetime(2026, 11, 3, 4, tzinfo=UTC)
+    values = {
+        "ceiling_m": np.array([60.0, 30000.0, np.nan]),
+        "ceiling_trend_m_per_h": np.array([-900.0, 0.0, np.nan]),
+        "hours_since_precip": np.array([2.0, 24.0, np.nan]),
+    }
+    x = input_matrix(values, at, ["log_ceiling", "ceiling_trend", "since_precip"])
+    assert x[0].tolist() == pytest.approx([np.log10(60.0), -500.0, 2.0])
+    assert x[1].tolist() == pytest.approx([np.log10(3000.0), 0.0, 24.0])
+    assert np.isnan(x[2]).all()

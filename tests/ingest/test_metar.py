@@ -175,3 +175,54 @@ def test_an_unknown_group_is_noted_and_the_rest_kept():
     record, notes = decode_report("ZZQA 120550Z 00000KT 0150 MIFG XYZZY FEW001 M03/M03 Q1030", NOW)
     assert record["temp_c"] == -3.0
     assert notes and "Unparsed groups in body 'XYZZY'" in notes[0]  # metar package behaviour
+
+
+# The ceiling: the lowest layer reported BKN or OVC, or the vertical visibility into an
+# obscured sky (docs/references.md [FMH-1]; WMO-No. 306 FM 15 gives heights in hundreds
+# of feet, hhh). 1 ft = 0.3048 m exactly (the international foot of 1959, from memory).
+@pytest.mark.parametrize(
+    ("sky", "ceiling_m"),
+    [
+        ("FEW005 BKN012 OVC030", 1200 * 0.3048),  # FMH-1: the lowest BKN/OVC, not FEW
+        ("SCT003 OVC008", 800 * 0.3048),  # FMH-1: SCT (3-4 okta) is no ceiling
+        ("BKN250", 25000 * 0.3048),
+        ("VV002", 200 * 0.3048),  # FMH-1: vertical visibility is the ceiling
+        ("OVC000", 0.0),  # FMH-1: a surface-based layer is height 0
+        ("FEW010 SCT020", 30000.0),  # no BKN/OVC/VV: "no ceiling"
+        ("CLR", 30000.0),  # FMH-1: CLR, no cloud below 12 000 ft (automated)
+        ("SKC", 30000.0),
+        ("NSC", 30000.0),  # WMO-No. 306 FM 15: no significant cloud
+        ("VV///", None),  # FMH-1: obscured, height not measured: unknown
+    ],
+    ids=["bkn-above-few", "ovc-above-sct", "high-bkn", "vv", "ovc000", "few-sct",
+         "clr", "skc", "nsc", "vv-unmeasured"],
+)  # fmt: skip
+def test_ceiling_from_the_sky_groups(sky, ceiling_m):
+    r = decode(f"ZZQA 120550Z 00000KT 9999 {sky} 05/04 Q1020")
+    if ceiling_m is None:
+        assert r["ceiling_m"] is None
+    else:
+        assert r["ceiling_m"] == pytest.approx(ceiling_m, abs=0.05)
+
+
+def test_cavok_has_no_ceiling_and_a_report_without_sky_says_nothing():
+    # WMO-No. 306 FM 15: CAVOK, no cloud below 5000 ft and no CB/TCU: no ceiling
+    assert decode("ZZQB 120550Z 24005KT CAVOK 08/06 Q1018")["ceiling_m"] == 30000.0
+    assert decode("ZZQB 120550Z 24005KT 9999 08/06 Q1018")["ceiling_m"] is None
+
+
+@pytest.mark.parametrize(
+    ("remark", "precip_mm"),
+    [("P0012", 0.12 * 25.4), ("P0000", 0.0), ("P0100", 25.4), (None, None)],
+    ids=["twelve-hundredths", "trace", "one-inch", "no-remark"],
+)
+def test_hourly_precipitation_from_the_us_remark(remark, precip_mm):
+    # docs/references.md [FMH-1]: Prrrr, precipitation in the past hour in hundredths of
+    # an inch, P0000 a trace; 1 in = 25.4 mm exactly (the international inch, from memory)
+    rmk = f" RMK AO2 {remark}" if remark else " RMK AO2"
+    r = decode(f"KZZQ 120551Z 18004KT 3SM -RA BR OVC004 08/08 A3001{rmk}")
+    if precip_mm is None:
+        assert r["precip_mm"] is None
+    else:
+        assert r["precip_mm"] == pytest.approx(precip_mm, abs=1e-9)
+    assert r["ceiling_m"] == pytest.approx(400 * 0.3048, abs=0.05)

@@ -271,6 +271,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0006_mutes_for_everyone",
             "0007_member_grants",
             "0008_seen_messages",
+            "0009_ceiling_precip",
             "0010_matrix_sync",
         ]
         box, bot = Outbox(store), BotState(store)

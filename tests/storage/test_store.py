@@ -123,6 +123,36 @@ def test_window_without_an_end_and_with_categorical_text(db):
     pd.testing.assert_frame_equal(as_objects, plain)
 
 
+def test_ceiling_and_precipitation_round_trip_and_frames_without_them_are_taken(db):
+    # METAR OVC004 is a 400 ft ceiling = 121.92 m (docs/references.md [FMH-1]); the frame
+    # of a caller that predates the columns lacks them and is stored with NULL (unknown)
+    db.add_observations(table([obs(1, ceiling_ft=400.0, precip_in=0.12)]))
+    older = table([obs(2, site="zz-quay")]).drop(columns=["ceiling_m", "precip_mm"])
+    assert db.add_observations(older) == 1
+    back = db.window(None, NOW - timedelta(hours=12), NOW).set_index("site")
+    assert back.loc["zz-vale", "ceiling_m"] == pytest.approx(121.92)
+    assert back.loc["zz-vale", "precip_mm"] == pytest.approx(3.048)  # 0.12 in × 25.4 mm
+    assert pd.isna(back.loc["zz-quay", "ceiling_m"]) and pd.isna(back.loc["zz-quay", "precip_mm"])
+
+
+def test_a_store_from_before_ceilings_gains_the_columns_and_keeps_its_rows(
+    tmp_path: Path, monkeypatch
+):
+    url = f"sqlite:///{tmp_path / 'fw.sqlite'}"
+    monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS[:8])
+    with Store(url) as old:
+        with old.atomic() as conn:  # a version-8 store written by the earlier code
+            conn.exec_driver_sql(
+                "INSERT INTO observations (site, time, kind, temp_c, dewpoint_c, received_at) "
+                "VALUES ('zz-vale', 1705035600, 'obs', 2.0, 1.0, 1705035600)"
+            )
+    monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS)
+    with Store(url) as db:
+        assert db.applied_migrations()[8] == "0009_ceiling_precip"
+        back = db.window(None, NOW - timedelta(hours=12), None)
+        assert len(back) == 1 and pd.isna(back.loc[0, "ceiling_m"])
+
+
 def test_rows_from_before_the_batch_numbers_count_as_batch_zero(tmp_path: Path, monkeypatch):
     url = f"sqlite:///{tmp_path / 'fw.sqlite'}"
     monkeypatch.setattr(store_module, "MIGRATIONS", MIGRATIONS[:2])
