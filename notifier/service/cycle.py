@@ -414,28 +414,31 @@ class Service:
 
 
 
+_SNAPSHOT_FEATURES = (
+    "temp_c",
+    "dewpoint_c",
+    "dewpoint_depression_c",
+    "projected_min_temp_c",
+    "visibility_m",
+    "wind_ms",
+    "cloud_pct",
+    "hours_to_fog",
+)
+
+
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
-    """What the bot and ``status`` show without recomputing."""
+    """What the bot and ``status`` show without recomputing (every site, every cycle:
+    only the features shown are turned into JSON)."""
+    import dataclasses
     import math
 
     from notifier.engine.assessment import to_json
 
-    (data,) = to_json([sa])
-    data["features"] = {
-        k: v
-        for k, v in data["features"].items()
-        if k
-        in (
-            "temp_c",
-            "dewpoint_c",
-            "dewpoint_depression_c",
-            "projected_min_temp_c",
-            "visibility_m",
-            "wind_ms",
-            "cloud_pct",
-            "hours_to_fog",
-        )
-    }
+    features = sa.features  # looked up by name: a site's table row has some 40
+    wanted = {k: features[k] for k in _SNAPSHOT_FEATURES if k in features}
+    wanted["data_age_min"] = sa.age_min  # (the age and staleness read it)
+    (data,) = to_json([dataclasses.replace(sa, features=wanted)])
+    data["features"] = {k: v for k, v in data["features"].items() if k in _SNAPSHOT_FEATURES}
     age = sa.age_min
     data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
     return data
