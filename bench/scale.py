@@ -123,6 +123,16 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     outbox_class = cycle_module.Outbox
     outbox_class.commit_cycle = timing("commit", outbox_class.commit_cycle)  # type: ignore[method-assign]
     poll = pd.read_pickle(db.with_name(f"w{n_sites}-poll.pkl"))
+    # a store kept from an earlier run (--dir) starts as new: before the poll of `at`,
+    # with no alert states, events, deliveries or snapshots
+    from notifier.storage.store import Store
+
+    with Store(f"sqlite:///{db}") as store, store.atomic() as conn:
+        conn.exec_driver_sql(
+            "DELETE FROM observations WHERE kind = 'obs' AND time >= ?", (int(at.timestamp()),)
+        )
+        for table in ("deliveries", "events", "alert_states", "site_status"):
+            conn.exec_driver_sql(f"DELETE FROM {table}")
     rss_ready = peak_rss_mb()
     figures: dict[str, Any] = {"sites": n_sites}
 

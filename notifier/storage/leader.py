@@ -3,8 +3,8 @@
 Several instances on one PostgreSQL store split the sites between them (see
 ``notifier.core.partition``); the work that must happen once for the whole store — the
 evening outlooks, housekeeping — is done by one of them, the leader. Leadership is a
-PostgreSQL session-level advisory lock (``pg_try_advisory_lock``, PostgreSQL manual,
-"Advisory Locks", §13.3.5 in version 15) held on a connection of the leader's own: when
+PostgreSQL session-level advisory lock (``pg_try_advisory_lock``, docs/references.md
+[PostgreSQL advisory locks]) held on a connection of the leader's own: when
 that connection ends, because the process stopped or the network dropped, the server
 releases the lock and the next instance that asks takes it over. Nobody waits for it:
 an instance that is not the leader asks again the next time leader's work is due.
