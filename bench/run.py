@@ -828,7 +828,8 @@ def w100_lines(w100: dict[str, Any]) -> dict[str, Any]:
             "W100 a reload (window kept)",
             "w100_reload_s",
             w100["reload_s"],
-            f"(kept: {w100['reload_kept_window']}; the cycle after it"
+            f"(the window kept: {w100['reload_kept_window']}; cycles held"
+            f" {w100.get('reload_held_s', float('nan')) * 1000:.1f} ms; the cycle after it"
             f" {w100['cycle_after_reload_s']:.2f} s)",
         ),
     }

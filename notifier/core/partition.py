@@ -3,9 +3,9 @@
 Several ``fogwatch run`` instances on one PostgreSQL store each evaluate a share of the
 sites (and poll a share of the sources). The share is a stable partition: an item
 belongs to instance ``hash(id) mod count``, with the hash a fixed function of the id's
-bytes (BLAKE2b, docs/references.md [RFC 7693]), so it is the same on every machine, Python version and
-restart — Python's own ``hash()`` of a string is salted per process and would move the
-sites at every restart. A site is evaluated by exactly one instance, and none is
+bytes (BLAKE2b, docs/references.md [RFC 7693]), so it is the same on every machine,
+Python version and restart — Python's own ``hash()`` of a string is salted per process
+and would move the sites at every restart. A site is evaluated by exactly one instance, and none is
 missed, whatever the ids; adding an instance moves about ``1/count`` of them.
 """
 

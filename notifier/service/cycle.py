@@ -104,6 +104,7 @@ class Service:
         self._own_session: Any = None
         self.rng = rng or random.Random()
         self._share: tuple[Loaded, tuple[Site, ...]] | None = None
+        self.reload_held_s = 0.0  # how long the last reload held the service lock
         self._mtimes = self._file_mtimes()
         # The hold windows look 10, 20 … minutes back: times the previous cycles already
         # evaluated. Their feature tables are kept, so a cycle computes only its own time
@@ -201,12 +202,14 @@ class Service:
             share_now = (loaded, mine)
         same_sites = loaded.config.sites == self.config.sites and loaded.model == self.loaded.model
         with self._lock:
+            held_from = time.monotonic()
             self.loaded, self._share = loaded, share_now
             if not same_sites:  # the remembered feature tables were the old sites'
                 self._features.clear()
             self._window = window
             self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
             self._mtimes = self._file_mtimes()
+            self.reload_held_s = time.monotonic() - held_from  # cycles waited this long
         with self._poll_lock:
             self._drop_sources()  # built again from the new config, with a fresh session
         return True, "reloaded"
@@ -410,8 +413,6 @@ class Service:
             self._drop_sources()
             self.leadership.release()
             self.store.close()
-
-
 
 
 _SNAPSHOT_FEATURES = (
