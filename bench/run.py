@@ -816,7 +816,8 @@ def w100_lines(w100: dict[str, Any]) -> dict[str, Any]:
             "W100 one cycle (poll → outbox)",
             "w100_cycle_s",
             w100["cycle_s"],
-            f"(window update {w100['window_update_s']:.2f} s, assess"
+            f"(CPU {w100['cycle_cpu_s']:.2f} s; window update {w100['window_update_s']:.2f} s,"
+            f" assess"
             f" {w100['cycle_evaluate_s']:.2f} s, snapshots {w100['cycle_snapshots_s']:.2f} s,"
             f" commit {w100['cycle_commit_s']:.2f} s)",
         ),
@@ -829,8 +830,9 @@ def w100_lines(w100: dict[str, Any]) -> dict[str, Any]:
             "w100_reload_s",
             w100["reload_s"],
             f"(the window kept: {w100['reload_kept_window']}; cycles held"
-            f" {w100.get('reload_held_s', float('nan')) * 1000:.1f} ms; the cycle after it"
-            f" {w100['cycle_after_reload_s']:.2f} s)",
+            f" {w100.get('reload_held_s', float('nan')) * 1000:.1f} ms;"
+            f" window update after it {w100['window_after_reload_s']:.2f} s,"
+            f" {w100['window_after_reload_rows_read']:,} rows read)",
         ),
     }
 

@@ -136,16 +136,21 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     rss_ready = peak_rss_mb()
     figures: dict[str, Any] = {"sites": n_sites}
 
+    # wall time and this process's CPU time side by side: on a shared machine the wall
+    # time carries the other work, the CPU time much less of it
+    cpu = time.process_time
     reset_peak_rss()
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), cpu()
     service = cycle_module.Service(config_path, sources=[])
     window_spent = {"s": 0.0}
     service._observations(at - timedelta(minutes=10))
     figures["start_up_read_s"] = time.perf_counter() - t0
+    figures["start_up_read_cpu_s"] = cpu() - c0
     figures["rows_held"] = len(service._window or ())
-    t1 = time.perf_counter()
+    t1, c1 = time.perf_counter(), cpu()
     first = service.poll_and_assess(at - timedelta(minutes=10))
     figures["first_cycle_s"] = time.perf_counter() - t1
+    figures["first_cycle_cpu_s"] = cpu() - c1
     figures["peak_start_mb"] = peak_rss_mb()
     del first
 
@@ -167,9 +172,10 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     figures["poll_rows"] = len(poll)
     reset_peak_rss()
     spent.update(dict.fromkeys(spent, 0.0))
-    t3 = time.perf_counter()
+    t3, c3 = time.perf_counter(), cpu()
     report = service.poll_and_assess(at)
     figures["cycle_s"] = time.perf_counter() - t3
+    figures["cycle_cpu_s"] = cpu() - c3
     figures.update({f"cycle_{k}_s": v for k, v in spent.items()})
     figures["window_update_s"] = window_spent["s"]
     figures["window_rows_read"] = window.last_read
@@ -180,15 +186,18 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     # a reload: one subscriber renamed, the sites unchanged
     data["subscribers"][0]["name"] = "Duty desk (night)"
     reset_peak_rss()
-    t4 = time.perf_counter()
+    t4, c4 = time.perf_counter(), cpu()
     ok, message = service.reload()
     figures["reload_s"] = time.perf_counter() - t4
+    figures["reload_cpu_s"] = cpu() - c4
     figures["reload_ok"] = ok
     figures["reload_held_s"] = service.reload_held_s
     figures["reload_kept_window"] = service._window is window
+    # the window after the reload: brought up to date, not read again
     t5 = time.perf_counter()
-    service.poll_and_assess(at + timedelta(minutes=10))
-    figures["cycle_after_reload_s"] = time.perf_counter() - t5
+    service._observations(at + timedelta(minutes=10))
+    figures["window_after_reload_s"] = time.perf_counter() - t5
+    figures["window_after_reload_rows_read"] = window.last_read
     figures["peak_reload_mb"] = peak_rss_mb()
     figures["rss_after_imports_mb"] = rss_ready
     figures["peak_mb"] = max(
@@ -214,14 +223,18 @@ def measure(directory: Path, n_sites: int, seed: int = generate.SEED) -> dict[st
 
 def table(results: list[dict[str, Any]]) -> str:
     lines = [
-        "| sites | rows held | start-up read | first cycle | one cycle (window update)"
+        "| sites | rows held | start-up read (CPU) | first cycle (CPU)"
+        " | one cycle (CPU; window update)"
         " | reload (lock held) | peak memory | in the cycle: assess / snapshots / commit |",
         "|---:|---:|---:|---:|---:|---:|---:|---:|",
     ]
     for r in results:
         lines.append(
-            f"| {r['sites']:,} | {r['rows_held']:,} | {r['start_up_read_s']:.1f} s"
-            f" | {r['first_cycle_s']:.1f} s | {r['cycle_s']:.2f} s ({r['window_update_s']:.2f} s)"
+            f"| {r['sites']:,} | {r['rows_held']:,}"
+            f" | {r['start_up_read_s']:.1f} s ({r['start_up_read_cpu_s']:.1f} s)"
+            f" | {r['first_cycle_s']:.1f} s ({r['first_cycle_cpu_s']:.1f} s)"
+            f" | {r['cycle_s']:.2f} s ({r['cycle_cpu_s']:.2f} s;"
+            f" window {r['window_update_s']:.2f} s)"
             f" | {r['reload_s']:.2f} s ({r.get('reload_held_s', float('nan')) * 1000:.1f} ms)"
             f" | {r['peak_mb']:,.0f} MB"
             f" | {r['cycle_evaluate_s']:.2f} / {r['cycle_snapshots_s']:.2f}"
