@@ -55,7 +55,8 @@ class Leadership:
             try:
                 cursor = connection.cursor()
                 cursor.execute("SELECT pg_try_advisory_lock(%s)", (LEADER_LOCK_KEY,))
-                (taken,) = cursor.fetchone()
+                row = cursor.fetchone()
+                taken = bool(row and row[0])
                 cursor.close()
                 connection.commit()  # the lock is the session's; no transaction stays open
             except Exception:

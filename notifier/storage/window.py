@@ -238,7 +238,7 @@ class RollingWindow:
         n_out = kept.size + int(inserted.sum())
         # output positions: a new row goes after the kept rows before it and after the
         # new rows inserted before it; a replacing row lands on the row it replaces
-        before = np.cumsum(inserted) - inserted  # inserted rows ahead of each new row
+        before: np.ndarray = np.cumsum(inserted) - inserted  # inserted rows ahead of each
         new_at = kept_at + before
         from_new = np.zeros(n_out, dtype=bool)
         from_new[new_at[inserted]] = True
