@@ -16,7 +16,10 @@ Figures (see bench/README.md for what each one means):
 - ingest: 1,000,000 CSV rows through parsing, validation and the store;
 - the command line: ``fogwatch --help`` and ``fogwatch check`` on the demo config, cold;
 - delivery: 1,000 alert emails through notifier.delivery.dispatch (outbox, render, EmailSender) to a
-  local SMTP server, reusing the connection; EmailSender alone beside it.
+  local SMTP server, reusing the connection; EmailSender alone beside it;
+- W100 (bench/scale.py): a running ``Service`` over 100,000 sites × 144 rows — its
+  start-up read, one cycle, a reload, peak memory. ``--only w100`` runs just that,
+  ``--only scale`` the scaling table (1k, 10k, 50k, 100k sites).
 """
 
 from __future__ import annotations
@@ -61,6 +64,11 @@ TARGETS: dict[str, tuple[float, str, str]] = {
     "email_s": (10.0, "max", "s"),
     # issue 7: "thousands of site-nights in seconds" — read as ≤ 10 s per 1,000
     "replay_s_per_1000_site_nights": (10.0, "max", "s"),
+    # issue 19: W100, a running service over 100,000 sites (bench/scale.py)
+    "w100_cycle_s": (5.0, "max", "s"),
+    "w100_peak_mb": (4096.0, "max", "MB"),
+    "w100_start_up_read_s": (60.0, "max", "s"),
+    "w100_reload_s": (1.0, "max", "s"),
 }
 REPLAY_SITES, REPLAY_DAYS = 100, 10
 
@@ -625,12 +633,17 @@ def main() -> int:
     parser = argparse.ArgumentParser(description="fogwatch benchmark (issue 8)")
     parser.add_argument("--sites", type=int, default=10_000)
     parser.add_argument("--seed", type=int, default=generate.SEED)
+    parser.add_argument(
+        "--only", choices=["w100", "scale"], help="run only W100, or only the scaling table"
+    )
     parser.add_argument("--w1-child", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--out", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.w1_child:
         w1_child(args.w1_child, args.sites, args.seed, args.out)
         return 0
+    if args.only:
+        return run_scale(args.only, args.seed)
 
     started = time.perf_counter()
     print(f"fogwatch benchmark: {args.sites:,} sites, seed {args.seed}, {os.cpu_count()} cores")
@@ -645,6 +658,10 @@ def main() -> int:
         email = run_email(tmp, args.seed)
         print("  … replay (site-nights through the rules and lifecycle)", flush=True)
         replayed = run_replay(args.seed)
+        print("  … W100 (100,000 sites: build the store, a service in a child)", flush=True)
+        import scale
+
+        w100 = scale.measure(tmp / "w100", scale.W100_SITES, args.seed)
 
     best = w1["best"]
     scale = args.sites / w1["metpy_subset_sites"]
@@ -750,6 +767,7 @@ def main() -> int:
         f"({replayed['site_nights']:,} site-nights, {replayed['steps']:,} steps of 10 min, "
         f"{replayed['sites']} sites, {replayed['seconds']:.1f} s)",
     )
+    figures.update(w100_lines(w100))
     targeted = {k: v for k, v in figures.items() if v["status"] != "info"}
     missed = [k for k, v in targeted.items() if v["status"] != "ok"]
     total_s = time.perf_counter() - started
@@ -775,6 +793,7 @@ def main() -> int:
                 "ingest": ingest,
                 "cli": cli,
                 "email": email,
+                "w100": w100,
                 "bench_s": total_s,
             },
             indent=2,
@@ -782,6 +801,70 @@ def main() -> int:
         + "\n"
     )
     print(f"results: {RESULTS.relative_to(ROOT)}")
+    return 0
+
+
+def w100_lines(w100: dict[str, Any]) -> dict[str, Any]:
+    """The W100 figures beside their targets."""
+    print(
+        f"W100: {w100['rows_held']:,} rows held for {w100['sites']:,} sites; the poll"
+        f" ({w100['poll_rows']:,} rows) written in {w100['poll_write_s']:.1f} s; a first"
+        f" cycle after the start {w100['first_cycle_s']:.1f} s"
+    )
+    return {
+        "w100_cycle_s": line(
+            "W100 one cycle (poll → outbox)",
+            "w100_cycle_s",
+            w100["cycle_s"],
+            f"(CPU {w100['cycle_cpu_s']:.2f} s; window update {w100['window_update_s']:.2f} s,"
+            f" assess"
+            f" {w100['cycle_evaluate_s']:.2f} s, snapshots {w100['cycle_snapshots_s']:.2f} s,"
+            f" commit {w100['cycle_commit_s']:.2f} s)",
+        ),
+        "w100_peak_mb": line("W100 peak memory (child, VmHWM)", "w100_peak_mb", w100["peak_mb"]),
+        "w100_start_up_read_s": line(
+            "W100 start-up read", "w100_start_up_read_s", w100["start_up_read_s"]
+        ),
+        "w100_reload_s": line(
+            "W100 a reload (window kept)",
+            "w100_reload_s",
+            w100["reload_s"],
+            f"(the window kept: {w100['reload_kept_window']}; cycles held"
+            f" {w100.get('reload_held_s', float('nan')) * 1000:.1f} ms;"
+            f" window update after it {w100['window_after_reload_s']:.2f} s,"
+            f" {w100['window_after_reload_rows_read']:,} rows read)",
+        ),
+    }
+
+
+def run_scale(which: str, seed: int) -> int:
+    """``--only w100`` or ``--only scale``: those figures alone, into results-scale.json."""
+    import scale
+
+    sizes = (scale.W100_SITES,) if which == "w100" else scale.SCALE_SITES
+    print(
+        f"fogwatch benchmark, {which}: {', '.join(f'{n:,}' for n in sizes)} sites;"
+        f" load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores",
+        flush=True,
+    )
+    with tempfile.TemporaryDirectory(prefix="fogwatch-bench-") as name:
+        results = [scale.measure(Path(name), n, seed) for n in sizes]
+    print(scale.table(results))
+    figures = w100_lines(results[-1]) if results[-1]["sites"] == scale.W100_SITES else {}
+    out = BENCH / "results-scale.json"
+    out.write_text(
+        json.dumps(
+            {
+                "when": datetime.now(UTC).isoformat(),
+                "load": os.getloadavg(),
+                "results": results,
+                "figures": figures,
+            },
+            indent=2,
+        )
+        + "\n"
+    )
+    print(f"results: {out.relative_to(ROOT)}; load average now {os.getloadavg()[0]:.1f}")
     return 0
 
 

@@ -58,6 +58,7 @@ __all__ = [  # with the value types of notifier.core.config_types, re-exported
     "HttpJsonSource",
     "MatrixChannel",
     "MatrixSettings",
+    "InstanceSettings",
     "Schedule",
     "Site",
     "StoreSettings",
@@ -67,6 +68,7 @@ __all__ = [  # with the value types of notifier.core.config_types, re-exported
     "WebhookChannel",
     "default_rules_dir",
     "check_sender_id",
+    "instance_problem",
     "is_loopback_host",
     "parse_duration_s",
 ]
@@ -283,6 +285,38 @@ class StoreSettings(_Model):
     keep_deliveries: Duration = 14 * 86400.0
 
 
+class InstanceSettings(_Model):
+    """Which of ``count`` ``fogwatch run`` instances sharing one PostgreSQL store this is.
+
+    Each takes the sites (and sources) that ``notifier.core.partition`` gives its
+    ``index``; one of them, whichever holds the store's leader lock, also runs the
+    outlooks and housekeeping. Set per machine with ``${ENV}``, say
+    ``index: ${FOGWATCH_INSTANCE:-0}``."""
+
+    index: int = Field(default=0, ge=0)
+    count: int = Field(default=1, ge=1, le=1024)
+
+    @model_validator(mode="after")
+    def _index_below_count(self) -> InstanceSettings:
+        if self.index >= self.count:
+            raise ValueError(
+                f"index must be below count ({self.count}): instances are numbered "
+                f"0 to {self.count - 1}, got: {self.index}"
+            )
+        return self
+
+
+def instance_problem(config: Config) -> str | None:
+    """Why ``config.instance`` cannot work with ``config``'s store, or None."""
+    if config.instance.count > 1 and config.store_url.startswith("sqlite"):
+        return (
+            f"count {config.instance.count} needs a PostgreSQL store (store.url: "
+            "postgresql+psycopg://…): instances share the sites through it, and a SQLite "
+            "file serves one instance only"
+        )
+    return None
+
+
 #: The ids of subscribers made by following a site through the bot start so
 #: (``service.bot_subscriber_id``); configured subscribers may not.
 BOT_SUBSCRIBER_PREFIX = "bot-"
@@ -352,6 +386,7 @@ class Config(_Model):
     model: Path | None = None  # a site model written by `fogwatch learn` (JSON)
     web: WebSettings | None = None
     matrix: MatrixSettings | None = None
+    instance: InstanceSettings = InstanceSettings()
     path: Path | None = None  # the file this came from (set by load_config)
 
     @model_validator(mode="before")

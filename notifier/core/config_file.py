@@ -35,6 +35,7 @@ from notifier.core.config import (
     FileDropSource,
     FolderChannel,
     TextChannel,
+    instance_problem,
     is_loopback_host,
 )
 from notifier.core.config_hints import did_you_mean, folder_problems
@@ -462,6 +463,8 @@ def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
             add(("rules", i), f"rule path not found: {rule_path}")
     if config.model is not None and not config.model.is_file():
         add(("model",), f"model file not found: {config.model} (write one with fogwatch learn)")
+    if (problem := instance_problem(config)) is not None:
+        add(("instance", "count"), problem)
     if config.web is not None and not is_loopback_host(config.web.host) and not config.web.token:
         add(("web", "token"), f"web.host {config.web.host} is not loopback: a token is needed")
     return problems

@@ -7,7 +7,6 @@
 from __future__ import annotations
 
 import logging
-import math
 import random
 import threading
 import time
@@ -17,12 +16,14 @@ from datetime import datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from notifier.core.config import Config, Subscriber
+from notifier.core.config import Config, Site, Subscriber
 from notifier.core.errors import FogwatchError
+from notifier.core.partition import share
 from notifier.core.redact import redact_url
 from notifier.engine.rules import RuleSet
 from notifier.service.access import Access, bot_subscribers, routing_mutes
 from notifier.service.access import bot_subscriber_id as bot_subscriber_id  # (re-exported)
+from notifier.service.charting import event_charts
 from notifier.service.loading import (
     FORECAST_HORIZON,
     Loaded,
@@ -31,6 +32,7 @@ from notifier.service.loading import (
     open_store,
 )
 from notifier.storage.botstate import BotState
+from notifier.storage.leader import Leadership
 from notifier.storage.outbox import Outbox
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -42,7 +44,6 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
     from notifier.engine.catalog import FeatureTable
     from notifier.ingest.base import ObservationSource, PollResult
-    from notifier.storage.deliveries import Delivery
     from notifier.storage.store import Store
     from notifier.storage.window import RollingWindow
 
@@ -68,6 +69,10 @@ class Service:
 
     ``clock`` is only used by callers that do not pass ``now``; every method takes the
     time explicitly so that the demo and replay can drive it with a simulated clock.
+
+    With ``instance: {index, count}`` it evaluates (and polls) only its share of the
+    sites and sources (``notifier.core.partition``); :meth:`leads` says whether it
+    also runs the store-wide work (outlooks, housekeeping).
     """
 
     def __init__(
@@ -89,6 +94,7 @@ class Service:
             self.store, lease=timedelta(seconds=self.loaded.config.alerts.claim_lease)
         )
         self.bot_state = BotState(self.store)
+        self.leadership = Leadership(self.store)
         self.session = session
         self.channel_kwargs = dict(channel_kwargs or {})
         self._fixed_sources = sources
@@ -97,6 +103,8 @@ class Service:
         self._sources: list[ObservationSource] | None = None
         self._own_session: Any = None
         self.rng = rng or random.Random()
+        self._share: tuple[Loaded, tuple[Site, ...]] | None = None
+        self.reload_held_s = 0.0  # how long the last reload held the service lock
         self._mtimes = self._file_mtimes()
         # The hold windows look 10, 20 … minutes back: times the previous cycles already
         # evaluated. Their feature tables are kept, so a cycle computes only its own time
@@ -110,6 +118,9 @@ class Service:
         self._window: RollingWindow | None = None
         self._stop = threading.Event()
         self._lock = threading.Lock()  # one cycle or delivery at a time
+        # polls do their IO outside that lock (a slow source holds up no cycle or
+        # delivery), one poll at a time; this lock also guards the built sources
+        self._poll_lock = threading.Lock()
         # called with each poll-and-assess cycle's duration in seconds (the web metrics)
         self.cycle_listeners: list[Callable[[float], None]] = []
 
@@ -120,6 +131,18 @@ class Service:
     @property
     def rules(self) -> RuleSet:
         return self.loaded.rules
+
+    @property
+    def sites(self) -> tuple[Site, ...]:
+        """The sites this instance evaluates: all, or its share (``instance:``)."""
+        instance = self.config.instance
+        if self._share is None or self._share[0] is not self.loaded:
+            self._share = (self.loaded, share(self.config.sites, instance.index, instance.count))
+        return self._share[1]
+
+    def leads(self) -> bool:
+        """Whether this instance runs the store-wide jobs (always, on a SQLite store)."""
+        return self.leadership.leads()
 
     # -- files and reload --------------------------------------------------------------
 
@@ -165,24 +188,43 @@ class Service:
             loaded = Loaded(
                 loaded.config.model_copy(update={"store": running}), loaded.rules, loaded.model
             )
+        # The window stays unless the sites or its length changed; a new one is read
+        # here, before the lock, while cycles go on with the old one.
+        window, share_now = self._window, self._share
+        if window is not None:
+            instance = loaded.config.instance
+            mine = share(loaded.config.sites, instance.index, instance.count)
+            window = window.renewed(
+                [s.id for s in mine],
+                back=timedelta(seconds=loaded.config.store.window),
+                ahead=FORECAST_HORIZON,
+            )
+            share_now = (loaded, mine)
+        same_sites = loaded.config.sites == self.config.sites and loaded.model == self.loaded.model
         with self._lock:
-            self.loaded = loaded
-            self._features.clear()
-            self._window = None  # the sites or the window's length may have changed
-            self._drop_sources()  # built again from the new config, with a fresh session
+            held_from = time.monotonic()
+            self.loaded, self._share = loaded, share_now
+            if not same_sites:  # the remembered feature tables were the old sites'
+                self._features.clear()
+            self._window = window
             self.outbox.lease = timedelta(seconds=loaded.config.alerts.claim_lease)
             self._mtimes = self._file_mtimes()
+            self.reload_held_s = time.monotonic() - held_from  # cycles waited this long
+        with self._poll_lock:
+            self._drop_sources()  # built again from the new config, with a fresh session
         return True, "reloaded"
 
     # -- the cycle ---------------------------------------------------------------------
 
     def poll(self, now: datetime, source_ids: Sequence[str] | None = None) -> list[PollResult]:
+        """Poll (all sources of this instance, or the given ones) and record what came."""
         from notifier.ingest.poll import poll_sources
 
-        sources = self._built_sources()
-        if source_ids is not None:
-            sources = [s for s in sources if s.id in source_ids]
-        return poll_sources(sources, self.store, now)
+        with self._poll_lock:  # not the service lock: cycles and deliveries go on
+            sources = self._built_sources()
+            if source_ids is not None:
+                sources = [s for s in sources if s.id in source_ids]
+            return poll_sources(sources, self.store, now)
 
     def _built_sources(self) -> Sequence[ObservationSource]:
         if self._fixed_sources is not None:
@@ -195,7 +237,11 @@ class Service:
                 import requests
 
                 session = self._own_session = requests.Session()
-            self._sources = build_sources(self.config, self.store, session=session)
+            instance = self.config.instance
+            config = self.config.model_copy(
+                update={"sources": share(self.config.sources, instance.index, instance.count)}
+            )
+            self._sources = build_sources(config, self.store, session=session)
         return self._sources
 
     def _drop_sources(self) -> None:
@@ -210,11 +256,11 @@ class Service:
     ) -> CycleReport:
         """Poll (all sources, or the given ones), assess, run the lifecycle, queue."""
         started = time.monotonic()
+        polls = self.poll(now, source_ids)  # network and file IO, outside the lock
         with self._lock:
-            polls = self.poll(now, source_ids)
             obs = self._observations(now)
             assessments = evaluate(
-                self.loaded, obs, now, self._remembered(now), self._feature_cache
+                self.loaded, obs, now, self._remembered(now), self._feature_cache, self.sites
             )
             report = self._advance(now, assessments, obs, polls)
         for listener in self.cycle_listeners:
@@ -228,7 +274,7 @@ class Service:
 
             self._window = RollingWindow(
                 self.store,
-                [s.id for s in self.config.sites],
+                [s.id for s in self.sites],
                 back=timedelta(seconds=self.config.store.window),
                 ahead=FORECAST_HORIZON,
             )
@@ -254,10 +300,11 @@ class Service:
         from notifier.delivery.routing import route
         from notifier.engine.lifecycle import step
 
-        previous = self.outbox.states()
+        mine = {s.id for s in self.sites}  # another instance's states are its own
+        previous = {k: v for k, v in self.outbox.states().items() if k[0] in mine}
         states, events = step(previous, assessments, now, self.config.alerts)
         deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
-        charts = self._charts(events, deliveries, assessments, obs, now)
+        charts = event_charts(self.config, events, deliveries, assessments, obs, now)
         snapshots = {sa.site.id: (sa.level, _snapshot(sa)) for sa in assessments}
         added = self.outbox.commit_cycle(
             previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
@@ -265,50 +312,6 @@ class Service:
         for ev in events:  # at INFO: shown by `fogwatch run` without -v
             log.info("alert %s: %s %s %s", ev.site_id, ev.hazard, ev.type, ev.level)
         return CycleReport(now, assessments, events, added, polls)
-
-    def _charts(
-        self,
-        events: Sequence[Event],
-        deliveries: Sequence[Delivery],
-        assessments: Sequence[SiteAssessment],
-        obs: pd.DataFrame,
-        now: datetime,
-    ) -> dict[str, bytes]:
-        """A chart for each event that goes to an email channel with charts on."""
-        from notifier.core.config import EmailChannel, FolderChannel
-        from notifier.delivery.charts import chart_png
-
-        wanted = set()
-        for d in deliveries:
-            ch = next((c for c in self.config.channels if c.id == d.channel_id), None)
-            if isinstance(ch, FolderChannel) or (isinstance(ch, EmailChannel) and ch.chart):
-                wanted.add(d.event_id)
-        by_site = {sa.site.id: sa for sa in assessments}
-        out = {}
-        for ev in events:
-            if ev.id not in wanted or ev.hazard == "data_gap":
-                continue
-            sa = by_site[ev.site_id]
-            frame = obs[obs["site"] == ev.site_id] if len(obs) else obs
-            # the projection ends at sunrise (charts.night_points)
-            to_sunrise = sa.features.get("hours_to_sunrise", math.nan)
-            sunrise = now + timedelta(hours=to_sunrise) if math.isfinite(to_sunrise) else None
-            try:
-                out[ev.id] = chart_png(
-                    frame,
-                    now,
-                    projection=sa.projection,
-                    dewpoint=sa.features.get("dewpoint_c"),
-                    title=sa.site.name,
-                    tz_name=sa.site.timezone,
-                    hazard=ev.hazard,
-                    level=ev.level,
-                    sunrise=sunrise,
-                    frost_point=sa.features.get("frost_point_c"),
-                )
-            except Exception:  # a chart is a nicety; the alert must go without it
-                log.exception("chart for %s failed", ev.site_id)
-        return out
 
     def deliver(self, now: datetime) -> DispatchReport:
         from notifier.delivery.dispatch import dispatch
@@ -352,14 +355,28 @@ class Service:
     # -- outlook, health, housekeeping -----------------------------------------------------
 
     def outlook(self, now: datetime, site_ids: Sequence[str]) -> int:
-        """The evening outlook for these sites, queued like any other message."""
+        """The evening outlook for these sites, queued like any other message.
+
+        Run by the leader only when instances share the store: the sites of its own
+        share come from its window, the others' from one read of the store."""
         from notifier.delivery.outlook import outlook_event, without_repeats
         from notifier.delivery.routing import route
 
+        wanted = set(site_ids)
+        mine = {s.id for s in self.sites}
+        others = [s for s in self.config.sites if s.id in wanted and s.id not in mine]
+        if others:  # read before the lock: a read of other instances' sites
+            from notifier.service.loading import observations_for
+
+            partial = self.config.model_copy(update={"sites": tuple(others)})
+            other_obs = observations_for(partial, self.store, now)
         with self._lock:
             obs = self._observations(now)
-            wanted = set(site_ids)
-            found = evaluate(self.loaded, obs, now, feature_cache=self._feature_cache)
+            found = evaluate(
+                self.loaded, obs, now, feature_cache=self._feature_cache, sites=self.sites
+            )
+            if others:
+                found += evaluate(self.loaded, other_obs, now, sites=others)
             sites = [a for a in found if a.site.id in wanted]
             events = [outlook_event(sa, now) for sa in sites]
             deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
@@ -395,33 +412,37 @@ class Service:
 
     def close(self) -> None:
         self._stop.set()
-        with self._lock:
+        with self._lock, self._poll_lock:
             self._drop_sources()
+            self.leadership.release()
             self.store.close()
 
 
+_SNAPSHOT_FEATURES = (
+    "temp_c",
+    "dewpoint_c",
+    "dewpoint_depression_c",
+    "projected_min_temp_c",
+    "visibility_m",
+    "wind_ms",
+    "cloud_pct",
+    "hours_to_fog",
+)
+
+
 def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
-    """What the bot and ``status`` show without recomputing."""
+    """What the bot and ``status`` show without recomputing (every site, every cycle:
+    only the features shown are turned into JSON)."""
+    import dataclasses
     import math
 
     from notifier.engine.assessment import to_json
 
-    (data,) = to_json([sa])
-    data["features"] = {
-        k: v
-        for k, v in data["features"].items()
-        if k
-        in (
-            "temp_c",
-            "dewpoint_c",
-            "dewpoint_depression_c",
-            "projected_min_temp_c",
-            "visibility_m",
-            "wind_ms",
-            "cloud_pct",
-            "hours_to_fog",
-        )
-    }
+    features = sa.features  # looked up by name: a site's table row has some 40
+    wanted = {k: features[k] for k in _SNAPSHOT_FEATURES if k in features}
+    wanted["data_age_min"] = sa.age_min  # (the age and staleness read it)
+    (data,) = to_json([dataclasses.replace(sa, features=wanted)])
+    data["features"] = {k: v for k, v in data["features"].items() if k in _SNAPSHOT_FEATURES}
     age = sa.age_min
     data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
     return data

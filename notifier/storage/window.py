@@ -8,6 +8,16 @@ its write batches, see ``Store.last_batch``), merges them in — a row with the 
 (site, time, kind) replaces the one held, as in the store — and drops what fell out of
 the back of the window.
 
+The merge never sorts the whole window again: the held rows are kept in key order, the
+few new rows are sorted among themselves, and each finds its place by binary search
+(``np.searchsorted``). A new row whose key is held replaces that row; the others are
+inserted at their places (for a running service: at the end of each site's rows). Rows
+that fell out of the back are dropped by index (each site's oldest rows). The new
+columns are then one gather each from the held ones, in order, with the new rows
+written into their places: the cost of a cycle is a copy of the window plus
+``n_new · log(window)``, where sorting the whole window again cost a sort and a scattered
+gather that grew faster than the number of sites.
+
 It holds every row of the configured sites from ``at - back`` on, however far ahead a
 forecast reaches, so that forecasts come into view as time moves on without another
 read, and hands out the rows ``Store.window(sites, at - back, at + ahead)`` would
@@ -19,6 +29,11 @@ each site's rows by time, then kind. A test holds it to that after random writes
 An evaluation time earlier than the last one (a simulated clock going back, or a
 ``--at`` in the past) reads the window whole again: the rows it needs may already have
 been dropped.
+
+A reload of the configuration keeps the window (:meth:`RollingWindow.renewed`): only a
+change of the sites or of the window's length needs a new one, and that one is read
+whole at once by the caller, outside the lock its cycles need, so that the cycles go on
+meanwhile with the old one.
 """
 
 from __future__ import annotations
@@ -61,6 +76,8 @@ class RollingWindow:
         self._base_s = 0
         #: rows read from the store by the last call (the whole window, or what changed)
         self.last_read = 0
+        #: the evaluation time of the last call of :meth:`frame` (None: not called yet)
+        self.last_at: datetime | None = None
 
     def frame(self, at: datetime) -> pd.DataFrame:
         """The window for an evaluation at ``at`` (tz-aware).
@@ -73,7 +90,23 @@ class RollingWindow:
             self._load(start_s)
         else:
             self._update(start_s)
+        self.last_at = at
         return self._view(_floor_s(at + self.ahead))
+
+    def renewed(
+        self, site_ids: Sequence[str], *, back: timedelta, ahead: timedelta
+    ) -> RollingWindow:
+        """The window for a reloaded configuration: this one, brought along, when the
+        sites (ids and order) and the window's length are the same; else a new one, read
+        whole at this one's last evaluation time (that read takes a while: the caller
+        makes it outside the lock its cycles need)."""
+        same_sites = list(self.sites) == list(dict.fromkeys(site_ids))
+        if same_sites and back == self.back and ahead == self.ahead:
+            return self
+        fresh = RollingWindow(self.store, site_ids, back=back, ahead=ahead)
+        if self.last_at is not None:
+            fresh.frame(self.last_at)
+        return fresh
 
     def __len__(self) -> int:
         return int(self._keys.size)
@@ -104,7 +137,7 @@ class RollingWindow:
         new = self._read(start_s, self._batch) if batch != self._batch else None
         self.last_read = 0 if new is None else len(new)
         if new is not None and len(new):
-            self._columns, self._keys = self._merged(self._prepared(new), start_s)
+            self._columns, self._keys = self._merged_in(self._prepared(new), start_s)
         elif start_s > self._start_s:
             self._trim(start_s)
         self._batch, self._start_s = batch, start_s
@@ -174,6 +207,58 @@ class RollingWindow:
                 out[name] = _placed(mine, theirs, from_old, new_at, new_rows)
             del mine, theirs
         return out, keys[keep]
+
+    def _merged_in(self, new: dict[str, Any], start_s: int) -> tuple[dict[str, Any], np.ndarray]:
+        """The held rows with ``new`` merged in, without sorting the held rows again.
+
+        Only the new rows are sorted (they are few); each takes its place in the held
+        keys by binary search. Equal keys: the new row replaces the held one in its
+        place. Held rows before ``start_s`` are dropped (they lead each site's rows)."""
+        assert self._columns is not None
+        if not self._keys.size:  # nothing held: the new rows are the window
+            return self._merged(new, start_s)
+        old, held = self._columns, self._keys
+        new_keys = self._key(new)
+        order = np.argsort(new_keys, kind="stable")
+        new_keys = new_keys[order]
+        unique = np.ones(new_keys.size, dtype=bool)  # of repeated keys the last one stays
+        unique[:-1] = new_keys[1:] != new_keys[:-1]
+        order, new_keys = order[unique], new_keys[unique]
+        at = np.searchsorted(held, new_keys)
+        found = at < held.size
+        found[found] = held[at[found]] == new_keys[found]
+        # the held rows kept, by index: those at or after the start (a site's oldest rows
+        # go first, so these are each site's last rows; the comparison is one pass)
+        kept = np.flatnonzero(old["time"] >= start_s * _NS)
+        if kept.size == held.size:
+            kept_at = at
+        else:  # where each new row lands among the kept rows
+            kept_at = np.searchsorted(kept, at)
+        inserted = ~found
+        n_out = kept.size + int(inserted.sum())
+        # output positions: a new row goes after the kept rows before it and after the
+        # new rows inserted before it; a replacing row lands on the row it replaces
+        before: np.ndarray = np.cumsum(inserted) - inserted  # inserted rows ahead of each
+        new_at = kept_at + before
+        from_new = np.zeros(n_out, dtype=bool)
+        from_new[new_at[inserted]] = True
+        source = np.empty(n_out, dtype=np.int64)  # which held row each output row copies
+        source[~from_new] = kept
+        source[from_new] = 0
+        rows = order  # the new table's rows, in key order
+        out: dict[str, Any] = {}
+        for name in CANONICAL_COLUMNS:  # a column at a time, each input one released
+            mine, theirs = old.pop(name), new.pop(name)
+            if name in ("weather", "source"):
+                (codes, new_codes), categories = _with_categories(mine, theirs)
+                assert codes is not None
+                out[name] = (_gathered(codes, new_codes, source, new_at, rows), categories)
+            else:
+                out[name] = _gathered(mine, theirs, source, new_at, rows)
+            del mine, theirs
+        keys = held.take(source)
+        keys[new_at] = new_keys
+        return out, keys
 
     def _trim(self, start_s: int) -> None:
         assert self._columns is not None
@@ -277,6 +362,16 @@ def _placed(
         return new[new_rows]
     out = held.take(from_held)
     out[new_at] = new[new_rows]
+    return out
+
+
+def _gathered(
+    held: np.ndarray, new: np.ndarray, source: np.ndarray, new_at: np.ndarray, rows: np.ndarray
+) -> np.ndarray:
+    """A merged column: held rows gathered in order by ``source``, then the new rows
+    written at ``new_at`` (over the held row they replace, or into their inserted place)."""
+    out = held.take(source)
+    out[new_at] = new[rows]
     return out
 
 

@@ -1,0 +1,266 @@
+"""W100 and the scaling table (issue 19): a running ``Service`` over 1k … 100,000 sites.
+
+For each size a SQLite store holds W1-style readings (``generate.observations``: 24 h
+every 10 min, forecasts for a share of the sites), written 10,000 sites at a time so the
+generator never holds more than one slice. Then, in a fresh child process (its peak
+memory read from the kernel, ``VmHWM``), the service's own path is timed:
+
+- **start-up read**: ``Service`` built, its ``RollingWindow`` read whole (10 min before
+  the evaluation time), then a first cycle there (which also works out the hold
+  windows' feature tables and leaves the alert states);
+- **one cycle**: the poll of the evaluation time written to the store as a source
+  would, then ``Service.poll_and_assess`` — the window update (the batch read and merged
+  in), features, rules, assessment, lifecycle, the outbox commit (states, events,
+  snapshots) — the figure a site manager waits for;
+- **a reload**: ``Service.reload`` with the sites unchanged (a subscriber renamed): what
+  a config change costs a running service, the window kept; then the cycle after it.
+
+The config is built in Python and handed to the service as ``load()`` would: parsing a
+100,000-site YAML file is not part of these figures (bench/README.md says what it costs).
+Run alone::
+
+    .venv/bin/python bench/run.py --only w100              # W100 only
+    .venv/bin/python bench/run.py --only scale             # 1k, 10k, 50k, 100k
+    .venv/bin/python bench/scale.py --sites 2000 --dir /tmp/s  # one size, store kept
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import tempfile
+import time
+from datetime import timedelta
+from pathlib import Path
+from typing import Any
+
+import generate
+
+__all__ = ["SCALE_SITES", "W100_SITES", "load_store", "measure"]
+
+W100_SITES = 100_000
+SCALE_SITES = (1_000, 10_000, 50_000, 100_000)
+SLICE = 10_000  # sites generated and written at a time
+
+
+def load_store(directory: Path, n_sites: int, seed: int = generate.SEED) -> tuple[Path, int]:
+    """``n_sites`` sites of W1-style readings in ``directory/w{n}.sqlite``, written a
+    slice at a time; the readings of ``generate.AT`` itself are kept aside as the poll
+    (``generate.last_poll_path``). A store already there is used as it is."""
+    import pandas as pd
+
+    from notifier.storage.store import Store
+
+    directory.mkdir(parents=True, exist_ok=True)
+    path = directory / f"w{n_sites}.sqlite"
+    done = path.with_suffix(".done")
+    poll_path = path.with_name(f"w{n_sites}-poll.pkl")
+    if done.exists() and path.exists() and poll_path.exists():
+        return path, int(done.read_text())
+    site_list = generate.sites(n_sites, generate.SEED if seed is None else seed)
+    at = generate.AT
+    polls, written = [], 0
+    with Store(f"sqlite:///{path}") as store:
+        for first in range(0, n_sites, SLICE):
+            frame = generate.observations(site_list[first : first + SLICE], at, seed + first)
+            last = (frame["kind"] == "obs") & (frame["time"] == pd.Timestamp(at))
+            polls.append(frame[last])
+            written += store.add_observations(frame[~last], received_at=at - timedelta(minutes=10))
+            del frame
+    poll = pd.concat(polls, ignore_index=True)
+    poll.to_pickle(poll_path)
+    done.write_text(str(written + len(poll)))
+    return path, written + len(poll)
+
+
+def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
+    """In a fresh interpreter: the service's start, one cycle, a reload."""
+    import pandas as pd
+    from run import peak_rss_mb, reset_peak_rss
+
+    import notifier.service.cycle as cycle_module
+    from notifier.core.config import Config, Subscriber, TextChannel, default_rules_dir
+    from notifier.engine.rule_files import load_rule_set
+    from notifier.service.loading import Loaded
+
+    at = generate.AT
+    sites = generate.sites(n_sites, seed)
+    rules = load_rule_set([default_rules_dir()])
+    data: dict[str, Any] = {
+        "version": 1,
+        "sites": [s.model_dump() for s in sites],
+        "store": {"url": f"sqlite:///{db}"},
+        "channels": [TextChannel(id="duty", type="text", stdout=False).model_dump()],
+        "subscribers": [
+            Subscriber(id="desk", name="Duty desk", channel="duty", operator=True).model_dump()
+        ],
+    }
+    config_path = db.with_name("w-config.yaml")
+    config_path.write_text("# built in Python by bench/scale.py\n", encoding="utf-8")
+
+    def load(path: Any, model_path: Any = None) -> Loaded:
+        validated = Config.model_validate({**data, "path": config_path})
+        return Loaded(validated, rules)
+
+    cycle_module.load = load  # type: ignore[assignment]  # (the file is not parsed)
+    # where a cycle's time goes: each stage timed inside the service's own calls
+    spent = {"evaluate": 0.0, "snapshots": 0.0, "commit": 0.0}
+
+    def timing(name: str, fn: Any) -> Any:
+        def timed(*args: Any, **kwargs: Any) -> Any:
+            start = time.perf_counter()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[name] += time.perf_counter() - start
+
+        return timed
+
+    cycle_module.evaluate = timing("evaluate", cycle_module.evaluate)  # type: ignore[assignment]
+    cycle_module._snapshot = timing("snapshots", cycle_module._snapshot)  # type: ignore[assignment]
+    outbox_class = cycle_module.Outbox
+    outbox_class.commit_cycle = timing("commit", outbox_class.commit_cycle)  # type: ignore[method-assign]
+    poll = pd.read_pickle(db.with_name(f"w{n_sites}-poll.pkl"))
+    # a store kept from an earlier run (--dir) starts as new: before the poll of `at`,
+    # with no alert states, events, deliveries or snapshots
+    from notifier.storage.store import Store
+
+    with Store(f"sqlite:///{db}") as store, store.atomic() as conn:
+        conn.exec_driver_sql(
+            "DELETE FROM observations WHERE kind = 'obs' AND time >= ?", (int(at.timestamp()),)
+        )
+        for table in ("deliveries", "events", "alert_states", "site_status"):
+            conn.exec_driver_sql(f"DELETE FROM {table}")
+    rss_ready = peak_rss_mb()
+    figures: dict[str, Any] = {"sites": n_sites}
+
+    # wall time and this process's CPU time side by side: on a shared machine the wall
+    # time carries the other work, the CPU time much less of it
+    cpu = time.process_time
+    reset_peak_rss()
+    t0, c0 = time.perf_counter(), cpu()
+    service = cycle_module.Service(config_path, sources=[])
+    window_spent = {"s": 0.0}
+    service._observations(at - timedelta(minutes=10))
+    figures["start_up_read_s"] = time.perf_counter() - t0
+    figures["start_up_read_cpu_s"] = cpu() - c0
+    figures["rows_held"] = len(service._window or ())
+    t1, c1 = time.perf_counter(), cpu()
+    first = service.poll_and_assess(at - timedelta(minutes=10))
+    figures["first_cycle_s"] = time.perf_counter() - t1
+    figures["first_cycle_cpu_s"] = cpu() - c1
+    figures["peak_start_mb"] = peak_rss_mb()
+    del first
+
+    window = service._window
+    assert window is not None
+    original_frame = window.frame
+
+    def timed_frame(when: Any) -> Any:
+        start = time.perf_counter()
+        try:
+            return original_frame(when)
+        finally:
+            window_spent["s"] += time.perf_counter() - start
+
+    window.frame = timed_frame  # type: ignore[method-assign]
+    t2 = time.perf_counter()
+    service.store.add_observations(poll, received_at=at)
+    figures["poll_write_s"] = time.perf_counter() - t2
+    figures["poll_rows"] = len(poll)
+    reset_peak_rss()
+    spent.update(dict.fromkeys(spent, 0.0))
+    t3, c3 = time.perf_counter(), cpu()
+    report = service.poll_and_assess(at)
+    figures["cycle_s"] = time.perf_counter() - t3
+    figures["cycle_cpu_s"] = cpu() - c3
+    figures.update({f"cycle_{k}_s": v for k, v in spent.items()})
+    figures["window_update_s"] = window_spent["s"]
+    figures["window_rows_read"] = window.last_read
+    figures["events"] = len(report.events)
+    figures["peak_cycle_mb"] = peak_rss_mb()
+    del report
+
+    # a reload: one subscriber renamed, the sites unchanged
+    data["subscribers"][0]["name"] = "Duty desk (night)"
+    reset_peak_rss()
+    t4, c4 = time.perf_counter(), cpu()
+    ok, message = service.reload()
+    figures["reload_s"] = time.perf_counter() - t4
+    figures["reload_cpu_s"] = cpu() - c4
+    figures["reload_ok"] = ok
+    figures["reload_held_s"] = service.reload_held_s
+    figures["reload_kept_window"] = service._window is window
+    # the window after the reload: brought up to date, not read again
+    t5 = time.perf_counter()
+    service._observations(at + timedelta(minutes=10))
+    figures["window_after_reload_s"] = time.perf_counter() - t5
+    figures["window_after_reload_rows_read"] = window.last_read
+    figures["peak_reload_mb"] = peak_rss_mb()
+    figures["rss_after_imports_mb"] = rss_ready
+    figures["peak_mb"] = max(
+        figures["peak_start_mb"], figures["peak_cycle_mb"], figures["peak_reload_mb"]
+    )
+    service.close()
+    out.write_text(json.dumps(figures, indent=2))
+
+
+def measure(directory: Path, n_sites: int, seed: int = generate.SEED) -> dict[str, Any]:
+    """Build (or reuse) the store for ``n_sites`` and time the service in a child."""
+    start = time.perf_counter()
+    db, rows = load_store(directory, n_sites, seed)
+    load_s = time.perf_counter() - start
+    out = directory / f"w{n_sites}.json"
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--child", str(db), "--out", str(out)]
+    cmd += ["--sites", str(n_sites), "--seed", str(seed)]
+    subprocess.run(cmd, check=True)
+    figures = json.loads(out.read_text())
+    figures.update({"rows_in_store": rows, "store_build_s": load_s})
+    return figures
+
+
+def table(results: list[dict[str, Any]]) -> str:
+    lines = [
+        "| sites | rows held | start-up read (CPU) | first cycle (CPU)"
+        " | one cycle (CPU; window update)"
+        " | reload (lock held) | peak memory | in the cycle: assess / snapshots / commit |",
+        "|---:|---:|---:|---:|---:|---:|---:|---:|",
+    ]
+    for r in results:
+        lines.append(
+            f"| {r['sites']:,} | {r['rows_held']:,}"
+            f" | {r['start_up_read_s']:.1f} s ({r['start_up_read_cpu_s']:.1f} s)"
+            f" | {r['first_cycle_s']:.1f} s ({r['first_cycle_cpu_s']:.1f} s)"
+            f" | {r['cycle_s']:.2f} s ({r['cycle_cpu_s']:.2f} s;"
+            f" window {r['window_update_s']:.2f} s)"
+            f" | {r['reload_s']:.2f} s ({r.get('reload_held_s', float('nan')) * 1000:.1f} ms)"
+            f" | {r['peak_mb']:,.0f} MB"
+            f" | {r['cycle_evaluate_s']:.2f} / {r['cycle_snapshots_s']:.2f}"
+            f" / {r['cycle_commit_s']:.2f} s |"
+        )
+    return "\n".join(lines)
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--sites", type=int, nargs="*", default=[W100_SITES])
+    parser.add_argument("--seed", type=int, default=generate.SEED)
+    parser.add_argument("--dir", type=Path, default=None, help="keep the stores here")
+    parser.add_argument("--child", type=Path, help=argparse.SUPPRESS)
+    parser.add_argument("--out", type=Path, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        child(args.child, args.sites[0], args.seed, args.out)
+        return 0
+    with tempfile.TemporaryDirectory(prefix="fogwatch-scale-") as name:
+        directory = args.dir or Path(name)
+        results = [measure(directory, n, args.seed) for n in args.sites]
+    print(table(results))
+    print(json.dumps(results, indent=2))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
