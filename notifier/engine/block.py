@@ -303,13 +303,14 @@ class Block:
             self._reports[name] = np.flatnonzero(~np.isnan(values).all(axis=1))
         return self._reports[name]
 
-    def bounds(self, t_at: float, tests: Sequence[_Bound]) -> list[np.ndarray]:
+    def bounds(self, t_at: float | np.ndarray, tests: Sequence[_Bound]) -> list[np.ndarray]:
         """Per test and site, the first column that passes it (width if none).
 
         A test ``(of, minus, op, limit)`` compares ``value - minus`` with ``limit``
         (``op`` ">" or ">="), where the value is the cell's time (``of="t"``, POSIX
         seconds) or its hours from ``t_at`` (``of="h"``, as ``(t - t_at) / 3600``);
-        ``minus`` and ``limit`` are numbers or one per site. Every such test is monotone
+        ``minus`` and ``limit`` are numbers or one per site (``t_at`` too: a history's
+        block has a row per site and time). Every such test is monotone
         along a row (False … True), as the rows are in time order and padding (NaN)
         fails it, so a binary search finds each boundary in log2(width) steps without
         touching the whole block — all the tests at once.

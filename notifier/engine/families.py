@@ -55,7 +55,7 @@ class Window:
     ``lo:hi``, the last hours of each kind start at the ``*_lo`` columns."""
 
     blk: Block
-    t_at: float  # POSIX seconds
+    t_at: float | np.ndarray  # POSIX seconds: one for all rows, or one per row
     hours: np.ndarray  # each cell's hours from t_at
     lo: np.ndarray
     hi: np.ndarray
@@ -65,10 +65,16 @@ class Window:
     report_lo: np.ndarray  # weather and visibility reports (current_max_age_h)
     last_any: np.ndarray  # hours from t_at of the newest reading, NaN if none
 
+    def t_at_of(self, rows: np.ndarray) -> float | np.ndarray:
+        """The evaluation time of each of ``rows`` (a block row per site and time in a
+        history, see ``notifier.engine.steps``; otherwise the one time)."""
+        return self.t_at[rows] if isinstance(self.t_at, np.ndarray) else self.t_at
 
-def observed_window(blk: Block, t_at: float, settings: FeatureSettings) -> Window:
-    """The observed window of each row at ``t_at``, and where its last hours begin."""
-    hours = (blk.t - t_at) / 3600.0
+
+def observed_window(blk: Block, t_at: float | np.ndarray, settings: FeatureSettings) -> Window:
+    """The observed window of each row at ``t_at`` (one time, or one per row), and where
+    its last hours begin."""
+    hours = (blk.t - (t_at[:, None] if isinstance(t_at, np.ndarray) else t_at)) / 3600.0
     hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(
         t_at,
         [
@@ -132,7 +138,8 @@ def current_values(w: Window) -> Current:
 
     # fall back to forecast rows for cloud and wind when the station has none
     fsidx, ft, fcols = blk.forecast
-    near = (ft >= w.t_at - FORECAST_BEFORE_S) & (ft <= w.t_at + 3 * 3600)
+    ft_at = w.t_at_of(fsidx)
+    near = (ft >= ft_at - FORECAST_BEFORE_S) & (ft <= ft_at + 3 * 3600)
     for name in ("cloud_pct", "wind_ms"):
         fill = _first_per_site(fsidx[near], ft[near], fcols[name][near], n)
         cur[name] = np.where(np.isnan(cur[name]), fill, cur[name])
