@@ -320,6 +320,57 @@ def night_length_h(lat_deg: ArrayLike, lon_deg: ArrayLike, day: DayLike) -> Floa
     return ((sunrise_next - sunset) / SECONDS_PER_HOUR)[()]
 
 
+def _day_events(
+    lat: NDArray[np.float64],
+    lon: NDArray[np.float64],
+    day_start: NDArray[np.float64],
+    tabulate: bool | None,
+) -> list[NDArray[np.float64]]:
+    """The events :func:`night_bounds_utc` reads around each UTC day start: the sunset
+    before, that day's sunrise, sunset and noon, the next day's sunrise and sunset and
+    the sunrise after. They depend on the place and the day alone, so where the caller
+    has chosen the grid (``tabulate`` not None: every instant's terms are then what
+    they would be in any other call) each distinct (lat, lon, day) is worked out once
+    — a history's times fall on a few days — and the answers are the same numbers."""
+    if tabulate is not None and lat.size > 1:
+        key = np.stack([lat, lon, day_start], axis=1)
+        with np.errstate(invalid="ignore"):
+            ordered = np.lexsort((day_start, lon, lat))
+            key_sorted = key[ordered]
+            new = np.ones(lat.size, dtype=bool)
+            new[1:] = np.any(
+                (key_sorted[1:] != key_sorted[:-1])
+                & ~(np.isnan(key_sorted[1:]) & np.isnan(key_sorted[:-1])),
+                axis=1,
+            )
+        group = np.cumsum(new) - 1
+        if group[-1] + 1 < lat.size:  # worth it: fewer distinct days than instants
+            first = ordered[new]
+            inverse = np.empty(lat.size, dtype=np.intp)
+            inverse[ordered] = group
+            once = _day_events(lat[first], lon[first], day_start[first], tabulate)
+            return [values[inverse] for values in once]
+    _, sunset_prev, _ = _events_s(
+        lat, lon, day_start - SECONDS_PER_DAY, rise=False, tabulate=tabulate
+    )
+    sunrise_day, sunset_day, noon_day = _events_s(lat, lon, day_start, tabulate=tabulate)
+    sunrise_next, sunset_next, _ = _events_s(
+        lat, lon, day_start + SECONDS_PER_DAY, tabulate=tabulate
+    )
+    sunrise_after, _, _ = _events_s(
+        lat, lon, day_start + 2 * SECONDS_PER_DAY, set_=False, tabulate=tabulate
+    )
+    return [
+        sunset_prev,
+        sunrise_day,
+        sunset_day,
+        noon_day,
+        sunrise_next,
+        sunset_next,
+        sunrise_after,
+    ]
+
+
 @np.errstate(all="ignore")
 def night_bounds_utc(
     lat_deg: ArrayLike, lon_deg: ArrayLike, t_posix_s: ArrayLike, *, tabulate: bool | None = None
@@ -358,12 +409,9 @@ def night_bounds_utc(
     # Local mean solar date: shift UTC by lon/15 h.
     local_day = np.floor((t + lon * MINUTES_PER_DEGREE * SECONDS_PER_MINUTE) / SECONDS_PER_DAY)
     day_start = local_day * SECONDS_PER_DAY
-    grid = tabulate
-    _, sunset_prev, _ = _events_s(lat, lon, day_start - SECONDS_PER_DAY, rise=False, tabulate=grid)
-    sunrise_day, sunset_day, noon_day = _events_s(lat, lon, day_start, tabulate=grid)
-    sunrise_next, sunset_next, _ = _events_s(lat, lon, day_start + SECONDS_PER_DAY, tabulate=grid)
-    sunrise_after, _, _ = _events_s(
-        lat, lon, day_start + 2 * SECONDS_PER_DAY, set_=False, tabulate=grid
+    events = _day_events(lat, lon, day_start, tabulate)
+    sunset_prev, sunrise_day, sunset_day, noon_day, sunrise_next, sunset_next, sunrise_after = (
+        events
     )
 
     morning = t < noon_day
