@@ -43,7 +43,9 @@ def _theil_sen_rows(hours: NDArray[np.float64], values: NDArray[np.float64]) -> 
     return result
 
 
-def _median_of_leading(slopes: NDArray[np.float64], usable: NDArray[np.bool_]) -> NDArray[np.float64]:
+def _median_of_leading(
+    slopes: NDArray[np.float64], usable: NDArray[np.bool_]
+) -> NDArray[np.float64]:
     """Per row, the median of the ``usable`` entries of ``slopes`` (changed in place),
     NaN where none: the mean of the two middle order statistics, (count - 1) // 2 and
     count // 2, found by selection (``np.partition``) rather than a full sort.
