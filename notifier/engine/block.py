@@ -289,6 +289,11 @@ class Block:
             out[search], _ = latest(cells, valid[search])
         return out
 
+    def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
+        """The depression's reporting step over each row's columns ``lo:hi``, where the
+        block can give it without the cells (``notifier.engine.steps``); None here."""
+        return None
+
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""

@@ -248,11 +248,52 @@ class _SortedRows:
         self.rows_sorted, self.s_sel, self.t_sel = _site_time_order(
             site_idx, t_all, known & is_obs_kind & window
         )
+        self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
         t_weather = float(t_sorted[0]) - settings.current_max_age_h * 3600
         wrows = self.rows_sorted[self.t_sel >= t_weather]
         if "weather" in obs and wrows.size:
             codes, self.weather_flags = weather_codes(obs["weather"], wrows)
             self.weather_code[wrows] = codes
+
+    def step_table(self, noise: float) -> tuple[np.ndarray, np.ndarray]:
+        """For the depression's reporting step (``families._depression_step``) over any
+        run of sorted rows: (the first row with a depression at or after each row, a
+        range-minimum table of each row's change from the reading before it).
+
+        A row's change is |d - d_before| against the site's previous row with a
+        depression d, +inf where it is within ``noise`` or there is none; level j of the
+        table holds the minimum over rows i … i + 2**j - 1, enough levels for the
+        widest window. Within a window, every reading but the first has its previous
+        reading in the window too, so the window's step is the minimum over the rows
+        after its first reading: two table reads, the same numbers as the cells give.
+        """
+        if noise in self._steps:
+            return self._steps[noise]
+        r = self.rows_sorted.size
+        temp, dew = float_column(self.obs, "temp_c"), float_column(self.obs, "dewpoint_c")
+        if temp is None or dew is None:
+            d = np.full(r, np.nan)
+        else:
+            d = temp[self.rows_sorted] - dew[self.rows_sorted]
+        ok = ~np.isnan(d)
+        at = np.arange(r)
+        last_ok = np.maximum.accumulate(np.where(ok, at, -1)) if r else at
+        before = np.full(r, -1)
+        before[1:] = last_ok[:-1]
+        site_start = np.searchsorted(self.s_sel, self.s_sel, side="left")
+        before = np.where(before >= site_start, before, -1)
+        with np.errstate(invalid="ignore"):
+            change = np.abs(d - np.where(before >= 0, d[np.maximum(before, 0)], np.nan))
+            change = np.where(change > noise, change, np.inf)
+        first_ok = np.minimum.accumulate(np.where(ok, at, r)[::-1])[::-1] if r else at
+        widest = int(np.diff(np.searchsorted(self.s_sel, np.arange(self.n + 1))).max(initial=1))
+        levels = [change]
+        while (1 << len(levels)) <= widest:
+            half = 1 << (len(levels) - 1)
+            prev = levels[-1]
+            levels.append(np.minimum(prev, np.append(prev[half:], np.full(half, np.inf))))
+        self._steps[noise] = (np.append(first_ok, r), np.stack(levels))
+        return self._steps[noise]
 
 
 class StepBlock(Block):
@@ -286,12 +327,33 @@ class StepBlock(Block):
         else:
             src = np.full((n, width), rows.nrows, dtype=np.intp)
         self.width = width
+        self._sorted = rows
+        self._first_pos = hi - width  # the sorted row of column 0, per block row
         self.src = src
         self.t = self._gather(rows.t_all, src, self.pad)
         self._steps = width.bit_length()
         self.weather_code = rows.weather_code
         self.weather_flags = rows.weather_flags
         self.forecast = self._paired(rows, t_at, ahead_s)
+
+    def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
+        """``families._depression_step`` from the sorted rows (see
+        :meth:`_SortedRows.step_table`), without the cells: the same numbers."""
+        if self._empty:
+            return None
+        first_ok, table = self._sorted.step_table(noise)
+        start = self._first_pos + lo
+        stop = self._first_pos + hi
+        after = first_ok[np.clip(start, 0, first_ok.size - 1)] + 1  # rows after the first
+        count = np.where(lo < hi, stop - after, 0)
+        out = np.full(self.n, np.inf)
+        some = np.flatnonzero(count > 0)
+        if some.size:
+            level = np.floor(np.log2(count[some])).astype(np.intp)
+            a = after[some]
+            b = stop[some] - (1 << level)
+            out[some] = np.minimum(table[level, a], table[level, b])
+        return np.where(np.isinf(out), np.nan, out)
 
     @staticmethod
     def _paired(

@@ -82,6 +82,9 @@ def test_random_world_at_many_times():
     many = _check(obs, sites, times[::-1])
     methods = {m for t in many for m in t.projection_method}
     assert {"forecast", "cooling-fit", "midday-estimate", ""} <= methods
+    # the reporting step comes from the sorted rows in the one pass, not from the cells
+    steps_c = np.concatenate([t.values["depression_step_c"] for t in many])
+    assert np.isfinite(steps_c).any() and np.isnan(steps_c).any()
 
 
 def test_chunks_give_what_one_pass_gives(monkeypatch):
