@@ -79,7 +79,7 @@ def compute_features_steps(
     rows = _SortedRows(obs, st, t_sorted, settings)
     n = len(st.ids)
     lo, hi = window_bounds(rows.s_sel, rows.t_sel, n, t_sorted, settings.block_hours * 3600)
-    widths = (hi - lo).reshape(len(times), n).max(axis=1, initial=0) if n else np.zeros(0)
+    widths = (hi - lo).reshape(len(times), n).max(axis=1, initial=0) if n else np.zeros(len(times))
     tables: list[FeatureTable | None] = [None] * len(times)
     for a, b in _chunks(widths, n):
         t_at = np.repeat(t_sorted[a:b], n)

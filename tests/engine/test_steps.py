@@ -234,3 +234,8 @@ def test_no_data_and_no_times():
     times = [AT - timedelta(minutes=10 * k) for k in range(3)]
     tables = compute_features_steps(pd.DataFrame(), [quiet], times)
     assert [t.values["data_age_min"][0] for t in tables] == [np.inf] * 3
+    # no sites: a table per time all the same, each over no sites (as compute_features)
+    _, obs = _world(AT)
+    none = compute_features_steps(obs, [], times)
+    assert [t.at for t in none] == times
+    assert all(t.values["temp_c"].shape == (0,) for t in none)
