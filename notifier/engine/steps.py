@@ -216,6 +216,8 @@ class _SortedRows:
         self.obs = obs
         self.nrows = len(obs)
         self.n = len(st.ids)
+        self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+        self._sorted_columns: dict[str, np.ndarray | None] = {}
         empty = np.zeros(0)
         self.rows_sorted = np.zeros(0, dtype=np.intp)
         self.s_sel, self.t_sel = np.zeros(0, dtype=np.intp), empty
@@ -248,12 +250,22 @@ class _SortedRows:
         self.rows_sorted, self.s_sel, self.t_sel = _site_time_order(
             site_idx, t_all, known & is_obs_kind & window
         )
-        self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
         t_weather = float(t_sorted[0]) - settings.current_max_age_h * 3600
         wrows = self.rows_sorted[self.t_sel >= t_weather]
         if "weather" in obs and wrows.size:
             codes, self.weather_flags = weather_codes(obs["weather"], wrows)
             self.weather_code[wrows] = codes
+
+    def sorted_column(self, name: str) -> np.ndarray | None:
+        """Column ``name`` of the sorted observed rows, with a NaN after them (what a
+        padding cell reads): a block's cells gather from it in runs of neighbours, not
+        from across the whole table."""
+        if name not in self._sorted_columns:
+            values = float_column(self.obs, name) if self.nrows else None
+            self._sorted_columns[name] = (
+                None if values is None else np.append(values[self.rows_sorted], np.nan)
+            )
+        return self._sorted_columns[name]
 
     def step_table(self, noise: float) -> tuple[np.ndarray, np.ndarray]:
         """For the depression's reporting step (``families._depression_step``) over any
@@ -319,22 +331,24 @@ class StepBlock(Block):
         width = max(int(counts.max(initial=0)), 1)
         cols = np.arange(width)
         self.pad = cols[None, :] < (width - counts)[:, None]
-        if rows.rows_sorted.size:
-            which = (hi - width)[:, None] + cols[None, :]
-            np.clip(which, 0, rows.rows_sorted.size - 1, out=which)
-            src = rows.rows_sorted.take(which)
-            np.putmask(src, self.pad, rows.nrows)
-        else:
-            src = np.full((n, width), rows.nrows, dtype=np.intp)
+        # a cell's source is its position among the sorted rows (not its row of the
+        # table, as in Block): the values are read from the sorted columns, where a
+        # block row's cells are neighbours; padding reads the NaN after the last
+        last = rows.rows_sorted.size
+        src = (hi - width)[:, None] + cols[None, :]
+        np.putmask(src, self.pad, last)
         self.width = width
         self._sorted = rows
         self._first_pos = hi - width  # the sorted row of column 0, per block row
         self.src = src
-        self.t = self._gather(rows.t_all, src, self.pad)
+        self.t = self._gather(np.append(rows.t_sel, np.nan), src, self.pad)
         self._steps = width.bit_length()
-        self.weather_code = rows.weather_code
+        self.weather_code = np.append(rows.weather_code[rows.rows_sorted], -1)
         self.weather_flags = rows.weather_flags
         self.forecast = self._paired(rows, t_at, ahead_s)
+
+    def column(self, name: str) -> np.ndarray | None:
+        return None if self._empty else self._sorted.sorted_column(name)
 
     def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
         """``families._depression_step`` from the sorted rows (see
