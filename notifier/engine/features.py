@@ -60,7 +60,7 @@ __all__ = ["FeatureCache", "compute_features", "compute_features_at"]
 
 _SITE_LISTS = 4  # site lists remembered; a service passes the same one every cycle
 _SUN_CACHE_SIZE = 16  # evaluation times; the hold windows of a few cycles
-_SUN_BATCH_FROM = 8  # more evaluation times than this: the sun of all in one call
+_SUN_BATCH_FROM = 8  # more evaluation times than this: one pass over them all (engine.steps)
 # an evaluation time's sun, for the earlier times of the same call: (t, sunset, sunrise,
 # night)
 _Sun = tuple[float, np.ndarray, np.ndarray, np.ndarray]
