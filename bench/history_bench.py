@@ -122,7 +122,7 @@ def measure() -> dict[str, Any]:
         "learn": {"seconds": learn_s, "models": sum(ls.model is not None for ls in learned)},
         "many": {
             "seconds": many_s,
-            "sites": MANY_SITES,
+            "sites": len(many_loaded.config.sites),
             "site_nights": len(many.nights),
             "steps": len(many.times),
             "rows": len(many_obs),
