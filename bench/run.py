@@ -43,6 +43,7 @@ ROOT = BENCH.parent
 sys.path.insert(0, str(BENCH))
 
 import generate  # noqa: E402  (bench/ is not a package)
+import history_bench  # noqa: E402
 
 RESULTS = BENCH / "results.json"
 HOLD_STEPS = 3  # the default rules hold for up to 20 min: tables at at, at-10, at-20
@@ -768,6 +769,7 @@ def main() -> int:
         f"{replayed['sites']} sites, {replayed['seconds']:.1f} s)",
     )
     figures.update(w100_lines(w100))
+    figures.update(history_bench.run(line, TARGETS))  # issue 19: site-year, 1,000 × 30, learn
     targeted = {k: v for k, v in figures.items() if v["status"] != "info"}
     missed = [k for k, v in targeted.items() if v["status"] != "ok"]
     total_s = time.perf_counter() - started

@@ -298,6 +298,11 @@ class Block:
             out[search], _ = latest(cells, valid[search])
         return out
 
+    def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
+        """The depression's reporting step over each row's columns ``lo:hi``, where the
+        block can give it without the cells (``notifier.engine.steps``); None here."""
+        return None
+
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""
@@ -312,13 +317,14 @@ class Block:
             self._reports[name] = np.flatnonzero(~np.isnan(values).all(axis=1))
         return self._reports[name]
 
-    def bounds(self, t_at: float, tests: Sequence[_Bound]) -> list[np.ndarray]:
+    def bounds(self, t_at: float | np.ndarray, tests: Sequence[_Bound]) -> list[np.ndarray]:
         """Per test and site, the first column that passes it (width if none).
 
         A test ``(of, minus, op, limit)`` compares ``value - minus`` with ``limit``
         (``op`` ">" or ">="), where the value is the cell's time (``of="t"``, POSIX
         seconds) or its hours from ``t_at`` (``of="h"``, as ``(t - t_at) / 3600``);
-        ``minus`` and ``limit`` are numbers or one per site. Every such test is monotone
+        ``minus`` and ``limit`` are numbers or one per site (``t_at`` too: a history's
+        block has a row per site and time). Every such test is monotone
         along a row (False … True), as the rows are in time order and padding (NaN)
         fails it, so a binary search finds each boundary in log2(width) steps without
         touching the whole block — all the tests at once.

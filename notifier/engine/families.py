@@ -56,7 +56,7 @@ class Window:
     ``lo:hi``, the last hours of each kind start at the ``*_lo`` columns."""
 
     blk: Block
-    t_at: float  # POSIX seconds
+    t_at: float | np.ndarray  # POSIX seconds: one for all rows, or one per row
     hours: np.ndarray  # each cell's hours from t_at
     lo: np.ndarray
     hi: np.ndarray
@@ -66,10 +66,16 @@ class Window:
     report_lo: np.ndarray  # weather and visibility reports (current_max_age_h)
     last_any: np.ndarray  # hours from t_at of the newest reading, NaN if none
 
+    def t_at_of(self, rows: np.ndarray) -> float | np.ndarray:
+        """The evaluation time of each of ``rows`` (a block row per site and time in a
+        history, see ``notifier.engine.steps``; otherwise the one time)."""
+        return self.t_at[rows] if isinstance(self.t_at, np.ndarray) else self.t_at
 
-def observed_window(blk: Block, t_at: float, settings: FeatureSettings) -> Window:
-    """The observed window of each row at ``t_at``, and where its last hours begin."""
-    hours = (blk.t - t_at) / 3600.0
+
+def observed_window(blk: Block, t_at: float | np.ndarray, settings: FeatureSettings) -> Window:
+    """The observed window of each row at ``t_at`` (one time, or one per row), and where
+    its last hours begin."""
+    hours = (blk.t - (t_at[:, None] if isinstance(t_at, np.ndarray) else t_at)) / 3600.0
     hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(
         t_at,
         [
@@ -133,7 +139,8 @@ def current_values(w: Window) -> Current:
 
     # fall back to forecast rows for cloud and wind when the station has none
     fsidx, ft, fcols = blk.forecast
-    near = (ft >= w.t_at - FORECAST_BEFORE_S) & (ft <= w.t_at + 3 * 3600)
+    ft_at = w.t_at_of(fsidx)
+    near = (ft >= ft_at - FORECAST_BEFORE_S) & (ft <= ft_at + 3 * 3600)
     for name in ("cloud_pct", "wind_ms"):
         fill = _first_per_site(fsidx[near], ft[near], fcols[name][near], n)
         cur[name] = np.where(np.isnan(cur[name]), fill, cur[name])
@@ -172,6 +179,9 @@ def _depression_step(w: Window, settings: FeatureSettings) -> np.ndarray:
     """The reporting step of the depression over the window (°C, NaN if it never moves):
     the smallest change between successive readings that is larger than float noise."""
     blk = w.blk
+    known = blk.smallest_step(w.lo, w.hi, settings.step_noise_c)
+    if known is not None:  # a history's block answers from its sorted rows
+        return known
     a, b = column_span(w.lo, w.hi)
     step = np.full(blk.n, np.nan)
     if b - a < 2:
@@ -255,11 +265,14 @@ def radiation(
     return np.asarray(net_lw), cooling_potential
 
 
-def surfaces_and_water(now: Current, st: SiteArrays, month: int = 0) -> dict[str, np.ndarray]:
+def surfaces_and_water(
+    now: Current, st: SiteArrays, month: int | np.ndarray = 0
+) -> dict[str, np.ndarray]:
     """Frost point and the surface above it, water against dew point and air, onshore.
 
     Where no water temperature is reported, the site's monthly climatology (config
-    ``water_temp_monthly_c``; ``month`` 1–12) stands in for it, flagged
+    ``water_temp_monthly_c``; ``month`` 1–12, one for all rows or one per row, 0 for
+    none) stands in for it, flagged
     ``water_temp_estimated`` (``water_temp_known`` stays false: it means measured).
     Marine forecasters fall back on the climatological sea surface temperature when no
     observation is near (common practice).
@@ -267,9 +280,11 @@ def surfaces_and_water(now: Current, st: SiteArrays, month: int = 0) -> dict[str
     dewpoint_c, cur = now.dewpoint_c, now.values
     measured = ~np.isnan(cur["water_temp_c"])
     estimated = np.zeros(len(measured), dtype=bool)
-    if month and st.water_monthly is not None and len(measured):
-        climate = st.water_monthly[:, month - 1]
-        estimated = ~measured & ~np.isnan(climate)
+    months = np.broadcast_to(np.asarray(month, dtype=int), measured.shape)
+    if st.water_monthly is not None and len(measured) and months.any():
+        rows = np.arange(len(measured))
+        climate = st.water_monthly[rows, np.clip(months - 1, 0, 11)]
+        estimated = ~measured & ~np.isnan(climate) & (months > 0)
         cur["water_temp_c"] = np.where(estimated, climate, cur["water_temp_c"])
     frost_point = physics.frost_point_from_dewpoint_c(dewpoint_c)
     with np.errstate(invalid="ignore"):

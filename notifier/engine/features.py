@@ -8,7 +8,9 @@ readings say now; ``notifier.engine.projection``: the night ahead). What the fea
 are, how they are shown and how exposure shapes them is ``notifier.engine.catalog``.
 
 How it stays fast (10,000 sites × 144 rows in a few tenths of a second): the block is
-built once per call — once for several evaluation times with ``compute_features_at`` —
+built once per call — once for several evaluation times with ``compute_features_at``,
+and for a history's many times as one block with a row per site and time
+(``notifier.engine.steps``, which replay and ``fogwatch learn`` reach) —
 as an index from cells to rows, with value blocks gathered only where they are needed.
 Each evaluation time's windows (the last 3 h, tonight since sunset, around midday, …)
 are found per site by a binary search over the time-sorted rows, and each reduction runs
@@ -38,8 +40,9 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from collections.abc import Sequence
-from datetime import UTC, datetime
-from typing import TYPE_CHECKING, cast
+from dataclasses import dataclass
+from datetime import datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -57,7 +60,7 @@ __all__ = ["FeatureCache", "compute_features", "compute_features_at"]
 
 _SITE_LISTS = 4  # site lists remembered; a service passes the same one every cycle
 _SUN_CACHE_SIZE = 16  # evaluation times; the hold windows of a few cycles
-_SUN_BATCH_FROM = 8  # more evaluation times than this: the sun of all in one call
+_SUN_BATCH_FROM = 8  # more evaluation times than this: one pass over them all (engine.steps)
 # an evaluation time's sun, for the earlier times of the same call: (t, sunset, sunrise,
 # night)
 _Sun = tuple[float, np.ndarray, np.ndarray, np.ndarray]
@@ -176,8 +179,15 @@ def compute_features_at(
     reductions; at night an earlier time also reuses the later time's sunset and
     sunrise. ``result[k]`` equals ``compute_features(obs, sites, times[k])`` but for
     rounding in the last bits (the shared block can be a column or two wider, which
-    reorders a least-squares sum; tested to 1e-9).
+    reorders a least-squares sum; tested to 1e-9). More than a few times (a replay's
+    or ``fogwatch learn``'s batch of steps) go through one pass over a block with a row
+    per site and time instead (``notifier.engine.steps``).
     """
+    if len(times) > _SUN_BATCH_FROM:
+        # many times (a replay's day of steps): a block row per site and time, one pass
+        from notifier.engine.steps import compute_features_steps
+
+        return compute_features_steps(obs, sites, times, settings, cache=cache)
     settings = settings or FeatureSettings()
     cache = cache if cache is not None else FeatureCache()
     st = cache.site_arrays(sites)
@@ -195,24 +205,9 @@ def compute_features_at(
         t_forecast=min(t_ats) - FORECAST_BEFORE_S,
     )
     night: _Sun | None = None
-    suns: dict[float, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
-    if len(times) > _SUN_BATCH_FROM:
-        # many times (a replay's day of steps): the sun of all of them in one pass
-        n = len(st.ids)
-        ts = np.repeat(np.asarray(t_ats, dtype=float), n)
-        sunset, sunrise, is_night = (
-            np.asarray(a).reshape(len(times), n)
-            for a in physics.night_bounds_utc(
-                np.tile(st.lat, len(times)), np.tile(st.lon, len(times)), ts
-            )
-        )
-        suns = {t: (sunset[k], sunrise[k], is_night[k]) for k, t in enumerate(t_ats)}
     out = []
     # latest first: an earlier time in the same night can reuse its sun (see _sun)
     for k in sorted(range(len(times)), key=lambda k: -t_ats[k]):
-        known = suns.get(t_ats[k])
-        if known is not None:
-            night = cast(_Sun, (t_ats[k], *(a.copy() for a in known)))
         table, night = _features_at(block, st, times[k], settings, cache, night)
         out.append((k, table))
     return [table for _, table in sorted(out, key=lambda kt: kt[0])]
@@ -286,16 +281,61 @@ def _features_at(
     later_sun: _Sun | None,
 ) -> tuple[FeatureTable, _Sun]:
     t_at = at.timestamp()
+    last_sunset, next_sunrise, night = _sun(cache, st, t_at, later_sun)
+    found = feature_values(blk, st, t_at, (last_sunset, next_sunrise, night), settings, at)
+    return found.table(at, st.ids), (t_at, last_sunset, next_sunrise, night)
+
+
+@dataclass
+class Found:
+    """Every feature of every block row, and what the feature table carries beside them."""
+
+    values: dict[str, np.ndarray]  # in the order of FEATURES
+    projection_method: np.ndarray
+    last_time: np.ndarray
+    fit_t0_c: np.ndarray
+    fit_k_per_sqrt_h: np.ndarray
+    last_sunset: np.ndarray
+    drivers: np.ndarray | None
+
+    def table(self, at: datetime, site_ids: list[str], rows: slice = slice(None)) -> FeatureTable:
+        """The feature table at ``at`` of the block rows ``rows`` (all by default)."""
+        return FeatureTable(
+            at=at,
+            site_ids=site_ids,
+            values={name: arr[rows] for name, arr in self.values.items()},
+            projection_method=self.projection_method[rows],
+            last_time=self.last_time[rows],
+            fit_t0_c=self.fit_t0_c[rows],
+            fit_k_per_sqrt_h=self.fit_k_per_sqrt_h[rows],
+            last_sunset=self.last_sunset[rows],
+            drivers=None if self.drivers is None else self.drivers[rows],
+        )
+
+
+def feature_values(
+    blk: Block,
+    st: SiteArrays,
+    t_at: float | np.ndarray,
+    sun_now: tuple[np.ndarray, np.ndarray, np.ndarray],
+    settings: FeatureSettings,
+    at: datetime | Sequence[datetime],
+    offsets_s: np.ndarray | None = None,
+) -> Found:
+    """Every feature of every row of ``blk`` (a site at ``at``, or, in a history's block,
+    a site at one of several times: ``t_at``, ``at`` and ``offsets_s`` then give each
+    row's own time and UTC offset, ``st`` each row's site); ``sun_now`` is each row's
+    (last sunset, next sunrise, night) from ``physics.night_bounds_utc``."""
+    last_sunset, next_sunrise, night = sun_now
     w = families.observed_window(blk, t_at, settings)
     now = families.current_values(w)
     moist = families.moisture(w, now, settings)
-    last_sunset, next_sunrise, night = _sun(cache, st, t_at, later_sun)
-    sun = projection.night_windows(w, st, at, last_sunset, next_sunrise, night)
+    sun = projection.night_windows(w, st, _one(at), last_sunset, next_sunrise, night, offsets_s)
     net_lw, cooling_potential = families.radiation(now, st, settings)
     proj = projection.projected_minimum(w, sun, now, cooling_potential, st, settings)
     crossover = projection.crossover(w, sun)
     cur = now.values
-    water = families.surfaces_and_water(now, st, at.astimezone(UTC).month)
+    water = families.surfaces_and_water(now, st, _months(t_at, len(st.ids)))
     found = {
         "temp_c": now.temp_c,
         "dewpoint_c": now.dewpoint_c,
@@ -332,9 +372,7 @@ def _features_at(
     found["data_stale"] = found["data_age_min"] > settings.stale_after_min
     # in the order of FEATURES (what a row and the JSON output list them in)
     values = {name: np.asarray(found[name], dtype=float) for name in FEATURES}
-    table = FeatureTable(
-        at=at,
-        site_ids=st.ids,
+    return Found(
         values=values,
         projection_method=proj.method,
         last_time=t_at + w.last_any * 3600.0,
@@ -343,14 +381,28 @@ def _features_at(
         last_sunset=last_sunset,
         drivers=_drivers(settings, values, st.ids, at),
     )
-    return table, (t_at, last_sunset, next_sunrise, night)
+
+
+def _months(t_at: float | np.ndarray, n: int) -> np.ndarray:
+    """Each row's calendar month (1–12, UTC) from its evaluation time in epoch seconds."""
+    seconds = np.broadcast_to(np.asarray(t_at, dtype=float), (n,)).astype("int64")
+    return seconds.astype("datetime64[s]").astype("datetime64[M]").astype(int) % 12 + 1
+
+
+def _one(at: datetime | Sequence[datetime]) -> datetime:
+    """A time for what takes one (a history's rows give their offsets themselves)."""
+    return at if isinstance(at, datetime) else at[0]
 
 
 def _drivers(
-    settings: FeatureSettings, values: dict[str, np.ndarray], ids: list[str], at: datetime
+    settings: FeatureSettings,
+    values: dict[str, np.ndarray],
+    ids: list[str],
+    at: datetime | Sequence[datetime],
 ) -> np.ndarray | None:
     """In words, what moved each site's chance most, where the chance is worth telling
-    (a twentieth or more, below the lowest rule on it): the words the model's rules show."""
+    (a twentieth or more, below the lowest rule on it): the words the model's rules show.
+    ``at`` is one time, or one per row."""
     model = settings.model
     if model is None:
         return None
@@ -359,7 +411,7 @@ def _drivers(
         shown = np.flatnonzero(values["fog_probability"] >= 0.05)
     for i in shown.tolist():
         row = {name: float(arr[i]) for name, arr in values.items()}
-        pushes = model.drivers(row, ids[i], at)
+        pushes = model.drivers(row, ids[i], at if isinstance(at, datetime) else at[i])
         out[i] = "; ".join(
             f"{label} {'towards' if push > 0 else 'against'} fog" for label, push in pushes
         )

@@ -216,15 +216,20 @@ class FogModel:
     extra: dict[str, Any] = field(default_factory=dict)
 
     def probability(
-        self, values: Mapping[str, np.ndarray], site_ids: Sequence[str], at: datetime
+        self,
+        values: Mapping[str, np.ndarray],
+        site_ids: Sequence[str],
+        at: datetime | Sequence[datetime],
     ) -> np.ndarray:
-        """The calibrated chance per site (NaN where the site has no model)."""
+        """The calibrated chance per site (NaN where the site has no model); ``at`` is
+        one time, or one per row (a history's rows: a site at each of several times)."""
         out = np.full(len(site_ids), np.nan)
         for site_id, rows in _rows_by_site(site_ids).items():
             m = self.sites.get(site_id)
             if m is None:
                 continue
-            x = input_matrix({k: np.asarray(v)[rows] for k, v in values.items()}, at, m.inputs)
+            when = at if isinstance(at, datetime) else [at[i] for i in rows.tolist()]
+            x = input_matrix({k: np.asarray(v)[rows] for k, v in values.items()}, when, m.inputs)
             out[rows] = m.calibrated(m.raw(x))
         return out
 

@@ -60,8 +60,13 @@ def night_windows(
     last_sunset: np.ndarray,
     next_sunrise: np.ndarray,
     night: np.ndarray,
+    offsets_s: np.ndarray | None = None,
 ) -> Night:
-    """Sun and night timing, and tonight's, midday's and the afternoon's columns."""
+    """Sun and night timing, and tonight's, midday's and the afternoon's columns.
+
+    ``offsets_s`` is each row's UTC offset at its evaluation time where the rows are not
+    all at ``at`` (a history's rows, one per site and time); by default, the sites'
+    offsets at ``at``."""
     t_at = w.t_at
     is_night = np.where(np.isnan(next_sunrise), np.nan, night.astype(float))
     hours_to_sunrise = (next_sunrise - t_at) / 3600.0
@@ -69,7 +74,7 @@ def night_windows(
     sunset_h = (last_sunset - t_at) / 3600.0  # relative to at; negative at night
     # local midday of the day the coming or current night began (for Craddock–Pritchard
     # and the crossover temperature)
-    offsets = st.zone_offsets_s(at)
+    offsets = st.zone_offsets_s(at) if offsets_s is None else offsets_s
     ref = np.where(np.isnan(last_sunset), t_at, np.where(night, last_sunset, t_at))
     local_midnight = np.floor((ref + offsets) / 86400.0) * 86400.0 - offsets
     noon_h = (local_midnight + 12 * 3600 - t_at) / 3600.0
@@ -154,7 +159,7 @@ def _from_forecast(
     if not fsidx.size:
         return
     horizon = sun.next_sunrise[fsidx] + 3600.0
-    inwin = (ft >= w.t_at) & (ft <= horizon) & ~np.isnan(fcols["temp_c"])
+    inwin = (ft >= w.t_at_of(fsidx)) & (ft <= horizon) & ~np.isnan(fcols["temp_c"])
     fmin, fdew = _min_per_site(
         fsidx[inwin], fcols["temp_c"][inwin], fcols["dewpoint_c"][inwin], w.blk.n
     )

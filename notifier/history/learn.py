@@ -315,16 +315,25 @@ def learn(
             raise UsageError(f"--site: no site {site!r} in the config") from None
         config = loaded.config.model_copy(update={"sites": (chosen,)})
         loaded = type(loaded)(config, loaded.rules, None)
+    # loaded before the limit below, which holds only for libraries loaded by then
+    import sklearn.isotonic  # noqa: F401
+    import sklearn.linear_model  # noqa: F401
+    from threadpoolctl import threadpool_limits
+
     result, values = _collect(loaded, obs, start, end, truth)
     reports = report_times(obs if truth is None else truth, loaded.config.sites)
     spells = fog_spells_by_site(obs if truth is None else truth, loaded.config.sites)
     thresholds = model_thresholds(loaded.rules)
     learned = []
-    for s in loaded.config.sites:
-        labels = fog_labels(spells[s.id], reports[s.id], result.times, hours)
-        learned.append(
-            learn_site(s.id, s.timezone, result, values[s.id], labels, hours, thresholds)
-        )
+    # The regressions are small (a few thousand hours × twenty inputs): the solver's
+    # BLAS calls cost more in waking threads than they gain from them, several times
+    # over on a busy two-core machine, and one thread takes the same solver's steps.
+    with threadpool_limits(limits=1):
+        for s in loaded.config.sites:
+            labels = fog_labels(spells[s.id], reports[s.id], result.times, hours)
+            learned.append(
+                learn_site(s.id, s.timezone, result, values[s.id], labels, hours, thresholds)
+            )
     model = FogModel(
         hours,
         {ls.site_id: ls.model for ls in learned if ls.model is not None},

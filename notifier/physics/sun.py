@@ -33,7 +33,7 @@ from .constants import (
     UNIX_EPOCH_JULIAN_DATE,
 )
 
-__all__ = ["night_bounds_utc", "night_length_h", "sunrise_sunset_utc"]
+__all__ = ["night_bounds_utc", "night_length_h", "sunrise_sunset_utc", "tabulated_rows"]
 
 FloatArray = np.float64 | NDArray[np.float64]
 
@@ -111,19 +111,14 @@ class _SolarTerms:
     interpolates. Fewer instants are evaluated directly.
     """
 
-    def __init__(self, day_start_s: NDArray[np.float64]):
+    def __init__(self, day_start_s: NDArray[np.float64], tabulate: bool | None = None):
         self.grid: tuple[float, NDArray[np.float64], NDArray[np.float64]] | None = None
-        if day_start_s.size < _GRID_FROM:
+        span = _grid_span(day_start_s)
+        if span is None or not (_worth_a_grid(day_start_s, span) if tabulate is None else tabulate):
             return
-        finite = day_start_s[np.isfinite(day_start_s)]
-        if not finite.size:
-            return
-        first = np.floor((finite.min() - SECONDS_PER_DAY) / _GRID_STEP_S)
-        last = np.ceil((finite.max() + 2 * SECONDS_PER_DAY) / _GRID_STEP_S)
+        first, last = span
         points = int(last - first) + 1
-        if points > day_start_s.size // 2:  # spread over many days: the grid saves nothing
-            return
-        grid = (first + np.arange(points + 1)) * _GRID_STEP_S
+        grid = np.asarray((first + np.arange(points + 1)) * _GRID_STEP_S, dtype=np.float64)
         declination, equation_of_time = _solar_declination_and_equation_of_time(grid)
         self.grid = (float(first), declination, equation_of_time)
 
@@ -133,14 +128,65 @@ class _SolarTerms:
         if self.grid is None:
             return _solar_declination_and_equation_of_time(posix_s)
         first, declination, equation_of_time = self.grid
-        # a uniform grid: each instant's cell by division, no search
-        position = posix_s / _GRID_STEP_S - first
-        cell = np.clip(np.floor(np.nan_to_num(position)), 0, declination.size - 2).astype(np.intp)
-        frac = position - cell  # NaN stays NaN
+        # a uniform grid: each instant's cell by division, no search; the fraction is
+        # taken from the absolute step (first + cell is a whole number, exact), so it
+        # does not depend on where this call's grid begins
+        position = posix_s / _GRID_STEP_S
+        cell = np.clip(np.floor(np.nan_to_num(position)) - first, 0, declination.size - 2)
+        frac = position - (first + cell)  # NaN stays NaN
+        cell = cell.astype(np.intp)
         return (
             declination[cell] + frac * (declination[cell + 1] - declination[cell]),
             equation_of_time[cell] + frac * (equation_of_time[cell + 1] - equation_of_time[cell]),
         )
+
+
+def _grid_span(day_start_s: NDArray[np.float64]) -> tuple[float, float] | None:
+    """The first and last grid step (whole ``_GRID_STEP_S`` from the epoch) the events
+    of these UTC day starts can ask about; None if no day start is known."""
+    finite = day_start_s[np.isfinite(day_start_s)]
+    if not finite.size:
+        return None
+    first = np.floor((finite.min() - SECONDS_PER_DAY) / _GRID_STEP_S)
+    last = np.ceil((finite.max() + 2 * SECONDS_PER_DAY) / _GRID_STEP_S)
+    return float(first), float(last)
+
+
+def _worth_a_grid(day_start_s: NDArray[np.float64], span: tuple[float, float]) -> bool:
+    """Many instants, not spread over many days: the grid saves work."""
+    first, last = span
+    return day_start_s.size >= _GRID_FROM and int(last - first) + 1 <= day_start_s.size // 2
+
+
+def tabulated_rows(
+    lat_deg: NDArray[np.float64], lon_deg: NDArray[np.float64], t_posix_s: NDArray[np.float64]
+) -> NDArray[np.bool_]:
+    """For each row of ``t_posix_s`` (times × sites), whether ``night_bounds_utc`` of the
+    sites at that row's instants alone would tabulate the solar terms (see
+    ``_GRID_STEP_S``). A caller working out many such rows in one call passes each
+    group to ``night_bounds_utc(..., tabulate=...)`` to get, bit for bit, what one call
+    per row would give: the grid's points and fractions are absolute, so only this
+    choice depends on which instants share a call.
+
+    >>> lat, lon = np.full(100, 52.0), np.linspace(-1.0, 1.0, 100)
+    >>> tabulated_rows(lat, lon, np.full((2, 100), 1.8e9)).tolist()
+    [False, False]
+    """
+    t = np.atleast_2d(np.asarray(t_posix_s, dtype=float))
+    local_day = np.floor((t + lon_deg * MINUTES_PER_DEGREE * SECONDS_PER_MINUTE) / SECONDS_PER_DAY)
+    day_start = local_day * SECONDS_PER_DAY - SECONDS_PER_DAY  # the first events' call
+    valid = (
+        (np.abs(lat_deg) <= 90.0)
+        & (np.abs(lon_deg) <= 180.0)
+        & (day_start >= _FIRST_DAY_S)
+        & (day_start <= _LAST_DAY_S)
+    )
+    day_start = np.where(valid, day_start, np.nan)
+    out = np.zeros(t.shape[0], dtype=bool)
+    for k in range(t.shape[0]) if t.shape[1] >= _GRID_FROM else ():
+        span = _grid_span(day_start[k])
+        out[k] = span is not None and _worth_a_grid(day_start[k], span)
+    return out
 
 
 def _sunrise_hour_angle_deg(
@@ -171,6 +217,7 @@ def _events_s(
     *,
     rise: bool = True,
     set_: bool = True,
+    tabulate: bool | None = None,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """(sunrise, sunset, solar noon) in POSIX s for the solar day centred near
     ``day_start_s`` + 12 h - lon/15 h; iterated at each event's own time. An event not
@@ -184,7 +231,7 @@ def _events_s(
     lat = np.where(valid, lat_deg, np.nan)
     lon = np.where(valid, lon_deg, np.nan)
     day_start_s = np.where(valid, day_start_s, np.nan)
-    terms = _SolarTerms(day_start_s)
+    terms = _SolarTerms(day_start_s, tabulate)
     cos_lat, tan_lat = np.cos(np.radians(lat)), np.tan(np.radians(lat))
     # Solar noon (NOAA): 720 - 4 lon - EoT minutes after 00:00 UTC.
     base_min = _NOON_MINUTES - MINUTES_PER_DEGREE * lon
@@ -273,9 +320,60 @@ def night_length_h(lat_deg: ArrayLike, lon_deg: ArrayLike, day: DayLike) -> Floa
     return ((sunrise_next - sunset) / SECONDS_PER_HOUR)[()]
 
 
+def _day_events(
+    lat: NDArray[np.float64],
+    lon: NDArray[np.float64],
+    day_start: NDArray[np.float64],
+    tabulate: bool | None,
+) -> list[NDArray[np.float64]]:
+    """The events :func:`night_bounds_utc` reads around each UTC day start: the sunset
+    before, that day's sunrise, sunset and noon, the next day's sunrise and sunset and
+    the sunrise after. They depend on the place and the day alone, so where the caller
+    has chosen the grid (``tabulate`` not None: every instant's terms are then what
+    they would be in any other call) each distinct (lat, lon, day) is worked out once
+    — a history's times fall on a few days — and the answers are the same numbers."""
+    if tabulate is not None and lat.size > 1:
+        key = np.stack([lat, lon, day_start], axis=1)
+        with np.errstate(invalid="ignore"):
+            ordered = np.lexsort((day_start, lon, lat))
+            key_sorted = key[ordered]
+            new = np.ones(lat.size, dtype=bool)
+            new[1:] = np.any(
+                (key_sorted[1:] != key_sorted[:-1])
+                & ~(np.isnan(key_sorted[1:]) & np.isnan(key_sorted[:-1])),
+                axis=1,
+            )
+        group = np.cumsum(new) - 1
+        if group[-1] + 1 < lat.size:  # worth it: fewer distinct days than instants
+            first = ordered[new]
+            inverse = np.empty(lat.size, dtype=np.intp)
+            inverse[ordered] = group
+            once = _day_events(lat[first], lon[first], day_start[first], tabulate)
+            return [values[inverse] for values in once]
+    _, sunset_prev, _ = _events_s(
+        lat, lon, day_start - SECONDS_PER_DAY, rise=False, tabulate=tabulate
+    )
+    sunrise_day, sunset_day, noon_day = _events_s(lat, lon, day_start, tabulate=tabulate)
+    sunrise_next, sunset_next, _ = _events_s(
+        lat, lon, day_start + SECONDS_PER_DAY, tabulate=tabulate
+    )
+    sunrise_after, _, _ = _events_s(
+        lat, lon, day_start + 2 * SECONDS_PER_DAY, set_=False, tabulate=tabulate
+    )
+    return [
+        sunset_prev,
+        sunrise_day,
+        sunset_day,
+        noon_day,
+        sunrise_next,
+        sunset_next,
+        sunrise_after,
+    ]
+
+
 @np.errstate(all="ignore")
 def night_bounds_utc(
-    lat_deg: ArrayLike, lon_deg: ArrayLike, t_posix_s: ArrayLike
+    lat_deg: ArrayLike, lon_deg: ArrayLike, t_posix_s: ArrayLike, *, tabulate: bool | None = None
 ) -> tuple[FloatArray, FloatArray, np.bool_ | NDArray[np.bool_]]:
     """The night containing each time, or in daytime the coming night.
 
@@ -294,6 +392,9 @@ def night_bounds_utc(
         lat_deg: latitude, degrees north.
         lon_deg: longitude, degrees east.
         t_posix_s: times, POSIX seconds (UTC).
+        tabulate: tabulate the solar terms on the grid (True) or not (False) rather
+            than as the number and spread of the instants decide (see
+            :func:`tabulated_rows`).
 
     Returns:
         ``(last_sunset_s, next_sunrise_s, is_night)``; in daytime the first element is
@@ -308,10 +409,10 @@ def night_bounds_utc(
     # Local mean solar date: shift UTC by lon/15 h.
     local_day = np.floor((t + lon * MINUTES_PER_DEGREE * SECONDS_PER_MINUTE) / SECONDS_PER_DAY)
     day_start = local_day * SECONDS_PER_DAY
-    _, sunset_prev, _ = _events_s(lat, lon, day_start - SECONDS_PER_DAY, rise=False)
-    sunrise_day, sunset_day, noon_day = _events_s(lat, lon, day_start)
-    sunrise_next, sunset_next, _ = _events_s(lat, lon, day_start + SECONDS_PER_DAY)
-    sunrise_after, _, _ = _events_s(lat, lon, day_start + 2 * SECONDS_PER_DAY, set_=False)
+    events = _day_events(lat, lon, day_start, tabulate)
+    sunset_prev, sunrise_day, sunset_day, noon_day, sunrise_next, sunset_next, sunrise_after = (
+        events
+    )
 
     morning = t < noon_day
     # Morning: the night before (sunset_prev, sunrise_day) if the sun has not yet risen;

@@ -39,17 +39,37 @@ def _theil_sen_rows(hours: NDArray[np.float64], values: NDArray[np.float64]) -> 
         # Pairs at equal times carry no slope (Sen 1968 excludes tied x): their quotient
         # is ±inf or NaN, so "finite" excludes them along with the missing points.
         usable = np.isfinite(slopes)
-        slopes[~usable] = np.nan
-        slopes.sort(axis=1)  # NaN sorts last, so the usable slopes lead each row
-        count = usable.sum(axis=1)
-        lower = np.maximum((count - 1) // 2, 0)[:, np.newaxis]
-        upper = np.maximum(count // 2, 0)[:, np.newaxis]
-        median = 0.5 * (
-            np.take_along_axis(slopes, lower, axis=1)[:, 0]
-            + np.take_along_axis(slopes, upper, axis=1)[:, 0]
-        )
-        result[start:stop] = np.where(count > 0, median, np.nan)
+        result[start:stop] = _median_of_leading(slopes, usable)
     return result
+
+
+def _median_of_leading(
+    slopes: NDArray[np.float64], usable: NDArray[np.bool_]
+) -> NDArray[np.float64]:
+    """Per row, the median of the ``usable`` entries of ``slopes`` (changed in place),
+    NaN where none: the mean of the two middle order statistics, (count - 1) // 2 and
+    count // 2, found by selection (``np.partition``) rather than a full sort.
+
+    The unusable entries become +inf, so the usable ones are the row's ``count``
+    smallest; rows are grouped by their count (few distinct counts: a night's readings
+    come at a steady rate), each group partitioned once about its two middle ranks.
+    The order statistics are the same numbers a full sort puts there, so the median is
+    bit for bit what sorting gives.
+
+    >>> s = np.array([[3.0, 1.0, np.nan, 2.0], [5.0, np.nan, np.nan, np.nan]])
+    >>> _median_of_leading(s, np.isfinite(s))
+    array([2., 5.])
+    """
+    slopes[~usable] = np.inf
+    count = usable.sum(axis=1)
+    out = np.full(slopes.shape[0], np.nan)
+    for c in np.unique(count[count > 0]).tolist():
+        lower, upper = (c - 1) // 2, c // 2
+        group = np.flatnonzero(count == c)
+        picked = slopes if group.size == slopes.shape[0] else slopes[group]
+        picked = np.partition(picked, sorted({lower, upper}), axis=1)
+        out[group] = 0.5 * (picked[:, lower] + picked[:, upper])
+    return out
 
 
 @np.errstate(all="ignore")
@@ -67,7 +87,10 @@ def robust_slope_per_h(hours: ArrayLike, values: ArrayLike) -> FloatArray:
     Resists outliers: up to ~29 % of the points can be wild without moving the slope far.
 
     Vectorised: pairs are built with index arrays and rows are processed in chunks so
-    memory stays bounded (~10,000 rows of 40 points is the expected size).
+    memory stays bounded (~10,000 rows of 40 points is the expected size). The median
+    is found by selection (``np.partition`` about the two middle ranks), not by sorting
+    every pairwise slope: O(pairs) per row rather than O(pairs log pairs), the same
+    numbers (checked against a full sort and ``scipy.stats.theilslopes``).
 
     Args:
         hours: observation times, h (any origin).

@@ -418,3 +418,24 @@ def test_deliver_to_writes_what_each_subscriber_would_have_received_live(month, 
     total = sum(len(list((tmp_path / "replay" / w).glob("*.eml"))) for w in ("ann", "desk"))
     assert replayed.delivered == total + len(log)
     assert not (tmp_path / "replay" / "console").exists()  # no one but the subscribers
+
+
+def test_the_one_pass_features_replay_as_one_call_per_time(month, monkeypatch):
+    # Replay takes the features of a day of steps in one pass (notifier.engine.steps);
+    # with that path closed, compute_features_at works them out one time at a time, as
+    # before it. Both must give the same levels at every step, the same events and the
+    # same night outcomes (the independent reference: the per-time feature code, which
+    # test_replay_and_live_cycles_agree_event_for_event also holds live cycles to).
+    from notifier.engine import features
+
+    loaded, obs, _, _, _, start, _ = month
+    end = start + timedelta(days=3)
+    one_pass = replay(loaded, obs, start, end)
+    monkeypatch.setattr(features, "_SUN_BATCH_FROM", 10**9)
+    per_time = replay(loaded, obs, start, end)
+    np.testing.assert_array_equal(one_pass.fog_level, per_time.fog_level)
+    key = lambda e: (e.time, e.site_id, e.hazard, e.type, e.level, tuple(e.rules))  # noqa: E731
+    assert list(map(key, one_pass.events)) == list(map(key, per_time.events))
+    assert len(one_pass.events) > 4
+    assert [n.__dict__ for n in one_pass.nights] == [n.__dict__ for n in per_time.nights]
+    assert (one_pass.fog_level > 0).any()

@@ -313,3 +313,37 @@ def test_many_sites_at_once_match_each_alone() -> None:
     for i in rng.choice(n, 10, replace=False):
         day = dt.datetime.fromtimestamp(sunset_s[i] + lons[i] * 240.0, tz=dt.UTC).date()
         assert abs(sunset_s[i] - astral_event_s(lats[i], lons[i], day, rising=False)) < 1.0
+
+
+def test_a_chosen_grid_gives_each_instant_the_same_answer_in_any_call() -> None:
+    """With the grid chosen (``tabulate``), an instant's events do not depend on which
+    others share the call: the grid's points and fractions are absolute, and repeated
+    (place, day) pairs are worked out once. A history's pass over many times leans on
+    this to equal one call per time bit for bit (tests/engine/test_steps.py)."""
+    from notifier.physics.sun import tabulated_rows
+
+    rng = np.random.default_rng(19)
+    n = 300
+    lats = rng.uniform(-60.0, 65.0, n)
+    lons = rng.uniform(-180.0, 180.0, n)
+    t = posix("2025-11-20T03:00:00")
+    for tabulate in (True, False):
+        alone = night_bounds_utc(lats, lons, np.full(n, t), tabulate=tabulate)
+        # the same instants among others days away, and each site twice over
+        times = np.concatenate([np.full(n, t), t + rng.uniform(-9 * 86400, 9 * 86400, n)])
+        mixed = night_bounds_utc(np.tile(lats, 2), np.tile(lons, 2), times, tabulate=tabulate)
+        for got, want in zip(mixed, alone, strict=True):
+            np.testing.assert_array_equal(got[:n], want)
+    # a few hundred sites at one time: the default call evaluates directly, as the rows
+    # report; and the two ways agree to the interpolation bound (a few ms, see above)
+    assert not tabulated_rows(lats, lons, np.full((1, n), t))[0]
+    direct = night_bounds_utc(lats, lons, np.full(n, t))
+    gridded = night_bounds_utc(lats, lons, np.full(n, t), tabulate=True)
+    np.testing.assert_allclose(gridded[0], direct[0], atol=0.005, equal_nan=True)
+    # and the gridded answer still agrees with astral's NOAA events (±60 s,
+    # docs/references.md [Sun check])
+    for i in rng.choice(n, 5, replace=False):
+        if np.isnan(gridded[0][i]):
+            continue
+        day = dt.datetime.fromtimestamp(gridded[0][i] + lons[i] * 240.0, tz=dt.UTC).date()
+        assert abs(gridded[0][i] - astral_event_s(lats[i], lons[i], day, rising=False)) < 1.0

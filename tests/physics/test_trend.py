@@ -177,3 +177,50 @@ def test_no_warning_for_bad_input() -> None:
 def test_an_infinite_negative_value_is_undefined() -> None:
     # physically undefined input gives NaN (house style), never "already closed"
     assert np.isnan(hours_to_zero(-np.inf, -np.inf))
+
+
+def _sorted_median_of_pairs(hours: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """The definition written out plainly: every pairwise slope of a row at distinct
+    times, fully sorted, the mean of the two middle ones (Sen 1968; from memory)."""
+    out = np.full(hours.shape[0], np.nan)
+    for r in range(hours.shape[0]):
+        ok = np.isfinite(hours[r]) & np.isfinite(values[r])
+        h, v = hours[r, ok], values[r, ok]
+        i, j = np.triu_indices(h.size, k=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = (v[j] - v[i]) / (h[j] - h[i])
+        s = np.sort(s[np.isfinite(s)])
+        if s.size:
+            out[r] = 0.5 * (s[(s.size - 1) // 2] + s[s.size // 2])
+    return out
+
+
+def test_selection_gives_the_sorted_median_bit_for_bit() -> None:
+    # rows of every length and gap pattern, with tied times: the median found by
+    # np.partition must be the very number a full sort gives (no tolerance)
+    rng = np.random.default_rng(19)
+    for width in (2, 3, 4, 7, 18, 40):
+        hours = np.round(rng.uniform(0.0, 6.0, (300, width)), 1)
+        values = rng.normal(3.0, 2.0, (300, width))
+        values[rng.random((300, width)) < 0.25] = np.nan
+        got = robust_slope_per_h(hours, values)
+        expected = _sorted_median_of_pairs(hours, values)
+        np.testing.assert_array_equal(got, expected)
+
+
+def test_selection_against_scipy_on_many_rows() -> None:
+    # scipy.stats.theilslopes (Sen 1968: the median over pairs with distinct x), one row
+    # at a time, against rows of different usable counts solved together
+    stats = pytest.importorskip("scipy.stats")
+    rng = np.random.default_rng(7)
+    hours = np.tile(np.arange(12.0) / 2.0, (50, 1))
+    values = rng.normal(0.0, 1.0, (50, 12)) - 0.3 * hours
+    values[rng.random((50, 12)) < 0.3] = np.nan
+    got = robust_slope_per_h(hours, values)
+    for r in range(50):
+        ok = ~np.isnan(values[r])
+        if ok.sum() < 2:
+            assert np.isnan(got[r])
+            continue
+        expected = stats.theilslopes(values[r, ok], hours[r, ok]).slope
+        assert got[r] == pytest.approx(expected, rel=1e-12, abs=1e-12)

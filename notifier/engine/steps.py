@@ -1,0 +1,388 @@
+"""Features at every step of a history in one pass: a block row per site and time.
+
+A replay, or ``fogwatch learn``, asks for the features of its sites at hundreds of
+evaluation times at once. Rather than one call of the feature code per time,
+:func:`compute_features_steps` lays the history out as one block with a row per
+(time, site) pair — row ``k * S + s`` is site ``s`` at ``times[k]`` — each row holding
+that site's observed readings in the window before its own time, right-aligned (newest
+in the last column), exactly as a block at that one time would hold them. Every row's
+window is found at once by merging the (site, time) queries into the site- and
+time-sorted rows (one stable sort, no loop over times or sites). The feature families
+then run once over all the rows, each with its own evaluation time, sun and UTC offset,
+as they run over the sites at one time (``notifier.engine.features.feature_values``);
+each time's feature table is a slice of the result. Times are taken in chunks so that
+a block stays within ``CELL_BUDGET`` cells, whatever the number of sites.
+
+The values are those of ``compute_features`` at each time alone, bit for bit, but for
+the last bits of the least-squares cooling fit and what is derived from it: its sums
+run along a row as wide as the widest window of the chunk, and numpy's pairwise
+summation groups the terms by position, so a row padded differently can round
+differently (``tests/engine/test_steps.py`` checks it to 1e-9, as
+``compute_features_at`` is checked against ``compute_features``).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Sequence
+from datetime import datetime
+from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
+
+import numpy as np
+
+from notifier import physics
+from notifier.engine.block import FORECAST_BEFORE_S, Block, SiteArrays, _site_time_order
+from notifier.engine.catalog import FeatureSettings, FeatureTable
+from notifier.engine.readings import (
+    epoch_seconds,
+    float_column,
+    row_kinds,
+    site_index,
+    weather_codes,
+)
+from notifier.physics.sun import tabulated_rows
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from notifier.core.config import Site
+    from notifier.engine.features import FeatureCache
+
+__all__ = ["CELL_BUDGET", "StepBlock", "compute_features_steps", "window_bounds"]
+
+CELL_BUDGET = 4_000_000  # block cells per pass: ~32 MB a value block
+_FORECAST_COLUMNS = ("temp_c", "dewpoint_c", "cloud_pct", "wind_ms")
+_NEAR_S = 3 * 3600  # a forecast up to 3 h ahead stands in for cloud and wind (families)
+
+
+def compute_features_steps(
+    obs: pd.DataFrame,
+    sites: Sequence[Site],
+    times: Sequence[datetime],
+    settings: FeatureSettings | None = None,
+    *,
+    cache: FeatureCache | None = None,
+) -> list[FeatureTable]:
+    """``compute_features(obs, sites, t)`` for every ``t`` of ``times``, in one pass
+    over a block with a row per site and time (see the module docstring)."""
+    from notifier.engine.features import FeatureCache, _empty_obs, feature_values
+
+    settings = settings or FeatureSettings()
+    cache = cache if cache is not None else FeatureCache()
+    st = cache.site_arrays(sites)
+    if not times:
+        return []
+    obs = _empty_obs() if obs is None else obs
+    order = sorted(range(len(times)), key=lambda k: times[k].timestamp())
+    t_sorted = np.array([times[k].timestamp() for k in order], dtype=float)
+    rows = _SortedRows(obs, st, t_sorted, settings)
+    n = len(st.ids)
+    lo, hi = window_bounds(rows.s_sel, rows.t_sel, n, t_sorted, settings.block_hours * 3600)
+    widths = (hi - lo).reshape(len(times), n).max(axis=1, initial=0) if n else np.zeros(len(times))
+    tables: list[FeatureTable | None] = [None] * len(times)
+    for a, b in _chunks(widths, n):
+        t_at = np.repeat(t_sorted[a:b], n)
+        chunk_st = _tiled(st, b - a)
+        sunset, sunrise, night = _sun(st, chunk_st, t_sorted[a:b], t_at)
+        with np.errstate(invalid="ignore"):
+            ahead = np.nanmax(sunrise - t_at, initial=0.0) + 3600.0
+        blk = StepBlock(rows, t_at, lo[a * n : b * n], hi[a * n : b * n], max(ahead, _NEAR_S))
+        chunk_times = [times[k] for k in order[a:b]]
+        many = settings.model is not None  # the model reads each row's own time
+        at_rows = [t for t in chunk_times for _ in range(n)] if many else chunk_times[0]
+        found = feature_values(
+            blk,
+            chunk_st,
+            t_at,
+            (sunset, sunrise, night),
+            settings,
+            at_rows,
+            _offsets(st, chunk_times),
+        )
+        for j, k in enumerate(order[a:b]):
+            tables[k] = found.table(times[k], st.ids, slice(j * n, (j + 1) * n))
+    return [t for t in tables if t is not None]
+
+
+def window_bounds(
+    s_sel: np.ndarray, t_sel: np.ndarray, n: int, t_sorted: np.ndarray, block_s: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """For each time and site (row ``k * n + s``), the sorted rows of its window:
+    ``lo:hi`` are site ``s``'s rows with ``t_sorted[k] - block_s < time <= t_sorted[k]``.
+
+    ``s_sel``/``t_sel`` are the rows' sites and times, sorted by site then time. Both
+    ends are a binary search on (site, time) — ``hi`` the first row after (s, t),
+    ``lo`` the first after (s, t - block_s) — done for all queries together as one
+    stable sort of the queries merged into the rows: a row tied with a query sorts
+    before it, so it counts as "at or before".
+
+    >>> window_bounds(np.array([0, 0, 1]), np.array([1.0, 5.0, 2.0]), 2, np.array([5.0]), 4.0)
+    (array([1, 2]), array([2, 3]))
+    """
+    sites = np.tile(np.arange(n), t_sorted.size)
+    t_q = np.repeat(t_sorted, n)
+    hi = _rows_up_to(s_sel, t_sel, sites, t_q)
+    lo = _rows_up_to(s_sel, t_sel, sites, t_q - block_s)
+    return lo, hi
+
+
+def _rows_up_to(
+    s_sel: np.ndarray, t_sel: np.ndarray, q_site: np.ndarray, q_t: np.ndarray
+) -> np.ndarray:
+    """Per query, how many sorted rows come at or before (site, time): searchsorted
+    ``side="right"`` on the pair."""
+    r = s_sel.size
+    site = np.concatenate([s_sel, q_site])
+    t = np.concatenate([t_sel, q_t])
+    is_query = np.zeros(r + q_site.size, dtype=bool)
+    is_query[r:] = True
+    merged = np.lexsort((is_query, t, site))
+    rows_so_far = np.cumsum(~is_query[merged])
+    out = np.empty(q_site.size, dtype=np.intp)
+    where = is_query[merged]
+    out[merged[where] - r] = rows_so_far[where]
+    return out
+
+
+def _chunks(widths: np.ndarray, n: int) -> list[tuple[int, int]]:
+    """Runs of times whose block (times × sites × the widest window) stays within
+    ``CELL_BUDGET`` cells; a time on its own may exceed it."""
+    out = []
+    a = 0
+    widest = 1
+    for k, width in enumerate(widths.tolist()):
+        widest_with = max(widest, int(width), 1)
+        if k > a and (k + 1 - a) * n * widest_with > CELL_BUDGET:
+            out.append((a, k))
+            a, widest_with = k, max(int(width), 1)
+        widest = widest_with
+    out.append((a, len(widths)))
+    return out
+
+
+def _sun(
+    st: SiteArrays, chunk_st: SiteArrays, t_k: np.ndarray, t_at: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``physics.night_bounds_utc`` of every row, as a call per time would give it: the
+    times whose call would tabulate the solar terms go together on the grid, the others
+    together without it (``physics.sun.tabulated_rows``)."""
+    n = len(st.ids)
+    sunset, sunrise = np.full(t_at.size, np.nan), np.full(t_at.size, np.nan)
+    night = np.zeros(t_at.size, dtype=bool)
+    if not n:
+        return sunset, sunrise, night
+    grid = tabulated_rows(st.lat, st.lon, np.broadcast_to(t_k[:, None], (t_k.size, n)))
+    for flag in (True, False):
+        rows = np.repeat(grid == flag, n)
+        if rows.any():
+            found = physics.night_bounds_utc(
+                chunk_st.lat[rows], chunk_st.lon[rows], t_at[rows], tabulate=flag
+            )
+            sunset[rows], sunrise[rows], night[rows] = found
+    return sunset, sunrise, night
+
+
+def _tiled(st: SiteArrays, times: int) -> SiteArrays:
+    """The sites repeated for ``times`` times: row ``k * n + s`` is site ``s``."""
+    # every per-site array, whatever fields SiteArrays grows
+    tiled: dict[str, Any] = {
+        f.name: np.tile(arr, (times,) + (1,) * (arr.ndim - 1))  # along the sites' axis
+        for f in dataclasses.fields(st)
+        if isinstance(arr := getattr(st, f.name), np.ndarray)
+    }
+    return dataclasses.replace(st, ids=st.ids * times, _index=None, **tiled)
+
+
+def _offsets(st: SiteArrays, times: Sequence[datetime]) -> np.ndarray:
+    """Each row's UTC offset (seconds) at its own time, as ``SiteArrays.zone_offsets_s``."""
+    zones = [ZoneInfo(name) for name in st.zones]
+    table = np.empty((len(times), len(zones)))
+    for k, at in enumerate(times):
+        for z, zone in enumerate(zones):
+            off = at.astimezone(zone).utcoffset()
+            table[k, z] = off.total_seconds() if off else 0.0
+    return table[:, st.zone_code].reshape(-1)
+
+
+class _SortedRows:
+    """The observation table read once for every chunk of a history: the observed rows
+    of the configured sites sorted by site and time, the forecast rows, and the
+    present-weather codes (what ``Block`` reads for one evaluation time)."""
+
+    def __init__(
+        self, obs: pd.DataFrame, st: SiteArrays, t_sorted: np.ndarray, settings: FeatureSettings
+    ) -> None:
+        self.obs = obs
+        self.nrows = len(obs)
+        self.n = len(st.ids)
+        self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+        self._sorted_columns: dict[str, np.ndarray | None] = {}
+        empty = np.zeros(0)
+        self.rows_sorted = np.zeros(0, dtype=np.intp)
+        self.s_sel, self.t_sel = np.zeros(0, dtype=np.intp), empty
+        self.forecast = (np.zeros(0, dtype=np.int64), empty, {c: empty for c in _FORECAST_COLUMNS})
+        self.weather_code = np.full(max(self.nrows, 1), -1, dtype=np.intp)
+        self.weather_flags = np.zeros((1, 4), dtype=bool)
+        if not self.nrows:
+            return
+        t_first = float(t_sorted[0]) - settings.block_hours * 3600
+        t_last = float(t_sorted[-1])
+        t_all = epoch_seconds(obs["time"])
+        self.t_all = t_all
+        window = (t_all <= t_last) & (t_all > t_first)
+        wanted = window | (t_all >= float(t_sorted[0]) - FORECAST_BEFORE_S)
+        rows = None if wanted.all() else np.flatnonzero(wanted)
+        site_idx = site_index(obs["site"], st.pos, rows, st.index)
+        known = site_idx >= 0
+        if "kind" in obs:
+            is_obs_kind, is_fc = row_kinds(obs["kind"], known, rows)
+        else:
+            is_obs_kind = np.ones(self.nrows, dtype=bool)
+            is_fc = np.zeros(self.nrows, dtype=bool)
+        frows = np.flatnonzero(is_fc)  # input order: the per-site picks depend on it
+        columns = {c: float_column(obs, c) for c in _FORECAST_COLUMNS}
+        self.forecast = (
+            site_idx[frows].astype(np.int64),
+            t_all[frows],
+            {c: np.full(frows.size, np.nan) if v is None else v[frows] for c, v in columns.items()},
+        )
+        self.rows_sorted, self.s_sel, self.t_sel = _site_time_order(
+            site_idx, t_all, known & is_obs_kind & window
+        )
+        t_weather = float(t_sorted[0]) - settings.current_max_age_h * 3600
+        wrows = self.rows_sorted[self.t_sel >= t_weather]
+        if "weather" in obs and wrows.size:
+            codes, self.weather_flags = weather_codes(obs["weather"], wrows)
+            self.weather_code[wrows] = codes
+
+    def sorted_column(self, name: str) -> np.ndarray | None:
+        """Column ``name`` of the sorted observed rows, with a NaN after them (what a
+        padding cell reads): a block's cells gather from it in runs of neighbours, not
+        from across the whole table."""
+        if name not in self._sorted_columns:
+            values = float_column(self.obs, name) if self.nrows else None
+            self._sorted_columns[name] = (
+                None if values is None else np.append(values[self.rows_sorted], np.nan)
+            )
+        return self._sorted_columns[name]
+
+    def step_table(self, noise: float) -> tuple[np.ndarray, np.ndarray]:
+        """For the depression's reporting step (``families._depression_step``) over any
+        run of sorted rows: (the first row with a depression at or after each row, a
+        range-minimum table of each row's change from the reading before it).
+
+        A row's change is |d - d_before| against the site's previous row with a
+        depression d, +inf where it is within ``noise`` or there is none; level j of the
+        table holds the minimum over rows i … i + 2**j - 1, enough levels for the
+        widest window. Within a window, every reading but the first has its previous
+        reading in the window too, so the window's step is the minimum over the rows
+        after its first reading: two table reads, the same numbers as the cells give.
+        """
+        if noise in self._steps:
+            return self._steps[noise]
+        r = self.rows_sorted.size
+        temp, dew = float_column(self.obs, "temp_c"), float_column(self.obs, "dewpoint_c")
+        if temp is None or dew is None:
+            d = np.full(r, np.nan)
+        else:
+            d = temp[self.rows_sorted] - dew[self.rows_sorted]
+        ok = ~np.isnan(d)
+        at = np.arange(r)
+        last_ok = np.maximum.accumulate(np.where(ok, at, -1)) if r else at
+        before = np.full(r, -1)
+        before[1:] = last_ok[:-1]
+        site_start = np.searchsorted(self.s_sel, self.s_sel, side="left")
+        before = np.where(before >= site_start, before, -1)
+        with np.errstate(invalid="ignore"):
+            change = np.abs(d - np.where(before >= 0, d[np.maximum(before, 0)], np.nan))
+            change = np.where(change > noise, change, np.inf)
+        first_ok = np.minimum.accumulate(np.where(ok, at, r)[::-1])[::-1] if r else at
+        widest = int(np.diff(np.searchsorted(self.s_sel, np.arange(self.n + 1))).max(initial=1))
+        levels = [change]
+        while (1 << len(levels)) <= widest:
+            half = 1 << (len(levels) - 1)
+            prev = levels[-1]
+            levels.append(np.minimum(prev, np.append(prev[half:], np.full(half, np.inf))))
+        self._steps[noise] = (np.append(first_ok, r), np.stack(levels))
+        return self._steps[noise]
+
+
+class StepBlock(Block):
+    """A :class:`Block` with a row per (time, site): row ``r`` holds the sorted rows
+    ``lo[r]:hi[r]`` right-aligned, and forecast rows are paired with each row whose
+    time they can serve (from ``FORECAST_BEFORE_S`` before it to ``ahead_s`` after)."""
+
+    def __init__(
+        self, rows: _SortedRows, t_at: np.ndarray, lo: np.ndarray, hi: np.ndarray, ahead_s: float
+    ) -> None:
+        n = t_at.size
+        self.n = n
+        self.rows = np.arange(n)
+        self.obs = rows.obs
+        self._columns = {}
+        self._full = {}
+        self._reports = {}
+        self._empty = rows.nrows == 0
+        if self._empty:
+            self._lay_out_nothing()
+            return
+        counts = hi - lo
+        width = max(int(counts.max(initial=0)), 1)
+        cols = np.arange(width)
+        self.pad = cols[None, :] < (width - counts)[:, None]
+        # a cell's source is its position among the sorted rows (not its row of the
+        # table, as in Block): the values are read from the sorted columns, where a
+        # block row's cells are neighbours; padding reads the NaN after the last
+        last = rows.rows_sorted.size
+        src = (hi - width)[:, None] + cols[None, :]
+        np.putmask(src, self.pad, last)
+        self.width = width
+        self._sorted = rows
+        self._first_pos = hi - width  # the sorted row of column 0, per block row
+        self.src = src
+        self.t = self._gather(np.append(rows.t_sel, np.nan), src, self.pad)
+        self._steps = width.bit_length()
+        self.weather_code = np.append(rows.weather_code[rows.rows_sorted], -1)
+        self.weather_flags = rows.weather_flags
+        self.forecast = self._paired(rows, t_at, ahead_s)
+
+    def column(self, name: str) -> np.ndarray | None:
+        return None if self._empty else self._sorted.sorted_column(name)
+
+    def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
+        """``families._depression_step`` from the sorted rows (see
+        :meth:`_SortedRows.step_table`), without the cells: the same numbers."""
+        if self._empty:
+            return None
+        first_ok, table = self._sorted.step_table(noise)
+        start = self._first_pos + lo
+        stop = self._first_pos + hi
+        after = first_ok[np.clip(start, 0, first_ok.size - 1)] + 1  # rows after the first
+        count = np.where(lo < hi, stop - after, 0)
+        out = np.full(self.n, np.inf)
+        some = np.flatnonzero(count > 0)
+        if some.size:
+            level = np.floor(np.log2(count[some])).astype(np.intp)
+            a = after[some]
+            b = stop[some] - (1 << level)
+            out[some] = np.minimum(table[level, a], table[level, b])
+        return np.where(np.isinf(out), np.nan, out)
+
+    @staticmethod
+    def _paired(
+        rows: _SortedRows, t_at: np.ndarray, ahead_s: float
+    ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+        """Each forecast row once per block row of its site whose time it can serve,
+        in input order within a block row (as ``Block.forecast`` holds them)."""
+        fsite, ft, fcols = rows.forecast
+        n_sites = rows.n
+        t_k = t_at[::n_sites] if n_sites else np.zeros(0)  # the chunk's times, ascending
+        k_lo = np.searchsorted(t_k, ft - ahead_s, side="left")
+        k_hi = np.searchsorted(t_k, ft + FORECAST_BEFORE_S, side="right")
+        per = np.maximum(k_hi - k_lo, 0)
+        which = np.repeat(np.arange(ft.size), per)
+        first = np.repeat(np.cumsum(per) - per, per)
+        k = k_lo[which] + (np.arange(which.size) - first)
+        block_row = (k * n_sites + fsite[which]).astype(np.int64)
+        return block_row, ft[which], {c: v[which] for c, v in fcols.items()}
