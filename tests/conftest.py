@@ -19,6 +19,11 @@ import yaml
 
 from notifier.core.config import Config
 from notifier.core.config_file import load_config
+from tests import oracle_check
+
+# every assessment and lifecycle step of the suite is checked against the per-site
+# oracles (before any test module imports ``assess`` or ``step`` by name)
+oracle_check.install()
 
 SITES: list[dict[str, Any]] = [
     {
