@@ -12,6 +12,7 @@ nothing changes builds none.
 from __future__ import annotations
 
 import re
+from collections import ChainMap
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -30,7 +31,7 @@ from notifier.engine.assessment import (
 )
 from notifier.engine.eta import SEEN_FIRST, hazard_eta, sooner_candidates
 from notifier.engine.event_parts import SIGHT_KINDS, sighted
-from notifier.engine.rules import LEVELS, RuleEvaluation
+from notifier.engine.rules import LEVELS, RuleEvaluation, render_template
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Site
@@ -308,5 +309,6 @@ def _explanations(
     evals: Sequence[RuleEvaluation], i: int, features: Mapping[str, float]
 ) -> list[str]:
     drivers = getattr(features, "drivers", "")
-    values = {**features, "model_drivers": drivers} if drivers else features
-    return [ev[i].explanation(values) for ev in evals if ev.rule.explain]
+    values = ChainMap({"model_drivers": drivers}, features) if drivers else features
+    # ``RuleResult.explanation``, without building the result
+    return [render_template(ev.rule.explain, values) for ev in evals if ev.rule.explain]
