@@ -69,10 +69,11 @@ class SiteLevels:
 
 
 def site_levels(evals: Sequence[RuleEvaluation], cells: int) -> tuple[dict[str, np.ndarray], ...]:
-    """(levels, sustain, seen, lead kinds) per hazard over ``cells`` (sites × times),
-    each rule one numpy pass: a hazard's level is the highest level among its rules that
-    fire, its sustain level the highest among those that hold with their margins (or
-    fire), its leading rule the first (in rule order) that fires at its level."""
+    """(levels, sustain, seen, leading rule's kind) per hazard over ``cells`` (sites ×
+    times), and the kinds the last one counts in; each rule one numpy pass: a hazard's
+    level is the highest level among its rules that fire, its sustain level the highest
+    among those that hold with their margins (or fire), its leading rule the first (in
+    rule order) that fires at its level."""
     levels: dict[str, np.ndarray] = {}
     sustain: dict[str, np.ndarray] = {}
     seen: dict[str, np.ndarray] = {}
@@ -87,13 +88,16 @@ def site_levels(evals: Sequence[RuleEvaluation], cells: int) -> tuple[dict[str, 
         # kinds of the top level (``HazardAssessment.kinds``)
         if ev.rule.level == "warning" and ev.rule.kind in SIGHT_KINDS:
             bits |= ev.fires * np.uint8(SIGHT_BITS[SIGHT_KINDS.index(ev.rule.kind)])
-    lead: dict[str, np.ndarray] = {h: np.full(cells, "", dtype=object) for h in levels}
+    # the leading rule's kind, as its place in ``kinds`` (-1 where nothing fires)
+    kinds = sorted({ev.rule.kind for ev in evals})
+    lead: dict[str, np.ndarray] = {h: np.full(cells, -1, dtype=np.int16) for h in levels}
     for ev in reversed(evals):  # the first rule in order is written last
         hazard = ev.rule.hazard
-        lead[hazard][ev.fires & (levels[hazard] == level_rank(ev.rule.level))] = ev.rule.kind
+        top = ev.fires & (levels[hazard] == level_rank(ev.rule.level))
+        lead[hazard][top] = kinds.index(ev.rule.kind)
     for hazard, level in levels.items():
         np.maximum(sustain[hazard], level, out=sustain[hazard])
-    return levels, sustain, seen, lead
+    return levels, sustain, seen, lead, {"kinds": np.array(kinds, dtype=object)}
 
 
 def levels_of(assessments: Sequence[SiteAssessment]) -> SiteLevels:
@@ -157,16 +161,24 @@ class Assessments(Sequence[SiteAssessment]):
         with np.errstate(invalid="ignore"):
             stale = ~(table.values["data_age_min"] <= stale_after_min)
         levels, sustain, seen, lead = (
-            {h: a[offset : offset + n] for h, a in part.items()} for part in cells
+            {h: a[offset : offset + n] for h, a in part.items()} for part in cells[:4]
         )
+        kinds = list(cells[4]["kinds"])
+
+        def lead_in(wanted: frozenset[str], codes: np.ndarray) -> np.ndarray:
+            return np.isin(codes, [k for k, kind in enumerate(kinds) if kind in wanted])
+
         fitted = table.projection_method == "cooling-fit"
-        fits = tuple(
-            np.where(fitted, a, np.nan)
-            for a in (table.fit_t0_c, table.fit_k_per_sqrt_h, table.last_sunset)
+        fits = (
+            np.where(fitted, table.fit_t0_c, np.nan),
+            np.where(fitted, table.fit_k_per_sqrt_h, np.nan),
+            np.where(fitted, table.last_sunset, np.nan),
         )
         sooner = {
-            h: sooner_candidates(h, kinds, table.values, fits, at.timestamp())  # type: ignore[arg-type]
-            for h, kinds in lead.items()
+            h: sooner_candidates(
+                h, partial(lead_in, codes=codes), table.values, fits, at.timestamp()
+            )
+            for h, codes in lead.items()
         }
         self.site_levels = SiteLevels([s.id for s in sites], levels, sustain, seen, sooner, stale)
 

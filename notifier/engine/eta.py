@@ -7,7 +7,7 @@ than a wrong one. Worked out per site, and only for the sites whose assessment i
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from datetime import datetime, timedelta
 from typing import TYPE_CHECKING
 
@@ -121,7 +121,7 @@ def _icing_eta(sa: SiteAssessment, at: datetime) -> tuple[datetime | None, str]:
 
 def sooner_candidates(
     hazard: str,
-    lead_kinds: np.ndarray,
+    lead_in: Callable[[frozenset[str]], np.ndarray],
     values: Mapping[str, np.ndarray],
     fits: tuple[np.ndarray, np.ndarray, np.ndarray],
     at_s: float,
@@ -132,10 +132,10 @@ def sooner_candidates(
     still give one (its horizon and sunrise cut-offs are left out), never the other way:
     the lifecycle uses it only to find the sites worth a closer look.
 
-    ``lead_kinds`` is the kind of each site's leading rule (object array, "" where the
-    hazard is not assessed); ``fits`` the cooling fit's T0, k and sunset (NaN where the
+    ``lead_in(kinds)`` says where the kind of the site's leading rule is one of
+    ``kinds``; ``fits`` the cooling fit's T0, k and sunset (NaN where the
     projection is not a fit)."""
-    n = lead_kinds.size
+    n = fits[0].size
     nan = np.full(n, np.nan)
 
     def value(name: str) -> np.ndarray:
@@ -146,7 +146,7 @@ def sooner_candidates(
     if hazard == "data_gap" or not n:
         return out
     observed_fog = value("observed_fog") == 1.0
-    observed = np.isin(lead_kinds, list(OBSERVED_KINDS)) | observed_fog
+    observed = lead_in(OBSERVED_KINDS) | observed_fog
     if hazard == "fog":
         left = ~observed
     else:
@@ -163,10 +163,10 @@ def sooner_candidates(
             cooling = (surface > target) & np.isfinite(air) & (k > 0) & (needed > 0)
             eta = sunset + needed * needed * 3600.0
             return np.where(left & cooling, eta, np.nan)
-        sea = np.isin(lead_kinds, list(SEA_KINDS))
+        sea = lead_in(SEA_KINDS)
         onshore = (value("onshore") == 1.0) & (value("dewpoint_minus_water_c") > 0.0)
         out = np.where(left & sea & onshore, at_s + value("hours_to_saturation") * 3600.0, out)
-        cool = left & ~sea & np.isin(lead_kinds, list(COOLING_KINDS))
+        cool = left & ~sea & lead_in(COOLING_KINDS)
         hours = value("hours_to_fog")
         fitted = np.isfinite(t0) & np.isfinite(k) & np.isfinite(sunset)
         ahead = np.where(hours == 0.0, at_s, np.where(fitted, at_s + hours * 3600.0, np.nan))
