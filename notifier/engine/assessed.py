@@ -17,7 +17,7 @@ from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from functools import partial
-from typing import TYPE_CHECKING, overload
+from typing import TYPE_CHECKING, Any, overload
 
 import numpy as np
 
@@ -120,9 +120,9 @@ def levels_of(assessments: Sequence[SiteAssessment]) -> SiteLevels:
             seen.setdefault(hazard, np.zeros(n, np.uint8))[i] = bits
         for hazard, level in sa.sustain.items():
             sustain.setdefault(hazard, np.zeros(n, np.int8))[i] = level_rank(level)
-    for hazard, level in levels.items():
+    for hazard, ranks in levels.items():
         held = sustain.setdefault(hazard, np.zeros(n, np.int8))
-        np.maximum(held, level, out=held)
+        np.maximum(held, ranks, out=held)
     stale = np.fromiter((sa.stale for sa in assessments), dtype=bool, count=n)
     for hazard in levels:
         sooner.setdefault(hazard, np.full(n, np.nan))
@@ -321,6 +321,8 @@ def _explanations(
     evals: Sequence[RuleEvaluation], i: int, features: Mapping[str, float]
 ) -> list[str]:
     drivers = getattr(features, "drivers", "")
-    values = ChainMap({"model_drivers": drivers}, features) if drivers else features
+    values: Mapping[str, Any] = (
+        ChainMap({"model_drivers": drivers}, dict(features)) if drivers else features
+    )
     # ``RuleResult.explanation``, without building the result
     return [render_template(ev.rule.explain, values) for ev in evals if ev.rule.explain]

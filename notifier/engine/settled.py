@@ -86,8 +86,8 @@ def sites_to_step(
             )
         )
     # up at once (or held by the cooldown, which the per-site rules judge)
-    for hazard, level in view.levels.items():
-        step |= level > held[hazard]
+    for hazard, ranks in view.levels.items():
+        step |= ranks > held[hazard]
     if rows:
         step[_changing(rows, view, now_s, settings)] = True
     return np.flatnonzero(step)

@@ -21,7 +21,7 @@ from notifier.engine.rules import RuleSet
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-    from notifier.engine.assessment import SiteAssessment
+    from notifier.engine.assessed import Assessments
     from notifier.engine.catalog import FeatureTable
     from notifier.engine.features import FeatureCache
     from notifier.storage.store import Store
@@ -101,8 +101,9 @@ def evaluate(
     at: datetime,
     cache: dict[float, FeatureTable] | None = None,
     feature_cache: FeatureCache | None = None,  # the caller's, kept between cycles
-) -> list[SiteAssessment]:
-    """Assess every site at ``at``; ``cache`` carries feature tables between cycles."""
+) -> Assessments:
+    """Assess every site at ``at``; ``cache`` carries feature tables between cycles.
+    A site's assessment object is built when it is first read (see ``Assessments``)."""
     from notifier.engine.assess import assess
 
     return assess(
