@@ -117,25 +117,30 @@ def _changing(
     for hazard in set(cols[1]):
         mine = hazards == hazard
         at = idx[mine]
-        if hazard in view.levels:
-            assessed[mine] = view.levels[hazard][at]
-            sustain[mine] = view.sustain[hazard][at]
-            sighted[mine] = view.seen[hazard][at]
-            sooner[mine] = view.sooner[hazard][at]
+        # each map on its own: a hazard may hold with its margins where none fires
+        for found, into in (
+            (view.levels, assessed),
+            (view.sustain, sustain),
+            (view.seen, sighted),
+            (view.sooner, sooner),
+        ):
+            if hazard in found:
+                into[mine] = found[hazard][at]
     is_data = hazards == DATA_GAP
     stale = view.stale[idx]
-    easing, bare = np.isnan(below), np.isnan(clear)
+    # no clearing clock running, no all-clear clock running
+    no_below, no_clear = np.isnan(below), np.isnan(clear)
     # stale data: fog and icing keep their level, the clocks are reset
     frozen = stale & ~is_data
-    change = frozen & ~(easing & bare)
+    change = frozen & ~(no_below & no_clear)
     live = ~frozen
     below_now = sustain < level
     change |= live & is_data & (sustain == 0)  # data back
-    change |= live & (below_now != ~easing)  # the clearing clock starts or stops
+    change |= live & (below_now != ~no_below)  # the clearing clock starts or stops
     with np.errstate(invalid="ignore"):
         due_clear = now_s - below >= settings.clearing_time - SLACK_S
     change |= live & below_now & due_clear  # down, or all clear
-    change |= live & ((sustain == 0) != ~bare)  # the all-clear clock starts or stops
+    change |= live & ((sustain == 0) != ~no_clear)  # the all-clear clock starts or stops
     same = live & (assessed == level)
     change |= same & ((sighted & ~seen) != 0)  # newly seen
     with np.errstate(invalid="ignore"):
@@ -147,6 +152,6 @@ def _changing(
         np.fmax.at(newest, idx, last)
         quiet = now_s - newest[idx]
         every = settings.reminder_every * np.where(seen_any, 2.0, 1.0)
-        due = (level == WARNING) & easing & ~is_data & ~stale
+        due = (level == WARNING) & no_below & ~is_data & ~stale
         change |= due & (quiet >= every - SLACK_S)
     return idx[change]

@@ -18,7 +18,7 @@ from datetime import UTC, datetime, time, timedelta
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 import notifier.engine.assess as assess_module
@@ -237,6 +237,16 @@ def _hand_made(s, now: datetime, cells: dict[str, tuple]) -> SiteAssessment:
         max_size=40,
     ),
     quick=st.booleans(),
+)
+# found by hypothesis: a watch that eases, then holds again with its margins alone
+# (the clearing clocks stop though no rule fires)
+@example(
+    steps=[
+        (1, [{}, {"fog": (1, 0, False, None, 0)}, {}]),
+        (1, [{}, {}, {}]),
+        (1, [{}, {"fog": (0, 1, False, None, 0)}, {}]),
+    ],
+    quick=False,
 )
 def test_random_sequences_give_the_oracles_states_and_events(steps, quick):
     alerts = QUICK if quick else AlertSettings()
