@@ -7,6 +7,7 @@ prefix so that they can never be mistaken for a real aerodrome.
 from __future__ import annotations
 
 import json
+import os
 import threading
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
@@ -19,6 +20,13 @@ import yaml
 
 from notifier.core.config import Config
 from notifier.core.config_file import load_config
+from tests import oracle_check
+
+# every assessment and lifecycle step of the suite is checked against the per-site
+# oracles (before any test module imports ``assess`` or ``step`` by name);
+# FOGWATCH_ORACLE=0 leaves them out (to time the suite without them)
+if os.environ.get("FOGWATCH_ORACLE", "1") != "0":
+    oracle_check.install()
 
 SITES: list[dict[str, Any]] = [
     {

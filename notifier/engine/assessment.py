@@ -133,6 +133,13 @@ class SiteResults(Sequence[RuleResult]):
         return [ev[self._i] for ev in self._evals if keep(ev.rule)]
 
 
+def rules_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[Rule]:
+    """The rules ``keep`` accepts among ``sa``'s results, in order, none built."""
+    if isinstance(sa.results, SiteResults):
+        return [ev.rule for ev in sa.results._evals if keep(ev.rule)]
+    return [r.rule for r in sa.results if keep(r.rule)]
+
+
 def results_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[RuleResult]:
     """``sa``'s results for the rules ``keep`` accepts (built lazily where they can be)."""
     if isinstance(sa.results, SiteResults):

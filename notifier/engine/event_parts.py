@@ -11,7 +11,7 @@ from datetime import datetime
 from typing import TYPE_CHECKING, Any
 
 from notifier.engine.alerts import AlertState, Event, event_id
-from notifier.engine.assessment import level_rank, results_where
+from notifier.engine.assessment import level_rank, results_where, rules_where
 from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -33,8 +33,8 @@ def _rank(level: str) -> int:
 
 def shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
     names = list(SHOWN_FEATURES)
-    for result in results_where(sa, lambda rule: rule.id in rule_ids):
-        names.extend(sorted(result.rule.features()))
+    for rule in rules_where(sa, lambda rule: rule.id in rule_ids):
+        names.extend(sorted(rule.features()))
     out: dict[str, float] = {}
     for name in names:
         value = sa.features.get(name)

@@ -62,10 +62,12 @@ from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING
 
 from notifier.engine.alerts import AlertState, Event, StateKey
+from notifier.engine.assessed import levels_of
 from notifier.engine.assessment import level_rank
 from notifier.engine.data_gap import DATA_GAP, gap_held, gap_told_once
 from notifier.engine.event_parts import changes, make_event, sighted
 from notifier.engine.rules import HAZARDS
+from notifier.engine.settled import sites_to_step
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
@@ -379,17 +381,25 @@ def step(
     """Advance every (site, hazard) state by one cycle; see the module docstring.
 
     States of sites not in ``assessments`` are returned unchanged. A state back at none
-    is dropped once no cooldown depends on it.
+    is dropped once no cooldown depends on it. The rules below run only for the sites
+    :func:`~notifier.engine.settled.sites_to_step` finds something to do at; at every
+    other site they would return the states unchanged, with no event.
     """
     if now.tzinfo is None:
         raise ValueError("now must be timezone-aware")
     now = now.astimezone(UTC)
     states: dict[StateKey, AlertState] = dict(previous)
     events: list[Event] = []
+    # numpy over every site and state finds the few sites with something to do
+    view = levels_of(assessments)
+    todo = sites_to_step(previous, view, now, settings).tolist()
+    wanted = {view.ids[i] for i in todo}
     by_site: dict[str, set[str]] = {}
     for s, h in previous:
-        by_site.setdefault(s, set()).add(h)
-    for sa in assessments:
+        if s in wanted:
+            by_site.setdefault(s, set()).add(h)
+    for i in todo:
+        sa = assessments[i]
         site_id = sa.site.id
         hazards = by_site.get(site_id, set()) | set(sa.hazards) | set(sa.sustain)
         if not hazards:

@@ -401,7 +401,8 @@ _UNKNOWN = "\x00"  # stands in for an unknown value until its clause is dropped
 
 class _SafeFormatter(string.Formatter):
     def get_value(self, key: Any, args: Any, kwargs: Any) -> Any:
-        return kwargs.get(key, float("nan"))
+        # only the values the template names are read (a site's features are many)
+        return _plain(kwargs.get(key, float("nan")))
 
     def format_field(self, value: Any, format_spec: str) -> str:
         if isinstance(value, float) and not np.isfinite(value):
@@ -418,7 +419,7 @@ def render_template(template: str, values: Mapping[str, Any]) -> str:
     >>> render_template("Fog within {h:.1f} h; air {t:.1f} °C.", {"h": float("nan"), "t": 2})
     'Air 2.0 °C.'
     """
-    text = _SafeFormatter().format(template, **{k: _plain(v) for k, v in values.items()})
+    text = _SafeFormatter().vformat(template, (), values)
     if _UNKNOWN not in text:
         return text
     text = re.sub(r"\s*\([^()]*\x00[^()]*\)", "", text)

@@ -180,7 +180,7 @@ def _collect(
     n_steps = int((end - start).total_seconds() // STEP_S) + 1
     values = {s.id: np.full((len(wanted), n_steps), np.nan) for s in sites}
 
-    def keep(k: int, assessments: list[Any]) -> None:
+    def keep(k: int, assessments: Sequence[Any]) -> None:
         for sa in assessments:
             feats = sa.features
             values[sa.site.id][:, k] = [feats[f] for f in wanted]

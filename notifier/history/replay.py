@@ -150,7 +150,7 @@ def replay(
     deliver_to: Path | None = None,
     progress: Callable[[int, int], None] | None = None,
     truth: pd.DataFrame | None = None,
-    on_step: Callable[[int, list[Any]], None] | None = None,
+    on_step: Callable[[int, Sequence[Any]], None] | None = None,
 ) -> ReplayResult:
     """Step from ``start`` to ``end`` and collect events, alert periods and night scores.
 
@@ -251,7 +251,7 @@ def _onset_steps(
 
 def _step_assessments(
     loaded: Loaded, sites: Sequence[Any], obs: pd.DataFrame, times: np.ndarray
-) -> Iterator[list[Any]]:
+) -> Iterator[Sequence[Any]]:
     """Each step's site assessments in turn, worked out a batch of steps at a time."""
     from notifier.engine.assess import HOLD_REACH_S, HOLD_STEP_S, assess_times
 

@@ -58,7 +58,7 @@ class CycleReport:
     """What one poll-and-assess cycle did."""
 
     at: datetime
-    assessments: list[SiteAssessment]
+    assessments: Sequence[SiteAssessment]
     events: list[Event]
     deliveries_added: int
     polls: list[PollResult] = field(default_factory=list)
@@ -293,7 +293,7 @@ class Service:
     def _advance(
         self,
         now: datetime,
-        assessments: list[SiteAssessment],
+        assessments: Sequence[SiteAssessment],
         obs: pd.DataFrame,
         polls: list[PollResult],
     ) -> CycleReport:

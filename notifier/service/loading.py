@@ -22,7 +22,7 @@ from notifier.engine.rules import RuleSet
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-    from notifier.engine.assessment import SiteAssessment
+    from notifier.engine.assessed import Assessments
     from notifier.engine.catalog import FeatureTable
     from notifier.engine.features import FeatureCache
     from notifier.storage.store import Store
@@ -103,9 +103,10 @@ def evaluate(
     cache: dict[float, FeatureTable] | None = None,
     feature_cache: FeatureCache | None = None,  # the caller's, kept between cycles
     sites: Sequence[Site] | None = None,  # default: every configured site
-) -> list[SiteAssessment]:
+) -> Assessments:
     """Assess every site (or ``sites``) at ``at``; ``cache`` carries feature tables
-    between cycles."""
+    between cycles. A site's assessment object is built when it is first read (see
+    ``Assessments``)."""
     from notifier.engine.assess import assess
 
     return assess(
