@@ -59,6 +59,7 @@ def test_shipped_rules_load():
         "radiation-fog-watch",
         "radiation-fog-warning",
         "observed-fog",
+        "observed-fog-coast",
         "dense-fog",
         "sea-fog-watch",
         "steam-fog-watch",

@@ -176,6 +176,56 @@ def test_observed_dense_fog():
     assert a.hazards["fog"].eta == at  # observed: it is here now
 
 
+def _dip(s, at, low_reports, step_min):
+    """Clear reports (16 km) every ``step_min`` for 3 h, the last ``low_reports`` at 800 m."""
+    obs = steady(
+        s.id, at, step_min=step_min, temp_c=2.0, dewpoint_c=1.0, wind_ms=5.0, cloud_pct=100.0
+    )
+    vis = [16100.0] * len(obs)
+    for k in range(1, low_reports + 1):
+        vis[-k] = 800.0
+    return obs.assign(visibility_m=vis)
+
+
+@pytest.mark.parametrize(
+    ("step_min", "low_reports", "expect"),
+    [(60, 1, False), (60, 2, True), (10, 1, False), (10, 2, False), (10, 3, True)],
+)
+def test_one_low_report_at_the_coast_is_not_yet_fog(step_min, low_reports, expect):
+    # Fog is visibility below 1000 m (WMO-No. 8), and a spell is fog once two reports at
+    # least 20 min apart show it (common practice; the same confirmation the replay
+    # scores by, notifier/history/verify.py): at a coast site a single low reading, as a
+    # drifting fog patch, a snow shower or spray passing the sensor gives, does not raise
+    # the observed-fog warning; fog that stays does.
+    s = site("pier-end", exposure="coast")
+    at = utc(2026, 3, 11, 19, 0)
+    got = fired([s], _dip(s, at, low_reports, step_min), at)[s.id]
+    assert ("observed-fog-coast" in got) is expect
+    assert "observed-fog" not in got  # the unconfirmed rule is not for the coast
+
+
+@pytest.mark.parametrize("exposure", ["open", "waterside"])
+def test_one_low_report_inland_warns_at_once(exposure):
+    # Away from the open coast a report below 1000 m is fog at once (WMO-No. 8).
+    s = site("gate-field", exposure=exposure)
+    at = utc(2026, 3, 11, 19, 0)
+    got = fired([s], _dip(s, at, 1, 60), at)[s.id]
+    assert "observed-fog" in got
+    assert "observed-fog-coast" not in got
+
+
+def test_dense_fog_at_the_coast_warns_at_once():
+    # Dense fog (200 m, UK "thick" fog, from memory) needs no confirmation: one report of
+    # 150 m at a coast site warns.
+    s = site("pier-end", exposure="coast")
+    at = utc(2026, 3, 11, 19, 0)
+    obs = _dip(s, at, 1, 60)
+    obs.loc[obs.index[-1], "visibility_m"] = 150.0
+    got = fired([s], obs, at)[s.id]
+    assert "dense-fog" in got
+    assert "observed-fog-coast" not in got
+
+
 def test_mist_is_not_fog():
     # 1500 m with BR is mist (WMO-No. 306 FM 15: BR 1000–5000 m), not fog.
     s = site("gate-field")
