@@ -124,6 +124,12 @@ def _cmd(name: str) -> Handler:
     return run
 
 
+def _cmd_replay(args: argparse.Namespace) -> int:
+    from notifier.cli.replay_command import cli_replay
+
+    return cli_replay(args)
+
+
 def _cmd_learn(args: argparse.Namespace) -> int:
     from notifier.cli.learn_command import cli_learn
 
@@ -303,7 +309,7 @@ def _add_history_commands(sub: _Subcommands) -> None:
     p.add_argument("--png", metavar="FILE", help="write a timeline chart")
     p.add_argument("--deliver-to", metavar="DIR", help="write the messages as .eml files")
     p.add_argument("--model", metavar="FILE", help="a site model from fogwatch learn")
-    p.set_defaults(handler=_cmd("cli_replay"))
+    p.set_defaults(handler=_cmd_replay)
 
     p = sub.add_parser("learn", help="fit each site's fog model on its own history")
     _add_common(p)

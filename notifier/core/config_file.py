@@ -17,9 +17,7 @@ make a file invalid.
 from __future__ import annotations
 
 import logging
-import re
 from collections.abc import Iterable
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -28,18 +26,14 @@ from pydantic import (
 )
 
 from notifier.core.config import (
-    BOT_SUBSCRIBER_PREFIX,
     CapChannel,
     Config,
-    EmailChannel,
     FileDropSource,
     FolderChannel,
     TextChannel,
-    instance_problem,
-    is_loopback_host,
 )
+from notifier.core.config_checks import View, cross_check
 from notifier.core.config_hints import did_you_mean, folder_problems
-from notifier.core.config_matrix import MatrixChannel, check_matrix_address
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
 from notifier.core.redact import remember_env_value
@@ -211,9 +205,9 @@ def _read(
 
 def _validate(
     path: Path, raw: Any, found: Expansion
-) -> tuple[Config | None, list[ConfigProblem], _View]:
+) -> tuple[Config | None, list[ConfigProblem], View]:
     """Validate and cross-check; on a validation error, cross-check what did validate."""
-    view = _View(raw)
+    view = View(raw)
     try:
         config = Config.model_validate({**raw, "path": path})
     except ValidationError as exc:
@@ -231,7 +225,7 @@ def _validate(
     else:
         problems = []
     config = _resolve_paths(config)
-    for loc, message in _cross_check(config, view):
+    for loc, message in cross_check(config, view):
         raw_loc = view.raw_loc(loc)
         if found.is_missing(raw_loc):
             continue
@@ -244,28 +238,6 @@ def _validate(
 
 
 _LISTS = ("sites", "sources", "channels", "subscribers", "rules")
-
-
-@dataclass
-class _View:
-    """The file as the cross-checks see it: without entries that failed validation.
-
-    ``index[section][i]`` is the position in the file of the i-th entry kept; ``known``
-    holds the ids (and, for sites, tags) of entries left out, or ``None`` when a whole
-    section was left out, so that references to them are not reported as unknown.
-    """
-
-    data: Any
-    index: dict[str, list[int]] = field(default_factory=dict)
-    known: dict[str, set[str] | None] = field(default_factory=dict)
-
-    def raw_loc(self, loc: Loc) -> Loc:
-        if len(loc) > 1 and loc[0] in self.index and isinstance(loc[1], int):
-            return (loc[0], self.index[loc[0]][loc[1]], *loc[2:])
-        return loc
-
-    def also_known(self, kind: str) -> set[str] | None:
-        return self.known.get(kind, set())
 
 
 def _ids_and_tags(items: Iterable[Any]) -> tuple[set[str] | None, set[str] | None]:
@@ -285,7 +257,7 @@ def _ids_and_tags(items: Iterable[Any]) -> tuple[set[str] | None, set[str] | Non
     return ids, tags
 
 
-def _prune(raw: Any, exc: ValidationError) -> _View | None:
+def _prune(raw: Any, exc: ValidationError) -> View | None:
     """The file without the entries (or sections) that failed validation; ``None`` when
     an error cannot be pinned to one of them."""
     bad_items: dict[str, set[int]] = {}
@@ -307,7 +279,7 @@ def _prune(raw: Any, exc: ValidationError) -> _View | None:
     data = MarkedDict()
     data.line = getattr(raw, "line", None)
     data.key_lines = dict(getattr(raw, "key_lines", {}))
-    view = _View(data)
+    view = View(data)
     for key, value in raw.items():
         if key in bad_keys:
             if key in _LISTS:
@@ -367,104 +339,3 @@ def _resolve_paths(config: Config) -> Config:
             "model": model,
         }
     )
-
-
-def _cross_check(config: Config, view: _View) -> list[tuple[Loc, str]]:
-    """References and uniqueness across the file, as (location, what is wrong).
-
-    Locations index the entries of ``config`` (see :meth:`_View.raw_loc` for the file's).
-    """
-    problems: list[tuple[Loc, str]] = []
-
-    def add(loc: Loc, msg: str) -> None:
-        problems.append((loc, msg))
-
-    if not config.sites and "sites" not in view.known:  # (not when every site failed)
-        add(("sites",), "at least one site is needed")
-    site_ids = [s.id for s in config.sites]
-    other_sites, other_tags = view.also_known("sites"), view.also_known("tags")
-    other_channels = view.also_known("channels")
-    tags = {t for s in config.sites for t in s.tags}
-    for kind, items in (
-        ("site", config.sites),
-        ("source", config.sources),
-        ("channel", config.channels),
-        ("subscriber", config.subscribers),
-    ):
-        seen: set[str] = set()
-        for i, item in enumerate(items):
-            if item.id in seen:
-                add((kind + "s", i, "id"), f"duplicate {kind} id {item.id!r}")
-            seen.add(item.id)
-
-    def check_site_ref(loc: Loc, ref: str) -> None:
-        if other_sites is None or ref in other_sites:
-            return  # a site that failed validation (already reported)
-        if ref not in site_ids:
-            known = ", ".join([*site_ids, *sorted(other_sites - set(site_ids))])
-            add(loc, f"unknown site {ref!r} (known: {known})")
-
-    def check_selector(loc: Loc, sel: str) -> None:
-        """A choice of sites: a site id, ``tag:NAME`` or ``all``."""
-        if sel == "all":
-            return
-        if sel.startswith("tag:"):
-            if other_tags is not None and sel[4:] not in tags | other_tags:
-                add(loc, f"no site has tag {sel[4:]!r}")
-        else:
-            check_site_ref(loc, sel)
-
-    for i, src in enumerate(config.sources):
-        if isinstance(src, FileDropSource):
-            if src.site is not None:
-                check_site_ref(("sources", i, "site"), src.site)
-            for station, site_id in src.stations.items():
-                check_site_ref(("sources", i, "stations", station), site_id)
-        elif src.sites != "all":
-            for site_id in src.sites:
-                check_site_ref(("sources", i, "sites"), site_id)
-    channel_ids = {c.id for c in config.channels} | {"stdout"} | (other_channels or set())
-
-    def channel_known(ref: str) -> bool:
-        return ref in channel_ids or other_channels is None
-
-    for i, sub in enumerate(config.subscribers):
-        if sub.id.startswith(BOT_SUBSCRIBER_PREFIX):
-            add(
-                ("subscribers", i, "id"),
-                f"ids starting {BOT_SUBSCRIBER_PREFIX!r} are kept for the bot's followers "
-                f"(got {sub.id!r})",
-            )
-        if not channel_known(sub.channel):
-            add(
-                ("subscribers", i, "channel"),
-                f"unknown channel {sub.channel!r} (known: {', '.join(sorted(channel_ids))})",
-            )
-        else:
-            ch = next((c for c in config.channels if c.id == sub.channel), None)
-            if isinstance(ch, EmailChannel | FolderChannel) and not sub.address:
-                add(("subscribers", i, "address"), "an email address is needed for this channel")
-            if sub.address and ch is not None and isinstance(ch, EmailChannel | FolderChannel):
-                if not re.match(r"^[^@\s<>,;]+@[^@\s<>,;]+\.[^@\s<>,;]+$", sub.address):
-                    add(("subscribers", i, "address"), f"not an email address: {sub.address!r}")
-            if isinstance(ch, MatrixChannel):
-                check_matrix_address(add, ("subscribers", i, "address"), sub.address, ch)
-        for sel in sub.sites:
-            check_selector(("subscribers", i, "sites"), sel)
-    for code, granted in config.bot.join_codes.items():
-        check_selector(("bot", "join_codes", code), granted)  # a site, "tag:NAME" or "all"
-    if not channel_known(config.bot.channel):
-        add(
-            ("bot", "channel"),
-            f"unknown channel {config.bot.channel!r} (known: {', '.join(sorted(channel_ids))})",
-        )
-    for i, rule_path in enumerate(config.rules):
-        if not rule_path.exists():
-            add(("rules", i), f"rule path not found: {rule_path}")
-    if config.model is not None and not config.model.is_file():
-        add(("model",), f"model file not found: {config.model} (write one with fogwatch learn)")
-    if (problem := instance_problem(config)) is not None:
-        add(("instance", "count"), problem)
-    if config.web is not None and not is_loopback_host(config.web.host) and not config.web.token:
-        add(("web", "token"), f"web.host {config.web.host} is not loopback: a token is needed")
-    return problems
