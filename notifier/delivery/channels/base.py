@@ -27,6 +27,8 @@ from typing import TYPE_CHECKING, Protocol, runtime_checkable
 from notifier.core.errors import TransientDeliveryError
 
 if TYPE_CHECKING:  # pragma: no cover
+    import requests
+
     from notifier.delivery.messages import Message
     from notifier.storage.deliveries import Delivery
 
@@ -94,6 +96,29 @@ class BaseChannel:
         tb: TracebackType | None,
     ) -> None:
         self.close()
+
+
+class SessionChannel(BaseChannel):
+    """A channel that talks HTTP through one ``requests`` session: one handed in (the
+    caller closes it) or its own, made by ``open`` and closed by ``close``."""
+
+    _session: requests.Session | None = None
+    _own_session: bool = True
+
+    def _use_session(self, session: requests.Session | None) -> None:
+        self._own_session = session is None
+        self._session = session
+
+    def open(self) -> None:
+        if self._session is None:
+            import requests
+
+            self._session = requests.Session()
+
+    def close(self) -> None:
+        if self._own_session and self._session is not None:
+            self._session.close()
+            self._session = None
 
 
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]+")

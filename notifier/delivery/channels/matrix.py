@@ -36,7 +36,7 @@ import requests
 
 from notifier.core.config_matrix import MATRIX_ROOM, MATRIX_USER
 from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
-from notifier.delivery.channels.base import BaseChannel, RetryLater, safe_key
+from notifier.delivery.channels.base import RetryLater, SessionChannel, safe_key
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import MatrixChannel
@@ -66,23 +66,16 @@ def message_content(message: Message) -> dict[str, str]:
     }
 
 
-class MatrixSender(BaseChannel):
+class MatrixSender(SessionChannel):
     def __init__(self, config: MatrixChannel, session: requests.Session | None = None):
         self.id = config.id
         self.config = config
-        self._own_session = session is None
-        self._session = session
+        self._use_session(session)
         self._rooms: dict[str, str] = {}  # alias or user id → room id, for this batch
         self._me: str | None = None
 
-    def open(self) -> None:
-        if self._session is None:
-            self._session = requests.Session()
-
     def close(self) -> None:
-        if self._own_session and self._session is not None:
-            self._session.close()
-            self._session = None
+        super().close()
         self._rooms.clear()
 
     def _call(self, method: str, path: str, body: Any = None) -> Any:

@@ -32,7 +32,7 @@ import requests
 
 from notifier.core.errors import PermanentDeliveryError, TransientDeliveryError
 from notifier.core.signing import sign_headers
-from notifier.delivery.channels.base import BaseChannel, RetryLater, clean_header, safe_key
+from notifier.delivery.channels.base import RetryLater, SessionChannel, clean_header, safe_key
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import WebhookChannel
@@ -65,7 +65,7 @@ def _retry_after(value: str | None) -> float | None:
     return max(0.0, when.timestamp() - time.time())
 
 
-class WebhookSender(BaseChannel):
+class WebhookSender(SessionChannel):
     def __init__(
         self,
         config: WebhookChannel,
@@ -74,18 +74,8 @@ class WebhookSender(BaseChannel):
     ):
         self.id = config.id
         self.config = config
-        self._own_session = session is None
-        self._session = session
+        self._use_session(session)
         self._clock = clock
-
-    def open(self) -> None:
-        if self._session is None:
-            self._session = requests.Session()
-
-    def close(self) -> None:
-        if self._own_session and self._session is not None:
-            self._session.close()
-            self._session = None
 
     def send(
         self,
