@@ -372,11 +372,12 @@ class Service:
             other_obs = observations_for(partial, self.store, now)
         with self._lock:
             obs = self._observations(now)
-            found = evaluate(
-                self.loaded, obs, now, feature_cache=self._feature_cache, sites=self.sites
-            )
-            if others:
-                found += evaluate(self.loaded, other_obs, now, sites=others)
+            found = [
+                *evaluate(
+                    self.loaded, obs, now, feature_cache=self._feature_cache, sites=self.sites
+                ),
+                *(evaluate(self.loaded, other_obs, now, sites=others) if others else ()),
+            ]
             sites = [a for a in found if a.site.id in wanted]
             events = [outlook_event(sa, now) for sa in sites]
             deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
