@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import subprocess
 import sys
+import time
 from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -163,7 +164,14 @@ def test_one_leader_and_the_other_takes_over_when_its_connection_ends(pair: Any)
         (pid,) = conn.exec_driver_sql(
             "SELECT pid FROM pg_locks WHERE locktype = 'advisory' AND granted"
         ).scalars()  # the one session holding the lead
+        # pg_terminate_backend signals the backend and returns; the lock goes when the
+        # backend has exited (PostgreSQL docs, server signalling functions): wait for it
         assert conn.exec_driver_sql(f"SELECT pg_terminate_backend({int(pid)})").scalar()
+        deadline = time.monotonic() + 10.0
+        while time.monotonic() < deadline and conn.exec_driver_sql(
+            "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' AND granted"
+        ).scalar():
+            time.sleep(0.05)
     assert second.leads(), "the other takes over"
     assert not first.leads(), "and the old leader, asking again, no longer leads"
     # a leader that stops gives the lead up at once
