@@ -61,6 +61,10 @@ class FeatureSpec:
     kind: str = "number"  # number | bool
     decimals: int = 1
     description: str = ""
+    # False for the flags that only say whether a sensor reports (``*_known``): a rule's
+    # test of one decides which branch may hold, but "precipitation reported: no" in a
+    # message would read as "it is dry", so it is left out of the reasons shown
+    in_reasons: bool = True
 
 
 FEATURES: dict[str, FeatureSpec] = {
@@ -119,6 +123,7 @@ FEATURES: dict[str, FeatureSpec] = {
         "cloud cover reported",
         "",
         kind="bool",
+        in_reasons=False,
         description="observed or forecast; never unknown",
     ),
     "wind_ms": FeatureSpec("wind", "m/s"),
@@ -147,19 +152,20 @@ FEATURES: dict[str, FeatureSpec] = {
     "water_temp_c": FeatureSpec("water temperature", "°C"),
     "dewpoint_minus_water_c": FeatureSpec("dew point minus water temperature", "°C"),
     "water_temp_known": FeatureSpec(
-        "water temperature reported", "", kind="bool", description="never unknown"
+        "water temperature reported", "", kind="bool", in_reasons=False, description="never unknown"
     ),
     "water_temp_estimated": FeatureSpec(
         "water temperature from climatology",
         "",
         kind="bool",
+        in_reasons=False,
         description="the site's monthly water_temp_monthly_c stands in; never unknown",
     ),
     "water_minus_air_c": FeatureSpec("water minus air temperature", "°C"),
     "onshore": FeatureSpec("onshore wind", "", kind="bool"),
     "visibility_m": FeatureSpec("visibility", "m", decimals=0),
     "visibility_known": FeatureSpec(
-        "visibility reported", "", kind="bool", description="never unknown"
+        "visibility reported", "", kind="bool", in_reasons=False, description="never unknown"
     ),
     "visibility_trend_m_per_h": FeatureSpec(
         "visibility trend",
@@ -180,7 +186,9 @@ FEATURES: dict[str, FeatureSpec] = {
         description="Theil–Sen slope of the ceiling (capped at 2000 m) over the last 3 h; "
         "negative = lowering",
     ),
-    "ceiling_known": FeatureSpec("ceiling reported", "", kind="bool", description="never unknown"),
+    "ceiling_known": FeatureSpec(
+        "ceiling reported", "", kind="bool", in_reasons=False, description="never unknown"
+    ),
     "precip_last_3h_mm": FeatureSpec(
         "precipitation, last 3 h", "mm", description="from the hourly amounts reported"
     ),
@@ -193,6 +201,7 @@ FEATURES: dict[str, FeatureSpec] = {
         "precipitation reported",
         "",
         kind="bool",
+        in_reasons=False,
         description="precipitation amounts in the last 24 h; never unknown",
     ),
     "observed_fog": FeatureSpec("fog observed", "", kind="bool"),

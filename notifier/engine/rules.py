@@ -268,7 +268,7 @@ class RuleResult:
 
     def reasons(self) -> list[str]:
         """Each test that held, value against threshold: 'dew-point depression 0.8 °C ≤ 1 °C'."""
-        return [_reason(o) for o in self.outcomes if o.held]
+        return [_reason(o) for o in self.outcomes if o.held and FEATURES[o.test.feature].in_reasons]
 
     def explanation(self, values: Mapping[str, float]) -> str:
         return render_template(self.rule.explain, values)

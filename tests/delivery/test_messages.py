@@ -60,7 +60,9 @@ def test_reasons_carry_units(night_events):
     warning = next(e for e in night_events if e.type == "escalated")
     text = render(warning, site("clear-field"), RULES).text
     assert re.search(r"wind \d+\.\d m/s ≤ 3\.5 m/s", text)
-    assert "°C/h" in text and "Why:" in text
+    # the depression's rate with its sign and unit, in words a phone reader takes in
+    flat = " ".join(text.split())  # as read, whatever the line wrapping
+    assert re.search(r"the gap changing by [+-]\d+\.\d\d °C an hour", flat) and "Why:" in text
     # a time, or plainly none: never a "?" (before tonight's cooling curve is fitted)
     when = r"When: (from about \d\d:\d\d|no arrival time can be worked out|no firm arrival time)"
     assert re.search(when, text)

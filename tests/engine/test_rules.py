@@ -274,6 +274,24 @@ def test_reasons_name_value_and_threshold(tmp_path):
     assert res.explanation({"dewpoint_depression_c": 0.8}) == "depression 0.8"
 
 
+def test_reasons_leave_out_whether_a_sensor_reports(tmp_path):
+    # a test of precip_known picks the branch that may hold ("no rain gauge: judged as
+    # before"); shown as "precipitation reported: no" it would read as "it is dry"
+    body = GOOD.replace(
+        "      - wind_ms: {below: 3}\n",
+        "      - wind_ms: {below: 3}\n      - precip_known: {is: false}\n",
+    )
+    rule = _rule(tmp_path, body)
+    feats = {
+        "dewpoint_depression_c": np.array([0.8]),
+        "wind_ms": np.array([1.2]),
+        "precip_known": np.array([0.0]),
+    }
+    (res,) = evaluate_rule(rule, [site("a")], [feats])
+    assert res.fires
+    assert res.reasons() == ["dew-point depression 0.8 °C ≤ 1 °C", "wind 1.2 m/s < 3 m/s"]
+
+
 # -- margin: hysteresis in the direction that keeps the rule true ------------------------
 #
 # Definition: with its margin a rule *holds* (sustains an active alert) at a value v
