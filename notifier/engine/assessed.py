@@ -216,6 +216,14 @@ class Assessments(Sequence[SiteAssessment]):
         ranks = list(self.site_levels.levels.values())
         return np.max(ranks, axis=0) if ranks else np.zeros(len(self.sites), np.int8)
 
+    def quiet(self) -> np.ndarray:
+        """Whether no rule fires at each site (so it has no hazards), without building
+        any assessment."""
+        n, offset = len(self.sites), self._offset
+        if not len(self._evals):
+            return np.ones(n, dtype=bool)
+        return ~self._flags[0][:, offset : offset + n].any(axis=0)
+
     def _moment(self, seconds: float) -> datetime:
         # newest readings and sunsets repeat from site to site: one object each
         found = self._moments.get(seconds)
