@@ -63,7 +63,7 @@ def site_snapshots(
     quiet = assessments.quiet()
     out: dict[str, tuple[str, dict[str, Any]]] = {}
     for i in np.flatnonzero(~quiet).tolist():
-        sa = assessments[i]
+        sa = assessments.unkept(i)  # not kept: tens of thousands on a foggy night
         out[sa.site.id] = (sa.level, snapshot(sa))
     out.update(_quiet_snapshots(assessments, np.flatnonzero(quiet)))
     # in the sites' order, as before (the rows are written in this order)
