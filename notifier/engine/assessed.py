@@ -222,7 +222,8 @@ class Assessments(Sequence[SiteAssessment]):
         n, offset = len(self.sites), self._offset
         if not len(self._evals):
             return np.ones(n, dtype=bool)
-        return ~self._flags[0][:, offset : offset + n].any(axis=0)
+        fires = np.asarray(self._flags[0][:, offset : offset + n].any(axis=0))
+        return ~fires
 
     def unkept(self, i: int) -> SiteAssessment:
         """Site ``i``'s assessment, built (or taken if built already) without keeping
