@@ -22,12 +22,18 @@ Run alone::
     .venv/bin/python bench/run.py --only w100              # W100 only
     .venv/bin/python bench/run.py --only scale             # 1k, 10k, 50k, 100k
     .venv/bin/python bench/scale.py --sites 2000 --dir /tmp/s  # one size, store kept
+
+With ``FOGWATCH_SCALE_PROFILE=file`` the child runs the measured cycle under cProfile
+and writes its statistics there (``python -m pstats file``); its figures are then not
+the ones to report.
 """
 
 from __future__ import annotations
 
 import argparse
+import cProfile
 import json
+import os
 import subprocess
 import sys
 import tempfile
@@ -119,7 +125,7 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
         return timed
 
     cycle_module.evaluate = timing("evaluate", cycle_module.evaluate)  # type: ignore[assignment]
-    cycle_module._snapshot = timing("snapshots", cycle_module._snapshot)  # type: ignore[assignment]
+    cycle_module.site_snapshots = timing("snapshots", cycle_module.site_snapshots)  # type: ignore[assignment]
     outbox_class = cycle_module.Outbox
     outbox_class.commit_cycle = timing("commit", outbox_class.commit_cycle)  # type: ignore[method-assign]
     poll = pd.read_pickle(db.with_name(f"w{n_sites}-poll.pkl"))
@@ -172,8 +178,15 @@ def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     figures["poll_rows"] = len(poll)
     reset_peak_rss()
     spent.update(dict.fromkeys(spent, 0.0))
+    profile = os.environ.get("FOGWATCH_SCALE_PROFILE")  # a file for the cycle's cProfile
+    profiler = cProfile.Profile() if profile else None
     t3, c3 = time.perf_counter(), cpu()
+    if profiler is not None:
+        profiler.enable()
     report = service.poll_and_assess(at)
+    if profiler is not None:
+        profiler.disable()
+        profiler.dump_stats(profile)
     figures["cycle_s"] = time.perf_counter() - t3
     figures["cycle_cpu_s"] = cpu() - c3
     figures.update({f"cycle_{k}_s": v for k, v in spent.items()})

@@ -216,6 +216,21 @@ class Assessments(Sequence[SiteAssessment]):
         ranks = list(self.site_levels.levels.values())
         return np.max(ranks, axis=0) if ranks else np.zeros(len(self.sites), np.int8)
 
+    def quiet(self) -> np.ndarray:
+        """Whether no rule fires at each site (so it has no hazards), without building
+        any assessment."""
+        n, offset = len(self.sites), self._offset
+        if not len(self._evals):
+            return np.ones(n, dtype=bool)
+        fires = np.asarray(self._flags[0][:, offset : offset + n].any(axis=0))
+        return ~fires
+
+    def unkept(self, i: int) -> SiteAssessment:
+        """Site ``i``'s assessment, built (or taken if built already) without keeping
+        it: for a reader that needs it once (the status snapshot of every site)."""
+        found = self._built.get(i)
+        return found if found is not None else self._build(i)
+
     def _moment(self, seconds: float) -> datetime:
         # newest readings and sunsets repeat from site to site: one object each
         found = self._moments.get(seconds)
@@ -306,7 +321,7 @@ def _reasons(evals: Sequence[RuleEvaluation], i: int) -> list[str]:
     out: list[str] = []
     said: set[str] = set()
     for ev in evals:
-        for text in ev[i].reasons():
+        for text in ev.reasons_at(i):
             value = _COMPARED.split(text, maxsplit=1)[0]
             if value not in said:
                 said.add(value)

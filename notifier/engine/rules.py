@@ -326,6 +326,15 @@ class RuleEvaluation(Sequence[RuleResult]):
             outcomes=outcomes,
         )
 
+    def reasons_at(self, i: int) -> list[str]:
+        """``self[i].reasons()``, without building the result: only the tests that
+        held are read."""
+        return [
+            _reason(Outcome(t, _as_float(v[i]), True, bool(k[i])))
+            for t, v, h, k in zip(self.tests, self.values, self.held, self.known, strict=True)
+            if h[i] and FEATURES[t.feature].in_reasons
+        ]
+
 
 def evaluate_rule(
     rule: Rule,

@@ -38,12 +38,16 @@ def event_charts(
         ch = next((c for c in config.channels if c.id == d.channel_id), None)
         if isinstance(ch, FolderChannel) or (isinstance(ch, EmailChannel) and ch.chart):
             wanted.add(d.event_id)
-    by_site = {sa.site.id: sa for sa in assessments}
-    out = {}
-    for ev in events:
-        if ev.id not in wanted or ev.hazard == "data_gap":
-            continue
-        sa = by_site[ev.site_id]
+    out: dict[str, bytes] = {}
+    charted = [ev for ev in events if ev.id in wanted and ev.hazard != "data_gap"]
+    if not charted:
+        return out
+    # only the charted sites' assessments are read (each is built when first read)
+    sites = getattr(assessments, "sites", None)  # ``Assessments`` knows them unbuilt
+    ids = [s.id for s in sites] if sites is not None else [sa.site.id for sa in assessments]
+    where = {site_id: i for i, site_id in enumerate(ids)}
+    for ev in charted:
+        sa = assessments[where[ev.site_id]]
         frame = obs[obs["site"] == ev.site_id] if len(obs) else obs
         # the projection ends at sunrise (charts.night_points)
         to_sunrise = sa.features.get("hours_to_sunrise", math.nan)

@@ -31,6 +31,7 @@ from notifier.service.loading import (
     load,
     open_store,
 )
+from notifier.service.snapshots import site_snapshots
 from notifier.storage.botstate import BotState
 from notifier.storage.leader import Leadership
 from notifier.storage.outbox import Outbox
@@ -277,6 +278,7 @@ class Service:
                 [s.id for s in self.sites],
                 back=timedelta(seconds=self.config.store.window),
                 ahead=FORECAST_HORIZON,
+                only_these=self.config.instance.count > 1,  # the others' rows not read
             )
         return self._window.frame(now)
 
@@ -305,7 +307,7 @@ class Service:
         states, events = step(previous, assessments, now, self.config.alerts)
         deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
         charts = event_charts(self.config, events, deliveries, assessments, obs, now)
-        snapshots = {sa.site.id: (sa.level, _snapshot(sa)) for sa in assessments}
+        snapshots = site_snapshots(assessments)
         added = self.outbox.commit_cycle(
             previous, states, events, deliveries, now, charts=charts, snapshots=snapshots
         )
@@ -372,13 +374,13 @@ class Service:
             other_obs = observations_for(partial, self.store, now)
         with self._lock:
             obs = self._observations(now)
-            found = [
-                *evaluate(
-                    self.loaded, obs, now, feature_cache=self._feature_cache, sites=self.sites
-                ),
-                *(evaluate(self.loaded, other_obs, now, sites=others) if others else ()),
-            ]
-            sites = [a for a in found if a.site.id in wanted]
+            found = evaluate(
+                self.loaded, obs, now, feature_cache=self._feature_cache, sites=self.sites
+            )
+            # only the wanted sites' assessments are built (``Assessments`` is lazy)
+            sites = [found[i] for i, s in enumerate(self.sites) if s.id in wanted]
+            if others:
+                sites.extend(evaluate(self.loaded, other_obs, now, sites=others))
             events = [outlook_event(sa, now) for sa in sites]
             deliveries = route(events, self.subscribers(), self.config, self.mutes(now))
             # none where it would only repeat an alert the recipient was just told of
@@ -417,33 +419,3 @@ class Service:
             self._drop_sources()
             self.leadership.release()
             self.store.close()
-
-
-_SNAPSHOT_FEATURES = (
-    "temp_c",
-    "dewpoint_c",
-    "dewpoint_depression_c",
-    "projected_min_temp_c",
-    "visibility_m",
-    "wind_ms",
-    "cloud_pct",
-    "hours_to_fog",
-)
-
-
-def _snapshot(sa: SiteAssessment) -> dict[str, Any]:
-    """What the bot and ``status`` show without recomputing (every site, every cycle:
-    only the features shown are turned into JSON)."""
-    import dataclasses
-    import math
-
-    from notifier.engine.assessment import to_json
-
-    features = sa.features  # looked up by name: a site's table row has some 40
-    wanted = {k: features[k] for k in _SNAPSHOT_FEATURES if k in features}
-    wanted["data_age_min"] = sa.age_min  # (the age and staleness read it)
-    (data,) = to_json([dataclasses.replace(sa, features=wanted)])
-    data["features"] = {k: v for k, v in data["features"].items() if k in _SNAPSHOT_FEATURES}
-    age = sa.age_min
-    data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
-    return data

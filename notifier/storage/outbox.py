@@ -99,72 +99,89 @@ class Outbox:
         new_states: Mapping[StateKey, AlertState],
         when: str,
     ) -> None:
-        for key in previous.keys() - new_states.keys():
+        gone = [{"s": key[0], "h": key[1]} for key in previous.keys() - new_states.keys()]
+        if gone:  # one executemany, not a statement per state
             conn.execute(
                 alert_states.delete().where(
-                    (alert_states.c.site == key[0]) & (alert_states.c.hazard == key[1])
-                )
+                    (alert_states.c.site == sa.bindparam("s"))
+                    & (alert_states.c.hazard == sa.bindparam("h"))
+                ),
+                gone,
             )
-        for key, state in new_states.items():
-            if previous.get(key) == state:
-                continue
-            stmt = self.store._insert(alert_states).values(
-                site=key[0], hazard=key[1], state=json.dumps(state.to_dict()), updated_at=when
-            )
+        rows = [
+            {
+                "site": key[0],
+                "hazard": key[1],
+                "state": json.dumps(state.to_dict()),
+                "updated_at": when,
+            }
+            for key, state in new_states.items()
+            if previous.get(key) != state
+        ]
+        if rows:
+            stmt = self.store._insert(alert_states)
             conn.execute(
                 stmt.on_conflict_do_update(
                     index_elements=["site", "hazard"],
                     set_={"state": stmt.excluded.state, "updated_at": stmt.excluded.updated_at},
-                )
+                ),
+                rows,
             )
 
     def _write_events(
         self, conn: Connection, new_events: Sequence[Event], charts: Mapping[str, bytes], when: str
     ) -> None:
-        for ev in new_events:
-            conn.execute(
-                self.store._insert(events)
-                .values(
-                    id=ev.id,
-                    site=ev.site_id,
-                    hazard=ev.hazard,
-                    type=ev.type,
-                    level=ev.level,
-                    time=iso_z(ev.time),
-                    payload=json.dumps(ev.to_dict()),
-                    chart=charts.get(ev.id),
-                    created_at=when,
-                )
-                .on_conflict_do_nothing(index_elements=["id"])
-            )
+        if not new_events:
+            return
+        rows = [
+            {
+                "id": ev.id,
+                "site": ev.site_id,
+                "hazard": ev.hazard,
+                "type": ev.type,
+                "level": ev.level,
+                "time": iso_z(ev.time),
+                "payload": json.dumps(ev.to_dict()),
+                "chart": charts.get(ev.id),
+                "created_at": when,
+            }
+            for ev in new_events
+        ]
+        # one executemany (SQLAlchemy sends it as multi-row INSERTs): a statement per
+        # event cost seconds a cycle when tens of thousands of alerts are raised at once
+        stmt = self.store._insert(events).on_conflict_do_nothing(index_elements=["id"])
+        conn.execute(stmt, rows)
 
     def _write_deliveries(
         self, conn: Connection, new_deliveries: Sequence[Delivery], when: str
     ) -> int:
-        added = 0
-        for d in new_deliveries:
-            result = conn.execute(
-                self.store._insert(deliveries)
-                .values(
-                    key=d.key,
-                    event_id=d.event_id,
-                    subscriber=d.subscriber_id,
-                    channel=d.channel_id,
-                    address=d.address,
-                    status="pending",
-                    attempts=0,
-                    next_attempt_at=when,
-                    not_before=iso_z(d.not_before) if d.not_before else None,
-                    summary=int(d.summary),
-                    created_at=when,
-                )
-                .on_conflict_do_nothing(index_elements=["key"])
-                # counted by what comes back: PostgreSQL's driver reports no rowcount
-                # for an INSERT that SQLAlchemy has given a RETURNING of its own
-                .returning(deliveries.c.key)
-            )
-            added += len(result.fetchall())
-        return added
+        if not new_deliveries:
+            return 0
+        rows = [
+            {
+                "key": d.key,
+                "event_id": d.event_id,
+                "subscriber": d.subscriber_id,
+                "channel": d.channel_id,
+                "address": d.address,
+                "status": "pending",
+                "attempts": 0,
+                "next_attempt_at": when,
+                "not_before": iso_z(d.not_before) if d.not_before else None,
+                "summary": int(d.summary),
+                "created_at": when,
+            }
+            for d in new_deliveries
+        ]
+        stmt = (
+            self.store._insert(deliveries)
+            .on_conflict_do_nothing(index_elements=["key"])
+            # counted by what comes back (a key taken already returns nothing): the
+            # drivers report no dependable rowcount for a batched INSERT
+            .returning(deliveries.c.key)
+        )
+        result = conn.execute(stmt, rows)
+        return len(result.fetchall())
 
     def _write_snapshots(
         self, conn: Connection, snapshots: Mapping[str, tuple[str, dict[str, Any]]], when: str

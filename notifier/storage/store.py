@@ -291,8 +291,12 @@ class Store:
             params.append(int(after))
         if site_ids is not None:
             site_ids = list(site_ids)
-            sql += f" AND site IN ({', '.join([mark] * len(site_ids))})"
-            params += site_ids
+            if self.engine.dialect.name == "postgresql":  # one parameter, any number
+                sql += f" AND site = ANY({mark})"
+                params.append(site_ids)
+            else:
+                sql += f" AND site IN ({', '.join([mark] * len(site_ids))})"
+                params += site_ids
         if after is not None and self.engine.dialect.name == "sqlite":
             # "+site": SQLite would otherwise walk the whole primary-key index to save the
             # sort, rather than take the few rows of the latest batches by their index

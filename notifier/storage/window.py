@@ -62,8 +62,19 @@ class RollingWindow:
     """Observations of ``site_ids`` from ``at - back`` to ``at + ahead``, kept up to date
     from ``store`` with one small read per call of :meth:`frame`."""
 
-    def __init__(self, store: Store, site_ids: Sequence[str], *, back: timedelta, ahead: timedelta):
+    def __init__(
+        self,
+        store: Store,
+        site_ids: Sequence[str],
+        *,
+        back: timedelta,
+        ahead: timedelta,
+        only_these: bool = False,
+    ):
+        """``only_these``: the store also holds other sites (another instance's share),
+        so reads ask for these sites alone rather than reading all and dropping the rest."""
         self.store = store
+        self.only_these = only_these
         self.sites = pd.Index(list(dict.fromkeys(site_ids)), dtype=object)
         self.back = back
         self.ahead = ahead
@@ -103,7 +114,9 @@ class RollingWindow:
         same_sites = list(self.sites) == list(dict.fromkeys(site_ids))
         if same_sites and back == self.back and ahead == self.ahead:
             return self
-        fresh = RollingWindow(self.store, site_ids, back=back, ahead=ahead)
+        fresh = RollingWindow(
+            self.store, site_ids, back=back, ahead=ahead, only_these=self.only_these
+        )
         if self.last_at is not None:
             fresh.frame(self.last_at)
         return fresh
@@ -117,7 +130,8 @@ class RollingWindow:
         from datetime import UTC
 
         start = datetime.fromtimestamp(start_s, tz=UTC)
-        return self.store.window(None, start, None, after=after, categorical=True)
+        sites = list(self.sites) if self.only_these and _listable(self.store, self.sites) else None
+        return self.store.window(sites, start, None, after=after, categorical=True)
 
     def _load(self, start_s: int) -> None:
         batch = self.store.last_batch()  # first: a batch committed meanwhile is read again
@@ -323,6 +337,15 @@ def _release_freed_heap() -> None:
         trim = None
     if trim is not None:
         trim(0)
+
+
+#: SQLite takes at most 32,766 parameters in a statement (its default limit since 3.32)
+_SQLITE_SITES = 30_000
+
+
+def _listable(store: Store, sites: pd.Index) -> bool:
+    """Whether a read can name these sites (PostgreSQL: any number, as one array)."""
+    return store.engine.dialect.name == "postgresql" or len(sites) <= _SQLITE_SITES
 
 
 def _ceil_s(moment: datetime) -> int:

@@ -287,9 +287,11 @@ def test_reasons_leave_out_whether_a_sensor_reports(tmp_path):
         "wind_ms": np.array([1.2]),
         "precip_known": np.array([0.0]),
     }
-    (res,) = evaluate_rule(rule, [site("a")], [feats])
+    evaluation = evaluate_rule(rule, [site("a")], [feats])
+    (res,) = evaluation
     assert res.fires
     assert res.reasons() == ["dew-point depression 0.8 °C ≤ 1 °C", "wind 1.2 m/s < 3 m/s"]
+    assert evaluation.reasons_at(0) == res.reasons()  # the snapshots' path, the same
 
 
 # -- margin: hysteresis in the direction that keeps the rule true ------------------------

@@ -336,3 +336,24 @@ def test_expiry_leaves_a_row_another_dispatcher_is_sending(any_store):
     wall[0] = T0 + box.lease  # the claim lapsed: nobody is sending it
     assert box.expire(late, late, "too old") == [row.key]
     assert [(r.status, r.last_error) for r in box.deliveries()] == [("expired", "too old")]
+
+
+def test_a_cycle_of_thousands_is_written_whole_and_counted_once(box):
+    # Written in batches (one executemany per table, sent as several multi-row
+    # INSERTs): past SQLAlchemy's 1,000-row page the count of deliveries added must
+    # still be the rows new to the table, keys already there and repeated ones not
+    # counted (the idempotency key, common practice for outboxes).
+    sites = [f"site-{i:04d}" for i in range(1500)]
+    evs = [event(site_id=s, at=T0) for s in sites]
+    states = {(s, "fog"): state((s, "fog")) for s in sites}
+    first = [d for ev in evs[:700] for d in deliveries_for(ev, "harbour-ops")]
+    assert box.commit_cycle({}, {}, evs[:700], first, T0) == 700
+    rows = [d for ev in evs for d in deliveries_for(ev, "harbour-ops", "duty-lead")]
+    rows += rows[:10]  # the same delivery twice in one cycle
+    assert box.commit_cycle({}, states, evs, rows, T0) == 3000 - 700
+    assert counts(box) == (1500, 1500, 3000)
+    assert box.states() == states
+    # states that end are deleted together, the others left as they were
+    kept = {k: v for k, v in states.items() if k[0] < "site-1000"}
+    box.commit_cycle(states, kept, [], [], T0)
+    assert box.states() == kept

@@ -103,6 +103,28 @@ def test_a_cycle_reads_only_what_was_written_since(store: Store) -> None:
     assert window.frame(at)["time"].min() >= at - BACK
 
 
+def test_a_share_of_the_sites_reads_only_its_own_rows(store: Store) -> None:
+    # another instance's sites in the same store (README "Several instances"): a window
+    # of this instance's share asks for its sites alone, at the start and every cycle
+    others = ["zz-fen", "zz-moor"]
+    store.add_observations(
+        canonical([row(s, m) for s in WATCHED + others for m in range(0, 300, 10)])
+    )
+    window = RollingWindow(store, WATCHED, back=BACK, ahead=AHEAD, only_these=True)
+    at = T0 + timedelta(minutes=290)
+    assert_same_as_a_full_read(store, window, at)
+    assert window.last_read == 90, "30 rows of each of the three sites, none of the others'"
+    store.add_observations(canonical([row(s, 300, temp=1.0) for s in WATCHED + others]))
+    at += timedelta(minutes=10)
+    assert_same_as_a_full_read(store, window, at)
+    assert window.last_read == 3
+    # a reload that keeps the sites keeps the window; one that changes them reads anew,
+    # still only its own sites
+    assert window.renewed(WATCHED, back=BACK, ahead=AHEAD) is window
+    fewer = window.renewed(WATCHED[:2], back=BACK, ahead=AHEAD)
+    assert fewer.only_these and fewer.last_read == 2 * 31
+
+
 def test_forecasts_come_into_view_as_time_moves_on(store: Store) -> None:
     store.add_observations(canonical([row("zz-vale", m, kind="forecast") for m in (60, 600)]))
     window = RollingWindow(store, WATCHED, back=BACK, ahead=AHEAD)

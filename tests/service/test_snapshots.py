@@ -1,0 +1,50 @@
+"""Site snapshots built from the arrays (sites where no rule fires) against the per-site
+snapshot of the per-site oracle assessment (tests/engine/oracle_assess.py): the same
+JSON, byte for byte, for every site of randomised invented worlds."""
+
+from __future__ import annotations
+
+import json
+from datetime import UTC, datetime, timedelta
+
+import notifier.engine.assess as assess_module
+from notifier.engine.assessed import Assessments
+from notifier.service.snapshots import site_snapshots, snapshot
+from tests.engine.oracle_assess import oracle_assess_times
+from tests.engine.scenes import RULES
+from tests.engine.test_oracle import EVENING, world
+
+
+def _unchecked(fn):
+    return getattr(fn, "__wrapped__", fn)
+
+
+def test_snapshots_from_the_arrays_are_the_per_site_ones():
+    evening = datetime.combine(EVENING, datetime.min.time(), tzinfo=UTC)
+    times = [evening + timedelta(hours=h) for h in (17, 22, 27, 30)]
+    quiet = loud = stale = never = 0
+    for new, old, sites in _worlds(times, seeds=(5, 6, 8)):
+        assert isinstance(new, Assessments)
+        got = site_snapshots(new)
+        want = {sa.site.id: (sa.level, snapshot(sa)) for sa in old}
+        assert list(got) == [s.id for s in sites]
+        # the rows written: the same text (json.dumps keeps the keys' order)
+        assert {k: (lv, json.dumps(p)) for k, (lv, p) in got.items()} == {
+            k: (lv, json.dumps(p)) for k, (lv, p) in want.items()
+        }
+        quiet += int(new.quiet().sum())
+        loud += int((~new.quiet()).sum())
+        stale += sum(p["data"]["stale"] for _, p in got.values())
+        never += sum(p["data"]["last_time"] is None for _, p in got.values())
+    # the worlds cover both paths, stale data and sites that never reported
+    assert quiet and loud and stale and never
+
+
+def _worlds(times, seeds):
+    for seed in seeds:
+        sites, obs = world(seed, 30)
+        # a short stale limit, so that some sites are stale and some not
+        found = _unchecked(assess_module.assess_times)(RULES, sites, obs, times, stale_after_min=25)
+        expected = oracle_assess_times(RULES, sites, obs, times, stale_after_min=25)
+        for new, old in zip(found, expected, strict=True):
+            yield new, old, sites
