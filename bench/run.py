@@ -412,6 +412,7 @@ def run_cli(tmp: Path) -> dict[str, Any]:
     folder.mkdir()
     config = folder / "demo_sites.yaml"
     shutil.copy(ROOT / "demo_sites.yaml", config)
+    (folder / "drop").mkdir()  # the config's drop folder: check reports a missing one
     env = dict(os.environ)
     # dummy Standard Webhooks secrets (whsec_ + base64 of 24 invented bytes)
     env.setdefault("FOGWATCH_DEMO_WEBHOOK_SECRET", "whsec_YmVuY2gta2V5LW5vdC1hLXNlY3JldC0yNA==")
