@@ -25,8 +25,9 @@ from notifier.engine.assessment import STALE_AFTER_MIN
 from notifier.engine.catalog import FeatureSettings, FeatureTable
 from notifier.engine.eta import ETA_METHODS as ETA_METHODS  # (re-exported)
 from notifier.engine.eta import hazard_eta as _eta  # noqa: F401  (re-exported)
-from notifier.engine.features import FeatureCache, compute_features_at
+from notifier.engine.features import FeatureCache
 from notifier.engine.rules import RuleEvaluation, RuleSet, evaluate_rule
+from notifier.engine.steps import features_at
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -159,7 +160,7 @@ def _add_feature_tables(
         - set(tables)
     )
     if wanted:
-        found = compute_features_at(
+        found = features_at(
             obs,
             sites,
             [datetime.fromtimestamp(w, UTC) for w in wanted],

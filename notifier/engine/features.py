@@ -60,7 +60,6 @@ __all__ = ["FeatureCache", "compute_features", "compute_features_at"]
 
 _SITE_LISTS = 4  # site lists remembered; a service passes the same one every cycle
 _SUN_CACHE_SIZE = 16  # evaluation times; the hold windows of a few cycles
-_SUN_BATCH_FROM = 8  # more evaluation times than this: one pass over them all (engine.steps)
 # an evaluation time's sun, for the earlier times of the same call: (t, sunset, sunrise,
 # night)
 _Sun = tuple[float, np.ndarray, np.ndarray, np.ndarray]
@@ -179,15 +178,10 @@ def compute_features_at(
     reductions; at night an earlier time also reuses the later time's sunset and
     sunrise. ``result[k]`` equals ``compute_features(obs, sites, times[k])`` but for
     rounding in the last bits (the shared block can be a column or two wider, which
-    reorders a least-squares sum; tested to 1e-9). More than a few times (a replay's
-    or ``fogwatch learn``'s batch of steps) go through one pass over a block with a row
-    per site and time instead (``notifier.engine.steps``).
+    reorders a least-squares sum; tested to 1e-9). For more than a few times (a
+    replay's or ``fogwatch learn``'s batch of steps) ``notifier.engine.steps.features_at``
+    takes one pass over a block with a row per site and time instead.
     """
-    if len(times) > _SUN_BATCH_FROM:
-        # many times (a replay's day of steps): a block row per site and time, one pass
-        from notifier.engine.steps import compute_features_steps
-
-        return compute_features_steps(obs, sites, times, settings, cache=cache)
     settings = settings or FeatureSettings()
     cache = cache if cache is not None else FeatureCache()
     st = cache.site_arrays(sites)

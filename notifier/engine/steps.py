@@ -34,6 +34,12 @@ import numpy as np
 from notifier import physics
 from notifier.engine.block import FORECAST_BEFORE_S, Block, SiteArrays, _site_time_order
 from notifier.engine.catalog import FeatureSettings, FeatureTable
+from notifier.engine.features import (
+    FeatureCache,
+    _empty_obs,
+    compute_features_at,
+    feature_values,
+)
 from notifier.engine.readings import (
     epoch_seconds,
     float_column,
@@ -47,13 +53,31 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from notifier.core.config import Site
-    from notifier.engine.features import FeatureCache
 
-__all__ = ["CELL_BUDGET", "StepBlock", "compute_features_steps", "window_bounds"]
+__all__ = ["CELL_BUDGET", "StepBlock", "compute_features_steps", "features_at", "window_bounds"]
 
 CELL_BUDGET = 4_000_000  # block cells per pass: ~32 MB a value block
 _FORECAST_COLUMNS = ("temp_c", "dewpoint_c", "cloud_pct", "wind_ms")
 _NEAR_S = 3 * 3600  # a forecast up to 3 h ahead stands in for cloud and wind (families)
+
+
+#: more evaluation times than this take the one pass (fewer: the block at those times)
+MANY_TIMES = 8
+
+
+def features_at(
+    obs: pd.DataFrame,
+    sites: Sequence[Site],
+    times: Sequence[datetime],
+    settings: FeatureSettings | None = None,
+    *,
+    cache: FeatureCache | None = None,
+) -> list[FeatureTable]:
+    """``compute_features_at`` for a few times (a cycle and its hold steps), one pass
+    (:func:`compute_features_steps`) for many (a replay's or ``learn``'s batch)."""
+    if len(times) > MANY_TIMES:
+        return compute_features_steps(obs, sites, times, settings, cache=cache)
+    return compute_features_at(obs, sites, times, settings, cache=cache)
 
 
 def compute_features_steps(
@@ -66,8 +90,6 @@ def compute_features_steps(
 ) -> list[FeatureTable]:
     """``compute_features(obs, sites, t)`` for every ``t`` of ``times``, in one pass
     over a block with a row per site and time (see the module docstring)."""
-    from notifier.engine.features import FeatureCache, _empty_obs, feature_values
-
     settings = settings or FeatureSettings()
     cache = cache if cache is not None else FeatureCache()
     st = cache.site_arrays(sites)

@@ -1,6 +1,6 @@
 """Features at many times in one pass against one call per time.
 
-``compute_features_steps`` (and ``compute_features_at`` with many times, which replay
+``compute_features_steps`` (through ``steps.features_at`` with many times, which replay
 and ``fogwatch learn`` reach through ``assess_times``) lays a history out as one block
 with a row per site and time. Each time's table must be what ``compute_features`` at
 that time alone gives: bit for bit for every feature but the least-squares cooling fit
@@ -24,7 +24,7 @@ import pytest
 
 from notifier.engine import steps
 from notifier.engine.catalog import FeatureSettings
-from notifier.engine.features import compute_features, compute_features_at
+from notifier.engine.features import compute_features
 from notifier.engine.model import FogModel, example_model
 from notifier.engine.steps import compute_features_steps, window_bounds
 from tests.engine.scenes import site, steady, utc
@@ -97,12 +97,13 @@ def test_chunks_give_what_one_pass_gives(monkeypatch):
     _check(obs, sites, times)
 
 
-def test_many_times_through_compute_features_at():
+def test_many_times_through_features_at(monkeypatch):
     # more than a few times (a replay's batch) takes the one-pass path
     sites, obs = _world(AT)
     sites = sites[:40]
     times = [AT - timedelta(minutes=10 * k) for k in range(20)]
-    tables = compute_features_at(obs, sites, times)
+    monkeypatch.setattr(steps, "compute_features_at", None)  # the per-time path: not taken
+    tables = steps.features_at(obs, sites, times)
     ids = [s.id for s in sites]
     for table, when in zip(tables, times, strict=True):
         _assert_same(table, compute_features(obs, sites, when), ids)

@@ -426,12 +426,12 @@ def test_the_one_pass_features_replay_as_one_call_per_time(month, monkeypatch):
     # before it. Both must give the same levels at every step, the same events and the
     # same night outcomes (the independent reference: the per-time feature code, which
     # test_replay_and_live_cycles_agree_event_for_event also holds live cycles to).
-    from notifier.engine import features
+    from notifier.engine import steps
 
     loaded, obs, _, _, _, start, _ = month
     end = start + timedelta(days=3)
     one_pass = replay(loaded, obs, start, end)
-    monkeypatch.setattr(features, "_SUN_BATCH_FROM", 10**9)
+    monkeypatch.setattr(steps, "MANY_TIMES", 10**9)
     per_time = replay(loaded, obs, start, end)
     np.testing.assert_array_equal(one_pass.fog_level, per_time.fog_level)
     key = lambda e: (e.time, e.site_id, e.hazard, e.type, e.level, tuple(e.rules))  # noqa: E731
