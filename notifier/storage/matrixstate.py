@@ -87,10 +87,6 @@ class MatrixState:
             conn.execute(
                 matrix_events.delete().where(matrix_events.c.handled_at < now - KEEP_EVENTS_S)
             )
-            inserted = conn.execute(
-                self.store._insert(matrix_events)
-                .values(event_id=event_id, room_id=room_id, handled_at=now)
-                .on_conflict_do_nothing(index_elements=["event_id"])
-                .returning(matrix_events.c.event_id)
-            ).first()
-            return inserted is not None
+            return self.store.insert_once(
+                conn, matrix_events, "event_id", event_id=event_id, room_id=room_id, handled_at=now
+            )

@@ -40,15 +40,10 @@ class SeenMessages:
         expires = max(timestamp, now) + self.keep_s
         with self.store.atomic() as conn:
             conn.execute(seen_messages.delete().where(seen_messages.c.expires_at < now))
-            # RETURNING says whether the row went in (rowcount is not reliable for an
-            # INSERT … ON CONFLICT DO NOTHING on every driver)
-            inserted = conn.execute(
-                self.store._insert(seen_messages)
-                .values(message_id=message_id, seen_at=now, expires_at=expires)
-                .on_conflict_do_nothing(index_elements=["message_id"])
-                .returning(seen_messages.c.message_id)
-            ).first()
-            return inserted is not None
+            return self.store.insert_once(
+                conn, seen_messages, "message_id",
+                message_id=message_id, seen_at=now, expires_at=expires,
+            )  # fmt: skip
 
     def count(self) -> int:
         """How many ids are kept (for tests and ``status``)."""

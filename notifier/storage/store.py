@@ -212,6 +212,17 @@ class Store:
 
         return sqlite_insert(table)
 
+    def insert_once(self, conn: Any, table: sa.Table, key: str, **values: Any) -> bool:
+        """Insert one row unless its ``key`` is taken; True when it went in (told by
+        RETURNING: rowcount is not reliable for ON CONFLICT DO NOTHING on every driver)."""
+        inserted = conn.execute(
+            self._insert(table)
+            .values(**values)
+            .on_conflict_do_nothing(index_elements=[key])
+            .returning(table.c[key])
+        ).first()
+        return inserted is not None
+
     def _mark(self) -> str:
         return "?" if self.engine.dialect.paramstyle == "qmark" else "%s"
 
