@@ -222,6 +222,8 @@ def _m0009_ceiling_precip(conn: Connection) -> None:
     real = "DOUBLE PRECISION" if conn.dialect.name == "postgresql" else "REAL"
     for column in ("ceiling_m", "precip_mm"):
         conn.exec_driver_sql(f"ALTER TABLE observations ADD COLUMN {column} {real}")
+
+
 def _m0010_matrix_sync(conn: Connection) -> None:
     """The Matrix connection's place in its sync stream and the events it answered, so
     that a restart neither answers a command twice nor misses one sent while it was
