@@ -29,7 +29,7 @@ from notifier.engine.features import FeatureCache
 from notifier.engine.readings import epoch_seconds
 from notifier.history.baselines import References, references
 from notifier.history.probability import chance_scores
-from notifier.history.truth import fog_spells_by_site, observed_rows
+from notifier.history.truth import fog_spells_by_site, observed_rows, rows_by_site
 from notifier.history.verify import (
     Contingency,
     NightOutcome,
@@ -111,11 +111,10 @@ def _readings(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, tuple[Any, A
 
     depression = column("temp_c") - column("dewpoint_c")
     wind = column("wind_ms")
-    site_ids = rows["site"].to_numpy(dtype=object)
     t_s = epoch_seconds(rows["time"])
-    for s in sites:
-        mine = np.flatnonzero(site_ids == s.id)
-        out[s.id] = (t_s[mine], depression[mine], wind[mine])
+    ids = [s.id for s in sites]
+    for sid, mine in zip(ids, rows_by_site(rows["site"], ids), strict=True):
+        out[sid] = (t_s[mine], depression[mine], wind[mine])
     return out
 
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from datetime import UTC, datetime
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, overload
 
 import numpy as np
 
@@ -16,7 +16,7 @@ from notifier.history.verify import FogSpell, fog_reports, fog_spells
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-__all__ = ["fog_spells_by_site", "observed_rows", "report_times"]
+__all__ = ["fog_spells_by_site", "observed_rows", "report_times", "rows_by_site"]
 
 
 def observed_rows(obs: pd.DataFrame) -> pd.DataFrame:
@@ -39,12 +39,9 @@ def fog_spells_by_site(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, lis
     )
     wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
     fog, known = fog_reports(vis, wx)
-    site_ids = rows["site"].to_numpy(dtype=object)
     t_s = epoch_seconds(rows["time"])
-    for sid in out:
-        mine = np.flatnonzero((site_ids == sid) & known)
-        times = [datetime.fromtimestamp(float(t), UTC) for t in t_s[mine]]
-        out[sid] = fog_spells(times, fog[mine].tolist())
+    for sid, mine in zip(out, rows_by_site(rows["site"], list(out), known), strict=True):
+        out[sid] = fog_spells(_Moments(t_s[mine]), fog[mine].tolist())
     return out
 
 
@@ -61,8 +58,52 @@ def report_times(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, np.ndarra
     )
     wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
     _, known = fog_reports(vis, wx)
-    site_ids = rows["site"].to_numpy(dtype=object)
     t_s = epoch_seconds(rows["time"])
-    for sid in out:
-        out[sid] = np.sort(t_s[(site_ids == sid) & known])
+    for sid, mine in zip(out, rows_by_site(rows["site"], list(out), known), strict=True):
+        out[sid] = np.sort(t_s[mine])
     return out
+
+
+def rows_by_site(
+    site: pd.Series, ids: Sequence[str], keep: np.ndarray | None = None
+) -> list[np.ndarray]:
+    """For each of ``ids``, the positions of its rows in ``site`` (where ``keep``), in
+    row order: one stable sort of the rows by site, not a scan of every row per site
+    (which made a replay of 1,000 sites spend minutes here)."""
+    import pandas as pd
+
+    wanted = pd.Index(list(ids), dtype=object)
+    if isinstance(site.dtype, pd.CategoricalDtype):
+        # the codes of the categories, read as places in ``ids`` (-1: not one of them)
+        places = np.append(wanted.get_indexer(site.cat.categories), -1)
+        codes = places[site.cat.codes.to_numpy()]
+    else:
+        codes = wanted.get_indexer(site.to_numpy(dtype=object))
+    if keep is not None:
+        codes = np.where(keep, codes, -1)
+    order = np.argsort(codes, kind="stable")
+    ends = np.cumsum(np.bincount(codes[codes >= 0], minlength=len(wanted)))
+    skipped = int(np.count_nonzero(codes < 0))  # sorted first
+    return np.split(order[skipped:], ends[:-1]) if len(wanted) else []
+
+
+class _Moments(Sequence[datetime]):
+    """POSIX seconds read as UTC datetimes when indexed (``fog_spells`` reads only the
+    few at the ends of a spell)."""
+
+    def __init__(self, seconds: np.ndarray):
+        self._seconds = seconds
+
+    def __len__(self) -> int:
+        return len(self._seconds)
+
+    @overload
+    def __getitem__(self, i: int) -> datetime: ...
+
+    @overload
+    def __getitem__(self, i: slice) -> list[datetime]: ...
+
+    def __getitem__(self, i: int | slice) -> datetime | list[datetime]:
+        if isinstance(i, slice):
+            return [datetime.fromtimestamp(float(t), UTC) for t in self._seconds[i]]
+        return datetime.fromtimestamp(float(self._seconds[i]), UTC)
