@@ -173,21 +173,21 @@ def _collect(
 ) -> tuple[ReplayResult, dict[str, np.ndarray]]:
     """One hourly replay of the rules: its result, and each site's feature values
     (features × steps) for the model's inputs."""
-    from notifier.history.replay import replay
+    from notifier.history.replay import feature_column, replay
 
     wanted = sorted({feature for _, feature, _ in INPUTS.values()})
     sites = loaded.config.sites
     n_steps = int((end - start).total_seconds() // STEP_S) + 1
-    values = {s.id: np.full((len(wanted), n_steps), np.nan) for s in sites}
+    # features × sites × steps, each step's column read from its feature table
+    values = np.full((len(wanted), len(sites), n_steps), np.nan)
 
     def keep(k: int, assessments: Sequence[Any]) -> None:
-        for sa in assessments:
-            feats = sa.features
-            values[sa.site.id][:, k] = [feats[f] for f in wanted]
+        for j, f in enumerate(wanted):
+            values[j, :, k] = feature_column(assessments, f)
 
     plain = type(loaded)(loaded.config, loaded.rules, None)  # the rules without a model
     result = replay(plain, obs, start, end, STEP_S, truth=truth, on_step=keep)
-    return result, {sid: dict(zip(wanted, v, strict=True)) for sid, v in values.items()}
+    return result, {s.id: dict(zip(wanted, values[:, i], strict=True)) for i, s in enumerate(sites)}
 
 
 def _months(times: np.ndarray, zone: str) -> np.ndarray:

@@ -46,7 +46,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.alerts import Event
     from notifier.service.loading import Loaded
 
-__all__ = ["ReplayResult", "replay"]
+__all__ = ["ReplayResult", "feature_column", "replay"]
 
 HISTORY = timedelta(hours=26)  # what one step's features can look back on
 BATCH = 144  # steps whose features and rules are worked out together (a day at 10 min)
@@ -190,7 +190,7 @@ def replay(
         for i, key in onset_steps.get(k, []):
             why_not[key] = _why_not(assessments[i])
         if chance is not None:
-            chance[:, k] = [sa.features["fog_probability"] for sa in assessments]
+            chance[:, k] = feature_column(assessments, "fog_probability")
         if on_step is not None:
             on_step(k, assessments)
         if progress is not None:
@@ -207,6 +207,15 @@ def replay(
     if deliver_to is not None:
         result.delivered = _write_messages(loaded, events, deliver_to)
     return result
+
+
+def feature_column(assessments: Sequence[Any], name: str) -> np.ndarray:
+    """A feature of every site at one step: read from the step's feature table (no site's
+    assessment is built for it), or from each assessment where there is no table."""
+    table = getattr(assessments, "table", None)
+    if table is not None:
+        return np.asarray(table.values[name], dtype=float)
+    return np.array([sa.features[name] for sa in assessments], dtype=float)
 
 
 def _in_site_order(obs: pd.DataFrame, ids: list[str]) -> pd.DataFrame:
