@@ -161,10 +161,12 @@ def _checked_assess_times(real: Callable[..., Any]) -> Callable[..., Any]:
 
 def _checked_step(real: Callable[..., Any]) -> Callable[..., Any]:
     @wraps(real)
-    def checked(previous: Mapping[Any, Any], assessments: Any, now: Any, settings: Any) -> Any:
+    def checked(
+        previous: Mapping[Any, Any], assessments: Any, now: Any, settings: Any, **kw: Any
+    ) -> Any:
         from tests.engine.oracle_lifecycle import oracle_step
 
-        found = real(previous, assessments, now, settings)
+        found = real(previous, assessments, now, settings, **kw)
         assert_same_step(found, oracle_step(previous, assessments, now, settings))
         CHECKS["step"] += 1
         return found
