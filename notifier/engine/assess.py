@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
@@ -182,7 +182,7 @@ def _evaluate_rules(
     window reaches, see :func:`_hold_entries`)."""
     k_times = len(times)
 
-    def stacked(j: int) -> dict[str, np.ndarray]:
+    def stacked(j: int) -> Mapping[str, np.ndarray]:
         # a time whose windows do not reach this far back stands in with its own table
         # (left out of the hold by ``hold_entries``)
         parts = [
@@ -190,7 +190,7 @@ def _evaluate_rules(
         ]
         if k_times == 1:
             return parts[0]
-        return {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
+        return _Stacked(parts)
 
     depth = max((int(e.max(initial=0)) for e in entries.values()), default=0)
     feats = [stacked(j) for j in range(depth + 1)]
@@ -211,3 +211,25 @@ def _evaluate_rules(
             )
         )
     return evals
+
+
+class _Stacked(Mapping[str, np.ndarray]):
+    """Each feature of several times' tables, their cells one after the other; a
+    feature is put together when a rule first reads it (the rules read a few of the
+    many features)."""
+
+    def __init__(self, parts: Sequence[Mapping[str, np.ndarray]]):
+        self._parts = parts
+        self._joined: dict[str, np.ndarray] = {}
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        found = self._joined.get(name)
+        if found is None:
+            found = self._joined[name] = np.concatenate([p[name] for p in self._parts])
+        return found
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._parts[0])
+
+    def __len__(self) -> int:
+        return len(self._parts[0])
