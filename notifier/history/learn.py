@@ -170,9 +170,9 @@ def _collect(
     start: datetime,
     end: datetime,
     truth: pd.DataFrame | None,
-) -> tuple[ReplayResult, dict[str, np.ndarray]]:
+) -> tuple[ReplayResult, dict[str, dict[str, np.ndarray]]]:
     """One hourly replay of the rules: its result, and each site's feature values
-    (features × steps) for the model's inputs."""
+    (each feature over the steps) for the model's inputs."""
     from notifier.history.replay import feature_column, replay
 
     wanted = sorted({feature for _, feature, _ in INPUTS.values()})
