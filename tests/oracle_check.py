@@ -161,12 +161,10 @@ def _checked_assess_times(real: Callable[..., Any]) -> Callable[..., Any]:
 
 def _checked_step(real: Callable[..., Any]) -> Callable[..., Any]:
     @wraps(real)
-    def checked(
-        previous: Mapping[Any, Any], assessments: Any, now: Any, settings: Any, **kw: Any
-    ) -> Any:
+    def checked(previous: Mapping[Any, Any], assessments: Any, now: Any, settings: Any) -> Any:
         from tests.engine.oracle_lifecycle import oracle_step
 
-        found = real(previous, assessments, now, settings, **kw)
+        found = real(previous, assessments, now, settings)
         assert_same_step(found, oracle_step(previous, assessments, now, settings))
         CHECKS["step"] += 1
         return found

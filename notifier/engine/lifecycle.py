@@ -67,7 +67,7 @@ from notifier.engine.assessment import level_rank
 from notifier.engine.data_gap import DATA_GAP, gap_held, gap_told_once
 from notifier.engine.event_parts import changes, make_event, sighted
 from notifier.engine.rules import HAZARDS
-from notifier.engine.settled import StateRows, sites_to_step
+from notifier.engine.settled import sites_to_step
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import AlertSettings
@@ -377,17 +377,13 @@ def step(
     assessments: Sequence[SiteAssessment],
     now: datetime,
     settings: AlertSettings,
-    *,
-    rows_kept: StateRows | None = None,
 ) -> tuple[dict[StateKey, AlertState], list[Event]]:
     """Advance every (site, hazard) state by one cycle; see the module docstring.
 
     States of sites not in ``assessments`` are returned unchanged. A state back at none
     is dropped once no cooldown depends on it. The rules below run only for the sites
     :func:`~notifier.engine.settled.sites_to_step` finds something to do at; at every
-    other site they would return the states unchanged, with no event. ``rows_kept`` is
-    handed to it: a caller stepping through many cycles (a replay) keeps one dict for
-    them all.
+    other site they would return the states unchanged, with no event.
     """
     if now.tzinfo is None:
         raise ValueError("now must be timezone-aware")
@@ -396,7 +392,7 @@ def step(
     events: list[Event] = []
     # numpy over every site and state finds the few sites with something to do
     view = levels_of(assessments)
-    todo = sites_to_step(previous, view, now, settings, rows_kept).tolist()
+    todo = sites_to_step(previous, view, now, settings).tolist()
     wanted = {view.ids[i] for i in todo}
     by_site: dict[str, set[str]] = {}
     for s, h in previous:

@@ -42,26 +42,14 @@ def _seconds(t: datetime | None) -> float:
     return math.nan if t is None else t.timestamp()
 
 
-#: what :func:`sites_to_step` reads of an active state, kept per state by a caller
-#: that steps the same states again and again (``StateRows``)
-_Row = tuple[str, int, float, float, float, int, bool, float]
-StateRows = dict[StateKey, tuple[AlertState, _Row]]
-
-
 def sites_to_step(
     previous: Mapping[StateKey, AlertState],
     view: SiteLevels,
     now: datetime,
     settings: AlertSettings,
-    rows_kept: StateRows | None = None,
 ) -> np.ndarray:
     """The indices (ascending) of the sites in ``view`` whose states may change, or
-    whose step may give an event; see the module docstring.
-
-    ``rows_kept``, a dict the caller keeps from call to call (a replay: thousands of
-    steps over the same states, most of them unchanged from one to the next), holds
-    each state's numbers as last read; a state that is the same object as then is not
-    read again."""
+    whose step may give an event; see the module docstring."""
     n = len(view.ids)
     index = view.index()
     now_s = now.timestamp()
@@ -81,26 +69,22 @@ def sites_to_step(
             continue
         if hazard in held:
             held[hazard][i] = level
-        kept = rows_kept.get((site_id, hazard)) if rows_kept is not None else None
-        if kept is not None and kept[0] is st:
-            rows.append((i, *kept[1]))
-            continue
         seen = 0
         for kind in st.seen:
             seen |= sight.get(kind, 0)
-        row = (
-            hazard,
-            level,
-            _seconds(st.below_since),
-            _seconds(st.clear_since),
-            _seconds(st.last_event_at),
-            seen,
-            bool(st.seen),
-            _seconds(st.eta),
+        rows.append(
+            (
+                i,
+                hazard,
+                level,
+                _seconds(st.below_since),
+                _seconds(st.clear_since),
+                _seconds(st.last_event_at),
+                seen,
+                bool(st.seen),
+                _seconds(st.eta),
+            )
         )
-        if rows_kept is not None:
-            rows_kept[(site_id, hazard)] = (st, row)
-        rows.append((i, *row))
     # up at once (or held by the cooldown, which the per-site rules judge)
     for hazard, ranks in view.levels.items():
         step |= ranks > held[hazard]

@@ -180,10 +180,9 @@ def replay(
     why_not: dict[tuple[str, datetime], list[str]] = {}
     states: dict[Any, Any] = {}
     events: list[Event] = []
-    rows_kept: dict[Any, Any] = {}  # the settling's numbers of each state, step to step
     for k, assessments in enumerate(_step_assessments(loaded, sites, obs, times)):
         now = datetime.fromtimestamp(float(times[k]), UTC)
-        states, found = step(states, assessments, now, config.alerts, rows_kept=rows_kept)
+        states, found = step(states, assessments, now, config.alerts)
         events.extend(found)
         for (site_id, hazard), st in states.items():
             if hazard == "fog":

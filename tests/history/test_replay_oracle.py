@@ -85,7 +85,7 @@ def world(seed: int, n_sites: int, nights: int) -> tuple[list, pd.DataFrame]:
     return sites, pd.concat(frames, ignore_index=True)
 
 
-def _per_site_step(previous, assessments, now, settings, **_fast_path_only):
+def _per_site_step(previous, assessments, now, settings):
     """The oracle lifecycle over every site's assessment object (all of them built)."""
     return oracle_step(previous, list(assessments), now, settings)
 
