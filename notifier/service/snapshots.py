@@ -11,7 +11,6 @@ same JSON (``tests/service/test_snapshots.py`` holds the first to the second).
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from collections.abc import Sequence
 from datetime import UTC, datetime
@@ -21,7 +20,8 @@ import numpy as np
 
 from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import Assessments
-from notifier.engine.assessment import to_json
+from notifier.engine.assessment import _json_number as json_number
+from notifier.engine.assessment import level_rank
 from notifier.engine.catalog import FEATURES
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -43,15 +43,43 @@ SNAPSHOT_FEATURES = (
 
 
 def snapshot(sa: SiteAssessment) -> dict[str, Any]:
-    """One site's snapshot: ``assess --json``'s shape with only the features shown."""
+    """One site's snapshot: ``assess --json``'s shape with only the features shown
+    (``to_json`` of the site with its other features left out; written out here so that
+    tens of thousands of sites a cycle do not each copy their assessment for it)."""
     features = sa.features  # looked up by name: a site's table row has some 40
-    wanted = {k: features[k] for k in SNAPSHOT_FEATURES if k in features}
-    wanted["data_age_min"] = sa.age_min  # (the age and staleness read it)
-    (data,) = to_json([dataclasses.replace(sa, features=wanted)])
-    data["features"] = {k: v for k, v in data["features"].items() if k in SNAPSHOT_FEATURES}
+    shown = {k: _shown(k, features[k]) for k in SNAPSHOT_FEATURES if k in features}
+    hazards = [
+        {
+            "hazard": h.hazard,
+            "level": h.level,
+            "kind": h.kind,
+            "eta": iso_z(h.eta),
+            "eta_method": h.eta_method or None,
+            "rules": h.rules,
+            "reasons": list(h.reasons),
+        }
+        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
+    ]
     age = sa.age_min
-    data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
-    return data
+    return {
+        "site": sa.site.id,
+        "time": iso_z(sa.time),
+        "level": sa.level,
+        "hazards": hazards,
+        "features": shown,
+        "data": {
+            "last_time": iso_z(sa.last_time),
+            "age_min": None if not math.isfinite(age) else round(age, 1),
+            "stale": sa.stale,
+        },
+    }
+
+
+def _shown(name: str, value: Any) -> Any:
+    # as ``to_json`` writes a feature's value (any number a hand-made assessment holds)
+    if FEATURES[name].kind == "bool":
+        return None if math.isnan(value) else bool(value)
+    return json_number(value)
 
 
 def site_snapshots(
