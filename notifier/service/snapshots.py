@@ -1,12 +1,13 @@
 """Every site's status snapshot, written each cycle: what the bot, ``status``, the web
 page and ``/health`` show without recomputing.
 
-A site where no rule fires (most sites on most nights) has no hazards, so its snapshot
-is its level ``none``, a few features and its data's age: read here straight from the
-feature table's arrays, without building its
-:class:`~notifier.engine.assessment.SiteAssessment`. Only the sites with a hazard go
-through :func:`snapshot` (their hazards' reasons are worked out then). Both give the
-same JSON (``tests/service/test_snapshots.py`` holds the first to the second).
+Every site's features and data age are read straight from the feature table's arrays,
+for all sites at once. A site where no rule fires (most sites on most nights) has no
+hazards, so that is its whole snapshot, its
+:class:`~notifier.engine.assessment.SiteAssessment` never built; only the sites with a
+hazard have theirs built, for their level and hazards (their reasons are worked out
+then). Both give the same JSON as :func:`snapshot` and as ``assess --json``
+(``tests/service/test_snapshots.py`` holds them to both).
 """
 
 from __future__ import annotations
@@ -27,7 +28,7 @@ from notifier.engine.catalog import FEATURES
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
 
-__all__ = ["SNAPSHOT_FEATURES", "site_snapshots", "snapshot"]
+__all__ = ["SNAPSHOT_FEATURES", "hazards_json", "site_snapshots", "snapshot"]
 
 #: the features a snapshot keeps (the status page's and the bot's columns)
 SNAPSHOT_FEATURES = (
@@ -48,7 +49,24 @@ def snapshot(sa: SiteAssessment) -> dict[str, Any]:
     tens of thousands of sites a cycle do not each copy their assessment for it)."""
     features = sa.features  # looked up by name: a site's table row has some 40
     shown = {k: _shown(k, features[k]) for k in SNAPSHOT_FEATURES if k in features}
-    hazards = [
+    age = sa.age_min
+    return {
+        "site": sa.site.id,
+        "time": iso_z(sa.time),
+        "level": sa.level,
+        "hazards": hazards_json(sa),
+        "features": shown,
+        "data": {
+            "last_time": iso_z(sa.last_time),
+            "age_min": None if not math.isfinite(age) else round(age, 1),
+            "stale": sa.stale,
+        },
+    }
+
+
+def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
+    """A site's hazards as ``to_json`` writes them, the highest level first."""
+    return [
         {
             "hazard": h.hazard,
             "level": h.level,
@@ -60,19 +78,6 @@ def snapshot(sa: SiteAssessment) -> dict[str, Any]:
         }
         for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
     ]
-    age = sa.age_min
-    return {
-        "site": sa.site.id,
-        "time": iso_z(sa.time),
-        "level": sa.level,
-        "hazards": hazards,
-        "features": shown,
-        "data": {
-            "last_time": iso_z(sa.last_time),
-            "age_min": None if not math.isfinite(age) else round(age, 1),
-            "stale": sa.stale,
-        },
-    }
 
 
 def _shown(name: str, value: Any) -> Any:
@@ -88,20 +93,21 @@ def site_snapshots(
     """Site id → (level, snapshot) for every site assessed."""
     if not isinstance(assessments, Assessments):
         return {sa.site.id: (sa.level, snapshot(sa)) for sa in assessments}
-    quiet = assessments.quiet()
-    out: dict[str, tuple[str, dict[str, Any]]] = {}
-    for i in np.flatnonzero(~quiet).tolist():
+    # every site's features and data from the arrays; then the sites where a rule fires
+    # get their level and hazards from their assessment
+    out = _array_snapshots(assessments, np.arange(len(assessments.sites)))
+    for i in np.flatnonzero(~assessments.quiet()).tolist():
         sa = assessments.unkept(i)  # not kept: tens of thousands on a foggy night
-        out[sa.site.id] = (sa.level, snapshot(sa))
-    out.update(_quiet_snapshots(assessments, np.flatnonzero(quiet)))
-    # in the sites' order, as before (the rows are written in this order)
-    return {s.id: out[s.id] for s in assessments.sites}
+        _, data = out[sa.site.id]
+        data["level"], data["hazards"] = sa.level, hazards_json(sa)
+        out[sa.site.id] = (sa.level, data)
+    return out
 
 
-def _quiet_snapshots(
+def _array_snapshots(
     assessments: Assessments, rows: np.ndarray
 ) -> dict[str, tuple[str, dict[str, Any]]]:
-    """The snapshots of the sites at ``rows`` where no rule fires, from the arrays."""
+    """The snapshots of the sites at ``rows`` as if no rule fired there, from the arrays."""
     table = assessments.table
     names = [k for k in SNAPSHOT_FEATURES if k in table.values]
     columns = [table.values[k][rows].tolist() for k in names]
