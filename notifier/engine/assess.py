@@ -27,7 +27,7 @@ from notifier.engine.eta import ETA_METHODS as ETA_METHODS  # (re-exported)
 from notifier.engine.eta import hazard_eta as _eta  # noqa: F401  (re-exported)
 from notifier.engine.features import FeatureCache
 from notifier.engine.rules import RuleEvaluation, RuleSet, evaluate_rule
-from notifier.engine.steps import features_at
+from notifier.engine.site_chunks import features_by_share
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -160,7 +160,7 @@ def _add_feature_tables(
         - set(tables)
     )
     if wanted:
-        found = features_at(
+        found = features_by_share(  # a share of the sites at a time: a smaller block
             obs,
             sites,
             [datetime.fromtimestamp(w, UTC) for w in wanted],

@@ -11,8 +11,6 @@ No expressions and no ``eval``: a rule can only compare named features to consta
 
 from __future__ import annotations
 
-import re
-import string
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,6 +20,7 @@ import numpy as np
 
 from notifier.core.timefmt import unit_suffix
 from notifier.engine.catalog import FEATURES, format_value
+from notifier.engine.templates import render_template as render_template  # (re-exported)
 
 __all__ = [
     "HAZARDS",
@@ -304,6 +303,9 @@ class RuleEvaluation(Sequence[RuleResult]):
         self.held = held
         self.known = known
         self.values = values
+        # per test that reasons show: its values, where it held, and its texts by value
+        self._said: list[tuple[np.ndarray, np.ndarray, Comparison, dict[float, str]]] | None
+        self._said = None
 
     def __len__(self) -> int:
         return int(self.applies.size)
@@ -328,12 +330,27 @@ class RuleEvaluation(Sequence[RuleResult]):
 
     def reasons_at(self, i: int) -> list[str]:
         """``self[i].reasons()``, without building the result: only the tests that
-        held are read."""
-        return [
-            _reason(Outcome(t, _as_float(v[i]), True, bool(k[i])))
-            for t, v, h, k in zip(self.tests, self.values, self.held, self.known, strict=True)
-            if h[i] and FEATURES[t.feature].in_reasons
-        ]
+        held are read. A test's words are the same for the same value, so each value's
+        text is made once per evaluation (sites share values: tens of thousands of
+        sites, a few hundred distinct readings)."""
+        if self._said is None:
+            self._said = [
+                (self.values[n], self.held[n], t, {})
+                for n, t in enumerate(self.tests)
+                if FEATURES[t.feature].in_reasons
+            ]
+        out = []
+        for values, held, test, texts in self._said:
+            if not held[i]:
+                continue
+            value = _as_float(values[i])
+            text = texts.get(value)
+            if text is None:
+                text = _reason(Outcome(test, value, True, True))
+                if value == value:  # NaN is never found again: not kept
+                    texts[value] = text
+            out.append(text)
+        return out
 
 
 def evaluate_rule(
@@ -403,44 +420,3 @@ def _reason(o: Outcome) -> str:
     if np.isinf(o.value):
         return f"{spec.label}: no readings at all"
     return f"{spec.label} {format_value(o.test.feature, o.value)} {o.test.describe_threshold()}"
-
-
-_UNKNOWN = "\x00"  # stands in for an unknown value until its clause is dropped
-
-
-class _SafeFormatter(string.Formatter):
-    def get_value(self, key: Any, args: Any, kwargs: Any) -> Any:
-        # only the values the template names are read (a site's features are many)
-        return _plain(kwargs.get(key, float("nan")))
-
-    def format_field(self, value: Any, format_spec: str) -> str:
-        if isinstance(value, float) and not np.isfinite(value):
-            return _UNKNOWN
-        return super().format_field(value, format_spec)
-
-
-def render_template(template: str, values: Mapping[str, Any]) -> str:
-    """Fill ``{feature:.1f}`` placeholders; a clause with an unknown value is left out.
-
-    A clause is a bracketed aside or a stretch ending in ``, ; : .``; a text whose
-    every clause needs an unknown value comes back empty.
-
-    >>> render_template("Fog within {h:.1f} h; air {t:.1f} °C.", {"h": float("nan"), "t": 2})
-    'Air 2.0 °C.'
-    """
-    text = _SafeFormatter().vformat(template, (), values)
-    if _UNKNOWN not in text:
-        return text
-    text = re.sub(r"\s*\([^()]*\x00[^()]*\)", "", text)
-    pieces = [p for p in re.split(r"(?<=[,;:.])\s+", text) if _UNKNOWN not in p]
-    if not pieces:
-        return ""
-    out = " ".join(pieces).strip()
-    out = out[0].upper() + out[1:]
-    return out[:-1] + "." if out[-1] in ",;:" else out
-
-
-def _plain(v: Any) -> Any:
-    if isinstance(v, np.generic):
-        return v.item()
-    return v

@@ -1,17 +1,17 @@
 """Every site's status snapshot, written each cycle: what the bot, ``status``, the web
 page and ``/health`` show without recomputing.
 
-A site where no rule fires (most sites on most nights) has no hazards, so its snapshot
-is its level ``none``, a few features and its data's age: read here straight from the
-feature table's arrays, without building its
-:class:`~notifier.engine.assessment.SiteAssessment`. Only the sites with a hazard go
-through :func:`snapshot` (their hazards' reasons are worked out then). Both give the
-same JSON (``tests/service/test_snapshots.py`` holds the first to the second).
+Every site's features and data age are read straight from the feature table's arrays,
+for all sites at once. A site where no rule fires (most sites on most nights) has no
+hazards, so that is its whole snapshot, its
+:class:`~notifier.engine.assessment.SiteAssessment` never built; only the sites with a
+hazard have theirs built, for their level and hazards (their reasons are worked out
+then). Both give the same JSON as :func:`snapshot` and as ``assess --json``
+(``tests/service/test_snapshots.py`` holds them to both).
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from collections.abc import Sequence
 from datetime import UTC, datetime
@@ -21,13 +21,14 @@ import numpy as np
 
 from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import Assessments
-from notifier.engine.assessment import to_json
+from notifier.engine.assessment import _json_number as json_number
+from notifier.engine.assessment import level_rank
 from notifier.engine.catalog import FEATURES
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
 
-__all__ = ["SNAPSHOT_FEATURES", "site_snapshots", "snapshot"]
+__all__ = ["SNAPSHOT_FEATURES", "hazards_json", "site_snapshots", "snapshot"]
 
 #: the features a snapshot keeps (the status page's and the bot's columns)
 SNAPSHOT_FEATURES = (
@@ -43,15 +44,47 @@ SNAPSHOT_FEATURES = (
 
 
 def snapshot(sa: SiteAssessment) -> dict[str, Any]:
-    """One site's snapshot: ``assess --json``'s shape with only the features shown."""
+    """One site's snapshot: ``assess --json``'s shape with only the features shown
+    (``to_json`` of the site with its other features left out; written out here so that
+    tens of thousands of sites a cycle do not each copy their assessment for it)."""
     features = sa.features  # looked up by name: a site's table row has some 40
-    wanted = {k: features[k] for k in SNAPSHOT_FEATURES if k in features}
-    wanted["data_age_min"] = sa.age_min  # (the age and staleness read it)
-    (data,) = to_json([dataclasses.replace(sa, features=wanted)])
-    data["features"] = {k: v for k, v in data["features"].items() if k in SNAPSHOT_FEATURES}
+    shown = {k: _shown(k, features[k]) for k in SNAPSHOT_FEATURES if k in features}
     age = sa.age_min
-    data["data"]["age_min"] = None if not math.isfinite(age) else round(age, 1)
-    return data
+    return {
+        "site": sa.site.id,
+        "time": iso_z(sa.time),
+        "level": sa.level,
+        "hazards": hazards_json(sa),
+        "features": shown,
+        "data": {
+            "last_time": iso_z(sa.last_time),
+            "age_min": None if not math.isfinite(age) else round(age, 1),
+            "stale": sa.stale,
+        },
+    }
+
+
+def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
+    """A site's hazards as ``to_json`` writes them, the highest level first."""
+    return [
+        {
+            "hazard": h.hazard,
+            "level": h.level,
+            "kind": h.kind,
+            "eta": iso_z(h.eta),
+            "eta_method": h.eta_method or None,
+            "rules": h.rules,
+            "reasons": list(h.reasons),
+        }
+        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
+    ]
+
+
+def _shown(name: str, value: Any) -> Any:
+    # as ``to_json`` writes a feature's value (any number a hand-made assessment holds)
+    if FEATURES[name].kind == "bool":
+        return None if math.isnan(value) else bool(value)
+    return json_number(value)
 
 
 def site_snapshots(
@@ -60,20 +93,21 @@ def site_snapshots(
     """Site id → (level, snapshot) for every site assessed."""
     if not isinstance(assessments, Assessments):
         return {sa.site.id: (sa.level, snapshot(sa)) for sa in assessments}
-    quiet = assessments.quiet()
-    out: dict[str, tuple[str, dict[str, Any]]] = {}
-    for i in np.flatnonzero(~quiet).tolist():
+    # every site's features and data from the arrays; then the sites where a rule fires
+    # get their level and hazards from their assessment
+    out = _array_snapshots(assessments, np.arange(len(assessments.sites)))
+    for i in np.flatnonzero(~assessments.quiet()).tolist():
         sa = assessments.unkept(i)  # not kept: tens of thousands on a foggy night
-        out[sa.site.id] = (sa.level, snapshot(sa))
-    out.update(_quiet_snapshots(assessments, np.flatnonzero(quiet)))
-    # in the sites' order, as before (the rows are written in this order)
-    return {s.id: out[s.id] for s in assessments.sites}
+        _, data = out[sa.site.id]
+        data["level"], data["hazards"] = sa.level, hazards_json(sa)
+        out[sa.site.id] = (sa.level, data)
+    return out
 
 
-def _quiet_snapshots(
+def _array_snapshots(
     assessments: Assessments, rows: np.ndarray
 ) -> dict[str, tuple[str, dict[str, Any]]]:
-    """The snapshots of the sites at ``rows`` where no rule fires, from the arrays."""
+    """The snapshots of the sites at ``rows`` as if no rule fired there, from the arrays."""
     table = assessments.table
     names = [k for k in SNAPSHOT_FEATURES if k in table.values]
     columns = [table.values[k][rows].tolist() for k in names]

@@ -26,7 +26,8 @@ from notifier.core.redact import redact
 from notifier.core.timefmt import iso_z, parse_iso
 from notifier.engine.alerts import AlertState, Event, StateKey
 from notifier.storage.deliveries import Delivery, DeliveryRow
-from notifier.storage.migrations import alert_states, deliveries, events, site_status
+from notifier.storage.migrations import deliveries, events, site_status
+from notifier.storage.states import AlertStates
 from notifier.storage.store import Store
 
 __all__ = ["CLAIM_LEASE", "Outbox"]
@@ -61,17 +62,14 @@ class Outbox:
         self.engine = store.engine
         self.lease = lease
         self.wall_clock = wall_clock
+        self.alert_states = AlertStates(store)
 
     # -- alert states ----------------------------------------------------------------
 
     def states(self) -> dict[StateKey, AlertState]:
-        with self.engine.connect() as conn:
-            rows = conn.execute(sa.select(alert_states.c.state)).scalars()
-            out = {}
-            for text in rows:
-                state = AlertState.from_dict(json.loads(text))
-                out[state.key] = state
-            return out
+        """Every alert state: from memory when this outbox wrote the table last
+        (:mod:`notifier.storage.states`), else read from the store."""
+        return self.alert_states.read()
 
     def commit_cycle(
         self,
@@ -85,48 +83,17 @@ class Outbox:
     ) -> int:
         """States, events and deliveries of one cycle, together. Returns deliveries added."""
         when = iso_z(now)
-        with self.store.atomic() as conn:
-            self._write_states(conn, previous, new_states, when)
-            self._write_events(conn, new_events, charts or {}, when)
-            added = self._write_deliveries(conn, new_deliveries, when)
-            self._write_snapshots(conn, snapshots or {}, when)
+        try:
+            with self.store.atomic() as conn:
+                written = self.alert_states.write(conn, previous, new_states, when)
+                self._write_events(conn, new_events, charts or {}, when)
+                added = self._write_deliveries(conn, new_deliveries, when)
+                self._write_snapshots(conn, snapshots or {}, when)
+        except BaseException:
+            self.alert_states.forget()  # rolled back: the next read goes to the store
+            raise
+        self.alert_states.applied(written)
         return added
-
-    def _write_states(
-        self,
-        conn: Connection,
-        previous: Mapping[StateKey, AlertState],
-        new_states: Mapping[StateKey, AlertState],
-        when: str,
-    ) -> None:
-        gone = [{"s": key[0], "h": key[1]} for key in previous.keys() - new_states.keys()]
-        if gone:  # one executemany, not a statement per state
-            conn.execute(
-                alert_states.delete().where(
-                    (alert_states.c.site == sa.bindparam("s"))
-                    & (alert_states.c.hazard == sa.bindparam("h"))
-                ),
-                gone,
-            )
-        rows = [
-            {
-                "site": key[0],
-                "hazard": key[1],
-                "state": json.dumps(state.to_dict()),
-                "updated_at": when,
-            }
-            for key, state in new_states.items()
-            if previous.get(key) != state
-        ]
-        if rows:
-            stmt = self.store._insert(alert_states)
-            conn.execute(
-                stmt.on_conflict_do_update(
-                    index_elements=["site", "hazard"],
-                    set_={"state": stmt.excluded.state, "updated_at": stmt.excluded.updated_at},
-                ),
-                rows,
-            )
 
     def _write_events(
         self, conn: Connection, new_events: Sequence[Event], charts: Mapping[str, bytes], when: str

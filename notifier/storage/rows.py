@@ -25,6 +25,7 @@ __all__ = [
     "epoch_s",
     "frame_rows",
     "join_columns",
+    "own_columns",
     "records_frame",
     "sql_text",
 ]
@@ -111,11 +112,29 @@ def records_frame(records: Sequence[Any], *, shared_text: bool = False) -> pd.Da
     return text_columns_as_objects(frame)
 
 
+def own_columns(frame: pd.DataFrame) -> dict[str, Any]:
+    """A chunk's columns for :func:`join_columns`, each in memory of its own.
+
+    A float column of a frame can be a view into a 2-D block of all its float columns;
+    kept as it is, a chunk's block would stay alive until its last float column was
+    joined, and the chunks sit in memory beside the joined columns at the join's peak
+    (about 0.7 times the window again).
+    """
+    out: dict[str, Any] = {}
+    for column in CANONICAL_COLUMNS:
+        values = frame[column].array
+        out[column] = values.copy() if column in FLOAT_COLUMNS else values
+    return out
+
+
 def join_columns(chunks: list[dict[str, Any]]) -> pd.DataFrame:
     """One frame from per-chunk columns, a column at a time, freeing chunks as it goes.
 
     Text columns are categoricals (one string object per distinct value); at most one
-    column is held twice at any moment.
+    column is held twice at any moment. The chunks' pieces are small enough to live in
+    the C heap, which keeps freed memory for reuse rather than handing it back: without
+    a trim after each column, the process would hold the chunks' memory and the joined
+    columns' both, twice the window at its peak (3.5 GB for 100,000 sites).
     """
     from pandas.api.types import union_categoricals
 
@@ -131,4 +150,23 @@ def join_columns(chunks: list[dict[str, Any]]) -> pd.DataFrame:
             joined = pd.array(np.concatenate([np.asarray(p) for p in parts]), dtype=parts[0].dtype)
         del parts
         out[column] = joined
+        release_freed_heap()
     return out
+
+
+def release_freed_heap() -> None:
+    """Hand the heap memory freed so far back to the operating system.
+
+    glibc keeps freed heap memory for reuse rather than returning it; after millions of
+    short-lived row objects and chunk arrays that is hundreds of megabytes the process
+    would sit on. ``malloc_trim`` (glibc) returns every whole free page; elsewhere this
+    does nothing.
+    """
+    import ctypes
+
+    try:
+        trim = getattr(ctypes.CDLL(None), "malloc_trim", None)  # the process's own libc
+    except (OSError, TypeError):  # TypeError: Windows cannot open "no library"
+        trim = None
+    if trim is not None:
+        trim(0)

@@ -38,6 +38,7 @@ from notifier.storage.rows import (
     epoch_s,
     frame_rows,
     join_columns,
+    own_columns,
     records_frame,
     sql_text,
 )
@@ -326,10 +327,8 @@ class Store:
                     records = cursor.fetchmany(_FETCH_ROWS)
                     if not records:
                         break
-                    frame = records_frame(records, shared_text=True)
+                    chunks.append(own_columns(records_frame(records, shared_text=True)))
                     del records
-                    chunks.append({c: frame[c].array for c in CANONICAL_COLUMNS})
-                    del frame
             finally:
                 cursor.close()
         if not chunks:

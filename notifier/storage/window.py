@@ -46,6 +46,7 @@ import numpy as np
 import pandas as pd
 
 from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS
+from notifier.storage.rows import release_freed_heap
 
 if TYPE_CHECKING:
     from notifier.storage.store import Store
@@ -144,7 +145,7 @@ class RollingWindow:
         self._columns, self._keys = self._merged(prepared, start_s)
         self._batch, self._start_s = batch, start_s
         del prepared
-        _release_freed_heap()
+        release_freed_heap()  # the read's row objects and chunks
 
     def _update(self, start_s: int) -> None:
         batch = self.store.last_batch()
@@ -319,24 +320,6 @@ class RollingWindow:
             else:
                 data[name] = cut(values)
         return pd.DataFrame(data, copy=False)
-
-
-def _release_freed_heap() -> None:
-    """Hand the memory freed by a whole read back to the operating system.
-
-    Reading the window whole makes millions of short-lived row objects and chunk
-    arrays; glibc keeps the freed heap for reuse rather than returning it, so a
-    10,000-site service would sit some 150 MB above what it holds for the rest of its
-    life. ``malloc_trim`` (glibc) returns it; elsewhere this does nothing.
-    """
-    import ctypes
-
-    try:
-        trim = getattr(ctypes.CDLL(None), "malloc_trim", None)  # the process's own libc
-    except (OSError, TypeError):  # TypeError: Windows cannot open "no library"
-        trim = None
-    if trim is not None:
-        trim(0)
 
 
 #: SQLite takes at most 32,766 parameters in a statement (its default limit since 3.32)

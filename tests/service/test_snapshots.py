@@ -1,6 +1,7 @@
 """Site snapshots built from the arrays (sites where no rule fires) against the per-site
-snapshot of the per-site oracle assessment (tests/engine/oracle_assess.py): the same
-JSON, byte for byte, for every site of randomised invented worlds."""
+snapshot of the per-site oracle assessment (tests/engine/oracle_assess.py), and both
+against ``assess --json`` (``to_json``) of that assessment: the same JSON, byte for
+byte, for every site of randomised invented worlds."""
 
 from __future__ import annotations
 
@@ -9,7 +10,8 @@ from datetime import UTC, datetime, timedelta
 
 import notifier.engine.assess as assess_module
 from notifier.engine.assessed import Assessments
-from notifier.service.snapshots import site_snapshots, snapshot
+from notifier.engine.assessment import to_json
+from notifier.service.snapshots import SNAPSHOT_FEATURES, site_snapshots, snapshot
 from tests.engine.oracle_assess import oracle_assess_times
 from tests.engine.scenes import RULES
 from tests.engine.test_oracle import EVENING, world
@@ -26,7 +28,9 @@ def test_snapshots_from_the_arrays_are_the_per_site_ones():
     for new, old, sites in _worlds(times, seeds=(5, 6, 8)):
         assert isinstance(new, Assessments)
         got = site_snapshots(new)
-        want = {sa.site.id: (sa.level, snapshot(sa)) for sa in old}
+        want = {sa.site.id: (sa.level, _from_to_json(sa)) for sa in old}
+        # snapshot() itself, on the oracle's assessments, is assess --json's shape too
+        assert [json.dumps(snapshot(sa)) for sa in old] == [json.dumps(p) for _, p in want.values()]
         assert list(got) == [s.id for s in sites]
         # the rows written: the same text (json.dumps keeps the keys' order)
         assert {k: (lv, json.dumps(p)) for k, (lv, p) in got.items()} == {
@@ -38,6 +42,14 @@ def test_snapshots_from_the_arrays_are_the_per_site_ones():
         never += sum(p["data"]["last_time"] is None for _, p in got.values())
     # the worlds cover both paths, stale data and sites that never reported
     assert quiet and loud and stale and never
+
+
+def _from_to_json(sa):
+    """``assess --json`` (``to_json``) of the site, with only the snapshot's features."""
+    (data,) = to_json([sa])
+    shown = data["features"]  # in the snapshot's order
+    data["features"] = {k: shown[k] for k in SNAPSHOT_FEATURES if k in shown}
+    return data
 
 
 def _worlds(times, seeds):
