@@ -1,11 +1,12 @@
 """Which tests decide a rule's verdict (notifier/engine/verdict.py).
 
-Reference: Kleene's strong three-valued logic (S. C. Kleene, *Introduction to
-Metamathematics*, 1952, §64): a conjunction is false when any part is false, else unknown
-when any part is unknown; a disjunction is true when any part is true, else unknown when
-any part is unknown; negation swaps true and false and keeps unknown. The verdicts are
-checked against that truth table written out here, and against the engine's own array
-evaluation (``evaluate_condition``) on random trees.
+Reference: Kleene's strong three-valued logic (docs/references.md [Kleene 1952];
+S. C. Kleene, *Introduction to Metamathematics*, 1952, §64, from memory): a conjunction
+is false when any part is false, else unknown when any part is unknown; a disjunction is
+true when any part is true, else unknown when any part is unknown; negation swaps true
+and false and keeps unknown. The verdicts are checked against that truth table written
+out here, and against the engine's own array evaluation (``evaluate_condition``) on
+random trees.
 """
 
 from __future__ import annotations
