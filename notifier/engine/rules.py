@@ -21,6 +21,7 @@ import numpy as np
 from notifier.core.timefmt import unit_suffix
 from notifier.engine.catalog import FEATURES, format_value
 from notifier.engine.templates import render_template as render_template  # (re-exported)
+from notifier.engine.verdict import undecided_by
 
 __all__ = [
     "HAZARDS",
@@ -262,7 +263,7 @@ class RuleResult:
     sustains: bool = False  # held with clearing margins, at the evaluation time
     held_now: bool = False
     hold_met: bool = True
-    missing: list[str] = field(default_factory=list)
+    missing: list[str] = field(default_factory=list)  # only those that leave it undecided
     outcomes: list[Outcome] = field(default_factory=list)
 
     def reasons(self) -> list[str]:
@@ -324,7 +325,7 @@ class RuleEvaluation(Sequence[RuleResult]):
             sustains=bool(self.sustains[i]),
             held_now=bool(self.held_now[i]),
             hold_met=bool(self.hold_met[i]),
-            missing=sorted({o.test.feature for o in outcomes if not o.known}),
+            missing=undecided_by(self.rule, outcomes),
             outcomes=outcomes,
         )
 

@@ -27,6 +27,7 @@ import numpy as np
 from notifier.engine.assessment import results_where
 from notifier.engine.features import FeatureCache
 from notifier.engine.readings import epoch_seconds
+from notifier.engine.verdict import failing
 from notifier.history.baselines import References, references
 from notifier.history.probability import chance_scores
 from notifier.history.truth import fog_spells_by_site, observed_rows, rows_by_site
@@ -129,8 +130,7 @@ def _why_not(sa: Any) -> list[str]:
             continue
         failed = [
             f"{o.test.feature} {o.value:.4g} {o.test.describe_threshold()}"
-            for o in r.outcomes
-            if not o.held
+            for o in failing(r.rule, r.outcomes)
         ]
         if not failed and not r.hold_met:
             failed = [f"held for less than {r.rule.hold_s / 60:.0f} min"]

@@ -59,7 +59,6 @@ def test_shipped_rules_load():
         "radiation-fog-watch",
         "radiation-fog-warning",
         "observed-fog",
-        "observed-fog-coast",
         "dense-fog",
         "sea-fog-watch",
         "steam-fog-watch",

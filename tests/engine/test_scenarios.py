@@ -187,31 +187,20 @@ def _dip(s, at, low_reports, step_min):
     return obs.assign(visibility_m=vis)
 
 
-@pytest.mark.parametrize(
-    ("step_min", "low_reports", "expect"),
-    [(60, 1, False), (60, 2, True), (10, 1, False), (10, 2, False), (10, 3, True)],
-)
-def test_one_low_report_at_the_coast_is_not_yet_fog(step_min, low_reports, expect):
-    # Fog is visibility below 1000 m (WMO-No. 8), and a spell is fog once two reports at
-    # least 20 min apart show it (common practice; the same confirmation the replay
-    # scores by, notifier/history/verify.py): at a coast site a single low reading, as a
-    # drifting fog patch, a snow shower or spray passing the sensor gives, does not raise
-    # the observed-fog warning; fog that stays does.
-    s = site("pier-end", exposure="coast")
-    at = utc(2026, 3, 11, 19, 0)
-    got = fired([s], _dip(s, at, low_reports, step_min), at)[s.id]
-    assert ("observed-fog-coast" in got) is expect
-    assert "observed-fog" not in got  # the unconfirmed rule is not for the coast
-
-
-@pytest.mark.parametrize("exposure", ["open", "waterside"])
-def test_one_low_report_inland_warns_at_once(exposure):
-    # Away from the open coast a report below 1000 m is fog at once (WMO-No. 8).
+@pytest.mark.parametrize("exposure", ["open", "valley", "forest", "waterside", "coast", "urban"])
+@pytest.mark.parametrize("step_min", [10, 60])
+def test_one_low_report_warns_at_once_at_every_exposure(exposure, step_min):
+    # Fog is visibility below 1000 m (WMO-No. 8): one report of 800 m raises the
+    # observed-fog warning at once, at the coast as inland; on hourly reports a wait for
+    # a second report would be an hour's delay.
     s = site("gate-field", exposure=exposure)
     at = utc(2026, 3, 11, 19, 0)
-    got = fired([s], _dip(s, at, 1, 60), at)[s.id]
+    got = fired([s], _dip(s, at, 1, step_min), at)[s.id]
     assert "observed-fog" in got
-    assert "observed-fog-coast" not in got
+    # and a clear last report does not: the rule reads the newest report
+    clear = _dip(s, at, 1, step_min)
+    clear.loc[clear.index[-1], "visibility_m"] = 16100.0
+    assert "observed-fog" not in fired([s], clear, at)[s.id]
 
 
 def test_dense_fog_at_the_coast_warns_at_once():
@@ -223,7 +212,6 @@ def test_dense_fog_at_the_coast_warns_at_once():
     obs.loc[obs.index[-1], "visibility_m"] = 150.0
     got = fired([s], obs, at)[s.id]
     assert "dense-fog" in got
-    assert "observed-fog-coast" not in got
 
 
 def test_mist_is_not_fog():
