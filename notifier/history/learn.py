@@ -48,7 +48,7 @@ MIN_FOG_NIGHTS = 8  # fewer nights with fog cannot be told from chance
 # (docs/references.md [Murphy 1977]); holding a vessel movement, a spray round or a
 # crowd plan for fog costs far less than an accident in it, a ratio of about 0.1–0.3
 # (common practice): the warning at 0.25, the watch at 0.1.
-DEFAULT_THRESHOLDS = {"watch": 0.1, "warning": 0.25}
+DEFAULT_THRESHOLDS = {"watch": 0.1, "warning": 0.25, "watch_hold_h": 0.0, "warning_hold_h": 0.0}
 C_REGULARISATION = 0.5  # inverse strength of the ridge penalty on the scaled inputs
 ALL_INPUTS = (*INPUTS, *SEASON)
 
@@ -65,21 +65,25 @@ class LearnedSite:
 
 def model_thresholds(rules: RuleSet) -> dict[str, float]:
     """The chance at which the rules raise a fog watch and warning on
-    ``fog_probability`` (the lowest ``at_least``/``above`` per level)."""
+    ``fog_probability`` (the lowest ``at_least``/``above`` per level), and how long that
+    rule wants it held (``watch_hold_h``, ``warning_hold_h``)."""
     from notifier.engine.rules import Comparison, Group
 
     found: dict[str, float] = {}
+    hold_h = 0.0
 
     def walk(cond: Any, level: str) -> None:
         if isinstance(cond, Group):
             for child in cond.children:
                 walk(child, level)
         elif isinstance(cond, Comparison) and cond.feature == "fog_probability":
-            if cond.op in ("at_least", "above"):
-                found[level] = min(found.get(level, 1.0), float(cond.value))
+            if cond.op in ("at_least", "above") and float(cond.value) < found.get(level, 1.0):
+                found[level] = float(cond.value)
+                found[f"{level}_hold_h"] = hold_h
 
     for rule in rules.rules:
         if rule.hazard == "fog":
+            hold_h = rule.hold_s / 3600.0
             walk(rule.when, rule.level)
     return {**DEFAULT_THRESHOLDS, **found}
 
@@ -202,16 +206,27 @@ def _months(times: np.ndarray, zone: str) -> np.ndarray:
     return out
 
 
+def _held(chance: np.ndarray, threshold: float, hold_h: float) -> np.ndarray:
+    """Where the hourly ``chance`` has been at least ``threshold`` for ``hold_h`` hours
+    (this hour and the ones the hold reaches back to), as the rule's hold asks."""
+    with np.errstate(invalid="ignore"):
+        ok = chance >= threshold
+    out = ok.copy()
+    for back in range(1, int(np.ceil(hold_h * 3600.0 / STEP_S - 1e-9)) + 1):
+        out[back:] &= ok[:-back]
+        out[:back] = False
+    return out
+
+
 def _night_rows(
     result: ReplayResult, site_id: str, chance: np.ndarray, thresholds: dict[str, float]
 ) -> dict[str, Any]:
     """Night scores of the rules, the one-line rule and the held-out chances (as the
     rules on ``fog_probability`` use them) on the same nights of one site."""
     nights = [n for n in result.nights if n.site == site_id]
-    with np.errstate(invalid="ignore"):
-        level = np.where(
-            chance >= thresholds["warning"], 2, np.where(chance >= thresholds["watch"], 1, 0)
-        ).astype(np.int8)
+    warning = _held(chance, thresholds["warning"], thresholds["warning_hold_h"])
+    watch = _held(chance, thresholds["watch"], thresholds["watch_hold_h"])
+    level = np.where(warning, 2, np.where(watch, 1, 0)).astype(np.int8)
     model_nights = []
     for n in nights:
         start, end = n.night.timestamp(), n.night.timestamp() + 86400.0
@@ -354,18 +369,18 @@ def report_lines(learned: Sequence[LearnedSite], hours: float) -> list[str]:
         lines += [
             f"{ls.site_id}: {ls.scores['fog_nights']} nights with fog; scored with each "
             "calendar month held out in turn",
-            f"  {'':34} {'POD':>5} {'FAR':>5} {'CSI':>5} {'bias':>5} {'lead':>6}",
+            f"  {'':40} {'POD':>5} {'FAR':>5} {'CSI':>5} {'bias':>5} {'lead':>6}",
         ]
         for name, row in ls.scores["nights"].items():
             if row is None:
                 continue
             label = {
-                "model warning": f"model warning (chance ≥ {t['warning']:.2f})",
-                "model watch": f"model watch (chance ≥ {t['watch']:.2f})",
+                "model warning": f"model warning (chance ≥ {t['warning']:.2f}{_for(t, 'warning')})",
+                "model watch": f"model watch (chance ≥ {t['watch']:.2f}{_for(t, 'watch')})",
             }.get(name, name)
             lead = row.get("median_lead_min")
             lines.append(
-                f"  {label:34} {_f(row['pod'])} {_f(row['far'])} {_f(row['csi'])} "
+                f"  {label:40} {_f(row['pod'])} {_f(row['far'])} {_f(row['csi'])} "
                 f"{_f(row['bias'])} {'' if lead is None else f'{lead / 60:5.1f}h':>6}"
             )
         lines.append(
@@ -381,6 +396,11 @@ def report_lines(learned: Sequence[LearnedSite], hours: float) -> list[str]:
             )
         )
     return lines
+
+
+def _for(thresholds: dict[str, float], level: str) -> str:
+    hold = thresholds.get(f"{level}_hold_h", 0.0)
+    return f" for {hold:g} h" if hold else ""
 
 
 def _f(v: float | None) -> str:

@@ -140,12 +140,38 @@ def test_fit_site_calibrates_on_held_out_groups():
 
 
 def test_thresholds_from_the_shipped_rules():
+    import yaml
+
     from notifier.core.config import default_rules_dir
-    from notifier.engine.rule_files import load_rule_set, rule_files  # noqa: F401
+    from notifier.engine.rule_files import load_rule_set
 
     rules = load_rule_set([default_rules_dir()])
-    # rules/fog.yaml: the site-model rules at the cost–loss chances
-    assert model_thresholds(rules) == {"watch": 0.1, "warning": 0.25}
+    # the site-model rules as the YAML file says them, read with PyYAML, not the loader
+    raw = yaml.safe_load((default_rules_dir() / "fog.yaml").read_text())["rules"]
+    want = {}
+    for r in raw:
+        if r["id"].startswith("site-model-fog-"):
+            level = r["level"]
+            want[level] = r["when"][0]["fog_probability"]["at_least"]
+            hold = str(r.get("hold", "0h"))
+            want[f"{level}_hold_h"] = float(hold[:-1]) if hold.endswith("h") else 0.0
+    assert set(want) == {"watch", "warning", "watch_hold_h", "warning_hold_h"}
+    assert model_thresholds(rules) == want
+
+
+@pytest.mark.parametrize("hold_h", [0.0, 1.0, 2.0, 3.0])
+def test_held_chance_matches_a_rolling_minimum(hold_h):
+    import pandas as pd
+
+    from notifier.history.learn import _held
+
+    rng = np.random.default_rng(int(hold_h * 10))
+    chance = rng.random(200)
+    chance[rng.random(200) < 0.05] = np.nan  # hours without a chance never hold
+    # pandas: the minimum over this hour and the hold's hours before it, all present
+    window = int(hold_h) + 1
+    ref = pd.Series(chance).rolling(window, min_periods=window).min() >= 0.4
+    assert (_held(chance, 0.4, hold_h) == ref.to_numpy()).all()
 
 
 def test_ceiling_and_rain_inputs_read_no_ceiling_as_three_km_and_unknown_as_unknown():
