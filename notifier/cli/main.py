@@ -66,7 +66,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
     gaps = coverage_warnings(config.sites, config.sources, rules.rules)
     for gap in gaps:
         print(f"warning: {gap}", file=sys.stderr)
-    warnings = [*warnings, *gaps]
+    shown: list[object] = [*warnings, *gaps]
     if args.json:
         import json
 
@@ -83,7 +83,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
                     "ok": True,
                     "config": str(config.path),
                     **counts,
-                    "warnings": [str(w) for w in warnings],
+                    "warnings": [str(w) for w in shown],
                 },
                 indent=2,
             )

@@ -191,9 +191,13 @@ class SiteModel:
             if cx.shape != cy.shape or np.any(np.diff(cx) < 0) or np.any((cy < 0) | (cy > 1)):
                 raise ModelError(f"{where}: calibration needs rising raw values and p in 0–1")
             known = {"inputs", "fill", "mean", "scale", "coef", "intercept", "calibration"}
+            fill, mean, scale, coef = arrays
             return cls(
                 inputs,
-                *arrays,
+                fill,
+                mean,
+                scale,
+                coef,
                 intercept=float(d["intercept"]),
                 calibration_x=cx,
                 calibration_y=cy,

@@ -286,7 +286,7 @@ def learn_site(
     chance = np.full(len(times), np.nan)
     chance[usable] = p
     scored = ~np.isnan(p)
-    scores = {
+    scores: dict[str, Any] = {
         "hours": probability_scores(p[scored], y[scored], clim[scored]),
         "nights": _night_rows(result, site_id, chance, thresholds),
         "fog_nights": fog_nights,

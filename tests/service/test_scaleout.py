@@ -168,9 +168,12 @@ def test_one_leader_and_the_other_takes_over_when_its_connection_ends(pair: Any)
         # backend has exited (PostgreSQL docs, server signalling functions): wait for it
         assert conn.exec_driver_sql(f"SELECT pg_terminate_backend({int(pid)})").scalar()
         deadline = time.monotonic() + 10.0
-        while time.monotonic() < deadline and conn.exec_driver_sql(
-            "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' AND granted"
-        ).scalar():
+        while (
+            time.monotonic() < deadline
+            and conn.exec_driver_sql(
+                "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' AND granted"
+            ).scalar()
+        ):
             time.sleep(0.05)
     assert second.leads(), "the other takes over"
     assert not first.leads(), "and the old leader, asking again, no longer leads"
