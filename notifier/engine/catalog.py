@@ -63,7 +63,9 @@ class FeatureSpec:
     description: str = ""
     # False for the flags that only say whether a sensor reports (``*_known``): a rule's
     # test of one decides which branch may hold, but "precipitation reported: no" in a
-    # message would read as "it is dry", so it is left out of the reasons shown
+    # message would read as "it is dry", so it is left out of the reasons shown; and for
+    # the clock of the night (night, time to sunrise, time since sunset): a test of one
+    # only says "tonight", which the message's "When:" says in words
     in_reasons: bool = True
 
 
@@ -139,9 +141,9 @@ FEATURES: dict[str, FeatureSpec] = {
         decimals=2,
         description="0–1: radiative loss × light-wind factor × exposure factor",
     ),
-    "is_night": FeatureSpec("night", "", kind="bool"),
-    "hours_to_sunrise": FeatureSpec("time to sunrise", "h"),
-    "hours_since_sunset": FeatureSpec("time since sunset", "h"),
+    "is_night": FeatureSpec("night", "", kind="bool", in_reasons=False),
+    "hours_to_sunrise": FeatureSpec("time to sunrise", "h", in_reasons=False),
+    "hours_since_sunset": FeatureSpec("time since sunset", "h", in_reasons=False),
     "surface_temp_c": FeatureSpec("surface temperature", "°C"),
     "frost_point_c": FeatureSpec("frost point", "°C"),
     "surface_minus_frost_point_c": FeatureSpec(

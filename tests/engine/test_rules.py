@@ -293,6 +293,28 @@ def test_reasons_leave_out_whether_a_sensor_reports(tmp_path):
     assert evaluation.reasons_at(0) == res.reasons()  # the snapshots' path, the same
 
 
+
+def test_reasons_leave_out_the_clock_of_the_night(tmp_path):
+    # "time to sunrise 15.3 h ≤ 16 h" only says "tonight" (the message's When: line says
+    # it in words): a harbour desk reads the air, the wind and the sky as the reasons
+    body = GOOD.replace(
+        "      - wind_ms: {below: 3}\n",
+        "      - wind_ms: {below: 3}\n      - hours_to_sunrise: {at_most: 16}\n"
+        "      - is_night: {is: true}\n",
+    )
+    rule = _rule(tmp_path, body)
+    feats = {
+        "dewpoint_depression_c": np.array([0.8]),
+        "wind_ms": np.array([1.2]),
+        "hours_to_sunrise": np.array([15.3]),
+        "is_night": np.array([1.0]),
+    }
+    evaluation = evaluate_rule(rule, [site("a")], [feats])
+    (res,) = evaluation
+    assert res.fires
+    assert res.reasons() == ["dew-point depression 0.8 °C ≤ 1 °C", "wind 1.2 m/s < 3 m/s"]
+    assert evaluation.reasons_at(0) == res.reasons()
+
 # -- margin: hysteresis in the direction that keeps the rule true ------------------------
 #
 # Definition: with its margin a rule *holds* (sustains an active alert) at a value v
