@@ -298,6 +298,12 @@ class Block:
             out[search], _ = latest(cells, valid[search])
         return out
 
+    def laid_out_window(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """Each row's first and end column of its observed window, where the layout
+        fixes them (a history's block holds nothing else); None: :meth:`bounds` finds
+        them."""
+        return None
+
     def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
         """The depression's reporting step over each row's columns ``lo:hi``, where the
         block can give it without the cells (``notifier.engine.steps``); None here."""

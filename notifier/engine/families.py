@@ -32,6 +32,7 @@ from notifier.engine.catalog import FeatureSettings
 
 __all__ = [
     "SUBSET_SHARE",
+    "CellHours",
     "Current",
     "Window",
     "current_values",
@@ -50,6 +51,37 @@ _OBS_COLUMNS = tuple(c for c in columns.FLOAT_COLUMNS if c != "pressure_hpa")
 SUBSET_SHARE = 0.6
 
 
+class CellHours:
+    """Each cell's hours from its row's evaluation time, ``(t - t_at) / 3600``, worked
+    out only for the cells asked for (``hours[:, a:b]``, ``hours[rows, cols]``): the
+    families read a few columns each, not the whole window. The same arithmetic cell
+    by cell as over the whole block, so the same numbers."""
+
+    def __init__(self, t: np.ndarray, t_at: float | np.ndarray) -> None:
+        self.t = t
+        self.t_at = t_at
+        self._spans: dict[tuple[int | None, int | None], np.ndarray] = {}
+
+    def __getitem__(self, key: tuple[slice | np.ndarray, slice | np.ndarray]) -> np.ndarray:
+        rows, cols = key
+        whole_rows = isinstance(rows, slice) and rows == slice(None)
+        if whole_rows and isinstance(cols, slice) and cols.step is None:
+            # several families read the same span (read-only, as the whole block was)
+            span = (cols.start, cols.stop)
+            if span not in self._spans:
+                self._spans[span] = self._cells(key)
+            return self._spans[span]
+        return self._cells(key)
+
+    def _cells(self, key: tuple[slice | np.ndarray, slice | np.ndarray]) -> np.ndarray:
+        rows, _ = key
+        t = self.t[key]
+        at = self.t_at[rows] if isinstance(self.t_at, np.ndarray) else self.t_at
+        if isinstance(at, np.ndarray) and t.ndim == 2:
+            at = at[:, None]
+        return (t - at) / 3600.0
+
+
 @dataclass(frozen=True)
 class Window:
     """One evaluation time's columns of the block, per site: the observed readings are
@@ -57,7 +89,7 @@ class Window:
 
     blk: Block
     t_at: float | np.ndarray  # POSIX seconds: one for all rows, or one per row
-    hours: np.ndarray  # each cell's hours from t_at
+    hours: CellHours  # each cell's hours from t_at
     lo: np.ndarray
     hi: np.ndarray
     recent_lo: np.ndarray  # current values (current_max_age_h)
@@ -75,18 +107,20 @@ class Window:
 def observed_window(blk: Block, t_at: float | np.ndarray, settings: FeatureSettings) -> Window:
     """The observed window of each row at ``t_at`` (one time, or one per row), and where
     its last hours begin."""
-    hours = (blk.t - (t_at[:, None] if isinstance(t_at, np.ndarray) else t_at)) / 3600.0
-    hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(
-        t_at,
-        [
-            ("t", 0.0, ">", t_at),
-            ("t", 0.0, ">", t_at - settings.block_hours * 3600),
-            ("h", 0.0, ">=", -settings.current_max_age_h),
-            ("h", 0.0, ">=", -settings.trend_window_h),
-            ("h", 0.0, ">=", -settings.water_max_age_h),
-            ("t", 0.0, ">=", t_at - settings.current_max_age_h * 3600),
-        ],
-    )
+    hours = CellHours(blk.t, t_at)
+    last_hours: list[tuple[str, float | np.ndarray, str, float | np.ndarray]] = [
+        ("h", 0.0, ">=", -settings.current_max_age_h),
+        ("h", 0.0, ">=", -settings.trend_window_h),
+        ("h", 0.0, ">=", -settings.water_max_age_h),
+        ("t", 0.0, ">=", t_at - settings.current_max_age_h * 3600),
+    ]
+    known = blk.laid_out_window()
+    if known is None:
+        window = [("t", 0.0, ">", t_at), ("t", 0.0, ">", t_at - settings.block_hours * 3600)]
+        hi, lo, recent_lo, trend_lo, water_lo, report_lo = blk.bounds(t_at, window + last_hours)
+    else:
+        lo, hi = known
+        recent_lo, trend_lo, water_lo, report_lo = blk.bounds(t_at, last_hours)
     lo = np.minimum(lo, hi)
     recent_lo, trend_lo, water_lo, report_lo = (
         np.maximum(lo, bound) for bound in (recent_lo, trend_lo, water_lo, report_lo)

@@ -239,6 +239,7 @@ class _SortedRows:
         self.nrows = len(obs)
         self.n = len(st.ids)
         self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+        self._counts: dict[str, np.ndarray | None] = {}
         self._sorted_columns: dict[str, np.ndarray | None] = {}
         empty = np.zeros(0)
         self.rows_sorted = np.zeros(0, dtype=np.intp)
@@ -288,6 +289,16 @@ class _SortedRows:
                 None if values is None else np.append(values[self.rows_sorted], np.nan)
             )
         return self._sorted_columns[name]
+
+    def value_counts(self, name: str) -> np.ndarray | None:
+        """How many sorted rows before each position have a value of ``name`` (one
+        more entry than rows): a run ``lo:hi`` holds ``counts[hi] - counts[lo]``."""
+        if name not in self._counts:
+            values = self.sorted_column(name)
+            self._counts[name] = (
+                None if values is None else np.concatenate(([0], np.cumsum(~np.isnan(values[:-1]))))
+            )
+        return self._counts[name]
 
     def step_table(self, noise: float) -> tuple[np.ndarray, np.ndarray]:
         """For the depression's reporting step (``families._depression_step``) over any
@@ -362,6 +373,10 @@ class StepBlock(Block):
         self.width = width
         self._sorted = rows
         self._first_pos = hi - width  # the sorted row of column 0, per block row
+        self._lo, self._hi = lo, hi
+        # every cell outside the padding is in its row's window (window_bounds), so the
+        # window's columns need no search: what bounds would find, padding failing
+        self._window = (width - counts, np.full(n, width, dtype=np.intp))
         self.src = src
         self.t = self._gather(np.append(rows.t_sel, np.nan), src, self.pad)
         self._steps = width.bit_length()
@@ -371,6 +386,22 @@ class StepBlock(Block):
 
     def column(self, name: str) -> np.ndarray | None:
         return None if self._empty else self._sorted.sorted_column(name)
+
+    def laid_out_window(self) -> tuple[np.ndarray, np.ndarray] | None:
+        return None if self._empty else self._window
+
+    def reports(self, name: str) -> np.ndarray:
+        """:meth:`Block.reports` from a count of each sorted column's values, without
+        gathering the block: a row's cells outside the padding are its sorted rows
+        ``lo:hi``, so it reports ``name`` when that run holds a value."""
+        if name not in self._reports:
+            counts = None if self._empty else self._sorted.value_counts(name)
+            self._reports[name] = (
+                np.zeros(0, dtype=np.intp)
+                if counts is None
+                else np.flatnonzero(counts[self._hi] > counts[self._lo])
+            )
+        return self._reports[name]
 
     def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
         """``families._depression_step`` from the sorted rows (see
