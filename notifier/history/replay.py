@@ -30,7 +30,7 @@ from notifier.engine.readings import epoch_seconds
 from notifier.engine.verdict import failing
 from notifier.history.baselines import References, references
 from notifier.history.probability import chance_scores
-from notifier.history.truth import fog_spells_by_site, observed_rows, rows_by_site
+from notifier.history.truth import fog_spells_by_site, observed_rows, report_times, rows_by_site
 from notifier.history.verify import (
     Contingency,
     NightOutcome,
@@ -38,6 +38,7 @@ from notifier.history.verify import (
     median_lead_min,
     night_fog,
     night_of,
+    night_watched,
     table,
 )
 
@@ -72,6 +73,9 @@ class ReplayResult:
     # its scores against what followed (``notifier.history.probability``)
     probability: np.ndarray | None = None
     probability_scores: dict[str, Any] | None = None
+    # nights left out of every score: the visibility went unreported for hours
+    # (``verify.night_watched``)
+    unwatched: list[NightOutcome] = field(default_factory=list)
 
     def table(self, level: str = "warning", site: str | None = None) -> Contingency:
         return table([n for n in self.nights if site is None or n.site == site], level)
@@ -196,9 +200,13 @@ def replay(
         if progress is not None:
             progress(k + 1, n_steps)
 
-    nights = _nights(sites, times, fog_level, fog_nights, events, why_not, start, end, step_s)
+    every = _nights(sites, times, fog_level, fog_nights, events, why_not, start, end, step_s)
+    reported = report_times(obs if truth is None else truth, sites)
+    watched = [night_watched(reported[n.site], n.night) for n in every]
+    nights = [n for n, w in zip(every, watched, strict=True) if w]
     refs = references(nights, _readings(obs, sites))
     result = ReplayResult(start, end, step_s, ids, events, times, fog_level, nights, label, refs)
+    result.unwatched = [n for n, w in zip(every, watched, strict=True) if not w]
     if chance is not None and loaded.model is not None:
         result.probability = chance
         result.probability_scores = chance_scores(

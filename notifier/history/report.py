@@ -70,6 +70,10 @@ def to_json(results: Sequence[ReplayResult]) -> dict[str, Any]:
             # with a site model: its chance scored hour by hour (NaN scores as null)
             "probability": _json_safe(res.probability_scores),
             "sites": per_site,
+            # nights left out of every score: the visibility went unreported for hours
+            "unwatched_nights": [
+                {"site": n.site, "night": n.night.date().isoformat()} for n in res.unwatched
+            ],
             "events": [
                 {
                     "time": iso_z(e.time),
@@ -131,6 +135,12 @@ def report_text(results: Sequence[ReplayResult]) -> str:
         f"{len(first.nights)} site-night(s)",
         "",
     ]
+    if first.unwatched:
+        lines[-1:-1] = [
+            f"{len(first.unwatched)} more site-night(s) not scored: their visibility went "
+            "unreported for more than 3 h",
+            "between 18:00 and 09:00 local, so no forecast on them can be verified",
+        ]
     for res in results:
         lines.extend(_timeline_lines(res))
     if not first.nights:
@@ -264,10 +274,12 @@ def _per_site_lines(res: ReplayResult) -> list[str]:
     ]
     for sid in res.site_ids:
         t = res.table("warning", sid)
+        unwatched = sum(n.site == sid for n in res.unwatched)
         lines.append(
             f"  {sid:<24} {t.hits}/{t.misses}/{t.false_alarms}/"
             f"{t.correct_negatives}  POD {_fmt(t.pod)}  FAR {_fmt(t.far)}  "
             f"CSI {_fmt(t.csi)}  bias {_fmt(t.bias)}"
+            + (f"  ({unwatched} night(s) not scored)" if unwatched else "")
         )
     fa = [n for n in res.nights if n.category("warning") == "false_alarm"]
     miss = [n for n in res.nights if n.category("warning") == "miss"]

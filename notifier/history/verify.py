@@ -22,6 +22,15 @@ Fog already present when the night starts (a spell begun in the night before and
 yet ended) is not a new onset; such a night is scored on a later onset in it, after
 that fog has ended, and is otherwise no event.
 
+**Nights not observed are not scored.** A night is scored only where it was watched:
+reports that say fog or not (a visibility or some weather text) at most 3 h apart from
+18:00 to 09:00 local, the edges included (every 3 h: the synoptic observing hours,
+docs/references.md [WMO-No. 8], from memory). A forecast is verified against an
+observation or not at all (docs/references.md [Wilks]): where the visibility went
+unreported for hours, a warning cannot be told from a false alarm, nor a quiet night
+from a missed fog. Such nights are counted and listed apart, for every forecast alike
+(the rules, the references, climatology).
+
 **Alerts.** An alert (at the scored level or above) counts for a night only if it was
 raised or escalated to that level in the night — not while fog carried over from the
 night before is still present — or it was in force at the night's onset. A warning
@@ -71,6 +80,7 @@ __all__ = [
     "fog_spells",
     "night_fog",
     "night_of",
+    "night_watched",
     "scores",
 ]
 
@@ -87,6 +97,9 @@ NOT_AT_SITE = frozenset({"MI", "BC", "PR", "VC"})
 ONSET_MIN_REPORTS = 2  # a confirmed spell: two consecutive reports … (common practice)
 
 ONSET_MIN_SPAN_S = 20 * 60.0  # … at least 20 minutes apart (common practice)
+
+WATCHED_FROM_H, WATCHED_TO_H = 6.0, 21.0  # 18:00 to 09:00: hours after the night's noon
+MAX_REPORT_GAP_S = 3 * 3600.0  # the synoptic observing interval (WMO-No. 8, from memory)
 
 
 @dataclass
@@ -285,6 +298,25 @@ def night_of(t: datetime, zone: str) -> datetime:
     local = t.astimezone(ZoneInfo(zone))
     day = local.date() if local.time() >= time(12, 0) else local.date() - timedelta(days=1)
     return datetime.combine(day, time(12, 0), ZoneInfo(zone))
+
+
+def night_watched(report_s: np.ndarray, night: datetime) -> bool:
+    """Whether a night was observed well enough to be scored: sorted POSIX seconds of the
+    site's reports that say fog or not, none more than 3 h from the next between 18:00
+    and 09:00 local (the edges count as gaps too).
+
+    >>> noon = datetime(2001, 1, 1, 12, tzinfo=ZoneInfo("UTC"))
+    >>> hourly = noon.timestamp() + 3600.0 * np.arange(25)
+    >>> evening = hourly[hourly < noon.timestamp() + 9 * 3600]  # to 21:00, then none
+    >>> night_watched(hourly, noon), night_watched(evening, noon)
+    (True, False)
+    """
+    lo = night.timestamp() + WATCHED_FROM_H * 3600.0
+    hi = night.timestamp() + WATCHED_TO_H * 3600.0
+    a = int(np.searchsorted(report_s, lo, side="left"))
+    b = int(np.searchsorted(report_s, hi, side="right"))
+    points = np.concatenate(([lo], report_s[a:b], [hi]))
+    return bool(np.max(np.diff(points)) <= MAX_REPORT_GAP_S)
 
 
 @dataclass

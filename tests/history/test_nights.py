@@ -20,6 +20,7 @@ from notifier.history.verify import (
     fog_reports,
     fog_spells,
     night_fog,
+    night_watched,
 )
 from notifier.service.loading import load
 
@@ -282,3 +283,56 @@ def test_replay_scores_fog_past_noon_on_the_night_it_began(tmp_path):
     assert again.nights[1].fog_onset is None
     assert again.nights[1].first_warning is None
     assert again.nights[1].category("warning") == "correct_negative"
+
+
+# -- nights without observations are not scored -------------------------------------------
+# A forecast is verified against an observation or not at all (docs/references.md
+# [Wilks]); reports every 3 h, the synoptic observing hours, still watch a night
+# (WMO-No. 8, from memory).
+
+NOON = datetime(2001, 3, 1, 12, 0, tzinfo=UTC)
+
+
+@pytest.mark.parametrize(
+    ("hours", "watched"),
+    [
+        (list(range(0, 25)), True),  # hourly all night
+        (list(range(0, 25, 3)), True),  # 3-hourly: 18:00, 21:00, … 09:00 exactly
+        ([h for h in range(25) if not 10 <= h <= 13], False),  # 21:00 → 02:00 is 5 h
+        ([h for h in range(25) if not 10 <= h <= 11], True),  # 21:00 → 00:00 is 3 h
+        (list(range(0, 19)), True),  # to 06:00, then 06:00 → 09:00 is 3 h
+        (list(range(0, 18)), False),  # to 05:00: 4 h without a report before 09:00
+        (list(range(10, 25)), False),  # from 22:00: 18:00 → 22:00 is 4 h
+        ([], False),  # nothing at all
+    ],
+    ids=["hourly", "3-hourly", "5-h gap", "3-h gap", "ends 06:00", "ends 05:00", "late", "none"],
+)
+def test_a_night_is_scored_only_where_it_was_watched(hours, watched):
+    seconds = np.array([NOON.timestamp() + 3600.0 * h for h in hours], dtype=float)
+    assert night_watched(seconds, NOON) is watched
+
+
+def test_replay_leaves_nights_without_visibility_out_of_every_score(tmp_path):
+    cfg = tmp_path / "fogwatch.yaml"
+    cfg.write_text(CONFIG)
+    loaded = load(cfg)
+    start = datetime(2026, 1, 5, 12, 0, tzinfo=UTC)
+    # two nights of dry, windy readings; on the second the visibility is not reported
+    # from 20:00 to 04:00 (hours 32 to 40): 9 h without a word on fog
+    obs = _hourly(start - timedelta(hours=30), 30 + 72, set())
+    blind = (obs["time"] >= start + timedelta(hours=32)) & (
+        obs["time"] <= start + timedelta(hours=40)
+    )
+    obs.loc[blind, ["visibility_m", "weather"]] = [np.nan, None]
+    result = replay(loaded, obs, start, start + timedelta(hours=48), step_s=3600.0)
+    assert [n.night.date() for n in result.nights] == [start.date()]
+    assert [n.night.date() for n in result.unwatched] == [(start + timedelta(days=1)).date()]
+    # every table counts the first night only: the rules and the references alike
+    assert result.table().n == 1
+    assert len(result.references.one_liner) == 1
+    from notifier.history.report import report_text, to_json
+
+    assert "1 more site-night(s) not scored" in report_text([result])
+    assert to_json([result])["rules"]["unwatched_nights"] == [
+        {"site": "moor", "night": (start + timedelta(days=1)).date().isoformat()}
+    ]
