@@ -218,6 +218,22 @@ TMY2_FOG_CODES = {
 }  # 3 blowing dust, 4 blowing sand, 6 glaze: not fog
 
 
+# Each TMY2 and TMY3 value carries a source flag: "A" the value as observed, "B"
+# interpolated between observations, other letters estimated or modelled, "?" missing
+# (User's Manual for TMY2s, Marion & Urban, NREL 1995, section 3, and the TMY3 manual,
+# table 1-5; from memory). A typical year fills the hours between observations: such an
+# hour is not a station report, and fogwatch must not be scored on readings no one
+# made. An hour is kept when its temperature was observed or it has a visibility (which
+# is never filled in: missing where not observed; checked on both files); on a kept
+# hour an interpolated cloud amount or ceiling is left out (a ceiling interpolated
+# towards "unlimited" reads as thousands of metres of made-up cloud base). The
+# temperature, dew point and wind of a kept hour stay as given: without them fogwatch
+# would refuse the row and lose its visibility report.
+OBSERVED = "A"
+INTERPOLATED = "B"
+SKY = frozenset({"total_cloud_tenths", "cloud_tenths", "ceiling_m"})  # TMY2 and TMY3 keys
+
+
 def _cut(line: str, span: tuple[int, int]) -> str:
     first, last = span
     return line[first - 1 : last]
@@ -262,8 +278,14 @@ def parse_tmy2(text: str) -> tuple[dict[str, Any], list[dict[str, Any]]]:
         if len(line) < 123:
             raise JudgeError(f"TMY2 line {n}: {len(line)} characters (expected 142)")
         raw = {k: _cut(line, span) for k, span in TMY2_FIELDS.items()}
+        # the source flag is the character after each value (Table 3-2 of the manual)
+        flag = {k: line[span[1] : span[1] + 1] for k, span in TMY2_FIELDS.items()}
         try:
-            num = {k: _number(v) for k, v in raw.items() if k != "present_weather"}
+            num = {
+                k: None if k in SKY and flag[k] == INTERPOLATED else _number(v)
+                for k, v in raw.items()
+                if k != "present_weather"
+            }
             when = {k: int(raw[k]) for k in ("year", "month", "day", "hour")}
         except ValueError as exc:
             raise JudgeError(f"TMY2 line {n}: {exc}") from exc
@@ -286,6 +308,7 @@ def parse_tmy2(text: str) -> tuple[dict[str, Any], list[dict[str, Any]]]:
                     math.inf if ceiling == 77777 else None if ceiling == 88888 else ceiling
                 ),
                 "present_weather": raw["present_weather"],
+                "observed": flag["dry_bulb_tenths_c"] == OBSERVED or vis is not None,
             }
         )
     return header, records
@@ -358,7 +381,12 @@ def parse_tmy3(text: str) -> tuple[dict[str, Any], list[dict[str, Any]]]:
             num = {k: float(row[i]) for k, i in where.items()}
         except (ValueError, IndexError) as exc:
             raise JudgeError(f"TMY3 line {n}: {exc}") from exc
-        val = {k: (None if v == TMY3_MISSING else v) for k, v in num.items()}
+        flag = {k: row[i + 1] if names[i + 1].endswith("source") else "" for k, i in where.items()}
+        val = {
+            k: None if v == TMY3_MISSING or (k in SKY and flag[k] == INTERPOLATED) else v
+            for k, v in num.items()
+        }
+        val["observed"] = flag["temp_c"] == OBSERVED or val["visibility_m"] is not None
         cloud, ceiling = val.pop("cloud_tenths"), val["ceiling_m"]
         val["cloud_pct"] = None if cloud is None else cloud * 10.0
         val["ceiling_m"] = (
@@ -437,6 +465,8 @@ def tmy_rows(site: str, header: dict[str, Any], records: Sequence[dict[str, Any]
         seen.add(key)
         if (rec["month"], rec["day"]) == (2, 29):
             raise JudgeError(f"{site}: 29 February in a typical year")
+        if not rec.get("observed", True):
+            continue  # a filled-in hour: no report was made (see OBSERVED)
         direction = rec["wind_dir_deg"]
         if direction == 0:
             direction = None  # calm or undefined: north is 360 in both TMY formats
@@ -731,6 +761,9 @@ def table(results: dict[str, dict[str, Any]]) -> str:
     )
     lines = [head, "-" * len(head)]
     totals = {level: [0, 0, 0, 0] for level, _ in LEVELS}
+    unwatched = {
+        sid: len(res["replay"].get("unwatched_nights", ())) for sid, res in results.items()
+    }
     for sid, res in results.items():
         overall = res["replay"]["overall"]
         for i, (level, label) in enumerate(LEVELS):
@@ -745,6 +778,11 @@ def table(results: dict[str, dict[str, Any]]) -> str:
             )
             for k, key in enumerate(("hits", "false_alarms", "misses", "correct_negatives")):
                 totals[level][k] += t[key]
+    if any(unwatched.values()):
+        lines.append(
+            "not scored (visibility unreported for more than 3 h of the night): "
+            + ", ".join(f"{sid} {n} nights" for sid, n in unwatched.items() if n)
+        )
     if len(results) > 1:
         lines.append("-" * len(head))
         for i, (level, label) in enumerate(LEVELS):

@@ -175,18 +175,28 @@ def test_tmy2_reader_on_hand_read_lines(stations: ModuleType) -> None:
     assert stations.tmy2_fog(fog["present_weather"]) == "fog"  # digit 0 (then 0: smoke)
     assert stations.tmy_weather(fog) == "FG"
 
-    missing = recs[4]  # "65100102 … 0252 … 0228 … 9999?0 99999?0"
-    assert (missing["year"], missing["month"], missing["day"]) == (1965, 10, 1)
-    assert missing["temp_c"] == 25.2 and missing["dewpoint_c"] == 22.8
-    assert missing["visibility_m"] is None and missing["ceiling_m"] is None
+    # the source flag follows each value: A observed, B interpolated, C/E estimated
+    # (User's Manual for TMY2s, from memory); the first four lines are all A
+    assert all(r["observed"] for r in recs[:4])
 
-    last = recs[5]  # "65123124 …": 31 December, hour 24
+    missing = recs[4]  # "65100102 … 0252C9 0228C9 … 9999?0 99999?0"
+    assert (missing["year"], missing["month"], missing["day"]) == (1965, 10, 1)
+    assert missing["temp_c"] == 25.2 and missing["dewpoint_c"] == 22.8  # C: kept
+    assert missing["visibility_m"] is None and missing["ceiling_m"] is None
+    assert missing["observed"] is False  # temperature not A and no visibility: a fill
+
+    last = recs[5]  # "65123124 … 0222B8 0158E7 … 100B8 059B8": 31 December, hour 24
     assert (last["month"], last["day"], last["hour"]) == (12, 31, 24)
-    assert last["temp_c"] == 22.2 and last["wind_dir_deg"] == 100 and last["wind_ms"] == 5.9
+    # an interpolated (B) cloud amount is left out; the rest stays as given
+    assert last["cloud_pct"] is None and last["temp_c"] == 22.2 and last["dewpoint_c"] == 15.8
+    assert last["wind_dir_deg"] == 100 and last["wind_ms"] == 5.9
+    assert last["observed"] is False
 
     rows = stations.tmy_rows("miami", header, recs)
     assert rows[0]["time"] == "2001-01-01T01:00:00-05:00"
-    assert rows[-1]["time"] == "2002-01-01T00:00:00-05:00"  # hour 24 → next day's 00:00
+    assert len(rows) == 4  # the two filled-in hours are not reports
+    hour_24 = stations.tmy_rows("miami", header, [{**last, "observed": True}])
+    assert hour_24[0]["time"] == "2002-01-01T00:00:00-05:00"  # hour 24 → next day's 00:00
     by_time = {r["time"]: r for r in rows}
     fog_row = by_time["2001-01-11T06:00:00-05:00"]
     assert (fog_row["visibility_m"], fog_row["weather"], fog_row["wind_dir_deg"]) == (
@@ -194,7 +204,7 @@ def test_tmy2_reader_on_hand_read_lines(stations: ModuleType) -> None:
         "FG",
         "",
     )
-    assert by_time["2001-10-01T02:00:00-05:00"]["visibility_m"] == ""
+    assert "2001-10-01T02:00:00-05:00" not in by_time
 
 
 def test_tmy3_reader_on_hand_read_lines(stations: ModuleType) -> None:
@@ -226,12 +236,16 @@ def test_tmy3_reader_on_hand_read_lines(stations: ModuleType) -> None:
     assert (low["temp_c"], low["dewpoint_c"], low["visibility_m"]) == (6.6, 1.6, 800)
     assert low["ceiling_m"] == 30
 
+    # "Dry-bulb source" E and no visibility on the first two lines: filled-in hours, not
+    # reports (the source flags of the TMY3 manual, from memory); the others are A
+    assert [r["observed"] for r in recs] == [False, False, True, True, True, True]
     rows = stations.tmy_rows("sandpoint", header, recs)
     times = [r["time"] for r in rows]
-    assert times[0] == "2001-01-01T01:00:00-09:00"
+    assert times[0] == "2001-01-28T14:00:00-09:00"  # "01/28/1997,14:00"
     assert "2001-02-13T00:00:00-09:00" in times  # "02/12/1995,24:00"
     assert times[-1] == "2002-01-01T00:00:00-09:00"  # "12/31/1998,24:00"
-    assert rows[1]["wind_dir_deg"] == ""  # calm: no direction
+    calm_row = stations.tmy_rows("sandpoint", header, [{**calm, "observed": True}])[0]
+    assert calm_row["wind_dir_deg"] == ""  # calm: no direction
     assert "weather" not in rows[0]  # TMY3 carries no present weather
     assert recs[-1]["temp_c"] == -6.0 and recs[-1]["dewpoint_c"] == -13.0
 
