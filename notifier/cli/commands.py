@@ -71,12 +71,36 @@ def read_data(paths: list[str], config: Config, now: datetime) -> ObservationBat
     return batch
 
 
+# A history read for a past --at: its later rows are what came next, not errors, so none
+# is "ahead" when it is read; they are set aside after (``_known_at``).
+HISTORY_READ_AT = datetime(2200, 1, 1, tzinfo=UTC)
+
+
+def _known_at(batch: ObservationBatch, at: datetime) -> None:
+    """Sets aside the observations of a history file newer than ``at`` (beyond the 10 min
+    a live reading may be ahead), with one line on stderr rather than one per row."""
+    import pandas as pd
+
+    from notifier.core.observations import FUTURE_TOLERANCE
+
+    frame = batch.frame
+    later = (frame["kind"] == "obs") & (frame["time"] > pd.Timestamp(at) + FUTURE_TOLERANCE)
+    if later.any():
+        batch.frame = frame[~later]
+        batch.warnings.append(
+            f"{int(later.sum())} observation row(s) after --at {iso_z(at)} left out: the "
+            "evaluation sees only what was known then"
+        )
+
+
 def _data_for(loaded: Loaded, args: argparse.Namespace) -> tuple[ObservationBatch, datetime]:
     """Observations for a one-off command: the --data files, or a poll into the store."""
     config = loaded.config
     if getattr(args, "data", None):
         at_guess = parse_time(args.at) if args.at else datetime.now(UTC)
-        batch = read_data(args.data, config, at_guess)
+        batch = read_data(args.data, config, HISTORY_READ_AT if args.at else at_guess)
+        if args.at:
+            _known_at(batch, at_guess)
         frame = batch.frame
         if args.at is None and len(frame):
             # replaying a file: judge it at its newest observation, not at today's clock

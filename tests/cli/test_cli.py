@@ -226,7 +226,7 @@ def test_assess_table_and_default_time_from_data(capsys, night_csv):
 
 
 def test_explain_lists_every_feature_and_rule(capsys, night_csv):
-    code, out, _ = run(
+    code, out, err = run(
         capsys,
         "explain",
         str(DEMO),
@@ -245,6 +245,12 @@ def test_explain_lists_every_feature_and_rule(capsys, night_csv):
         assert rule.id in out
     assert "sea-fog-warning (fog warning, fog.yaml:" in out
     assert "FIRES" in out and "Why this level" in out
+    # the night's readings after 02:00 are what came next, set aside in one line, not
+    # rejected row by row as if a live reading were ahead of the clock
+    assert "ahead of now" not in err and "rejected" not in err
+    assert re.search(
+        r"^warning: \d+ observation row\(s\) after --at 2026-11-07T02:00:00Z", err, re.M
+    )
 
 
 def test_explain_unknown_site_exit_2(capsys, night_csv):
