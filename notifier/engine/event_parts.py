@@ -8,6 +8,7 @@ import math
 import re
 from collections.abc import Sequence
 from datetime import datetime
+from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
 from notifier.engine.alerts import AlertState, Event, event_id
@@ -25,6 +26,31 @@ SIGHT_KINDS = ("observed", "dense", "freezing-fog", "frost")
 #: the night's clock: an ended test of these is told as the night being over
 SUN_FEATURES = frozenset({"is_night", "hours_to_sunrise", "hours_since_sunset"})
 _COMPARED = re.compile(r" (?:[<>≤≥]|in|is) ")  # a reason's value, before its test
+
+
+#: a rule's kind, short, for "what changed": whose threshold a value is told against
+#: ("visibility now 9000 m, dense fog warning needs < 200 m", not "alert needs", which
+#: read as if the whole fog warning had needed 200 m)
+KIND_SHORT = MappingProxyType(
+    {
+        "radiation": "clear-sky fog",
+        "valley": "valley fog",
+        "advection": "sea fog",
+        "steam": "steam fog",
+        "stratus-lowering": "low-cloud fog",
+        "observed": "reported fog",
+        "dense": "dense fog",
+        "site-model": "site-model fog",
+        "freezing-fog": "freezing fog",
+        "frost": "frost",
+    }
+)
+
+
+def rule_words(rule: Any) -> str:
+    """A rule as "what changed" names it: its kind and level ("dense fog warning")."""
+    hazard = str(rule.hazard).replace("_", " ")
+    return f"{KIND_SHORT.get(rule.kind, hazard)} {rule.level}"
 
 
 def _rank(level: str) -> int:
@@ -76,7 +102,8 @@ def changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
             else:
                 value = format_value(name, outcome.value)
                 lines.append(
-                    f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
+                    f"{spec.label} now {value}, {rule_words(result.rule)} needs "
+                    f"{outcome.test.describe_threshold()}"
                 )
     lines += unknown
     if not lines:

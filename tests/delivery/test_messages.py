@@ -77,7 +77,7 @@ def test_all_clear_says_what_changed(night_events):
     assert "fog warning has ended" in text
     assert "What changed:" in text and "Now:" in text and "Was:" in text
     # what ended it, value against the threshold the alert needed
-    assert re.search(r"visibility now \d+ m, alert needs < 200 m", text)
+    assert re.search(r"visibility now \d+ m, dense fog warning needs < 200 m", text)
     assert re.search(r"air temperature \d+\.\d °C", text)
 
 

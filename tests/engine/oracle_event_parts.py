@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING, Any
 from notifier.engine.alerts import AlertState, Event, event_id
 from notifier.engine.assessment import level_rank, results_where
 from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
+from notifier.engine.event_parts import rule_words  # the wording is not what this checks
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import HazardAssessment, SiteAssessment
@@ -77,7 +78,8 @@ def changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
             else:
                 value = format_value(name, outcome.value)
                 lines.append(
-                    f"{spec.label} now {value}, alert needs {outcome.test.describe_threshold()}"
+                    f"{spec.label} now {value}, {rule_words(result.rule)} needs "
+                    f"{outcome.test.describe_threshold()}"
                 )
     lines += unknown
     if not lines:
