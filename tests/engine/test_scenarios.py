@@ -153,6 +153,17 @@ def test_steam_fog_over_much_warmer_water():
     assert "steam-fog-watch" not in fired([s], mild, at)[s.id]
 
 
+def test_steam_fog_in_a_gale():
+    # Saunders 1964 saw sea smoke in winds from calm to gale (from memory): a strong wind
+    # carries the steam fog onto the quay, it does not stop it
+    s = site("river-wharf", exposure="waterside", use="port")
+    at = utc(2026, 1, 20, 7, 0)
+    gale = steady(
+        s.id, at, temp_c=-9.0, dewpoint_c=-11.0, water_temp_c=4.0, wind_ms=18.0, cloud_pct=20.0
+    )
+    assert "steam-fog-watch" in fired([s], gale, at)[s.id]
+
+
 # -- observed fog --------------------------------------------------------------------------
 
 
@@ -246,6 +257,35 @@ def test_freezing_night_gives_freezing_fog():
     got = fired([s], obs, late)[s.id]
     assert "freezing-fog-observed" in got
     assert levels([s], obs, late)[s.id]["icing"] == "warning"
+
+
+def _dewpoint_of_ice_saturated_air(temp_c: float) -> float:
+    """The dew point (over water) of air saturated over ice at ``temp_c``, from MetPy's
+    saturation vapour pressures over ice and water (an outside reference)."""
+    import metpy.calc as mpcalc
+    from metpy.units import units
+
+    e_ice = mpcalc.saturation_vapor_pressure(units.Quantity(temp_c, "degC"), phase="solid")
+    return float(mpcalc.dewpoint(e_ice).m_as("degC"))
+
+
+@pytest.mark.parametrize(
+    ("temp_c", "saturated_over", "watch"),
+    [
+        (-10.0, "ice", False),  # RH over water about 90 %: hoar frost, not fog
+        (-14.0, "ice", False),
+        (-10.0, "water", True),  # supercooled droplets can form: freezing fog likely
+    ],
+)
+def test_freezing_fog_watch_needs_air_saturated_over_water(temp_c, saturated_over, watch):
+    # Fog is droplets: below 0 °C, air saturated only over ice (its dew point over water
+    # 1.3 °C below the air at −10 °C, MetPy) deposits frost instead (WMO-No. 8 defines
+    # relative humidity over water)
+    s = site("upper-meadow")
+    at = utc(2026, 1, 20, 2, 0)  # night
+    dew = _dewpoint_of_ice_saturated_air(temp_c) if saturated_over == "ice" else temp_c - 0.2
+    obs = steady(s.id, at, hours=12.0, temp_c=temp_c, dewpoint_c=dew, wind_ms=1.5, cloud_pct=100.0)
+    assert ("freezing-fog-watch" in fired([s], obs, at)[s.id]) is watch
 
 
 def test_mild_fog_night_has_no_icing():
