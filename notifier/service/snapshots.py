@@ -22,13 +22,14 @@ import numpy as np
 from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import Assessments
 from notifier.engine.assessment import _json_number as json_number
-from notifier.engine.assessment import level_rank
 from notifier.engine.catalog import FEATURES
+from notifier.engine.rules import LEVELS
+from notifier.storage.snapshot_facts import SnapshotFacts, hazards_json
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
 
-__all__ = ["SNAPSHOT_FEATURES", "hazards_json", "site_snapshots", "snapshot"]
+__all__ = ["SNAPSHOT_FEATURES", "SiteSnapshots", "hazards_json", "site_snapshots", "snapshot"]
 
 #: the features a snapshot keeps (the status page's and the bot's columns)
 SNAPSHOT_FEATURES = (
@@ -64,22 +65,6 @@ def snapshot(sa: SiteAssessment) -> dict[str, Any]:
     }
 
 
-def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
-    """A site's hazards as ``to_json`` writes them, the highest level first."""
-    return [
-        {
-            "hazard": h.hazard,
-            "level": h.level,
-            "kind": h.kind,
-            "eta": iso_z(h.eta),
-            "eta_method": h.eta_method or None,
-            "rules": h.rules,
-            "reasons": list(h.reasons),
-        }
-        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
-    ]
-
-
 def _shown(name: str, value: Any) -> Any:
     # as ``to_json`` writes a feature's value (any number a hand-made assessment holds)
     if FEATURES[name].kind == "bool":
@@ -87,21 +72,118 @@ def _shown(name: str, value: Any) -> Any:
     return json_number(value)
 
 
+class SiteSnapshots(dict[str, tuple[str, dict[str, Any]]]):
+    """Site id → (level, snapshot), and the cycle's :class:`SnapshotFacts` that the
+    hazards of the sites in ``columns`` (site id → column) are made from when read:
+    those sites' snapshots are written with no hazards."""
+
+    facts: SnapshotFacts | None = None
+    columns: dict[str, int]
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.columns = {}
+
+
 def site_snapshots(
     assessments: Sequence[SiteAssessment],
 ) -> dict[str, tuple[str, dict[str, Any]]]:
-    """Site id → (level, snapshot) for every site assessed."""
+    """Site id → (level, snapshot) for every site assessed. From :class:`Assessments`,
+    a :class:`SiteSnapshots` whose sites with a hazard carry their hazards as facts."""
     if not isinstance(assessments, Assessments):
         return {sa.site.id: (sa.level, snapshot(sa)) for sa in assessments}
-    # every site's features and data from the arrays; then the sites where a rule fires
-    # get their level and hazards from their assessment
-    out = _array_snapshots(assessments, np.arange(len(assessments.sites)))
-    for i in np.flatnonzero(~assessments.quiet()).tolist():
-        sa = assessments.unkept(i)  # not kept: tens of thousands on a foggy night
-        _, data = out[sa.site.id]
-        data["level"], data["hazards"] = sa.level, hazards_json(sa)
-        out[sa.site.id] = (sa.level, data)
+    # every site's features and data from the arrays, as if no rule fired there; the
+    # sites where a rule fires get their level from the arrays and their hazards as
+    # the facts they are made from
+    out = SiteSnapshots()
+    out.update(_array_snapshots(assessments, np.arange(len(assessments.sites))))
+    loud = np.flatnonzero(~assessments.quiet())
+    if not loud.size:
+        return out
+    out.facts = cycle_facts(assessments, loud)
+    levels = assessments.levels()[loud].tolist()
+    for column, (i, rank) in enumerate(zip(loud.tolist(), levels, strict=True)):
+        site = assessments.sites[i].id
+        _, data = out[site]
+        data["level"] = LEVELS[rank]
+        out[site] = (LEVELS[rank], data)
+        out.columns[site] = column
     return out
+
+
+def cycle_facts(assessments: Assessments, rows: np.ndarray) -> SnapshotFacts:
+    """The facts the hazards of the sites at ``rows`` are made from, as arrays."""
+    # the evaluations and this time's cells among them: the engine's own arrays (the
+    # assessment's internals, read here rather than copied out for every cycle)
+    evals = assessments._evals
+    cells = assessments._offset + rows
+    table = assessments.table
+    catalogue: list[dict[str, Any]] = []
+    held: list[np.ndarray] = []
+    tested: dict[str, np.ndarray] = {}
+    for ev in evals:
+        tests = []
+        for n, test in enumerate(ev.tests):
+            if not FEATURES[test.feature].in_reasons:
+                continue
+            tests.append([test.feature, test.op, _plain(test.value), float(test.margin)])
+            held.append(np.asarray(ev.held[n])[cells])
+            if test.feature not in tested:
+                tested[test.feature] = _floats(np.asarray(ev.values[n])[cells])
+        rule = ev.rule
+        catalogue.append(
+            {"id": rule.id, "hazard": rule.hazard, "level": rule.level, "kind": rule.kind}
+            | {"tests": tests}
+        )
+    names = list(table.values)
+    values = np.array([_floats(table.values[k][rows]) for k in names]).reshape(len(names), -1)
+    # a tested value is the feature's own almost always: kept only where it is not
+    for k, v in list(tested.items()):
+        if k in table.values and np.array_equal(v, values[names.index(k)], equal_nan=True):
+            del tested[k]
+    fitted = table.projection_method[rows] == "cooling-fit"
+    fit = np.array(
+        [
+            np.where(fitted, table.fit_t0_c[rows], np.nan),
+            np.where(fitted, table.fit_k_per_sqrt_h[rows], np.nan),
+            np.where(fitted, table.last_sunset[rows], np.nan),
+        ],
+        dtype=np.float64,
+    )
+    n = rows.size
+    return SnapshotFacts(
+        time=assessments.time,
+        catalogue=catalogue,
+        features=names,
+        tested_features=list(tested),
+        fired=np.asarray(assessments._flags[0])[:, cells].reshape(len(evals), n),
+        held=np.array(held, dtype=bool).reshape(len(held), n),
+        values=values,
+        tested=np.array(list(tested.values()), dtype=np.float64).reshape(len(tested), n),
+        fit=fit,
+    )
+
+
+def _floats(values: np.ndarray) -> np.ndarray:
+    """As ``float()`` reads each (``FeatureRow``, ``RuleEvaluation.reasons_at``)."""
+    if values.dtype.kind in "fiub":
+        return values.astype(np.float64)
+    out = np.empty(values.shape, dtype=np.float64)
+    for j, v in enumerate(values.tolist()):
+        try:
+            out[j] = float(v)
+        except (TypeError, ValueError):
+            out[j] = math.nan
+    return out
+
+
+def _plain(value: Any) -> Any:
+    """A rule test's threshold as JSON keeps it."""
+    if isinstance(value, tuple | list):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
 
 
 def _array_snapshots(

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import TYPE_CHECKING, Any
@@ -121,11 +121,18 @@ def last_cycle(store: Store) -> datetime | None:
     return parse_iso(newest) if newest else None
 
 
-def site_views(outbox: Outbox, config: Config, now: datetime) -> list[SiteView]:
-    snaps = outbox.snapshots()
+def site_views(
+    outbox: Outbox, config: Config, now: datetime, site_ids: Sequence[str] | None = None
+) -> list[SiteView]:
+    """Every configured site's view, or those of ``site_ids`` (only their snapshots
+    read and put into words)."""
+    snaps = outbox.snapshots(site_ids)
     states = outbox.states()
     out = []
+    wanted = None if site_ids is None else set(site_ids)
     for site in config.sites:
+        if wanted is not None and site.id not in wanted:
+            continue
         view = SiteView(site)
         snap = snaps.get(site.id)
         if snap is not None:
