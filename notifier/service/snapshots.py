@@ -1,20 +1,20 @@
 """Every site's status snapshot, written each cycle: what the bot, ``status``, the web
 page and ``/health`` show without recomputing.
 
-Every site's features and data age are read straight from the feature table's arrays,
-for all sites at once. A site where no rule fires (most sites on most nights) has no
-hazards, so that is its whole snapshot, its
-:class:`~notifier.engine.assessment.SiteAssessment` never built; only the sites with a
-hazard have theirs built, for their level and hazards (their reasons are worked out
-then). Both give the same JSON as :func:`snapshot` and as ``assess --json``
+From :class:`~notifier.engine.assessed.Assessments` the snapshots are kept as one
+record of arrays for the cycle (:mod:`notifier.storage.snapshot_rows`): every site's
+level, data age and shown features straight from the arrays, and for the sites where a
+rule fires the facts their hazards are put into words from when a snapshot is read
+(:mod:`notifier.storage.snapshot_facts`); no site's
+:class:`~notifier.engine.assessment.SiteAssessment` is built for it. Read back, they
+are the same JSON as :func:`snapshot` and as ``assess --json``
 (``tests/service/test_snapshots.py`` holds them to both).
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
-from datetime import UTC, datetime
+from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -23,13 +23,13 @@ from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import Assessments
 from notifier.engine.assessment import _json_number as json_number
 from notifier.engine.catalog import FEATURES
-from notifier.engine.rules import LEVELS
 from notifier.storage.snapshot_facts import SnapshotFacts, hazards_json
+from notifier.storage.snapshot_rows import CycleSnapshots, RecordSnapshots
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
 
-__all__ = ["SNAPSHOT_FEATURES", "SiteSnapshots", "hazards_json", "site_snapshots", "snapshot"]
+__all__ = ["SNAPSHOT_FEATURES", "hazards_json", "site_snapshots", "snapshot"]
 
 #: the features a snapshot keeps (the status page's and the bot's columns)
 SNAPSHOT_FEATURES = (
@@ -72,43 +72,35 @@ def _shown(name: str, value: Any) -> Any:
     return json_number(value)
 
 
-class SiteSnapshots(dict[str, tuple[str, dict[str, Any]]]):
-    """Site id → (level, snapshot), and the cycle's :class:`SnapshotFacts` that the
-    hazards of the sites in ``columns`` (site id → column) are made from when read:
-    those sites' snapshots are written with no hazards."""
-
-    facts: SnapshotFacts | None = None
-    columns: dict[str, int]
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.columns = {}
-
-
 def site_snapshots(
     assessments: Sequence[SiteAssessment],
-) -> dict[str, tuple[str, dict[str, Any]]]:
-    """Site id → (level, snapshot) for every site assessed. From :class:`Assessments`,
-    a :class:`SiteSnapshots` whose sites with a hazard carry their hazards as facts."""
+) -> Mapping[str, tuple[str, dict[str, Any]]]:
+    """Site id → (level, snapshot) for every site assessed; from :class:`Assessments`,
+    held as the cycle's record (each snapshot made only when looked up)."""
     if not isinstance(assessments, Assessments):
         return {sa.site.id: (sa.level, snapshot(sa)) for sa in assessments}
-    # every site's features and data from the arrays, as if no rule fired there; the
-    # sites where a rule fires get their level from the arrays and their hazards as
-    # the facts they are made from
-    out = SiteSnapshots()
-    out.update(_array_snapshots(assessments, np.arange(len(assessments.sites))))
+    table, n = assessments.table, len(assessments.sites)
     loud = np.flatnonzero(~assessments.quiet())
-    if not loud.size:
-        return out
-    out.facts = cycle_facts(assessments, loud)
-    levels = assessments.levels()[loud].tolist()
-    for column, (i, rank) in enumerate(zip(loud.tolist(), levels, strict=True)):
-        site = assessments.sites[i].id
-        _, data = out[site]
-        data["level"] = LEVELS[rank]
-        out[site] = (LEVELS[rank], data)
-        out.columns[site] = column
-    return out
+    facts_column = np.full(n, -1, dtype=np.int32)
+    facts_column[loud] = np.arange(loud.size, dtype=np.int32)
+    record = CycleSnapshots(
+        time=assessments.time,
+        ids=[s.id for s in assessments.sites],
+        levels=assessments.levels().astype(np.int8),
+        stale=np.asarray(assessments.site_levels.stale, dtype=bool),
+        last_time=np.asarray(table.last_time, dtype=np.float64),
+        age_min=np.asarray(table.values["data_age_min"], dtype=np.float64),
+        shown={k: _column(table.values[k]) for k in SNAPSHOT_FEATURES if k in table.values},
+        facts=cycle_facts(assessments, loud) if loud.size else None,
+        facts_column=facts_column,
+    )
+    return RecordSnapshots(record)
+
+
+def _column(values: np.ndarray) -> np.ndarray:
+    """A feature's column as it can be stored (numbers as they are)."""
+    values = np.asarray(values)
+    return values if values.dtype.kind in "fiub" else _floats(values)
 
 
 def cycle_facts(assessments: Assessments, rows: np.ndarray) -> SnapshotFacts:
@@ -184,56 +176,3 @@ def _plain(value: Any) -> Any:
     if isinstance(value, np.generic):
         return value.item()
     return value
-
-
-def _array_snapshots(
-    assessments: Assessments, rows: np.ndarray
-) -> dict[str, tuple[str, dict[str, Any]]]:
-    """The snapshots of the sites at ``rows`` as if no rule fired there, from the arrays."""
-    table = assessments.table
-    names = [k for k in SNAPSHOT_FEATURES if k in table.values]
-    columns = [table.values[k][rows].tolist() for k in names]
-    shown = [_as_json(k) for k in names]
-    ages = table.values["data_age_min"][rows].tolist()
-    stale = assessments.site_levels.stale[rows].tolist()
-    lasts = table.last_time[rows].tolist()
-    at = iso_z(assessments.time)
-    moments: dict[float, str | None] = {}
-    out = {}
-    for j, i in enumerate(rows.tolist()):
-        last = lasts[j]
-        when = moments.get(last) if last == last else None
-        if when is None and last == last:
-            when = moments[last] = iso_z(datetime.fromtimestamp(last, UTC))
-        age = ages[j]
-        site = assessments.sites[i].id
-        out[site] = (
-            "none",
-            {
-                "site": site,
-                "time": at,
-                "level": "none",
-                "hazards": [],
-                "features": {k: f(col[j]) for k, f, col in zip(names, shown, columns, strict=True)},
-                "data": {
-                    "last_time": when,
-                    "age_min": None if not math.isfinite(age) else round(age, 1),
-                    "stale": stale[j],
-                },
-            },
-        )
-    return out
-
-
-def _as_json(name: str) -> Any:
-    """How ``to_json`` writes a value of this feature."""
-    if FEATURES[name].kind == "bool":
-        return lambda v: None if math.isnan(v) else bool(v)
-    return _json_number
-
-
-def _json_number(v: float) -> Any:
-    # ``assessment._json_number`` for a float read from an array
-    if math.isnan(v) or math.isinf(v):
-        return None
-    return round(v, 3)

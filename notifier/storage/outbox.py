@@ -26,8 +26,8 @@ from notifier.core.redact import redact
 from notifier.core.timefmt import iso_z
 from notifier.engine.alerts import AlertState, Event, StateKey
 from notifier.storage.deliveries import Delivery, DeliveryRow
-from notifier.storage.migrations import deliveries, events, site_status
-from notifier.storage.snapshot_facts import read_snapshots, write_snapshots
+from notifier.storage.migrations import deliveries, events
+from notifier.storage.snapshot_rows import read_levels, read_snapshots, write_snapshots
 from notifier.storage.states import AlertStates
 from notifier.storage.store import Store
 
@@ -393,12 +393,11 @@ class Outbox:
         self, sites: Iterable[str] | None = None
     ) -> dict[str, tuple[datetime, str, dict[str, Any]]]:
         """Site id → (time, level, snapshot) for every site, or for ``sites``; the
-        hazards of a site with any are put into words now (:mod:`snapshot_facts`)."""
+        hazards of a site with any are put into words now (:mod:`snapshot_rows`)."""
         with self.engine.connect() as conn:
             return read_snapshots(conn, sites)
 
     def snapshot_levels(self) -> dict[str, str]:
         """Site id → its snapshot's level, nothing put into words."""
         with self.engine.connect() as conn:
-            rows = conn.execute(sa.select(site_status.c.site, site_status.c.level))
-            return {r.site: r.level for r in rows}
+            return read_levels(conn)

@@ -22,118 +22,20 @@ to the per-site oracle's ``to_json``).
 
 from __future__ import annotations
 
-import io
-import json
 import math
-import uuid
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
-from typing import TYPE_CHECKING, Any, cast
+from typing import Any, cast
 
 import numpy as np
-import sqlalchemy as sa
 
-from notifier.core.timefmt import iso_z, parse_iso
+from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import aggregate
 from notifier.engine.assessment import SiteAssessment, level_rank
 from notifier.engine.rules import Comparison, Outcome, _reason
-from notifier.storage.migrations import site_status, snapshot_facts
 
-if TYPE_CHECKING:  # pragma: no cover
-    from sqlalchemy.engine import Connection
-
-    from notifier.storage.store import Store
-
-__all__ = ["SnapshotFacts", "hazards_json", "read_snapshots", "write_snapshots"]
-
-#: sites looked up per statement when a reader names them (SQLite's bound on parameters)
-SITES_PER_READ = 500
-
-
-def write_snapshots(
-    store: Store, conn: Connection, snapshots: Mapping[str, tuple[str, dict[str, Any]]], when: str
-) -> None:
-    """Every site's row; the cycle's facts (``snapshots.facts``, where there are any)
-    as one record that the rows of ``snapshots.columns`` point at; records no row
-    points at any more are dropped."""
-    if not snapshots:
-        return
-    facts: SnapshotFacts | None = getattr(snapshots, "facts", None)
-    columns: Mapping[str, int] = getattr(snapshots, "columns", {})
-    key = None
-    if facts is not None:
-        key = uuid.uuid4().hex
-        conn.execute(
-            snapshot_facts.insert(),
-            {
-                "key": key,
-                "time": when,
-                "catalogue": facts.catalogue_json(),
-                "arrays": facts.arrays_bytes(),
-            },
-        )
-    # one statement for every site (executemany): a statement built per site cost
-    # 1.6 ms each, seconds a cycle at 10,000 sites
-    stmt = store._insert(site_status)
-    stmt = stmt.on_conflict_do_update(
-        index_elements=["site"],
-        set_={
-            c: getattr(stmt.excluded, c)
-            for c in ("time", "level", "payload", "facts_key", "facts_column")
-        },
-    )
-    rows = []
-    for site, (level, payload) in snapshots.items():
-        column = columns.get(site)
-        rows.append(
-            {
-                "site": site,
-                "time": when,
-                "level": level,
-                "payload": json.dumps(payload),
-                "facts_key": None if column is None else key,
-                "facts_column": column,
-            }
-        )
-    conn.execute(stmt, rows)
-    pointed = sa.select(site_status.c.facts_key).where(site_status.c.facts_key.is_not(None))
-    conn.execute(snapshot_facts.delete().where(snapshot_facts.c.key.not_in(pointed)))
-
-
-def read_snapshots(
-    conn: Connection, sites: Iterable[str] | None = None
-) -> dict[str, tuple[datetime, str, dict[str, Any]]]:
-    """Site id → (time, level, snapshot), the hazards put into words from the facts."""
-    if sites is None:
-        rows = list(conn.execute(sa.select(site_status)))
-    else:
-        wanted = list(dict.fromkeys(sites))
-        rows = []
-        for first in range(0, len(wanted), SITES_PER_READ):
-            chunk = wanted[first : first + SITES_PER_READ]
-            rows += conn.execute(sa.select(site_status).where(site_status.c.site.in_(chunk)))
-    records: dict[str, SnapshotFacts | None] = {}
-    out = {}
-    for r in rows:
-        payload = json.loads(r.payload)
-        if r.facts_key is not None:
-            if r.facts_key not in records:
-                records[r.facts_key] = _record(conn, r.facts_key)
-            found = records[r.facts_key]
-            if found is not None:
-                payload["hazards"] = found.hazards(r.facts_column)
-        out[r.site] = (cast(datetime, parse_iso(r.time)), r.level, payload)
-    return out
-
-
-def _record(conn: Connection, key: str) -> SnapshotFacts | None:
-    row = conn.execute(
-        sa.select(snapshot_facts.c.catalogue, snapshot_facts.c.arrays).where(
-            snapshot_facts.c.key == key
-        )
-    ).first()
-    return None if row is None else SnapshotFacts.from_stored(row[0], bytes(row[1]))
+__all__ = ["SnapshotFacts", "hazards_json"]
 
 
 def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
@@ -167,51 +69,44 @@ class SnapshotFacts:
     tested: np.ndarray  # float64, tested_features × columns
     fit: np.ndarray  # float64, (T0 °C, k K/h^½, sunset POSIX s) × columns
 
-    # -- stored ------------------------------------------------------------------------
+    # -- stored (in the cycle's record: :mod:`notifier.storage.snapshot_rows`) ---------
 
-    def catalogue_json(self) -> str:
-        return json.dumps(
-            {
-                "time": self.time.timestamp(),  # exact, unlike the ISO text to the second
-                "rules": self.catalogue,
-                "features": self.features,
-                "tested_features": self.tested_features,
-            }
-        )
+    def head(self) -> dict[str, Any]:
+        return {
+            "time": self.time.timestamp(),  # exact, unlike the ISO text to the second
+            "rules": self.catalogue,
+            "features": self.features,
+            "tested_features": self.tested_features,
+        }
 
-    def arrays_bytes(self) -> bytes:
-        out = io.BytesIO()
-        np.savez(
-            out,
-            fired=np.packbits(self.fired, axis=0),
-            held=np.packbits(self.held, axis=0),
-            values=self.values,
-            tested=self.tested,
-            fit=self.fit,
-        )
-        return out.getvalue()
+    def arrays(self) -> dict[str, np.ndarray]:
+        return {
+            "fired": np.packbits(self.fired, axis=0),
+            "held": np.packbits(self.held, axis=0),
+            "values": self.values,
+            "tested": self.tested,
+            "fit": self.fit,
+        }
 
     @classmethod
-    def from_stored(cls, catalogue: str, arrays: bytes) -> SnapshotFacts:
-        head = json.loads(catalogue)
+    def from_parts(cls, head: Mapping[str, Any], data: Mapping[str, np.ndarray]) -> SnapshotFacts:
         rules = head["rules"]
         tests = sum(len(r["tests"]) for r in rules)
-        with np.load(io.BytesIO(arrays), allow_pickle=False) as data:
-            values = data["values"]
-            columns = values.shape[1]
-            fired = np.unpackbits(data["fired"], axis=0, count=len(rules)).astype(bool)
-            held = np.unpackbits(data["held"], axis=0, count=tests).astype(bool)
-            return cls(
-                time=datetime.fromtimestamp(head["time"], UTC),
-                catalogue=rules,
-                features=head["features"],
-                tested_features=head["tested_features"],
-                fired=fired.reshape(len(rules), columns),
-                held=held.reshape(tests, columns),
-                values=values,
-                tested=data["tested"],
-                fit=data["fit"],
-            )
+        values = data["values"]
+        columns = values.shape[1]
+        fired = np.unpackbits(data["fired"], axis=0, count=len(rules)).astype(bool)
+        held = np.unpackbits(data["held"], axis=0, count=tests).astype(bool)
+        return cls(
+            time=datetime.fromtimestamp(head["time"], UTC),
+            catalogue=rules,
+            features=head["features"],
+            tested_features=head["tested_features"],
+            fired=fired.reshape(len(rules), columns),
+            held=held.reshape(tests, columns),
+            values=values,
+            tested=data["tested"],
+            fit=data["fit"],
+        )
 
     # -- read --------------------------------------------------------------------------
 

@@ -111,13 +111,18 @@ def scrub(text: str | None, addresses: Iterable[str]) -> str:
 
 
 def last_cycle(store: Store) -> datetime | None:
-    """When the newest cycle ran: the latest site snapshot any cycle wrote."""
+    """When the newest cycle ran: the latest site snapshot any cycle wrote (a row, or
+    a cycle's record of every site's snapshot)."""
     import sqlalchemy as sa
 
-    from notifier.storage.migrations import site_status
+    from notifier.storage.migrations import site_status, snapshot_facts
 
     with store.engine.connect() as conn:
-        newest = conn.execute(sa.select(sa.func.max(site_status.c.time))).scalar()
+        times = [
+            conn.execute(sa.select(sa.func.max(table.c.time))).scalar()
+            for table in (site_status, snapshot_facts)
+        ]
+    newest = max((t for t in times if t), default=None)  # ISO texts of one width
     return parse_iso(newest) if newest else None
 
 
