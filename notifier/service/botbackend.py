@@ -58,7 +58,7 @@ class ServiceBackend:
         from notifier.core.freshness import freshness, when_text
         from notifier.core.timefmt import parse_iso
 
-        snaps = self.service.outbox.snapshots()
+        snaps = self.service.outbox.snapshots(site_ids)  # only these put into words
         names = self.site_names()
         newest: dict[str, datetime] = {}
         for site, _source, t in self.service.store.newest_readings():
@@ -93,7 +93,7 @@ class ServiceBackend:
         return out
 
     def reasons(self, site_id: str) -> list[str]:
-        snap = self.service.outbox.snapshots().get(site_id)
+        snap = self.service.outbox.snapshots([site_id]).get(site_id)
         if snap is None:
             return []
         out: list[str] = []

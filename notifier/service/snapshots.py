@@ -1,20 +1,20 @@
 """Every site's status snapshot, written each cycle: what the bot, ``status``, the web
 page and ``/health`` show without recomputing.
 
-Every site's features and data age are read straight from the feature table's arrays,
-for all sites at once. A site where no rule fires (most sites on most nights) has no
-hazards, so that is its whole snapshot, its
-:class:`~notifier.engine.assessment.SiteAssessment` never built; only the sites with a
-hazard have theirs built, for their level and hazards (their reasons are worked out
-then). Both give the same JSON as :func:`snapshot` and as ``assess --json``
+From :class:`~notifier.engine.assessed.Assessments` the snapshots are kept as one
+record of arrays for the cycle (:mod:`notifier.storage.snapshot_rows`): every site's
+level, data age and shown features straight from the arrays, and for the sites where a
+rule fires the facts their hazards are put into words from when a snapshot is read
+(:mod:`notifier.storage.snapshot_facts`); no site's
+:class:`~notifier.engine.assessment.SiteAssessment` is built for it. Read back, they
+are the same JSON as :func:`snapshot` and as ``assess --json``
 (``tests/service/test_snapshots.py`` holds them to both).
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
-from datetime import UTC, datetime
+from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -22,8 +22,9 @@ import numpy as np
 from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import Assessments
 from notifier.engine.assessment import _json_number as json_number
-from notifier.engine.assessment import level_rank
 from notifier.engine.catalog import FEATURES
+from notifier.storage.snapshot_facts import SnapshotFacts, hazards_json
+from notifier.storage.snapshot_rows import CycleSnapshots, RecordSnapshots
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import SiteAssessment
@@ -64,22 +65,6 @@ def snapshot(sa: SiteAssessment) -> dict[str, Any]:
     }
 
 
-def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
-    """A site's hazards as ``to_json`` writes them, the highest level first."""
-    return [
-        {
-            "hazard": h.hazard,
-            "level": h.level,
-            "kind": h.kind,
-            "eta": iso_z(h.eta),
-            "eta_method": h.eta_method or None,
-            "rules": h.rules,
-            "reasons": list(h.reasons),
-        }
-        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
-    ]
-
-
 def _shown(name: str, value: Any) -> Any:
     # as ``to_json`` writes a feature's value (any number a hand-made assessment holds)
     if FEATURES[name].kind == "bool":
@@ -89,69 +74,105 @@ def _shown(name: str, value: Any) -> Any:
 
 def site_snapshots(
     assessments: Sequence[SiteAssessment],
-) -> dict[str, tuple[str, dict[str, Any]]]:
-    """Site id → (level, snapshot) for every site assessed."""
+) -> Mapping[str, tuple[str, dict[str, Any]]]:
+    """Site id → (level, snapshot) for every site assessed; from :class:`Assessments`,
+    held as the cycle's record (each snapshot made only when looked up)."""
     if not isinstance(assessments, Assessments):
         return {sa.site.id: (sa.level, snapshot(sa)) for sa in assessments}
-    # every site's features and data from the arrays; then the sites where a rule fires
-    # get their level and hazards from their assessment
-    out = _array_snapshots(assessments, np.arange(len(assessments.sites)))
-    for i in np.flatnonzero(~assessments.quiet()).tolist():
-        sa = assessments.unkept(i)  # not kept: tens of thousands on a foggy night
-        _, data = out[sa.site.id]
-        data["level"], data["hazards"] = sa.level, hazards_json(sa)
-        out[sa.site.id] = (sa.level, data)
-    return out
+    table, n = assessments.table, len(assessments.sites)
+    loud = np.flatnonzero(~assessments.quiet())
+    facts_column = np.full(n, -1, dtype=np.int32)
+    facts_column[loud] = np.arange(loud.size, dtype=np.int32)
+    record = CycleSnapshots(
+        time=assessments.time,
+        ids=[s.id for s in assessments.sites],
+        levels=assessments.levels().astype(np.int8),
+        stale=np.asarray(assessments.site_levels.stale, dtype=bool),
+        last_time=np.asarray(table.last_time, dtype=np.float64),
+        age_min=np.asarray(table.values["data_age_min"], dtype=np.float64),
+        shown={k: _column(table.values[k]) for k in SNAPSHOT_FEATURES if k in table.values},
+        facts=cycle_facts(assessments, loud) if loud.size else None,
+        facts_column=facts_column,
+    )
+    return RecordSnapshots(record)
 
 
-def _array_snapshots(
-    assessments: Assessments, rows: np.ndarray
-) -> dict[str, tuple[str, dict[str, Any]]]:
-    """The snapshots of the sites at ``rows`` as if no rule fired there, from the arrays."""
+def _column(values: np.ndarray) -> np.ndarray:
+    """A feature's column as it can be stored (numbers as they are)."""
+    values = np.asarray(values)
+    return values if values.dtype.kind in "fiub" else _floats(values)
+
+
+def cycle_facts(assessments: Assessments, rows: np.ndarray) -> SnapshotFacts:
+    """The facts the hazards of the sites at ``rows`` are made from, as arrays."""
+    # the evaluations and this time's cells among them: the engine's own arrays (the
+    # assessment's internals, read here rather than copied out for every cycle)
+    evals = assessments._evals
+    cells = assessments._offset + rows
     table = assessments.table
-    names = [k for k in SNAPSHOT_FEATURES if k in table.values]
-    columns = [table.values[k][rows].tolist() for k in names]
-    shown = [_as_json(k) for k in names]
-    ages = table.values["data_age_min"][rows].tolist()
-    stale = assessments.site_levels.stale[rows].tolist()
-    lasts = table.last_time[rows].tolist()
-    at = iso_z(assessments.time)
-    moments: dict[float, str | None] = {}
-    out = {}
-    for j, i in enumerate(rows.tolist()):
-        last = lasts[j]
-        when = moments.get(last) if last == last else None
-        if when is None and last == last:
-            when = moments[last] = iso_z(datetime.fromtimestamp(last, UTC))
-        age = ages[j]
-        site = assessments.sites[i].id
-        out[site] = (
-            "none",
-            {
-                "site": site,
-                "time": at,
-                "level": "none",
-                "hazards": [],
-                "features": {k: f(col[j]) for k, f, col in zip(names, shown, columns, strict=True)},
-                "data": {
-                    "last_time": when,
-                    "age_min": None if not math.isfinite(age) else round(age, 1),
-                    "stale": stale[j],
-                },
-            },
+    catalogue: list[dict[str, Any]] = []
+    held: list[np.ndarray] = []
+    tested: dict[str, np.ndarray] = {}
+    for ev in evals:
+        tests = []
+        for n, test in enumerate(ev.tests):
+            if not FEATURES[test.feature].in_reasons:
+                continue
+            tests.append([test.feature, test.op, _plain(test.value), float(test.margin)])
+            held.append(np.asarray(ev.held[n])[cells])
+            if test.feature not in tested:
+                tested[test.feature] = _floats(np.asarray(ev.values[n])[cells])
+        rule = ev.rule
+        catalogue.append(
+            {"id": rule.id, "hazard": rule.hazard, "level": rule.level, "kind": rule.kind}
+            | {"tests": tests}
         )
+    names = list(table.values)
+    values = np.array([_floats(table.values[k][rows]) for k in names]).reshape(len(names), -1)
+    # a tested value is the feature's own almost always: kept only where it is not
+    for k, v in list(tested.items()):
+        if k in table.values and np.array_equal(v, values[names.index(k)], equal_nan=True):
+            del tested[k]
+    fitted = table.projection_method[rows] == "cooling-fit"
+    fit = np.array(
+        [
+            np.where(fitted, table.fit_t0_c[rows], np.nan),
+            np.where(fitted, table.fit_k_per_sqrt_h[rows], np.nan),
+            np.where(fitted, table.last_sunset[rows], np.nan),
+        ],
+        dtype=np.float64,
+    )
+    n = rows.size
+    return SnapshotFacts(
+        time=assessments.time,
+        catalogue=catalogue,
+        features=names,
+        tested_features=list(tested),
+        fired=np.asarray(assessments._flags[0])[:, cells].reshape(len(evals), n),
+        held=np.array(held, dtype=bool).reshape(len(held), n),
+        values=values,
+        tested=np.array(list(tested.values()), dtype=np.float64).reshape(len(tested), n),
+        fit=fit,
+    )
+
+
+def _floats(values: np.ndarray) -> np.ndarray:
+    """As ``float()`` reads each (``FeatureRow``, ``RuleEvaluation.reasons_at``)."""
+    if values.dtype.kind in "fiub":
+        return values.astype(np.float64)
+    out = np.empty(values.shape, dtype=np.float64)
+    for j, v in enumerate(values.tolist()):
+        try:
+            out[j] = float(v)
+        except (TypeError, ValueError):
+            out[j] = math.nan
     return out
 
 
-def _as_json(name: str) -> Any:
-    """How ``to_json`` writes a value of this feature."""
-    if FEATURES[name].kind == "bool":
-        return lambda v: None if math.isnan(v) else bool(v)
-    return _json_number
-
-
-def _json_number(v: float) -> Any:
-    # ``assessment._json_number`` for a float read from an array
-    if math.isnan(v) or math.isinf(v):
-        return None
-    return round(v, 3)
+def _plain(value: Any) -> Any:
+    """A rule test's threshold as JSON keeps it."""
+    if isinstance(value, tuple | list):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value

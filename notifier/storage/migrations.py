@@ -19,7 +19,8 @@ The tables: ``observations`` (the canonical table, one row per site, time and ki
 for the bot (:mod:`notifier.storage.botstate`); ``seen_messages`` for the bot
 endpoint's replay protection (:mod:`notifier.storage.seen`); ``matrix_sync`` and
 ``matrix_events`` for the Matrix connection (:mod:`notifier.storage.matrixstate`).
-Migration 0009 gave ``observations`` its ``ceiling_m`` and ``precip_mm`` columns.
+Migration 0009 gave ``observations`` its ``ceiling_m`` and ``precip_mm`` columns;
+0011 added ``snapshot_facts`` and ``site_status``'s ``facts_key`` and ``facts_column``.
 """
 
 from __future__ import annotations
@@ -241,6 +242,21 @@ def _m0010_matrix_sync(conn: Connection) -> None:
     conn.exec_driver_sql("CREATE INDEX matrix_events_age ON matrix_events (handled_at)")
 
 
+def _m0011_snapshot_facts(conn: Connection) -> None:
+    """A site with a hazard keeps its snapshot's hazards as facts of the cycle (the
+    rules that fired, the tests that held, the values they tested), one record per
+    cycle, and the words are made when the snapshot is read
+    (:mod:`notifier.storage.snapshot_facts`)."""
+    binary = "BYTEA" if conn.dialect.name == "postgresql" else "BLOB"
+    conn.exec_driver_sql(
+        f"""CREATE TABLE snapshot_facts (
+            key TEXT PRIMARY KEY, time TEXT NOT NULL, catalogue TEXT NOT NULL,
+            arrays {binary} NOT NULL)"""
+    )
+    conn.exec_driver_sql("ALTER TABLE site_status ADD COLUMN facts_key TEXT")
+    conn.exec_driver_sql("ALTER TABLE site_status ADD COLUMN facts_column INTEGER")
+
+
 #: Every schema change, in order. Append only.
 MIGRATIONS: list[Migration] = [
     Migration("0001_initial", _m0001_initial),
@@ -253,6 +269,7 @@ MIGRATIONS: list[Migration] = [
     Migration("0008_seen_messages", _m0008_seen_messages),
     Migration("0009_ceiling_precip", _m0009_ceiling_precip),
     Migration("0010_matrix_sync", _m0010_matrix_sync),
+    Migration("0011_snapshot_facts", _m0011_snapshot_facts),
 ]
 
 metadata = sa.MetaData()
@@ -349,6 +366,16 @@ site_status = sa.Table(
     sa.Column("time", sa.Text, nullable=False),
     sa.Column("level", sa.Text, nullable=False),
     sa.Column("payload", sa.Text, nullable=False),
+    sa.Column("facts_key", sa.Text),  # its hazards: this record of snapshot_facts
+    sa.Column("facts_column", sa.Integer),  # and this column of it
+)
+snapshot_facts = sa.Table(
+    "snapshot_facts",
+    metadata,
+    sa.Column("key", sa.Text, primary_key=True),
+    sa.Column("time", sa.Text, nullable=False),
+    sa.Column("catalogue", sa.Text, nullable=False),
+    sa.Column("arrays", sa.LargeBinary, nullable=False),
 )
 follows = sa.Table(
     "follows",

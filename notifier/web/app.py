@@ -169,7 +169,7 @@ def _pages(app: Flask, ctx: WebContext, outbox: Outbox) -> None:
     @app.get("/site/<site_id>")
     def site_page(site_id: str) -> str:
         config, now = ctx.config(), ctx.clock()
-        views = [v for v in st.site_views(outbox, config, now) if v.site.id == site_id]
+        views = st.site_views(outbox, config, now, [site_id])
         if not views:
             abort(404)
         (view,) = views

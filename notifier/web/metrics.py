@@ -110,10 +110,10 @@ class StoreCollector:
         for status in sorted(set(DELIVERY_STATUSES) | set(backlog)):
             deliveries.add_metric([status], float(backlog.get(status, 0)))
         yield deliveries
-        snaps = self.outbox.snapshots()
+        levels = self.outbox.snapshot_levels()  # no hazards put into words
         counts = dict.fromkeys(LEVELS, 0)
         for site in config.sites:
-            level = snaps[site.id][1] if site.id in snaps else "unassessed"
+            level = levels.get(site.id, "unassessed")
             counts[level] = counts.get(level, 0) + 1
         sites = GaugeMetricFamily("fogwatch_sites", "Configured sites by level", labels=["level"])
         for level, n in counts.items():

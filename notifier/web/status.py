@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import TYPE_CHECKING, Any
@@ -111,21 +111,33 @@ def scrub(text: str | None, addresses: Iterable[str]) -> str:
 
 
 def last_cycle(store: Store) -> datetime | None:
-    """When the newest cycle ran: the latest site snapshot any cycle wrote."""
+    """When the newest cycle ran: the latest site snapshot any cycle wrote (a row, or
+    a cycle's record of every site's snapshot)."""
     import sqlalchemy as sa
 
-    from notifier.storage.migrations import site_status
+    from notifier.storage.migrations import site_status, snapshot_facts
 
     with store.engine.connect() as conn:
-        newest = conn.execute(sa.select(sa.func.max(site_status.c.time))).scalar()
+        times = [
+            conn.execute(sa.select(sa.func.max(table.c.time))).scalar()
+            for table in (site_status, snapshot_facts)
+        ]
+    newest = max((t for t in times if t), default=None)  # ISO texts of one width
     return parse_iso(newest) if newest else None
 
 
-def site_views(outbox: Outbox, config: Config, now: datetime) -> list[SiteView]:
-    snaps = outbox.snapshots()
+def site_views(
+    outbox: Outbox, config: Config, now: datetime, site_ids: Sequence[str] | None = None
+) -> list[SiteView]:
+    """Every configured site's view, or those of ``site_ids`` (only their snapshots
+    read and put into words)."""
+    snaps = outbox.snapshots(site_ids)
     states = outbox.states()
     out = []
+    wanted = None if site_ids is None else set(site_ids)
     for site in config.sites:
+        if wanted is not None and site.id not in wanted:
+            continue
         view = SiteView(site)
         snap = snaps.get(site.id)
         if snap is not None:

@@ -273,6 +273,7 @@ def test_a_file_backed_store_keeps_everything_across_a_reopen(tmp_path: Path):
             "0008_seen_messages",
             "0009_ceiling_precip",
             "0010_matrix_sync",
+            "0011_snapshot_facts",
         ]
         box, bot = Outbox(store), BotState(store)
         after = (box.states(), box.deliveries(), box.snapshots(), bot.follows(), bot.mutes(T0))
