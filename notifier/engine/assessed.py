@@ -182,6 +182,19 @@ class Assessments(Sequence[SiteAssessment]):
         }
         self.site_levels = SiteLevels([s.id for s in sites], levels, sustain, seen, sooner, stale)
 
+
+    @property
+    def evaluations(self) -> Sequence[RuleEvaluation]:
+        """The rule evaluations these assessments were made from (sites × times cells)."""
+        return self._evals
+
+    def cells_of(self, rows: np.ndarray) -> np.ndarray:
+        """The evaluations' cells of this time's sites at ``rows``."""
+        return self._offset + np.asarray(rows)
+
+    def fires_at(self, cells: np.ndarray) -> np.ndarray:
+        """Whether each rule fires (rules × the given cells)."""
+        return np.asarray(self._flags[0])[:, cells]
     def __len__(self) -> int:
         return len(self.sites)
 

@@ -35,6 +35,7 @@ __all__ = [
     "SafetyNote",
     "Comparison",
     "evaluate_rule",
+    "reason_text",
 ]
 
 HAZARDS = ("fog", "icing", "data_gap")
@@ -268,7 +269,9 @@ class RuleResult:
 
     def reasons(self) -> list[str]:
         """Each test that held, value against threshold: 'dew-point depression 0.8 °C ≤ 1 °C'."""
-        return [_reason(o) for o in self.outcomes if o.held and FEATURES[o.test.feature].in_reasons]
+        return [
+            reason_text(o) for o in self.outcomes if o.held and FEATURES[o.test.feature].in_reasons
+        ]
 
     def explanation(self, values: Mapping[str, float]) -> str:
         return render_template(self.rule.explain, values)
@@ -347,7 +350,7 @@ class RuleEvaluation(Sequence[RuleResult]):
             value = _as_float(values[i])
             text = texts.get(value)
             if text is None:
-                text = _reason(Outcome(test, value, True, True))
+                text = reason_text(Outcome(test, value, True, True))
                 if value == value:  # NaN is never found again: not kept
                     texts[value] = text
             out.append(text)
@@ -414,7 +417,8 @@ def _num(v: float) -> str:
     return f"{v:g}"
 
 
-def _reason(o: Outcome) -> str:
+def reason_text(o: Outcome) -> str:
+    """One test's outcome as an alert's reason: "wind 2.1 m/s ≤ 3.5 m/s"."""
     spec = FEATURES[o.test.feature]
     if o.test.op == "is":
         return f"{spec.label}: {format_value(o.test.feature, o.value)}"

@@ -105,10 +105,10 @@ def _column(values: np.ndarray) -> np.ndarray:
 
 def cycle_facts(assessments: Assessments, rows: np.ndarray) -> SnapshotFacts:
     """The facts the hazards of the sites at ``rows`` are made from, as arrays."""
-    # the evaluations and this time's cells among them: the engine's own arrays (the
-    # assessment's internals, read here rather than copied out for every cycle)
-    evals = assessments._evals
-    cells = assessments._offset + rows
+    # the evaluations and this time's cells among them: the engine's own arrays, read
+    # rather than copied out for every cycle
+    evals = assessments.evaluations
+    cells = assessments.cells_of(rows)
     table = assessments.table
     catalogue: list[dict[str, Any]] = []
     held: list[np.ndarray] = []
@@ -148,7 +148,7 @@ def cycle_facts(assessments: Assessments, rows: np.ndarray) -> SnapshotFacts:
         catalogue=catalogue,
         features=names,
         tested_features=list(tested),
-        fired=np.asarray(assessments._flags[0])[:, cells].reshape(len(evals), n),
+        fired=assessments.fires_at(cells).reshape(len(evals), n),
         held=np.array(held, dtype=bool).reshape(len(held), n),
         values=values,
         tested=np.array(list(tested.values()), dtype=np.float64).reshape(len(tested), n),

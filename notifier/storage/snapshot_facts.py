@@ -33,7 +33,7 @@ import numpy as np
 from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import aggregate
 from notifier.engine.assessment import SiteAssessment, level_rank
-from notifier.engine.rules import Comparison, Outcome, _reason
+from notifier.engine.rules import Comparison, Outcome, reason_text
 
 __all__ = ["SnapshotFacts", "hazards_json"]
 
@@ -150,7 +150,7 @@ def _words(test: list[Any], value: float) -> str:
     """A test that held, in the words ``RuleEvaluation.reasons_at`` gives it."""
     feature, op, threshold, margin = test
     comparison = Comparison(feature, op, threshold, margin, None)
-    return _reason(Outcome(comparison, value, True, True))
+    return reason_text(Outcome(comparison, value, True, True))
 
 
 class _RuleFacts:
