@@ -21,7 +21,7 @@ from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Site
 
-__all__ = ["HazardAssessment", "SiteAssessment", "level_rank", "to_json"]
+__all__ = ["HazardAssessment", "SiteAssessment", "hazards_json", "level_rank", "to_json"]
 
 
 STALE_AFTER_MIN = 90.0  # a site whose newest reading is older is stale
@@ -183,6 +183,22 @@ def _json_number(v: float) -> Any:
     return round(float(v), 3)
 
 
+def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
+    """A site's hazards as ``to_json`` writes them, the highest level first."""
+    return [
+        {
+            "hazard": h.hazard,
+            "level": h.level,
+            "kind": h.kind,
+            "eta": iso_z(h.eta),
+            "eta_method": h.eta_method or None,
+            "rules": h.rules,
+            "reasons": list(h.reasons),
+        }
+        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
+    ]
+
+
 def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
     """DESIGN.md's ``assess --json`` shape."""
     out = []
@@ -194,18 +210,7 @@ def to_json(assessments: Sequence[SiteAssessment]) -> list[dict[str, Any]]:
             else:
                 feats[name] = _json_number(value)
         feats["projection_method"] = sa.projection_method or None
-        hazards = [
-            {
-                "hazard": h.hazard,
-                "level": h.level,
-                "kind": h.kind,
-                "eta": iso_z(h.eta),
-                "eta_method": h.eta_method or None,
-                "rules": h.rules,
-                "reasons": list(h.reasons),
-            }
-            for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
-        ]
+        hazards = hazards_json(sa)
         age = sa.age_min
         out.append(
             {

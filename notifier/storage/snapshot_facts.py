@@ -30,28 +30,11 @@ from typing import Any, cast
 
 import numpy as np
 
-from notifier.core.timefmt import iso_z
 from notifier.engine.assessed import aggregate
-from notifier.engine.assessment import SiteAssessment, level_rank
+from notifier.engine.assessment import SiteAssessment, hazards_json
 from notifier.engine.rules import Comparison, Outcome, reason_text
 
 __all__ = ["SnapshotFacts", "hazards_json"]
-
-
-def hazards_json(sa: SiteAssessment) -> list[dict[str, Any]]:
-    """A site's hazards as ``to_json`` writes them, the highest level first."""
-    return [
-        {
-            "hazard": h.hazard,
-            "level": h.level,
-            "kind": h.kind,
-            "eta": iso_z(h.eta),
-            "eta_method": h.eta_method or None,
-            "rules": h.rules,
-            "reasons": list(h.reasons),
-        }
-        for h in sorted(sa.hazards.values(), key=lambda h: -level_rank(h.level))
-    ]
 
 
 @dataclass(frozen=True)
