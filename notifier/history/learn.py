@@ -29,7 +29,7 @@ import numpy as np
 from notifier.core.errors import UsageError
 from notifier.engine.model import INPUTS, SEASON, FogModel, SiteModel, input_matrix
 from notifier.history.probability import fog_labels, probability_scores
-from notifier.history.truth import fog_spells_by_site, report_times
+from notifier.history.truth import fog_truth
 from notifier.history.verify import NightOutcome, alert_for_night, median_lead_min, table
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -336,8 +336,7 @@ def learn(
     from threadpoolctl import threadpool_limits
 
     result, values = _collect(loaded, obs, start, end, truth)
-    reports = report_times(obs if truth is None else truth, loaded.config.sites)
-    spells = fog_spells_by_site(obs if truth is None else truth, loaded.config.sites)
+    spells, reports = fog_truth(obs if truth is None else truth, loaded.config.sites)
     thresholds = model_thresholds(loaded.rules)
     learned = []
     # The regressions are small (a few thousand hours × twenty inputs): the solver's

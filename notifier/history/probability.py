@@ -14,15 +14,11 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
-from notifier.history.truth import report_times
 from notifier.history.verify import FogSpell
-
-if TYPE_CHECKING:  # pragma: no cover
-    import pandas as pd
 
 __all__ = [
     "BrierScores",
@@ -141,13 +137,13 @@ def chance_scores(
     chance: np.ndarray,
     times: np.ndarray,
     spells: dict[str, list[FogSpell]],
-    obs: pd.DataFrame,
+    reports: dict[str, np.ndarray],
     sites: Sequence[Any],
     hours: float,
 ) -> dict[str, Any]:
     """The model's chances scored against fog in the ``hours`` after each step, over
-    every site's known steps, against the climatology of those same steps."""
-    reports = report_times(obs, sites)
+    every site's known steps (``reports``: the times of its reports that say fog or not,
+    ``truth.fog_truth``), against the climatology of those same steps."""
     ps, labels = [], []
     for i, site in enumerate(sites):
         fog, known = fog_labels(spells[site.id], reports[site.id], times, hours)

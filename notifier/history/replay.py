@@ -30,7 +30,7 @@ from notifier.engine.readings import epoch_seconds
 from notifier.engine.verdict import failing
 from notifier.history.baselines import References, references
 from notifier.history.probability import chance_scores
-from notifier.history.truth import fog_spells_by_site, observed_rows, report_times, rows_by_site
+from notifier.history.truth import fog_truth, observed_rows, rows_by_site
 from notifier.history.verify import (
     Contingency,
     NightOutcome,
@@ -174,7 +174,7 @@ def replay(
     times = start.timestamp() + np.arange(n_steps) * step_s
     fog_level = np.zeros((len(sites), n_steps), dtype=np.int8)
     chance = np.full((len(sites), n_steps), np.nan) if loaded.model is not None else None
-    spells = fog_spells_by_site(obs if truth is None else truth, sites)
+    spells, reported = fog_truth(obs if truth is None else truth, sites)
     fog_nights = {
         (site.id, night): night_fog(spells[site.id], night, nxt)
         for _, site, night, nxt in _covered_nights(sites, start, end, step_s)
@@ -201,7 +201,6 @@ def replay(
             progress(k + 1, n_steps)
 
     every = _nights(sites, times, fog_level, fog_nights, events, why_not, start, end, step_s)
-    reported = report_times(obs if truth is None else truth, sites)
     watched = [night_watched(reported[n.site], n.night) for n in every]
     nights = [n for n, w in zip(every, watched, strict=True) if w]
     refs = references(nights, _readings(obs, sites))
@@ -210,7 +209,7 @@ def replay(
     if chance is not None and loaded.model is not None:
         result.probability = chance
         result.probability_scores = chance_scores(
-            chance, times, spells, obs if truth is None else truth, sites, loaded.model.hours
+            chance, times, spells, reported, sites, loaded.model.hours
         )
     if deliver_to is not None:
         result.delivered = _write_messages(loaded, events, deliver_to)

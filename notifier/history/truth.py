@@ -16,7 +16,7 @@ from notifier.history.verify import FogSpell, fog_reports, fog_spells
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-__all__ = ["fog_spells_by_site", "observed_rows", "report_times", "rows_by_site"]
+__all__ = ["fog_spells_by_site", "fog_truth", "observed_rows", "report_times", "rows_by_site"]
 
 
 def observed_rows(obs: pd.DataFrame) -> pd.DataFrame:
@@ -24,14 +24,18 @@ def observed_rows(obs: pd.DataFrame) -> pd.DataFrame:
     return obs[obs["kind"] == "obs"] if len(obs) else obs
 
 
-def fog_spells_by_site(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, list[FogSpell]]:
+def fog_truth(
+    obs: pd.DataFrame, sites: Sequence[Any]
+) -> tuple[dict[str, list[FogSpell]], dict[str, np.ndarray]]:
     """Each site's confirmed fog spells in the whole history (``verify``'s definition:
-    fog at the site, in consecutive reports), so fog carried into the first night is
-    known too."""
-    out: dict[str, list[FogSpell]] = {s.id: [] for s in sites}
+    fog at the site, in consecutive reports, so fog carried into the first night is
+    known too) and the sorted POSIX seconds of its reports that say fog or not, from
+    one reading of the reports."""
+    spells: dict[str, list[FogSpell]] = {s.id: [] for s in sites}
+    times = {s.id: np.zeros(0) for s in sites}
     rows = observed_rows(obs)
     if not len(rows):
-        return out
+        return spells, times
     vis = (
         rows["visibility_m"].to_numpy(dtype=float, na_value=np.nan)
         if ("visibility_m" in rows)
@@ -40,28 +44,21 @@ def fog_spells_by_site(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, lis
     wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
     fog, known = fog_reports(vis, wx)
     t_s = epoch_seconds(rows["time"])
-    for sid, mine in zip(out, rows_by_site(rows["site"], list(out), known), strict=True):
-        out[sid] = fog_spells(_Moments(t_s[mine]), fog[mine].tolist())
-    return out
+    for sid, mine in zip(spells, rows_by_site(rows["site"], list(spells), known), strict=True):
+        spells[sid] = fog_spells(_Moments(t_s[mine]), fog[mine].tolist())
+        times[sid] = np.sort(t_s[mine])
+    return spells, times
+
+
+def fog_spells_by_site(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, list[FogSpell]]:
+    """Each site's confirmed fog spells (:func:`fog_truth`)."""
+    return fog_truth(obs, sites)[0]
 
 
 def report_times(obs: pd.DataFrame, sites: Sequence[Any]) -> dict[str, np.ndarray]:
-    """Per site, the sorted POSIX seconds of its reports that say fog or not."""
-    out = {s.id: np.zeros(0) for s in sites}
-    rows = observed_rows(obs)
-    if not len(rows):
-        return out
-    vis = (
-        rows["visibility_m"].to_numpy(dtype=float, na_value=np.nan)
-        if "visibility_m" in rows
-        else np.full(len(rows), np.nan)
-    )
-    wx = rows["weather"].to_numpy(dtype=object) if "weather" in rows else np.full(len(rows), None)
-    _, known = fog_reports(vis, wx)
-    t_s = epoch_seconds(rows["time"])
-    for sid, mine in zip(out, rows_by_site(rows["site"], list(out), known), strict=True):
-        out[sid] = np.sort(t_s[mine])
-    return out
+    """Per site, the sorted POSIX seconds of its reports that say fog or not
+    (:func:`fog_truth`)."""
+    return fog_truth(obs, sites)[1]
 
 
 def rows_by_site(
