@@ -76,11 +76,17 @@ PositiveDuration = Annotated[Duration, AfterValidator(_positive)]
 
 
 def _check_zone(name: str) -> str:
+    if name in _KNOWN_ZONES:  # a config of many sites names a few zones many times
+        return name
     try:
         ZoneInfo(name)
     except (ZoneInfoNotFoundError, ValueError) as exc:
         raise ValueError(f"unknown time zone {name!r} (expected e.g. 'Europe/Dublin')") from exc
+    _KNOWN_ZONES.add(name)
     return name
+
+
+_KNOWN_ZONES: set[str] = set()  # names ZoneInfo has accepted (it keeps them loaded)
 
 
 TimeZoneName = Annotated[str, BeforeValidator(_check_zone)]
