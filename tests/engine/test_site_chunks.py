@@ -19,7 +19,40 @@ from tests.engine.test_fast_path import AT, _assert_same, _columns, world  # noq
 
 
 def test_public_names():
-    assert site_chunks.__all__ == ["SITE_CHUNK", "features_by_share"]
+    assert site_chunks.__all__ == [
+        "SITE_CHUNK",
+        "SITE_TIME_CHUNK",
+        "features_by_share",
+        "share_size",
+    ]
+
+
+@pytest.mark.parametrize(
+    ("n_times", "sites"),
+    [(1, 15_000), (3, 5_000), (15, 1_000), (40, 1_000), (0, 15_000)],
+    ids=["one", "three", "a-first-cycle", "many", "none"],
+)
+def test_a_share_holds_fewer_sites_the_more_times(n_times, sites):
+    # the block's temporaries grow with sites × times (bench/README.md, 2026-12-05 night)
+    assert site_chunks.share_size(n_times) == sites
+
+
+def test_the_default_share_follows_the_times(world, monkeypatch):  # noqa: F811
+    sites, obs = world
+    calls = []
+    original = site_chunks.features_at
+
+    def counted(obs, sites, *args, **kwargs):
+        calls.append(len(sites))
+        return original(obs, sites, *args, **kwargs)
+
+    monkeypatch.setattr(site_chunks, "features_at", counted)
+    # share_size's floor (1,000 sites) is above this world's 240: a smaller rule of the
+    # same form shows the default taking the number of times into account
+    monkeypatch.setattr(site_chunks, "share_size", lambda n_times: 300 // n_times)
+    coded = _window_coded(sites, obs)
+    features_by_share(coded, sites, [AT - timedelta(minutes=m) for m in (20, 10, 0)])
+    assert calls == [100, 100, 40]
 
 
 def _window_coded(sites, obs) -> pd.DataFrame:
