@@ -375,6 +375,9 @@ class WebSettings(_Model):
 class Config(_Model):
     version: int = CONFIG_VERSION
     sites: tuple[Site, ...]
+    # a CSV table of further sites, a row each (notifier.core.sites_file): its sites
+    # follow those written in ``sites``
+    sites_file: Path | None = None
     sources: tuple[Source, ...] = ()
     rules: tuple[Path, ...] = ()
     channels: tuple[Channel, ...] = ()

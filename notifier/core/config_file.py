@@ -37,6 +37,7 @@ from notifier.core.config_hints import did_you_mean, folder_problems
 from notifier.core.config_warnings import literal_secrets, retire_keys
 from notifier.core.errors import ConfigError, ConfigProblem
 from notifier.core.redact import remember_env_value
+from notifier.core.sites_file import read_sites_file
 from notifier.core.yamlio import (
     Expansion,
     Loc,
@@ -189,6 +190,7 @@ def _read(
         for loc, names in found.missing.items()
         for name in names
     ]
+    problems += _with_sites_file(path, raw)
     config, found_problems, view = _validate(path, raw, found)
     problems += found_problems
     if check and config is not None:
@@ -201,6 +203,30 @@ def _read(
             problems = [ConfigProblem(str(path), None, "invalid config")]
         return (config if check else None), problems, warnings
     return config, [], warnings
+
+
+def _with_sites_file(path: Path, raw: dict[Any, Any]) -> list[ConfigProblem]:
+    """The sites of ``sites_file`` put after the config's own ``sites`` (as validated
+    sites: they are not validated again); the problems of the table. In the config's
+    checks a table's site stands at the ``sites_file`` line."""
+    name = raw.get("sites_file")
+    if name is None:
+        return []
+    key_lines: dict[Any, int] = getattr(raw, "key_lines", {})
+    line = key_lines.get("sites_file", 0)  # 0: no line known
+    if not isinstance(name, str) or not name.strip():
+        return [ConfigProblem(str(path), line, f"sites_file: expected a file name, got: {name!r}")]
+    table, problems = read_sites_file(_resolve(path.parent, Path(name)))
+    written = raw.get("sites", [])
+    if not isinstance(written, list):
+        return problems  # the config's own error says what is wrong with ``sites``
+    sites = MarkedList([*written, *table])
+    sites.line = getattr(written, "line", None) or line
+    sites.item_lines = [*getattr(written, "item_lines", [line] * len(written))]
+    sites.item_lines += [line] * len(table)
+    raw["sites"] = sites
+    key_lines.setdefault("sites", line)
+    return problems
 
 
 def _validate(
@@ -324,6 +350,7 @@ def _resolve_paths(config: Config) -> Config:
             ch = ch.model_copy(update={"file": _resolve(base, ch.file)})
         channels.append(ch)
     rules = tuple(_resolve(base, r) for r in config.rules)
+    sites_file = None if config.sites_file is None else _resolve(base, config.sites_file)
     model = None if config.model is None else _resolve(base, config.model)
     store = config.store
     if store.url and store.url.startswith("sqlite:///") and not store.url.startswith("sqlite:////"):
@@ -337,5 +364,6 @@ def _resolve_paths(config: Config) -> Config:
             "rules": rules,
             "store": store,
             "model": model,
+            "sites_file": sites_file,
         }
     )

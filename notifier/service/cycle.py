@@ -150,7 +150,9 @@ class Service:
     def _watched_files(self) -> list[Path]:
         from notifier.engine.rule_files import rule_files
 
-        return [self.config_path, *rule_files(self.loaded.config.rule_paths())]
+        config = self.loaded.config
+        table = [] if config.sites_file is None else [config.sites_file]
+        return [self.config_path, *table, *rule_files(config.rule_paths())]
 
     def _file_mtimes(self) -> dict[Path, float]:
         out = {}
