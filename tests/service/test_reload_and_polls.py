@@ -9,6 +9,7 @@ source holds up no delivery, while the cycle after it still assesses what it bro
 
 from __future__ import annotations
 
+import dataclasses
 import threading
 from datetime import datetime, timedelta
 from typing import Any
@@ -122,3 +123,33 @@ def test_a_hanging_poll_holds_up_no_delivery(scene: Scene) -> None:
         cycle.join(30)
     held = service._observations(at)
     assert (held["site"] == "zz-vale").sum() == 1, "and the cycle after it saw its rows"
+
+
+def test_kept_tables_hold_only_what_the_hold_windows_read(scene: Scene) -> None:
+    """Earlier times' feature tables keep only the held rules' features; the cycles give
+    what a service that kept nothing gives (every table worked out afresh)."""
+    times = [FOG_FROM + timedelta(minutes=10 * k) for k in range(1, 5)]
+    scene.feed(times[-1])
+    kept = scene.service()
+    for at in times:
+        report = kept.poll_and_assess(at)
+    held = {n for r in kept.rules.rules if r.hold_s > 0 for n in r.features()}
+    assert held, "the shipped rules hold some tests"
+    earlier = kept._remembered(times[-1] + timedelta(minutes=10))
+    assert earlier and all(set(t.values) == held for t in earlier.values())
+    fresh = scene.service()
+    again = fresh.poll_and_assess(times[-1])
+
+    def levels(r: Any) -> list[tuple[Any, ...]]:
+        return [
+            (a.site.id, a.level, [(k, h.level, h.eta, h.rules) for k, h in a.hazards.items()])
+            for a in r.assessments
+        ]
+
+    assert levels(report) == levels(again)
+    # a changed rule set that holds a feature no kept table has: that table is redone
+    for t, table in list(earlier.items()):
+        earlier[t] = dataclasses.replace(
+            table, values={k: v for k, v in table.values.items() if k != sorted(held)[0]}
+        )
+    assert kept._remembered(times[-1] + timedelta(minutes=10)) == {}
