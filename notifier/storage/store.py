@@ -279,17 +279,38 @@ class Store:
         *,
         after: int | None = None,
         categorical: bool = False,
+        site_range: tuple[str | None, str | None] = (None, None),
     ) -> pd.DataFrame:
         """Rows with ``start <= time <= end``, as a canonical table sorted by site, time.
 
         ``end=None``: no upper bound. ``after``: only rows written by batches after that
         one (see :meth:`last_batch`). ``categorical``: the text columns as categoricals
-        (one string per distinct value) instead of ``str`` objects.
+        (one string per distinct value) instead of ``str`` objects. ``site_range``:
+        only sites from the first (included) to the second (not included); ``None``
+        leaves that end open.
         """
+        chunks = self.window_chunks(site_ids, start, end, kinds, after=after, site_range=site_range)
+        if not chunks:
+            return records_frame([], shared_text=categorical)
+        joined = join_columns(chunks)
+        return joined if categorical else text_columns_as_objects(joined)
+
+    def window_chunks(
+        self,
+        site_ids: Sequence[str] | None,
+        start: datetime,
+        end: datetime | None,
+        kinds: Sequence[str] = ("obs", "forecast"),
+        *,
+        after: int | None = None,
+        site_range: tuple[str | None, str | None] = (None, None),
+    ) -> list[dict[str, Any]]:
+        """:meth:`window`'s rows as :func:`~notifier.storage.rows.join_columns` takes
+        them: a dict of columns per fetched chunk, in order."""
         mark = self._mark()
         kinds = list(kinds)
         if not kinds or (site_ids is not None and not list(site_ids)):
-            return records_frame([], shared_text=categorical)
+            return []
         sql = (
             f"SELECT {', '.join(CANONICAL_COLUMNS)} FROM observations "
             f"WHERE time >= {mark} AND kind IN ({', '.join([mark] * len(kinds))})"
@@ -301,6 +322,13 @@ class Store:
         if after is not None:
             sql += f" AND batch > {mark}"
             params.append(int(after))
+        first_site, past_site = site_range
+        if first_site is not None:
+            sql += f" AND site >= {mark}"
+            params.append(first_site)
+        if past_site is not None:
+            sql += f" AND site < {mark}"
+            params.append(past_site)
         if site_ids is not None:
             site_ids = list(site_ids)
             if self.engine.dialect.name == "postgresql":  # one parameter, any number
@@ -331,10 +359,7 @@ class Store:
                     del records
             finally:
                 cursor.close()
-        if not chunks:
-            return records_frame([], shared_text=categorical)
-        joined = join_columns(chunks)
-        return joined if categorical else text_columns_as_objects(joined)
+        return chunks
 
     def trim_observations(self, before: datetime, *, conn: Connection | None = None) -> int:
         """Delete rows older than ``before``; returns how many."""

@@ -46,7 +46,8 @@ import numpy as np
 import pandas as pd
 
 from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS
-from notifier.storage.rows import release_freed_heap
+from notifier.storage.rows import join_columns, records_frame, release_freed_heap
+from notifier.storage.window_parts import whole_window_chunks
 
 if TYPE_CHECKING:
     from notifier.storage.store import Store
@@ -132,6 +133,9 @@ class RollingWindow:
 
         start = datetime.fromtimestamp(start_s, tz=UTC)
         sites = list(self.sites) if self.only_these and _listable(self.store, self.sites) else None
+        if after is None and sites is None:  # a whole read: in two parts where it is large
+            chunks = whole_window_chunks(self.store, start, list(self.sites))
+            return join_columns(chunks) if chunks else records_frame([], shared_text=True)
         return self.store.window(sites, start, None, after=after, categorical=True)
 
     def _load(self, start_s: int) -> None:
