@@ -267,9 +267,16 @@ class Block:
             return np.full((self.n, max(stop - start, 0)), np.nan)
         if name in _WIDE_COLUMNS or (start == 0 and stop == self.width):
             # looked at over many hours, often several times: gathered whole, once
-            self._full[name] = self._gather(values, self.src, self.pad)
+            self._full[name] = self._span(values, 0, self.width, np.nan)
             return self._full[name][:, start:stop]
-        return self._gather(values, self.src[:, start:stop], self.pad[:, start:stop])
+        return self._span(values, start, stop, np.nan)
+
+    def _span(self, values: np.ndarray, start: int, stop: int, fill: float) -> np.ndarray:
+        """Columns ``start:stop`` of the cells of ``values`` (one per row of ``obs``),
+        ``fill`` in the padding."""
+        out = np.take(values, self.src[:, start:stop], mode="clip")
+        np.putmask(out, self.pad[:, start:stop], fill)
+        return out
 
     def newest(
         self,
@@ -312,9 +319,7 @@ class Block:
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""
-        code = np.take(self.weather_code, self.src[:, start:stop], mode="clip")
-        np.putmask(code, self.pad[:, start:stop], -1)
-        return code
+        return self._span(self.weather_code, start, stop, -1)
 
     def reports(self, name: str) -> np.ndarray:
         """The sites (indices) with at least one value of ``name`` in the block."""

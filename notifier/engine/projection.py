@@ -134,8 +134,11 @@ def projected_minimum(
     cooling_potential: np.ndarray,
     st: SiteArrays,
     settings: FeatureSettings,
+    crossover_c: np.ndarray | None = None,
 ) -> Projection:
-    """The night's minimum: forecast, else the cooling fit, else the midday estimate."""
+    """The night's minimum: forecast, else the cooling fit, else the midday estimate.
+    ``crossover_c`` is :func:`crossover` where the caller has it already (it is a
+    feature of its own, and over a history's block a pass over every cell)."""
     n = w.blk.n
     p = Projection(
         method=np.full(n, "", dtype=object),
@@ -146,7 +149,8 @@ def projected_minimum(
         fit_k=np.full(n, np.nan),
     )
     _from_forecast(p, w, sun, cooling_potential, st.min_offset)
-    _from_cooling_fit(p, w, sun, now, st, settings)
+    crossover_c = crossover(w, sun) if crossover_c is None else crossover_c
+    _from_cooling_fit(p, w, sun, now, st, settings, crossover_c)
     _from_midday(p, w, sun, now, cooling_potential, st.min_offset)
     return p
 
@@ -172,7 +176,13 @@ def _from_forecast(
 
 
 def _from_cooling_fit(
-    p: Projection, w: Window, sun: Night, now: Current, st: SiteArrays, settings: FeatureSettings
+    p: Projection,
+    w: Window,
+    sun: Night,
+    now: Current,
+    st: SiteArrays,
+    settings: FeatureSettings,
+    crossover_c: np.ndarray,
 ) -> None:
     """(2) Brunt's square-root law fitted to tonight's own readings, where they can be
     trusted: past the evening transition, with ``fit_min_points`` readings over
@@ -185,7 +195,6 @@ def _from_cooling_fit(
     lowest dew point; docs/references.md [Crossover method]), else the dew point."""
     blk, n = w.blk, w.blk.n
     temp_c, dewpoint_c = now.temp_c, now.dewpoint_c
-    crossover_c = crossover(w, sun)
     a, b = column_span(sun.since_lo, w.hi)
     h_tail = w.hours[:, a:b]
     tc_tail = blk.block("temp_c", a, b)
