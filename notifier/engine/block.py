@@ -316,6 +316,16 @@ class Block:
         block can give it without the cells (``notifier.engine.steps``); None here."""
         return None
 
+    def runs(
+        self, names: Sequence[str], lo: np.ndarray, hi: np.ndarray
+    ) -> tuple[np.ndarray, list[np.ndarray], np.ndarray] | None:
+        """Each row's columns ``lo:hi`` left-aligned — column ``c`` of row ``r`` is the
+        block's column ``lo[r] + c`` — as (cell times, a block per name of ``names``,
+        the mask of cells inside ``lo:hi``), where the block can read them so (a
+        history's, whose rows' windows lie at different columns); None here: the
+        caller reads :func:`column_span`'s slice."""
+        return None
+
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""

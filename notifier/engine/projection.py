@@ -267,11 +267,19 @@ def _from_midday(
     a, b = column_span(noon_lo, noon_hi)
     t12 = np.full(n, np.nan)
     td12 = np.full(n, np.nan)
-    if b > a:
+    runs = blk.runs(("temp_c", "dewpoint_c"), noon_lo, noon_hi) if b > a else None
+    if runs is not None:
+        # a history's rows: each row's own midday cells, in their order (so the first
+        # nearest is the same cell), not the span of every row's
+        t_cells, (temp_band, dew_band), inside = runs
+        h_band = _hours(t_cells, w.t_at)
+        near_noon = inside & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+    elif b > a:
         h_band = w.hours[:, a:b]
         temp_band = blk.block("temp_c", a, b)
         dew_band = blk.block("dewpoint_c", a, b)
         near_noon = in_range(a, b, noon_lo, noon_hi) & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+    if b > a:
         dist = np.where(near_noon, np.abs(h_band - sun.noon_h[:, None]), np.inf)
         best = np.argmin(dist, axis=1)
         has_noon = np.isfinite(dist[rows, best])
@@ -300,7 +308,10 @@ def crossover(w: Window, sun: Night) -> np.ndarray:
         dew_band = w.blk.block("dewpoint_c", a, b)
         aft = in_range(a, b, aft_start, aft_stop) & ~np.isnan(dew_band)
         lowest = np.where(aft, dew_band, np.inf).min(axis=1)
-        # none in the window (or an infinite reading) is unknown
+        # none in the window (or an infinite reading) is unknown. (Over a history's rows
+        # this is not read as each row's own run, as the midday is: the minimum of a
+        # 0.0 and a -0.0 depends on where they fall in the SIMD lanes, and the feature
+        # must stay bit for bit.)
         out = np.where(np.isinf(lowest), np.nan, lowest)
     return out
 
@@ -327,6 +338,13 @@ def data_age_min(w: Window) -> np.ndarray:
     """Minutes since the newest reading; +inf for a site that has never reported."""
     with np.errstate(invalid="ignore"):
         return np.where(np.isnan(w.last_any), np.inf, 0.0 - w.last_any * 60.0)
+
+
+def _hours(t: np.ndarray, t_at: float | np.ndarray) -> np.ndarray:
+    """Cells' hours from their rows' evaluation times, as ``families.CellHours`` works
+    them out."""
+    at = t_at[:, None] if isinstance(t_at, np.ndarray) else t_at
+    return (t - at) / 3600.0
 
 
 def _min_per_site(

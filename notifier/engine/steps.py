@@ -410,6 +410,30 @@ class StepBlock(Block):
         np.putmask(out, self.pad[:, start:stop], fill)
         return out
 
+    def runs(
+        self, names: Sequence[str], lo: np.ndarray, hi: np.ndarray
+    ) -> tuple[np.ndarray, list[np.ndarray], np.ndarray] | None:
+        """:meth:`Block.runs`: each row's sorted rows from ``hi[r] - width + lo[r]``, as
+        long as the longest ``lo:hi``, read through a window view of each column; the
+        cells past a row's own ``hi`` are outside the mask."""
+        if self._empty:
+            return None
+        counts = np.where(lo < hi, hi - lo, 0)
+        length = int(counts.max(initial=0))
+        inside = np.arange(length)[None, :] < counts[:, None]
+        rows = self._sorted.rows_sorted.size
+        start = np.clip(self._first_pos + lo, 0, rows)
+
+        def run(values: np.ndarray) -> np.ndarray:
+            padded = np.concatenate((values[:rows], np.full(length, np.nan)))
+            return np.lib.stride_tricks.sliding_window_view(padded, length)[start]
+
+        columns = []
+        for name in names:
+            values = self.column(name)
+            columns.append(np.full((self.n, length), np.nan) if values is None else run(values))
+        return run(self._sorted.t_sel), columns, inside
+
     def column(self, name: str) -> np.ndarray | None:
         return None if self._empty else self._sorted.sorted_column(name)
 
