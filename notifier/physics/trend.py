@@ -29,25 +29,20 @@ def _theil_sen_rows(hours: NDArray[np.float64], values: NDArray[np.float64]) -> 
         return result
     first, second = np.triu_indices(n, k=1)
     rows_per_chunk = max(1, _MAX_PAIRS_PER_CHUNK // first.size)
-    # the chunks' arrays are made once and written over: a fresh 8 MB array per chunk
-    # and step costs its page faults again each time
-    shape = (min(rows, rows_per_chunk), first.size)
-    dx_all, dy_all, to_all = np.empty(shape), np.empty(shape), np.empty(shape)
-    usable_all = np.empty(shape, dtype=bool)
     for start in range(0, rows, rows_per_chunk):
         stop = min(rows, start + rows_per_chunk)
-        m = stop - start
-        dx, dy, to, usable = dx_all[:m], dy_all[:m], to_all[:m], usable_all[:m]
-        # np.take along an axis: several times faster than fancy indexing here
-        h, v = hours[start:stop], values[start:stop]
-        np.take(h, second, axis=1, out=dx)
-        np.subtract(dx, np.take(h, first, axis=1, out=to), out=dx)
-        np.take(v, second, axis=1, out=dy)
-        np.subtract(dy, np.take(v, first, axis=1, out=to), out=dy)
-        slopes = np.divide(dy, dx, out=dy)
+        # the pairs are formed point by point across the rows (each point a contiguous
+        # line of the transposed chunk, copied whole), then turned back to a row each
+        # for the median: about half the time of gathering them cell by cell
+        h_by_point = np.ascontiguousarray(hours[start:stop].T)
+        v_by_point = np.ascontiguousarray(values[start:stop].T)
+        dx = h_by_point[second] - h_by_point[first]
+        dy = v_by_point[second]
+        dy -= v_by_point[first]
+        slopes = np.ascontiguousarray(np.divide(dy, dx, out=dy).T)
         # Pairs at equal times carry no slope (Sen 1968 excludes tied x): their quotient
         # is ±inf or NaN, so "finite" excludes them along with the missing points.
-        np.isfinite(slopes, out=usable)
+        usable = np.isfinite(slopes)
         result[start:stop] = _median_of_leading(slopes, usable)
     return result
 
