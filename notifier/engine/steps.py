@@ -390,7 +390,6 @@ class StepBlock(Block):
         # window's columns need no search: what bounds would find, padding failing
         self._window = (width - counts, np.full(n, width, dtype=np.intp))
         self.t = self._span(rows.t_sel, 0, width, np.nan)
-        self._steps = width.bit_length()
         self.weather_code = rows.weather_code[rows.rows_sorted]  # per sorted row
         self.weather_flags = rows.weather_flags
         self.forecast = self._paired(rows, t_at, ahead_s)
