@@ -72,7 +72,8 @@ def _median_of_leading(
     np.copyto(slopes, np.inf, where=~usable)
     count = np.count_nonzero(usable, axis=1)
     out = np.full(slopes.shape[0], np.nan)
-    for c in np.unique(count[count > 0]).tolist():
+    # the distinct counts, ascending (a tally: np.unique sorts or hashes every row's)
+    for c in (np.flatnonzero(np.bincount(count)[1:]) + 1).tolist():
         lower, upper = (c - 1) // 2, c // 2
         group = np.flatnonzero(count == c)
         picked = slopes[group]  # a copy, sorted in place: slopes keep their order
