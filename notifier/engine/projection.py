@@ -196,24 +196,37 @@ def _from_cooling_fit(
     blk, n = w.blk, w.blk.n
     temp_c, dewpoint_c = now.temp_c, now.dewpoint_c
     a, b = column_span(sun.since_lo, w.hi)
-    h_tail = w.hours[:, a:b]
-    tc_tail = blk.block("temp_c", a, b)
-    m_tail = in_range(a, b, sun.since_lo, w.hi) & ~np.isnan(tc_tail)
-    x = np.where(m_tail, h_tail - sun.sunset_h[:, None], np.nan)
-    y = np.where(m_tail, tc_tail, np.nan)
-    if x.shape[1] < 3:
+    if b - a < 3:
         return
+    # Only the rows with readings since sunset are read (by day there are none; in a
+    # history's block that is most rows): every other row's x and y are all NaN, so
+    # its points are 0 and its span -inf, written as such.
+    tonight = np.flatnonzero(sun.since_lo < w.hi)
+    tc_tail = blk.block("temp_c", a, b)[tonight]
+    m_tail = in_range(a, b, sun.since_lo[tonight], w.hi[tonight]) & ~np.isnan(tc_tail)
+    x_tonight = np.where(m_tail, w.hours[tonight, a:b] - sun.sunset_h[tonight, None], np.nan)
+    y_tonight = np.where(m_tail, tc_tail, np.nan)
     # per row again: a site with a forecast minimum or too few points needs no fit
     t0 = np.full(n, np.nan)
     k = np.full(n, np.nan)
-    points = m_tail.sum(axis=1)
+    points = np.zeros(n, dtype=np.intp)
+    points[tonight] = m_tail.sum(axis=1)
     with np.errstate(invalid="ignore"):
         past_transition = sun.hours_since_sunset >= settings.evening_transition_h
     need = np.isnan(p.proj) & (points >= settings.fit_min_points) & past_transition
-    if need.any():
-        pick = need if need.mean() < SUBSET_SHARE else slice(None)
-        t0[pick], k[pick] = physics.fit_sqrt_cooling(x[pick], y[pick])
-    fit_span = np.nanmax(x, axis=1, initial=-np.inf) - np.nanmin(x, axis=1, initial=np.inf)
+    if need.any() and need.mean() < SUBSET_SHARE:
+        picked = need[tonight]  # every row that needs a fit has readings tonight
+        t0[need], k[need] = physics.fit_sqrt_cooling(x_tonight[picked], y_tonight[picked])
+    elif need.any():
+        # the fit over every row, as wide as every row's, NaN where no readings: its
+        # sums then run as they always have, so the numbers are the same to the bit
+        x, y = np.full((n, b - a), np.nan), np.full((n, b - a), np.nan)
+        x[tonight], y[tonight] = x_tonight, y_tonight
+        t0[:], k[:] = physics.fit_sqrt_cooling(x, y)
+    fit_span = np.full(n, -np.inf)
+    fit_span[tonight] = np.nanmax(x_tonight, axis=1, initial=-np.inf) - np.nanmin(
+        x_tonight, axis=1, initial=np.inf
+    )
     fit_ok = need & ~np.isnan(k) & (fit_span >= settings.fit_min_span_h)
     p.fit_points = np.where(fit_ok, points, 0)
     night_len = (sun.next_sunrise - sun.last_sunset) / 3600.0
