@@ -358,7 +358,9 @@ class _SortedRows:
 class StepBlock(Block):
     """A :class:`Block` with a row per (time, site): row ``r`` holds the sorted rows
     ``lo[r]:hi[r]`` right-aligned, and forecast rows are paired with each row whose
-    time they can serve (from ``FORECAST_BEFORE_S`` before it to ``ahead_s`` after)."""
+    time they can serve (from ``FORECAST_BEFORE_S`` before it to ``ahead_s`` after).
+    It keeps no ``src``: a row's cells are one run of the sorted rows, read as such
+    (:meth:`_span`, :meth:`runs`)."""
 
     def __init__(
         self, rows: _SortedRows, t_at: np.ndarray, lo: np.ndarray, hi: np.ndarray, ahead_s: float
