@@ -142,7 +142,6 @@ class Block:
     forecast: tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]
     weather_code: np.ndarray  # per row of obs
     weather_flags: np.ndarray  # per code: reported, FG, FZFG, BR
-    _steps: int
 
     def __init__(
         self,
@@ -182,7 +181,6 @@ class Block:
         )
         self.weather_code = np.full(1, -1, dtype=np.intp)
         self.weather_flags = np.zeros((1, 4), dtype=bool)
-        self._steps = 1
 
     def _lay_out(
         self, st: SiteArrays, t_first: float, t_last: float, t_weather: float, t_forecast: float
@@ -232,7 +230,6 @@ class Block:
         self.width = width
         self.src = src
         self.t = self._gather(t_all, self.src, self.pad)
-        self._steps = width.bit_length()
 
         wrows = rows_sorted[t_sel >= t_weather]
         self.weather_code = np.full(nrows, -1, dtype=np.intp)
@@ -267,9 +264,16 @@ class Block:
             return np.full((self.n, max(stop - start, 0)), np.nan)
         if name in _WIDE_COLUMNS or (start == 0 and stop == self.width):
             # looked at over many hours, often several times: gathered whole, once
-            self._full[name] = self._gather(values, self.src, self.pad)
+            self._full[name] = self._span(values, 0, self.width, np.nan)
             return self._full[name][:, start:stop]
-        return self._gather(values, self.src[:, start:stop], self.pad[:, start:stop])
+        return self._span(values, start, stop, np.nan)
+
+    def _span(self, values: np.ndarray, start: int, stop: int, fill: float) -> np.ndarray:
+        """Columns ``start:stop`` of the cells of ``values`` (one per row of ``obs``),
+        ``fill`` in the padding."""
+        out = np.take(values, self.src[:, start:stop], mode="clip")
+        np.putmask(out, self.pad[:, start:stop], fill)
+        return out
 
     def newest(
         self,
@@ -309,12 +313,20 @@ class Block:
         block can give it without the cells (``notifier.engine.steps``); None here."""
         return None
 
+    def runs(
+        self, names: Sequence[str], lo: np.ndarray, hi: np.ndarray
+    ) -> tuple[np.ndarray, list[np.ndarray], np.ndarray] | None:
+        """Each row's columns ``lo:hi`` left-aligned — column ``c`` of row ``r`` is the
+        block's column ``lo[r] + c`` — as (cell times, a block per name of ``names``,
+        the mask of cells inside ``lo:hi``), where the block can read them so (a
+        history's, whose rows' windows lie at different columns); None here: the
+        caller reads :func:`column_span`'s slice."""
+        return None
+
     def weather(self, start: int, stop: int) -> np.ndarray:
         """Weather code of the cells in columns ``start:stop`` (-1: none); its flags are
         ``weather_flags[code]`` (reported, FG, FZFG, BR)."""
-        code = np.take(self.weather_code, self.src[:, start:stop], mode="clip")
-        np.putmask(code, self.pad[:, start:stop], -1)
-        return code
+        return self._span(self.weather_code, start, stop, -1)
 
     def reports(self, name: str) -> np.ndarray:
         """The sites (indices) with at least one value of ``name`` in the block."""
@@ -333,31 +345,28 @@ class Block:
         block has a row per site and time). Every such test is monotone
         along a row (False … True), as the rows are in time order and padding (NaN)
         fails it, so a binary search finds each boundary in log2(width) steps without
-        touching the whole block — all the tests at once.
+        touching the whole block: the number of failing columns, built up from the
+        largest power of two down (a step is taken while its last column still fails).
         """
-        n, k = self.n, len(tests)
-        of_hours = np.array([test[0] == "h" for test in tests])[:, None]
-        strict = np.array([test[2] == ">" for test in tests])[:, None]
-        minus = np.empty((k, n))
-        limit = np.empty((k, n))
-        for i, (_, sub, _, lim) in enumerate(tests):
-            minus[i] = sub
-            limit[i] = lim
+        width = self.width
         flat = self.t.reshape(-1)
-        base = self.rows * self.width
-        last = self.width - 1
-        lo = np.zeros((k, n), dtype=np.intp)
-        hi = np.full((k, n), self.width, dtype=np.intp)
+        last_of_row = self.rows * width - 1  # a row's column c - 1 is at this + c
+        top = 1 << (width.bit_length() - 1)
+        out = []
         with np.errstate(invalid="ignore"):
-            for _ in range(self._steps):
-                mid = (lo + hi) >> 1
-                t = flat[base + np.minimum(mid, last)]
-                value = np.where(of_hours, (t - t_at) / 3600.0, t) - minus
-                passed = np.where(strict, value > limit, value >= limit)
-                open_ = lo < hi
-                hi = np.where(open_ & passed, mid, hi)
-                lo = np.where(open_ & ~passed, mid + 1, lo)
-        return list(lo)
+            for of, minus, op, limit in tests:
+                failing = np.zeros(self.n, dtype=np.intp)
+                step = top
+                while step:
+                    after = failing + step
+                    within = after <= width
+                    t = flat[last_of_row + np.minimum(after, width)]
+                    value = ((t - t_at) / 3600.0 if of == "h" else t) - minus
+                    passed = value > limit if op == ">" else value >= limit
+                    failing = np.where(within & ~passed, after, failing)
+                    step >>= 1
+                out.append(failing)
+        return out
 
 
 def column_span(lo: np.ndarray, hi: np.ndarray) -> tuple[int, int]:

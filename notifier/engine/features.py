@@ -326,8 +326,8 @@ def feature_values(
     moist = families.moisture(w, now, settings)
     sun = projection.night_windows(w, st, _one(at), last_sunset, next_sunrise, night, offsets_s)
     net_lw, cooling_potential = families.radiation(now, st, settings)
-    proj = projection.projected_minimum(w, sun, now, cooling_potential, st, settings)
     crossover = projection.crossover(w, sun)
+    proj = projection.projected_minimum(w, sun, now, cooling_potential, st, settings, crossover)
     cur = now.values
     water = families.surfaces_and_water(now, st, _months(t_at, len(st.ids)))
     found = {

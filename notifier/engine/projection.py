@@ -134,8 +134,11 @@ def projected_minimum(
     cooling_potential: np.ndarray,
     st: SiteArrays,
     settings: FeatureSettings,
+    crossover_c: np.ndarray | None = None,
 ) -> Projection:
-    """The night's minimum: forecast, else the cooling fit, else the midday estimate."""
+    """The night's minimum: forecast, else the cooling fit, else the midday estimate.
+    ``crossover_c`` is :func:`crossover` where the caller has it already (it is a
+    feature of its own, and over a history's block a pass over every cell)."""
     n = w.blk.n
     p = Projection(
         method=np.full(n, "", dtype=object),
@@ -146,7 +149,8 @@ def projected_minimum(
         fit_k=np.full(n, np.nan),
     )
     _from_forecast(p, w, sun, cooling_potential, st.min_offset)
-    _from_cooling_fit(p, w, sun, now, st, settings)
+    crossover_c = crossover(w, sun) if crossover_c is None else crossover_c
+    _from_cooling_fit(p, w, sun, now, st, settings, crossover_c)
     _from_midday(p, w, sun, now, cooling_potential, st.min_offset)
     return p
 
@@ -172,7 +176,13 @@ def _from_forecast(
 
 
 def _from_cooling_fit(
-    p: Projection, w: Window, sun: Night, now: Current, st: SiteArrays, settings: FeatureSettings
+    p: Projection,
+    w: Window,
+    sun: Night,
+    now: Current,
+    st: SiteArrays,
+    settings: FeatureSettings,
+    crossover_c: np.ndarray,
 ) -> None:
     """(2) Brunt's square-root law fitted to tonight's own readings, where they can be
     trusted: past the evening transition, with ``fit_min_points`` readings over
@@ -185,26 +195,38 @@ def _from_cooling_fit(
     lowest dew point; docs/references.md [Crossover method]), else the dew point."""
     blk, n = w.blk, w.blk.n
     temp_c, dewpoint_c = now.temp_c, now.dewpoint_c
-    crossover_c = crossover(w, sun)
     a, b = column_span(sun.since_lo, w.hi)
-    h_tail = w.hours[:, a:b]
-    tc_tail = blk.block("temp_c", a, b)
-    m_tail = in_range(a, b, sun.since_lo, w.hi) & ~np.isnan(tc_tail)
-    x = np.where(m_tail, h_tail - sun.sunset_h[:, None], np.nan)
-    y = np.where(m_tail, tc_tail, np.nan)
-    if x.shape[1] < 3:
+    if b - a < 3:
         return
+    # Only the rows with readings since sunset are read (by day there are none; in a
+    # history's block that is most rows): every other row's x and y are all NaN, so
+    # its points are 0 and its span -inf, written as such.
+    tonight = np.flatnonzero(sun.since_lo < w.hi)
+    tc_tail = blk.block("temp_c", a, b)[tonight]
+    m_tail = in_range(a, b, sun.since_lo[tonight], w.hi[tonight]) & ~np.isnan(tc_tail)
+    x_tonight = np.where(m_tail, w.hours[tonight, a:b] - sun.sunset_h[tonight, None], np.nan)
+    y_tonight = np.where(m_tail, tc_tail, np.nan)
     # per row again: a site with a forecast minimum or too few points needs no fit
     t0 = np.full(n, np.nan)
     k = np.full(n, np.nan)
-    points = m_tail.sum(axis=1)
+    points = np.zeros(n, dtype=np.intp)
+    points[tonight] = m_tail.sum(axis=1)
     with np.errstate(invalid="ignore"):
         past_transition = sun.hours_since_sunset >= settings.evening_transition_h
     need = np.isnan(p.proj) & (points >= settings.fit_min_points) & past_transition
-    if need.any():
-        pick = need if need.mean() < SUBSET_SHARE else slice(None)
-        t0[pick], k[pick] = physics.fit_sqrt_cooling(x[pick], y[pick])
-    fit_span = np.nanmax(x, axis=1, initial=-np.inf) - np.nanmin(x, axis=1, initial=np.inf)
+    if need.any() and need.mean() < SUBSET_SHARE:
+        picked = need[tonight]  # every row that needs a fit has readings tonight
+        t0[need], k[need] = physics.fit_sqrt_cooling(x_tonight[picked], y_tonight[picked])
+    elif need.any():
+        # the fit over every row, as wide as every row's, NaN where no readings: its
+        # sums then run as they always have, so the numbers are the same to the bit
+        x, y = np.full((n, b - a), np.nan), np.full((n, b - a), np.nan)
+        x[tonight], y[tonight] = x_tonight, y_tonight
+        t0[:], k[:] = physics.fit_sqrt_cooling(x, y)
+    fit_span = np.full(n, -np.inf)
+    fit_span[tonight] = np.nanmax(x_tonight, axis=1, initial=-np.inf) - np.nanmin(
+        x_tonight, axis=1, initial=np.inf
+    )
     fit_ok = need & ~np.isnan(k) & (fit_span >= settings.fit_min_span_h)
     p.fit_points = np.where(fit_ok, points, 0)
     night_len = (sun.next_sunrise - sun.last_sunset) / 3600.0
@@ -258,11 +280,19 @@ def _from_midday(
     a, b = column_span(noon_lo, noon_hi)
     t12 = np.full(n, np.nan)
     td12 = np.full(n, np.nan)
-    if b > a:
+    runs = blk.runs(("temp_c", "dewpoint_c"), noon_lo, noon_hi) if b > a else None
+    if runs is not None:
+        # a history's rows: each row's own midday cells, in their order (so the first
+        # nearest is the same cell), not the span of every row's
+        t_cells, (temp_band, dew_band), inside = runs
+        h_band = _hours(t_cells, w.t_at)
+        near_noon = inside & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+    elif b > a:
         h_band = w.hours[:, a:b]
         temp_band = blk.block("temp_c", a, b)
         dew_band = blk.block("dewpoint_c", a, b)
         near_noon = in_range(a, b, noon_lo, noon_hi) & ~np.isnan(temp_band) & ~np.isnan(dew_band)
+    if b > a:
         dist = np.where(near_noon, np.abs(h_band - sun.noon_h[:, None]), np.inf)
         best = np.argmin(dist, axis=1)
         has_noon = np.isfinite(dist[rows, best])
@@ -291,7 +321,10 @@ def crossover(w: Window, sun: Night) -> np.ndarray:
         dew_band = w.blk.block("dewpoint_c", a, b)
         aft = in_range(a, b, aft_start, aft_stop) & ~np.isnan(dew_band)
         lowest = np.where(aft, dew_band, np.inf).min(axis=1)
-        # none in the window (or an infinite reading) is unknown
+        # none in the window (or an infinite reading) is unknown. (Over a history's rows
+        # this is not read as each row's own run, as the midday is: the minimum of a
+        # 0.0 and a -0.0 depends on where they fall in the SIMD lanes, and the feature
+        # must stay bit for bit.)
         out = np.where(np.isinf(lowest), np.nan, lowest)
     return out
 
@@ -318,6 +351,13 @@ def data_age_min(w: Window) -> np.ndarray:
     """Minutes since the newest reading; +inf for a site that has never reported."""
     with np.errstate(invalid="ignore"):
         return np.where(np.isnan(w.last_any), np.inf, 0.0 - w.last_any * 60.0)
+
+
+def _hours(t: np.ndarray, t_at: float | np.ndarray) -> np.ndarray:
+    """Cells' hours from their rows' evaluation times, as ``families.CellHours`` works
+    them out."""
+    at = t_at[:, None] if isinstance(t_at, np.ndarray) else t_at
+    return (t - at) / 3600.0
 
 
 def _min_per_site(

@@ -240,6 +240,7 @@ class _SortedRows:
         self.n = len(st.ids)
         self._steps: dict[float, tuple[np.ndarray, np.ndarray]] = {}
         self._counts: dict[str, np.ndarray | None] = {}
+        self._last_valued: dict[str, np.ndarray | None] = {}
         self._sorted_columns: dict[str, np.ndarray | None] = {}
         empty = np.zeros(0)
         self.rows_sorted = np.zeros(0, dtype=np.intp)
@@ -300,6 +301,19 @@ class _SortedRows:
             )
         return self._counts[name]
 
+    def last_valued(self, name: str) -> np.ndarray | None:
+        """For each sorted row, the last sorted row at or before it with a value of
+        ``name`` (-1 where none): a run ``lo:hi``'s newest value is at
+        ``last[hi - 1]``, if that is ``lo`` or after."""
+        if name not in self._last_valued:
+            values = self.sorted_column(name)
+            self._last_valued[name] = (
+                None
+                if values is None
+                else np.maximum.accumulate(np.where(np.isnan(values), -1, np.arange(values.size)))
+            )
+        return self._last_valued[name]
+
     def step_table(self, noise: float) -> tuple[np.ndarray, np.ndarray]:
         """For the depression's reporting step (``families._depression_step``) over any
         run of sorted rows: (the first row with a depression at or after each row, a
@@ -344,7 +358,9 @@ class _SortedRows:
 class StepBlock(Block):
     """A :class:`Block` with a row per (time, site): row ``r`` holds the sorted rows
     ``lo[r]:hi[r]`` right-aligned, and forecast rows are paired with each row whose
-    time they can serve (from ``FORECAST_BEFORE_S`` before it to ``ahead_s`` after)."""
+    time they can serve (from ``FORECAST_BEFORE_S`` before it to ``ahead_s`` after).
+    It keeps no ``src``: a row's cells are one run of the sorted rows, read as such
+    (:meth:`_span`, :meth:`runs`)."""
 
     def __init__(
         self, rows: _SortedRows, t_at: np.ndarray, lo: np.ndarray, hi: np.ndarray, ahead_s: float
@@ -364,25 +380,60 @@ class StepBlock(Block):
         width = max(int(counts.max(initial=0)), 1)
         cols = np.arange(width)
         self.pad = cols[None, :] < (width - counts)[:, None]
-        # a cell's source is its position among the sorted rows (not its row of the
-        # table, as in Block): the values are read from the sorted columns, where a
-        # block row's cells are neighbours; padding reads the NaN after the last
-        last = rows.rows_sorted.size
-        src = (hi - width)[:, None] + cols[None, :]
-        np.putmask(src, self.pad, last)
         self.width = width
         self._sorted = rows
+        # A cell's source is its position among the sorted rows (not its row of the
+        # table, as in Block): a block row's cells are neighbours there, sorted
+        # positions hi - width … hi - 1, so each row is one run of a column (a window
+        # view of it) and no index is kept per cell; padding reads the fill.
         self._first_pos = hi - width  # the sorted row of column 0, per block row
         self._lo, self._hi = lo, hi
         # every cell outside the padding is in its row's window (window_bounds), so the
         # window's columns need no search: what bounds would find, padding failing
         self._window = (width - counts, np.full(n, width, dtype=np.intp))
-        self.src = src
-        self.t = self._gather(np.append(rows.t_sel, np.nan), src, self.pad)
-        self._steps = width.bit_length()
-        self.weather_code = np.append(rows.weather_code[rows.rows_sorted], -1)
+        self.t = self._span(rows.t_sel, 0, width, np.nan)
+        self.weather_code = rows.weather_code[rows.rows_sorted]  # per sorted row
         self.weather_flags = rows.weather_flags
         self.forecast = self._paired(rows, t_at, ahead_s)
+
+    def _span(self, values: np.ndarray, start: int, stop: int, fill: float) -> np.ndarray:
+        """Columns ``start:stop`` of the cells of ``values`` (one per sorted row, or one
+        more: the padding's NaN, not read here), ``fill`` in the padding: row ``r`` is
+        the run of sorted rows from ``hi[r] - width + start``, read through a window
+        view of the column with ``width`` fills before it (where a run starts before
+        the first row; those cells are padding)."""
+        span = stop - start
+        if span <= 0:
+            return np.empty((self.n, 0), dtype=values.dtype)
+        rows = self._sorted.rows_sorted.size
+        padded = np.concatenate((np.full(self.width, fill, dtype=values.dtype), values[:rows]))
+        out = np.lib.stride_tricks.sliding_window_view(padded, span)[self._hi + start]
+        np.putmask(out, self.pad[:, start:stop], fill)
+        return out
+
+    def runs(
+        self, names: Sequence[str], lo: np.ndarray, hi: np.ndarray
+    ) -> tuple[np.ndarray, list[np.ndarray], np.ndarray] | None:
+        """:meth:`Block.runs`: each row's sorted rows from ``hi[r] - width + lo[r]``, as
+        long as the longest ``lo:hi``, read through a window view of each column; the
+        cells past a row's own ``hi`` are outside the mask."""
+        if self._empty:
+            return None
+        counts = np.where(lo < hi, hi - lo, 0)
+        length = int(counts.max(initial=0))
+        inside = np.arange(length)[None, :] < counts[:, None]
+        rows = self._sorted.rows_sorted.size
+        start = np.clip(self._first_pos + lo, 0, rows)
+
+        def run(values: np.ndarray) -> np.ndarray:
+            padded = np.concatenate((values[:rows], np.full(length, np.nan)))
+            return np.lib.stride_tricks.sliding_window_view(padded, length)[start]
+
+        columns = []
+        for name in names:
+            values = self.column(name)
+            columns.append(np.full((self.n, length), np.nan) if values is None else run(values))
+        return run(self._sorted.t_sel), columns, inside
 
     def column(self, name: str) -> np.ndarray | None:
         return None if self._empty else self._sorted.sorted_column(name)
@@ -402,6 +453,27 @@ class StepBlock(Block):
                 else np.flatnonzero(counts[self._hi] > counts[self._lo])
             )
         return self._reports[name]
+
+    def newest(
+        self,
+        name: str,
+        start: int,
+        stop: int,
+        lo: np.ndarray,
+        hi: np.ndarray,
+        valid: np.ndarray,
+    ) -> np.ndarray:
+        """:meth:`Block.newest` from the sorted rows, without the cells: a row's columns
+        ``lo:hi`` are its sorted rows from ``hi[r] - width + lo``, and the newest value
+        among them is the last valued row at or before the run's end."""
+        last = None if self._empty or stop <= start else self._sorted.last_valued(name)
+        values = self.column(name)
+        if last is None or values is None:
+            return np.full(self.n, np.nan)
+        some = lo < hi
+        at = last[np.where(some, self._first_pos + hi - 1, 0)]
+        found = some & (at >= self._first_pos + lo)
+        return np.where(found, values[at], np.nan)
 
     def smallest_step(self, lo: np.ndarray, hi: np.ndarray, noise: float) -> np.ndarray | None:
         """``families._depression_step`` from the sorted rows (see
