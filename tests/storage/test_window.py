@@ -215,3 +215,25 @@ def test_public_names():
     import notifier.storage.window as window_module
 
     assert window_module.__all__ == ["RollingWindow"]
+
+
+def test_a_column_no_row_has_is_held_as_one_value(store: Store) -> None:
+    """Feeds without a ceiling or rain leave those columns empty: the window holds each
+    as one NaN (no memory a row), until a row brings a value, and hands out the same
+    table as a full read throughout."""
+    store.add_observations(canonical([row(s, m) for s in WATCHED for m in range(0, 120, 10)]))
+    window = RollingWindow(store, WATCHED, back=BACK, ahead=AHEAD)
+    at = T0 + timedelta(minutes=110)
+    assert_same_as_a_full_read(store, window, at)
+    held = window._columns
+    assert held is not None and held["ceiling_m"].strides == (0,)
+    assert held["temp_c"].strides == (8,), "a column with values is held whole"
+    store.add_observations(canonical([row("zz-wold", 120, ceiling_m=150.0)]))
+    at += timedelta(minutes=10)
+    assert_same_as_a_full_read(store, window, at)
+    assert window._columns is not None and window._columns["ceiling_m"].strides == (8,)
+    assert window.frame(at)["ceiling_m"].notna().sum() == 1
+    # the row with the value falls out of the back: the column is empty again
+    store.add_observations(canonical([row(s, m) for s in WATCHED for m in range(130, 500, 10)]))
+    assert_same_as_a_full_read(store, window, T0 + timedelta(minutes=130) + BACK)
+    assert len(window) > 0 and window._columns["ceiling_m"].strides == (0,)
