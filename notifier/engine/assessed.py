@@ -182,7 +182,6 @@ class Assessments(Sequence[SiteAssessment]):
         }
         self.site_levels = SiteLevels([s.id for s in sites], levels, sustain, seen, sooner, stale)
 
-
     @property
     def evaluations(self) -> Sequence[RuleEvaluation]:
         """The rule evaluations these assessments were made from (sites × times cells)."""
@@ -195,6 +194,7 @@ class Assessments(Sequence[SiteAssessment]):
     def fires_at(self, cells: np.ndarray) -> np.ndarray:
         """Whether each rule fires (rules × the given cells)."""
         return np.asarray(self._flags[0])[:, cells]
+
     def __len__(self) -> int:
         return len(self.sites)
 

@@ -293,7 +293,6 @@ def test_reasons_leave_out_whether_a_sensor_reports(tmp_path):
     assert evaluation.reasons_at(0) == res.reasons()  # the snapshots' path, the same
 
 
-
 def test_reasons_leave_out_the_clock_of_the_night(tmp_path):
     # "time to sunrise 15.3 h ≤ 16 h" only says "tonight" (the message's When: line says
     # it in words): a harbour desk reads the air, the wind and the sky as the reasons
@@ -314,6 +313,7 @@ def test_reasons_leave_out_the_clock_of_the_night(tmp_path):
     assert res.fires
     assert res.reasons() == ["dew-point depression 0.8 °C ≤ 1 °C", "wind 1.2 m/s < 3 m/s"]
     assert evaluation.reasons_at(0) == res.reasons()
+
 
 # -- margin: hysteresis in the direction that keeps the rule true ------------------------
 #
