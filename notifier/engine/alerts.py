@@ -14,7 +14,8 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
-from notifier.core.timefmt import iso_text, parse_iso
+from notifier.core.timefmt import iso_text as _iso_text
+from notifier.core.timefmt import parse_iso
 from notifier.engine.assessment import level_rank
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -266,6 +267,15 @@ class Event:
             gap_untold=bool(data.get("gap_untold", False)),
             in_force=tuple(data.get("in_force", ())),
         )
+
+
+def iso_text(t: datetime | None) -> str | None:
+    """``timefmt.iso_text``, without converting a time already in UTC (the lifecycle's
+    times all are): a state or event writes some fifteen times, tens of thousands of
+    states and events a cycle at 100,000 sites."""
+    if t is not None and t.tzinfo is UTC:
+        return t.isoformat()
+    return _iso_text(t)
 
 
 def event_id(

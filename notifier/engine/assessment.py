@@ -16,7 +16,15 @@ import numpy as np
 
 from notifier.core.timefmt import iso_z
 from notifier.engine.catalog import FEATURES, FeatureTable
-from notifier.engine.rules import LEVELS, Rule, RuleEvaluation, RuleResult
+from notifier.engine.rules import (
+    LEVELS,
+    Outcome,
+    Rule,
+    RuleEvaluation,
+    RuleResult,
+    _as_float,
+    reason_text,
+)
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.core.config import Site
@@ -92,6 +100,12 @@ class FeatureRow(Mapping[str, float]):
     def __getitem__(self, name: str) -> float:
         return float(self._table.values[name][self._i])
 
+    def get(self, name: str, default: Any = None) -> Any:  # type: ignore[override]
+        # Mapping.get goes through __getitem__ and a caught KeyError: an event reads
+        # some thirty features this way
+        column = self._table.values.get(name)
+        return default if column is None else float(column[self._i])
+
     def __iter__(self) -> Iterator[str]:
         return iter(self._table.values)
 
@@ -145,6 +159,38 @@ def results_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[Rule
     if isinstance(sa.results, SiteResults):
         return sa.results.where(keep)
     return [r for r in sa.results if keep(r.rule)]
+
+
+def tested_where(sa: SiteAssessment, keep: Callable[[Rule], bool]) -> list[set[str]]:
+    """The features each rule ``keep`` accepts tests (``Rule.features()``), in rule
+    order; from the evaluations' lists of tests where they can be, not by walking each
+    rule's tree again (for every event, that was a tenth of building it)."""
+    if isinstance(sa.results, SiteResults):
+        return [{t.feature for t in ev.tests} for ev in sa.results._evals if keep(ev.rule)]
+    return [r.rule.features() for r in sa.results if keep(r.rule)]
+
+
+def firing_reasons(
+    sa: SiteAssessment, keep: Callable[[Rule], bool]
+) -> list[tuple[Rule, list[str]]]:
+    """The rules ``keep`` accepts that apply and fire at ``sa``'s site, in order, each
+    with its ``RuleResult.reasons()``; from the rule evaluations where they can be, no
+    result built (building one also works out which tests leave it undecided)."""
+    results = sa.results
+    if not isinstance(results, SiteResults) or results._cache is not None:
+        return [(r.rule, r.reasons()) for r in results_where(sa, keep) if r.applies and r.fires]
+    i = results._i
+    out = []
+    for ev in results._evals:
+        if not (keep(ev.rule) and ev.applies[i] and ev.fires[i]):
+            continue
+        reasons = [
+            reason_text(Outcome(test, _as_float(values[i]), True, True))
+            for test, values, held in zip(ev.tests, ev.values, ev.held, strict=True)
+            if held[i] and FEATURES[test.feature].in_reasons
+        ]
+        out.append((ev.rule, reasons))
+    return out
 
 
 @dataclass

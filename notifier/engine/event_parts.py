@@ -12,8 +12,9 @@ from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
 from notifier.engine.alerts import AlertState, Event, event_id
-from notifier.engine.assessment import level_rank, results_where, rules_where
+from notifier.engine.assessment import firing_reasons, level_rank, results_where, tested_where
 from notifier.engine.catalog import FEATURES, SHOWN_FEATURES, format_value
+from notifier.engine.templates import render_template
 
 if TYPE_CHECKING:  # pragma: no cover
     from notifier.engine.assessment import HazardAssessment, SiteAssessment
@@ -59,19 +60,26 @@ def _rank(level: str) -> int:
 
 def shown_features(sa: SiteAssessment, rule_ids: Sequence[str]) -> dict[str, float]:
     names = list(SHOWN_FEATURES)
-    for rule in rules_where(sa, lambda rule: rule.id in rule_ids):
-        names.extend(sorted(rule.features()))
+    for tested in tested_where(sa, lambda rule: rule.id in rule_ids):
+        names.extend(sorted(tested))
+    features = sa.features
     out: dict[str, float] = {}
     for name in names:
-        value = sa.features.get(name)
-        if name in out or value is None or name == "data_age_min":
+        if name in out or name in _NOT_SHOWN:
             continue
-        if FEATURES.get(name) is not None and FEATURES[name].kind == "bool":
+        value = features.get(name)
+        if value is None:
             continue
         value = float(value)
         if math.isfinite(value):
             out[name] = value
     return out
+
+
+#: what an event never shows: the data's age (it has its own field) and the flags
+_NOT_SHOWN = frozenset(
+    {"data_age_min", *(name for name, spec in FEATURES.items() if spec.kind == "bool")}
+)
 
 
 def changes(sa: SiteAssessment, state: AlertState) -> tuple[str, ...]:
@@ -132,12 +140,15 @@ def make_event(
     else:
         rules = tuple(hazard.rules) if hazard else sustaining_rules(sa, state.hazard, new_level)
     age = sa.features.get("data_age_min")
-    reasons = tuple(hazard.reasons) if hazard else ()
-    explanations = tuple(hazard.explanations) if hazard else ()
-    if hazard is not None and extra.get("seen"):
-        # what is seen, not the forecast that led to the warning (the projected minimum
-        # or the hours to fog are moot once fog is here)
-        reasons, explanations = seen_texts(sa, hazard) or (reasons, explanations)
+    # what is seen, not the forecast that led to the warning (the projected minimum or
+    # the hours to fog are moot once fog is here); the hazard's own texts are made only
+    # when nothing seen replaces them
+    seen = seen_texts(sa, hazard) if hazard is not None and extra.get("seen") else None
+    if seen is not None:
+        reasons, explanations = seen
+    else:
+        reasons = tuple(hazard.reasons) if hazard else ()
+        explanations = tuple(hazard.explanations) if hazard else ()
     return Event(
         id=event_id(state.site_id, state.hazard, episode_start, type_, new_level, now),
         type=type_,
@@ -169,24 +180,23 @@ def seen_texts(
 ) -> tuple[tuple[str, ...], tuple[str, ...]] | None:
     """The reasons and explanations of the rules that see the hazard (``SIGHT_KINDS``,
     at its level) and fire now, each value once; None when there are none."""
-    found = results_where(
+    firing = firing_reasons(
         sa,
         lambda rule: (
             rule.hazard == hazard.hazard and rule.level == hazard.level and rule.kind in SIGHT_KINDS
         ),
     )
-    firing = [r for r in found if r.applies and r.fires]
     if not firing:
         return None
     reasons: list[str] = []
     said: set[str] = set()
-    for result in firing:
-        for text in result.reasons():
+    for _, texts in firing:
+        for text in texts:
             value = _COMPARED.split(text, maxsplit=1)[0]  # "≤ 0 °C" and "< 0 °C": one line
             if value not in said:
                 said.add(value)
                 reasons.append(text)
-    explanations = [r.explanation(sa.features) for r in firing if r.rule.explain]
+    explanations = [render_template(r.explain, sa.features) for r, _ in firing if r.explain]
     return tuple(reasons), tuple(dict.fromkeys(explanations))
 
 

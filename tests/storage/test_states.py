@@ -86,3 +86,26 @@ def test_the_caller_may_change_what_it_is_handed(any_store):
     box.commit_cycle({}, {a: state(a)}, [], [], T0)
     box.states().clear()
     assert box.states() == {a: state(a)}
+
+
+def test_what_is_kept_is_what_a_read_gives_back_to_the_letter(any_store):
+    # a state kept as it was handed must read back identically: times in another zone
+    # (equal instants, another tzinfo), lists for tuples and an empty peak are parsed
+    # back from the JSON written, as a read would give them
+    from dataclasses import replace
+    from datetime import timezone
+
+    box = Outbox(any_store)
+    a, b, c, d = (("site-1", "fog"), ("site-2", "fog"), ("site-3", "icing"), ("site-4", "fog"))
+    elsewhere = (T0 + timedelta(microseconds=7)).astimezone(timezone(timedelta(hours=2)))
+    new = {
+        a: state(a, "warning", T0 + timedelta(microseconds=7)),
+        b: state(b, "warning", elsewhere),
+        c: replace(state(c), reasons=["dew-point depression 0.8 °C ≤ 1 °C"]),  # type: ignore[arg-type]
+        d: replace(state(d), peak=""),
+    }
+    box.commit_cycle(box.states(), new, [], [], T0)
+    kept, read = box.states(), Outbox(any_store).states()
+    assert box.alert_states.last_from_memory
+    assert repr(sorted(kept.items())) == repr(sorted(read.items()))
+    assert kept[a] is new[a]  # in UTC with tuples: kept as it is, not parsed again
