@@ -37,9 +37,9 @@ def test_a_share_holds_fewer_sites_the_more_times(n_times, sites):
     assert site_chunks.share_size(n_times) == sites
 
 
-def test_the_default_share_follows_the_times(world, monkeypatch):  # noqa: F811
-    sites, obs = world
-    calls = []
+def _count_share_sizes(monkeypatch) -> list[int]:
+    """The number of sites of each ``features_at`` call ``features_by_share`` makes."""
+    calls: list[int] = []
     original = site_chunks.features_at
 
     def counted(obs, sites, *args, **kwargs):
@@ -47,6 +47,12 @@ def test_the_default_share_follows_the_times(world, monkeypatch):  # noqa: F811
         return original(obs, sites, *args, **kwargs)
 
     monkeypatch.setattr(site_chunks, "features_at", counted)
+    return calls
+
+
+def test_the_default_share_follows_the_times(world, monkeypatch):  # noqa: F811
+    sites, obs = world
+    calls = _count_share_sizes(monkeypatch)
     # share_size's floor (1,000 sites) is above this world's 240: a smaller rule of the
     # same form shows the default taking the number of times into account
     monkeypatch.setattr(site_chunks, "share_size", lambda n_times: 300 // n_times)
@@ -87,14 +93,7 @@ def test_shares_give_the_whole_lists_tables(world, chunk):  # noqa: F811
 
 def test_a_table_not_coded_by_the_sites_goes_in_one_piece(world, monkeypatch):  # noqa: F811
     sites, obs = world
-    calls = []
-    original = site_chunks.features_at
-
-    def counted(obs, sites, *args, **kwargs):
-        calls.append(len(sites))
-        return original(obs, sites, *args, **kwargs)
-
-    monkeypatch.setattr(site_chunks, "features_at", counted)
+    calls = _count_share_sizes(monkeypatch)
     coded = _window_coded(sites, obs)
     shuffled = coded.sample(frac=1.0, random_state=3)  # not grouped in the sites' order
     for table in (obs, shuffled, coded.astype({"site": str})):
