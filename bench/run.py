@@ -96,17 +96,31 @@ def reset_peak_rss() -> bool:
         return False
 
 
-def peak_rss_mb() -> float:
-    """This process's high-water resident set (VmHWM; getrusage where /proc is missing)."""
+def _status_mb(field: str) -> float | None:
+    """A memory figure of /proc/self/status in MiB (None where /proc is missing)."""
     try:
         for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmHWM:"):
+            if line.startswith(field + ":"):
                 return int(line.split()[1]) / 1024.0
     except OSError:
         pass
+    return None
+
+
+def peak_rss_mb() -> float:
+    """This process's high-water resident set (VmHWM; getrusage where /proc is missing)."""
+    peak = _status_mb("VmHWM")
+    if peak is not None:
+        return peak
     import resource
 
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def rss_now_mb() -> float:
+    """This process's resident set now (VmRSS; NaN where /proc is missing)."""
+    now = _status_mb("VmRSS")
+    return float("nan") if now is None else now
 
 
 # ---- W1, in a child process -------------------------------------------------------------

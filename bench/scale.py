@@ -85,7 +85,7 @@ def load_store(directory: Path, n_sites: int, seed: int = generate.SEED) -> tupl
 def child(db: Path, n_sites: int, seed: int, out: Path) -> None:
     """In a fresh interpreter: the service's start, one cycle, a reload."""
     import pandas as pd
-    from run import peak_rss_mb, reset_peak_rss
+    from run import peak_rss_mb, reset_peak_rss, rss_now_mb
 
     import notifier.service.cycle as cycle_module
 
@@ -244,17 +244,6 @@ def write_sites_table(path: Path, sites: Any) -> None:
                     value = ";".join(str(v) for v in value or ())
                 row.append("" if value is None else value)
             writer.writerow(row)
-
-
-def rss_now_mb() -> float:
-    """This process's resident set now (VmRSS; NaN where /proc is missing)."""
-    try:
-        for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    return float("nan")
 
 
 def measure(directory: Path, n_sites: int, seed: int = generate.SEED) -> dict[str, Any]:

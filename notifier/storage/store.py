@@ -279,17 +279,14 @@ class Store:
         *,
         after: int | None = None,
         categorical: bool = False,
-        site_range: tuple[str | None, str | None] = (None, None),
     ) -> pd.DataFrame:
         """Rows with ``start <= time <= end``, as a canonical table sorted by site, time.
 
         ``end=None``: no upper bound. ``after``: only rows written by batches after that
         one (see :meth:`last_batch`). ``categorical``: the text columns as categoricals
-        (one string per distinct value) instead of ``str`` objects. ``site_range``:
-        only sites from the first (included) to the second (not included); ``None``
-        leaves that end open.
+        (one string per distinct value) instead of ``str`` objects.
         """
-        chunks = self.window_chunks(site_ids, start, end, kinds, after=after, site_range=site_range)
+        chunks = self.window_chunks(site_ids, start, end, kinds, after=after)
         if not chunks:
             return records_frame([], shared_text=categorical)
         joined = join_columns(chunks)
@@ -306,7 +303,9 @@ class Store:
         site_range: tuple[str | None, str | None] = (None, None),
     ) -> list[dict[str, Any]]:
         """:meth:`window`'s rows as :func:`~notifier.storage.rows.join_columns` takes
-        them: a dict of columns per fetched chunk, in order."""
+        them: a dict of columns per fetched chunk, in order. ``site_range``: only sites
+        from the first (included) to the second (not included); ``None`` leaves that
+        end open."""
         mark = self._mark()
         kinds = list(kinds)
         if not kinds or (site_ids is not None and not list(site_ids)):
