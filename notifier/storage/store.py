@@ -20,7 +20,7 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.pool import StaticPool
 
-from notifier.core.columns import CANONICAL_COLUMNS, FLOAT_COLUMNS, text_columns_as_objects
+from notifier.core.columns import FLOAT_COLUMNS, text_columns_as_objects
 from notifier.core.errors import StoreError
 from notifier.core.redact import redact, redact_url
 from notifier.core.timefmt import iso_z, parse_iso
@@ -42,6 +42,7 @@ from notifier.storage.rows import (
     records_frame,
     sql_text,
 )
+from notifier.storage.window_query import window_sql
 
 __all__ = ["Store"]
 
@@ -306,42 +307,19 @@ class Store:
         them: a dict of columns per fetched chunk, in order. ``site_range``: only sites
         from the first (included) to the second (not included); ``None`` leaves that
         end open."""
-        mark = self._mark()
         kinds = list(kinds)
         if not kinds or (site_ids is not None and not list(site_ids)):
             return []
-        sql = (
-            f"SELECT {', '.join(CANONICAL_COLUMNS)} FROM observations "
-            f"WHERE time >= {mark} AND kind IN ({', '.join([mark] * len(kinds))})"
+        sql, params = window_sql(
+            self.engine.dialect.name,
+            self._mark(),
+            start_s=epoch_s(start, ceil=True),
+            end_s=None if end is None else epoch_s(end),
+            kinds=kinds,
+            site_ids=site_ids,
+            after=after,
+            site_range=site_range,
         )
-        params: list[Any] = [epoch_s(start, ceil=True), *kinds]
-        if end is not None:
-            sql += f" AND time <= {mark}"
-            params.append(epoch_s(end))
-        if after is not None:
-            sql += f" AND batch > {mark}"
-            params.append(int(after))
-        first_site, past_site = site_range
-        if first_site is not None:
-            sql += f" AND site >= {mark}"
-            params.append(first_site)
-        if past_site is not None:
-            sql += f" AND site < {mark}"
-            params.append(past_site)
-        if site_ids is not None:
-            site_ids = list(site_ids)
-            if self.engine.dialect.name == "postgresql":  # one parameter, any number
-                sql += f" AND site = ANY({mark})"
-                params.append(site_ids)
-            else:
-                sql += f" AND site IN ({', '.join([mark] * len(site_ids))})"
-                params += site_ids
-        if after is not None and self.engine.dialect.name == "sqlite":
-            # "+site": SQLite would otherwise walk the whole primary-key index to save the
-            # sort, rather than take the few rows of the latest batches by their index
-            sql += " ORDER BY +site, time, kind"
-        else:
-            sql += " ORDER BY site, time, kind"
         # Fetched in chunks, each turned into columns at once, and the text columns
         # (site, kind, source, weather: few distinct values) share one string object per
         # value: a 10,000-site window then costs a fraction of the memory of 1.4 M tuples.
