@@ -224,6 +224,12 @@ class RuleSet:
     safety: Mapping[str, SafetyNote]
     files: tuple[str, ...]
 
+    def held_features(self) -> set[str]:
+        """The features the rules with a hold test: all that is read of an earlier
+        time's feature table (``assess._evaluate_rules`` reads it for the hold windows
+        alone), so a caller keeping such tables needs keep only these."""
+        return {name for r in self.rules if r.hold_s > 0 for name in r.features()}
+
     def rule(self, rule_id: str) -> Rule:
         for r in self.rules:
             if r.id == rule_id:

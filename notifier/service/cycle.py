@@ -297,7 +297,7 @@ class Service:
         # held rules test. The rest go (at 100,000 sites some fifteen tables are kept,
         # about 35 MB each whole); a table without one of them (the rules changed) is
         # worked out again.
-        held = {name for r in self.rules.rules if r.hold_s > 0 for name in r.features()}
+        held = self.rules.held_features()
         for t, table in list(self._features.items()):
             if not held <= table.values.keys():
                 del self._features[t]

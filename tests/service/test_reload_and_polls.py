@@ -133,7 +133,7 @@ def test_kept_tables_hold_only_what_the_hold_windows_read(scene: Scene) -> None:
     kept = scene.service()
     for at in times:
         report = kept.poll_and_assess(at)
-    held = {n for r in kept.rules.rules if r.hold_s > 0 for n in r.features()}
+    held = kept.rules.held_features()
     assert held, "the shipped rules hold some tests"
     earlier = kept._remembered(times[-1] + timedelta(minutes=10))
     assert earlier and all(set(t.values) == held for t in earlier.values())
