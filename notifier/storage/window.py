@@ -399,8 +399,15 @@ def _compact_columns(columns: dict[str, Any]) -> None:
     100,000 sites."""
     for name in FLOAT_COLUMNS:
         values = columns[name]
-        if values.size > 1 and not _is_missing(values) and np.isnan(values).all():
+        if values.size <= 1 or _is_missing(values):
+            continue
+        # every cycle, every column: a value among the first rows (most columns) settles
+        # it without a pass over the whole window
+        if np.isnan(values[:_FIRST_ROWS]).all() and np.isnan(values).all():
             columns[name] = np.broadcast_to(np.float64(np.nan), values.shape)
+
+
+_FIRST_ROWS = 4096  # rows looked at before a whole column is
 
 
 def _rows_of(values: np.ndarray, rows: np.ndarray) -> np.ndarray:
