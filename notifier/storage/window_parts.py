@@ -44,7 +44,7 @@ def split_point(store: Store, site_ids: Sequence[str]) -> str | None:
     """The site id the upper part starts at, or ``None``: read in one piece."""
     if len(site_ids) < SPLIT_MIN_SITES or (os.cpu_count() or 1) < 2:
         return None
-    if store.url in ("sqlite://", "sqlite:///:memory:") or ":memory:" in store.url:
+    if store.url == "sqlite://" or ":memory:" in store.url:
         return None  # another process cannot open it
     ordered = sorted(site_ids)
     return ordered[len(ordered) // 2]
